@@ -1,0 +1,139 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"strings"
+
+	"github.com/halite-cds/halite/fhirmap"
+	"github.com/halite-cds/halite/hooks"
+)
+
+// stringList is a repeatable string flag.
+type stringList []string
+
+func (s *stringList) String() string     { return strings.Join(*s, ",") }
+func (s *stringList) Set(v string) error { *s = append(*s, v); return nil }
+
+// bundleFlags are the flags eval and request share.
+type bundleFlags struct {
+	hook, service, user string
+	selections          stringList
+}
+
+func (b *bundleFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&b.hook, "hook", "", "the `hook` to simulate: order-sign, order-select or patient-view (required)")
+	fs.StringVar(&b.service, "service", "", "run only the service with this `id` (default: every service on the hook)")
+	fs.StringVar(&b.user, "user", "Practitioner/cli-user", "context.userId `reference`")
+	fs.Var(&b.selections, "select", "order-select: a draft order `reference` to select, repeatable (default: all drafts)")
+}
+
+// services returns the services to run for the flags.
+func (b *bundleFlags) services(reg *hooks.Registry) ([]hooks.Service, error) {
+	if b.hook == "" {
+		return nil, errors.New("--hook is required (order-sign, order-select or patient-view)")
+	}
+	if b.service != "" {
+		svc, ok := reg.Lookup(b.service)
+		if !ok {
+			return nil, fmt.Errorf("--service: no service %q", b.service)
+		}
+		if !svc.Serves(b.hook) {
+			return nil, fmt.Errorf("--service: %s does not serve hook %q", svc.ID, b.hook)
+		}
+		return []hooks.Service{svc}, nil
+	}
+	svcs := reg.ForHook(b.hook)
+	if len(svcs) == 0 {
+		return nil, fmt.Errorf("--hook: no service serves %q", b.hook)
+	}
+	return svcs, nil
+}
+
+func (b *bundleFlags) options() hooks.RequestOptions {
+	return hooks.RequestOptions{Hook: b.hook, UserID: b.user, Selections: b.selections}
+}
+
+// readBundle reads a FHIR Bundle from path ("-" for standard input).
+func readBundle(path string) (*fhirmap.Bundle, error) {
+	var data []byte
+	var err error
+	if path == "-" {
+		data, err = io.ReadAll(os.Stdin)
+	} else {
+		data, err = os.ReadFile(path)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("read bundle: %w", err)
+	}
+	b, err := fhirmap.ParseBundle(data)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return b, nil
+}
+
+// oneBundle checks that exactly one bundle path was given.
+func oneBundle(args []string) (string, error) {
+	switch len(args) {
+	case 1:
+		return args[0], nil
+	case 0:
+		return "", errors.New("a BUNDLE file is required (\"-\" reads standard input)")
+	default:
+		return "", fmt.Errorf("one BUNDLE file expected, got %d arguments", len(args))
+	}
+}
+
+// writeJSON writes v indented, ending with a newline.
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	enc.SetEscapeHTML(false)
+	return enc.Encode(v)
+}
+
+// request prints the CDS Hooks request an EHR would send for the bundle.
+func request(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("request", "request --hook HOOK [--service ID] [flags] BUNDLE", stderr)
+	var bf bundleFlags
+	bf.register(fs)
+	server := fs.String("fhir-server", "", "send this `URL` as fhirServer")
+	token := fs.String("access-token", "", "with --fhir-server, send this `token` in fhirAuthorization")
+	noPrefetch := fs.Bool("no-prefetch", false, "leave prefetch out, so the service must fetch from --fhir-server")
+	pos, err := parseFlags(fs, args)
+	if err != nil {
+		return err
+	}
+	path, err := oneBundle(pos)
+	if err != nil {
+		return err
+	}
+	reg := hooks.NewRegistry()
+	svcs, err := bf.services(reg)
+	if err != nil {
+		return err
+	}
+	b, err := readBundle(path)
+	if err != nil {
+		return err
+	}
+	opt := bf.options()
+	opt.FHIRServer, opt.AccessToken, opt.OmitPrefetch = *server, *token, *noPrefetch
+	out := map[string]*hooks.Request{}
+	for _, svc := range svcs {
+		req, err := hooks.BuildRequest(b, svc, opt)
+		if err != nil {
+			return err
+		}
+		out[svc.ID] = req
+	}
+	if bf.service != "" {
+		return writeJSON(stdout, out[bf.service])
+	}
+	return writeJSON(stdout, out)
+}

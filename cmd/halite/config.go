@@ -1,0 +1,185 @@
+package main
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"net"
+	"net/url"
+	"os"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/halite-cds/halite/hooks/fhirclient"
+	"go.yaml.in/yaml/v3"
+)
+
+// Config is halite serve's configuration: defaults, then the YAML file, then
+// HALITE_* environment variables, then command-line flags.
+type Config struct {
+	ListenAddr      string           `yaml:"listen_addr"`
+	PublicBaseURL   string           `yaml:"public_base_url"`
+	DevelopmentMode bool             `yaml:"development_mode"`
+	MaxBodyBytes    int64            `yaml:"max_body_bytes"`
+	CallTimeout     Duration         `yaml:"call_timeout"`
+	ShutdownGrace   Duration         `yaml:"shutdown_grace"`
+	CORSOrigins     []string         `yaml:"cors_allowed_origins"`
+	LogLevel        string           `yaml:"log_level"`
+	FHIRClient      FHIRClientConfig `yaml:"fhir_client"`
+}
+
+// FHIRClientConfig bounds the outbound FHIR client.
+type FHIRClientConfig struct {
+	Timeout          Duration `yaml:"timeout"`
+	MaxResponseBytes int64    `yaml:"max_response_bytes"`
+	MaxPages         int      `yaml:"max_pages"`
+}
+
+// Duration is a time.Duration written as "5s" in YAML and the environment.
+type Duration time.Duration
+
+// UnmarshalYAML reads a Go duration string.
+func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
+	v, err := time.ParseDuration(n.Value)
+	if err != nil {
+		return fmt.Errorf("%q is not a duration such as \"5s\"", n.Value)
+	}
+	*d = Duration(v)
+	return nil
+}
+
+// defaultConfig is the embedded default: loopback, development mode.
+func defaultConfig() Config {
+	return Config{
+		ListenAddr:      "127.0.0.1:8080",
+		DevelopmentMode: true,
+		MaxBodyBytes:    8 << 20,
+		CallTimeout:     Duration(5 * time.Second),
+		ShutdownGrace:   Duration(20 * time.Second),
+		LogLevel:        "info",
+		FHIRClient: FHIRClientConfig{
+			Timeout:          Duration(3 * time.Second),
+			MaxResponseBytes: 32 << 20,
+			MaxPages:         10,
+		},
+	}
+}
+
+// envKeys lists every configuration key with its environment variable.
+var envKeys = []struct {
+	key string
+	set func(c *Config, v string) error
+}{
+	{"listen_addr", func(c *Config, v string) error { c.ListenAddr = v; return nil }},
+	{"public_base_url", func(c *Config, v string) error { c.PublicBaseURL = v; return nil }},
+	{"development_mode", func(c *Config, v string) (err error) { c.DevelopmentMode, err = strconv.ParseBool(v); return }},
+	{"max_body_bytes", func(c *Config, v string) (err error) { c.MaxBodyBytes, err = strconv.ParseInt(v, 10, 64); return }},
+	{"call_timeout", func(c *Config, v string) error { return setDuration(&c.CallTimeout, v) }},
+	{"shutdown_grace", func(c *Config, v string) error { return setDuration(&c.ShutdownGrace, v) }},
+	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
+	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
+	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},
+	{"fhir_client.max_response_bytes", func(c *Config, v string) (err error) {
+		c.FHIRClient.MaxResponseBytes, err = strconv.ParseInt(v, 10, 64)
+		return
+	}},
+	{"fhir_client.max_pages", func(c *Config, v string) (err error) { c.FHIRClient.MaxPages, err = strconv.Atoi(v); return }},
+}
+
+// envName is the environment variable for a key: HALITE_ and the key in
+// upper case with dots as underscores.
+func envName(key string) string {
+	return "HALITE_" + strings.ToUpper(strings.ReplaceAll(key, ".", "_"))
+}
+
+func setDuration(d *Duration, v string) error {
+	p, err := time.ParseDuration(v)
+	*d = Duration(p)
+	return err
+}
+
+func splitList(v string) []string {
+	var out []string
+	for _, s := range strings.Split(v, ",") {
+		if s = strings.TrimSpace(s); s != "" {
+			out = append(out, s)
+		}
+	}
+	return out
+}
+
+// loadConfig builds the configuration from the file at path (none if
+// empty) and the environment, and validates it.
+func loadConfig(path string, getenv func(string) string) (Config, error) {
+	cfg := defaultConfig()
+	if path != "" {
+		data, err := os.ReadFile(path)
+		if err != nil {
+			return cfg, fmt.Errorf("config: %w", err)
+		}
+		dec := yaml.NewDecoder(bytes.NewReader(data))
+		dec.KnownFields(true)
+		if err := dec.Decode(&cfg); err != nil && !errors.Is(err, io.EOF) {
+			return cfg, fmt.Errorf("config %s: %w", path, err)
+		}
+	}
+	for _, k := range envKeys {
+		if v := getenv(envName(k.key)); v != "" {
+			if err := k.set(&cfg, v); err != nil {
+				return cfg, fmt.Errorf("config: %s (from %s): %q is not valid", k.key, envName(k.key), v)
+			}
+		}
+	}
+	return cfg, nil
+}
+
+// validate checks every key, naming the first that is wrong.
+func (c Config) validate() error {
+	host, _, err := net.SplitHostPort(c.ListenAddr)
+	if err != nil {
+		return fmt.Errorf("config: listen_addr: %q is not HOST:PORT", c.ListenAddr)
+	}
+	if !c.DevelopmentMode {
+		return fmt.Errorf("config: development_mode: must be true; this build does not yet authenticate " +
+			"callers, so it serves on loopback only")
+	}
+	if !fhirclient.IsLoopback(host) {
+		return fmt.Errorf("config: listen_addr: development mode listens on a loopback address only, not %q", host)
+	}
+	if c.PublicBaseURL != "" {
+		u, err := url.Parse(c.PublicBaseURL)
+		if err != nil || u.Host == "" || (u.Scheme != "https" && u.Scheme != "http") {
+			return fmt.Errorf("config: public_base_url: %q is not an absolute http(s) URL", c.PublicBaseURL)
+		}
+	}
+	if c.MaxBodyBytes <= 0 || c.MaxBodyBytes > 1<<30 {
+		return fmt.Errorf("config: max_body_bytes: must be between 1 and 1073741824")
+	}
+	if c.CallTimeout <= 0 || time.Duration(c.CallTimeout) > time.Minute {
+		return fmt.Errorf("config: call_timeout: must be positive and at most 1m")
+	}
+	if c.ShutdownGrace < 0 {
+		return fmt.Errorf("config: shutdown_grace: must not be negative")
+	}
+	for i, o := range c.CORSOrigins {
+		u, err := url.Parse(o)
+		if o == "*" || err != nil || u.Host == "" || (u.Path != "" && u.Path != "/") || u.RawQuery != "" {
+			return fmt.Errorf("config: cors_allowed_origins[%d]: %q is not an origin such as https://ehr.example.org", i, o)
+		}
+	}
+	if _, ok := logLevels[c.LogLevel]; !ok {
+		return fmt.Errorf("config: log_level: %q is not one of debug, info, warn, error", c.LogLevel)
+	}
+	f := c.FHIRClient
+	switch {
+	case f.Timeout <= 0:
+		return fmt.Errorf("config: fhir_client.timeout: must be positive")
+	case f.MaxResponseBytes <= 0:
+		return fmt.Errorf("config: fhir_client.max_response_bytes: must be positive")
+	case f.MaxPages < 1 || f.MaxPages > 100:
+		return fmt.Errorf("config: fhir_client.max_pages: must be between 1 and 100")
+	}
+	return nil
+}

@@ -1,0 +1,176 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"log/slog"
+	"sort"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/rules"
+)
+
+// Exit statuses of eval, so CI pipelines can gate on the highest indicator.
+const (
+	exitOK       = 0 // no card, or info cards only
+	exitFailure  = 1 // bad input or failure
+	exitWarning  = 2
+	exitCritical = 3
+)
+
+// eval runs a bundle through the same pipeline as the server and prints the
+// response: a readable report, or with --json the exact CDS Hooks response.
+func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] BUNDLE", stderr)
+	var bf bundleFlags
+	bf.register(fs)
+	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
+	asJSON := fs.Bool("json", false, "print the exact CDS Hooks response (keyed by service id without --service)")
+	pos, err := parseFlags(fs, args)
+	if err != nil {
+		return err
+	}
+	path, err := oneBundle(pos)
+	if err != nil {
+		return err
+	}
+	when := time.Now()
+	if *at != "" {
+		if when, err = time.Parse(time.RFC3339, *at); err != nil {
+			return fmt.Errorf("--at: %q is not an RFC 3339 time such as 2026-11-20T08:00:00Z", *at)
+		}
+	}
+	rs, err := rules.Load()
+	if err != nil {
+		return err
+	}
+	reg := hooks.NewRegistry()
+	svcs, err := bf.services(reg)
+	if err != nil {
+		return err
+	}
+	b, err := readBundle(path)
+	if err != nil {
+		return err
+	}
+	// No fetcher: everything comes from the bundle, through prefetch.
+	engine := hooks.NewEngine(hooks.EngineConfig{Registry: reg, Ruleset: rs, Limits: hooks.Limits{MaxPages: 1},
+		Log: slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))})
+	outcomes := map[string]*hooks.Outcome{}
+	for _, svc := range svcs {
+		req, err := hooks.BuildRequest(b, svc, bf.options())
+		if err != nil {
+			return err
+		}
+		body, err := json.Marshal(req)
+		if err != nil {
+			return fmt.Errorf("eval: %w", err)
+		}
+		out, err := engine.Handle(ctx, svc.ID, body, when)
+		if err != nil {
+			return fmt.Errorf("eval %s: %w", svc.ID, err)
+		}
+		outcomes[svc.ID] = out
+	}
+	switch {
+	case *asJSON && bf.service != "":
+		err = writeJSON(stdout, outcomes[bf.service].Response)
+	case *asJSON:
+		all := map[string]hooks.Response{}
+		for id, o := range outcomes {
+			all[id] = o.Response
+		}
+		err = writeJSON(stdout, all)
+	default:
+		err = writeReport(stdout, bf.hook, when, rs.Revision(), svcs, outcomes)
+	}
+	if err != nil {
+		return err
+	}
+	if code := exitStatus(outcomes); code != exitOK {
+		return &exitError{code: code}
+	}
+	return nil
+}
+
+// exitStatus maps the highest indicator over all responses to eval's status.
+func exitStatus(outcomes map[string]*hooks.Outcome) int {
+	code := exitOK
+	for _, o := range outcomes {
+		for _, c := range o.Response.Cards {
+			switch c.Indicator {
+			case "critical":
+				code = max(code, exitCritical)
+			case "warning":
+				code = max(code, exitWarning)
+			}
+		}
+	}
+	return code
+}
+
+// writeReport prints, per service, the cards and what the data held.
+func writeReport(w io.Writer, hook string, at time.Time, revision string, svcs []hooks.Service,
+	outcomes map[string]*hooks.Outcome) error {
+	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
+	fmt.Fprintf(tw, "hook %s at %s, ruleset %s\n", hook, at.Format(time.RFC3339), revision)
+	for _, svc := range svcs {
+		o := outcomes[svc.ID]
+		fmt.Fprintf(tw, "\n== %s\n", svc.ID)
+		if len(o.Response.Cards) == 0 {
+			fmt.Fprintln(tw, "no cards: nothing actionable")
+		}
+		for _, c := range o.Response.Cards {
+			fmt.Fprintf(tw, "%s\t%s\n", strings.ToUpper(c.Indicator), c.Summary)
+		}
+		fmt.Fprintln(tw, "-- data")
+		for _, k := range o.Keys {
+			state := string(k.State)
+			if k.Reason != "" {
+				state += " (" + k.Reason + ")"
+			}
+			fmt.Fprintf(tw, "prefetch\t%s: %s, %d resources\n", k.Key.Key, state, len(k.Resources))
+		}
+		writeFacts(tw, o.Facts)
+	}
+	return tw.Flush()
+}
+
+func writeFacts(w io.Writer, f rules.Facts) {
+	p := f.Patient
+	age, sex := "unknown", string(p.Sex)
+	if y, ok := p.AgeYears(f.At); ok {
+		age = fmt.Sprintf("%d y", y)
+	}
+	if sex == "" {
+		sex = "not recorded"
+	}
+	fmt.Fprintf(w, "patient\tage %s, sex %s\n", age, sex)
+	for _, a := range rules.Analytes() {
+		s := f.Labs[a]
+		if len(s) == 0 {
+			continue
+		}
+		last := s[len(s)-1]
+		fmt.Fprintf(w, "%s\t%d results, latest %g %s at %s\n", a, len(s), rules.Round(last.Value, 2),
+			rules.CanonicalUnit(a), last.At.UTC().Format(time.RFC3339))
+	}
+	fmt.Fprintf(w, "medications\t%d active, %d draft\n", len(f.Medications), len(f.DraftOrders))
+	fmt.Fprintf(w, "conditions\t%d active\n", len(f.Conditions))
+	rejected := append([]rules.Rejection(nil), f.Rejected...)
+	sort.SliceStable(rejected, func(i, j int) bool { return rejected[i].Source < rejected[j].Source })
+	for _, r := range rejected {
+		fmt.Fprintf(w, "rejected\t%s: %s\n", r.Source, r.Reason)
+	}
+	for _, g := range f.Gaps {
+		fmt.Fprintf(w, "missing\t%s: %s\n", g.Source, g.Reason)
+	}
+	for _, n := range f.Notes {
+		fmt.Fprintf(w, "note\t%s\n", n)
+	}
+}

@@ -1,0 +1,117 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"time"
+
+	"github.com/gin-gonic/gin"
+	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/fhirclient"
+	"github.com/halite-cds/halite/rules"
+)
+
+var logLevels = map[string]slog.Level{
+	"debug": slog.LevelDebug, "info": slog.LevelInfo, "warn": slog.LevelWarn, "error": slog.LevelError,
+}
+
+// serve runs the HTTP service until ctx is cancelled (SIGINT or SIGTERM),
+// then stops taking calls and drains in-flight ones within the grace period.
+func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("serve", "serve [--config FILE] [--addr HOST:PORT]", stderr)
+	configPath := fs.String("config", "", "YAML configuration `file` (default: $HALITE_CONFIG, else embedded defaults)")
+	addr := fs.String("addr", "", "listen address `HOST:PORT`, overriding listen_addr (default 127.0.0.1:8080)")
+	if _, err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if *configPath == "" {
+		*configPath = os.Getenv("HALITE_CONFIG")
+	}
+	cfg, err := loadConfig(*configPath, os.Getenv)
+	if err != nil {
+		return err
+	}
+	if *addr != "" {
+		cfg.ListenAddr = *addr
+	}
+	if err := cfg.validate(); err != nil {
+		return err
+	}
+	rs, err := rules.Load()
+	if err != nil {
+		return err
+	}
+	log := slog.New(slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})).
+		With("ruleset", rs.Revision())
+	if cfg.DevelopmentMode {
+		log.Warn("DEVELOPMENT MODE: local use only. Callers are NOT authenticated, the service listens on " +
+			"loopback only, and plain-http FHIR servers on loopback are accepted. Do not use with real patient data.")
+	}
+	gin.SetMode(gin.ReleaseMode)
+	engine := newEngine(rs, cfg, log)
+	health := &hooks.Health{}
+	handler := hooks.NewHandler(engine, hooks.ServerConfig{
+		MaxBodyBytes: cfg.MaxBodyBytes,
+		CallTimeout:  time.Duration(cfg.CallTimeout),
+		CORSOrigins:  cfg.CORSOrigins,
+	}, health, log)
+
+	ln, err := net.Listen("tcp", cfg.ListenAddr)
+	if err != nil {
+		return fmt.Errorf("serve: %w", err)
+	}
+	srv := &http.Server{
+		Handler:           handler,
+		ReadHeaderTimeout: 10 * time.Second,
+		ReadTimeout:       30 * time.Second,
+		WriteTimeout:      time.Duration(cfg.CallTimeout) + 10*time.Second,
+		IdleTimeout:       2 * time.Minute,
+		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
+	}
+	served := make(chan error, 1)
+	go func() { served <- srv.Serve(ln) }()
+	log.Info("listening", "addr", ln.Addr().String())
+	fmt.Fprintf(stdout, "halite listening on http://%s\n", ln.Addr())
+
+	select {
+	case err := <-served:
+		return fmt.Errorf("serve: %w", err)
+	case <-ctx.Done():
+	}
+	health.Drain()
+	log.Info("shutting down: draining in-flight calls", "grace", time.Duration(cfg.ShutdownGrace).String())
+	shutdownCtx, cancel := context.WithTimeout(context.Background(), time.Duration(cfg.ShutdownGrace))
+	defer cancel()
+	if err := srv.Shutdown(shutdownCtx); err != nil {
+		return fmt.Errorf("serve: shutdown: %w", err)
+	}
+	if err := <-served; err != nil && !errors.Is(err, http.ErrServerClosed) {
+		return fmt.Errorf("serve: %w", err)
+	}
+	log.Info("stopped")
+	return nil
+}
+
+// newEngine wires the engine with the outbound FHIR client.
+func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger) *hooks.Engine {
+	opts := fhirclient.Options{
+		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
+		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
+		AllowHTTPLoopback: cfg.DevelopmentMode,
+	}
+	return hooks.NewEngine(hooks.EngineConfig{
+		Registry: hooks.NewRegistry(),
+		Ruleset:  rs,
+		NewFetcher: func(server string, auth *hooks.FHIRAuthorization) (hooks.Fetcher, error) {
+			return fhirclient.New(server, auth.AccessToken, opts)
+		},
+		Limits: hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},
+		Log:    log,
+	})
+}

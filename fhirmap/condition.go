@@ -1,0 +1,36 @@
+package fhirmap
+
+import (
+	"github.com/halite-cds/halite/rules"
+	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
+)
+
+// condition reads one Condition; only clinically active ones become facts.
+func (m *mapper) condition(r Resource) {
+	c, err := fhir.UnmarshalCondition(r.Raw)
+	if err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return
+	}
+	if !refersTo(str(c.Subject.Reference), "Patient", m.in.PatientID) {
+		m.reject(r, "", "subject is not the patient in context")
+		return
+	}
+	cs, text := codings(c.Code)
+	cond := rules.Condition{
+		Reference:          r.Ref(),
+		Codings:            cs,
+		Text:               text,
+		ClinicalStatus:     firstCode(c.ClinicalStatus),
+		VerificationStatus: firstCode(c.VerificationStatus),
+	}
+	switch cond.ClinicalStatus {
+	case "active", "recurrence", "relapse":
+	default:
+		return
+	}
+	if cond.VerificationStatus == "refuted" || cond.VerificationStatus == "entered-in-error" {
+		return
+	}
+	m.facts.Conditions = append(m.facts.Conditions, cond)
+}

@@ -1,0 +1,209 @@
+package fhirmap
+
+import (
+	"encoding/json"
+	"strconv"
+	"strings"
+
+	"github.com/halite-cds/halite/rules"
+	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
+)
+
+// medicationRequest reads one MedicationRequest. fhir-models drops
+// `contained`, so contained Medications are read from the raw JSON.
+func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
+	mr, err := fhir.UnmarshalMedicationRequest(r.Raw)
+	if err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return rules.MedicationOrder{}, false
+	}
+	if mr.Status == "" {
+		m.reject(r, "", "status is missing")
+		return rules.MedicationOrder{}, false
+	}
+	if ref := str(mr.Subject.Reference); ref != "" && !refersTo(ref, "Patient", m.in.PatientID) {
+		m.reject(r, "", "subject is not the patient in context")
+		return rules.MedicationOrder{}, false
+	}
+	o := rules.MedicationOrder{Reference: r.Ref(), Status: mr.Status, Intent: mr.Intent}
+	if mr.AuthoredOn != nil {
+		if t, _, err := parseDateTime(*mr.AuthoredOn); err == nil {
+			o.AuthoredOn = &t
+		} else {
+			m.note("%s: authoredOn: %v", r.Ref(), err)
+		}
+	}
+	o.Medication = m.medicationOf(r, mr)
+	if len(mr.DosageInstruction) > 0 {
+		dosage(&o, mr.DosageInstruction[0])
+		if len(mr.DosageInstruction) > 1 {
+			m.note("%s: only the first of %d dosage instructions is read", r.Ref(), len(mr.DosageInstruction))
+		}
+	}
+	if dr := mr.DispenseRequest; dr != nil {
+		o.DispenseQuantity = quantity(dr.Quantity)
+	}
+	return o, true
+}
+
+func (m *mapper) medicationOf(r Resource, mr fhir.MedicationRequest) rules.Medication {
+	if cs, text := codings(&mr.MedicationCodeableConcept); len(cs) > 0 || text != "" {
+		return rules.Medication{Source: rules.FromCodeableConcept, Codings: cs, Text: text}
+	}
+	ref := str(mr.MedicationReference.Reference)
+	unresolved := rules.Medication{Source: rules.FromUnresolved, Text: str(mr.MedicationReference.Display)}
+	if strings.HasPrefix(ref, "#") {
+		med, ok := containedMedication(r.Raw, ref[1:])
+		if !ok {
+			m.note("%s: contained Medication %s not found", r.Ref(), ref)
+			return unresolved
+		}
+		med.Source = rules.FromContained
+		return med
+	}
+	for key, res := range m.medications {
+		if key == ref || refersTo(ref, "Medication", res.ID) {
+			med, err := fhir.UnmarshalMedication(res.Raw)
+			if err != nil {
+				m.reject(res, "", "invalid resource: "+err.Error())
+				return unresolved
+			}
+			out := medication(med)
+			out.Source = rules.FromReferenced
+			return out
+		}
+	}
+	if ref != "" {
+		m.note("%s: Medication %s is not in the data", r.Ref(), ref)
+	}
+	return unresolved
+}
+
+func containedMedication(raw json.RawMessage, id string) (rules.Medication, bool) {
+	var c struct {
+		Contained []json.RawMessage `json:"contained"`
+	}
+	if json.Unmarshal(raw, &c) != nil {
+		return rules.Medication{}, false
+	}
+	for _, cr := range c.Contained {
+		res, err := ReadResource(cr)
+		if err != nil || res.Type != "Medication" || res.ID != id {
+			continue
+		}
+		med, err := fhir.UnmarshalMedication(cr)
+		if err != nil {
+			return rules.Medication{}, false
+		}
+		return medication(med), true
+	}
+	return rules.Medication{}, false
+}
+
+func medication(med fhir.Medication) rules.Medication {
+	cs, text := codings(med.Code)
+	out := rules.Medication{Codings: cs, Text: text, Form: firstCode(med.Form)}
+	for _, ing := range med.Ingredient {
+		ics, itext := codings(&ing.ItemCodeableConcept)
+		if len(ics) == 0 && itext == "" {
+			itext = str(ing.ItemReference.Display)
+		}
+		in := rules.Ingredient{Codings: ics, Text: itext}
+		if s := ing.Strength; s != nil {
+			num, den := quantity(s.Numerator), quantity(s.Denominator)
+			if num != nil && den != nil {
+				in.Strength = &rules.Ratio{Numerator: *num, Denominator: *den}
+			}
+		}
+		out.Ingredients = append(out.Ingredients, in)
+	}
+	return out
+}
+
+// dosage reads route, dose, rate and timing from the first dosage instruction.
+func dosage(o *rules.MedicationOrder, d fhir.Dosage) {
+	o.Route, o.RouteText = codings(d.Route)
+	if len(d.DoseAndRate) > 0 {
+		dr := d.DoseAndRate[0]
+		o.Dose = quantity(dr.DoseQuantity)
+		switch {
+		case dr.RateQuantity != nil:
+			if q := quantity(dr.RateQuantity); q != nil {
+				o.Rate = formatQuantity(*q)
+				o.RateMlPerHour = rateMlPerHour(q.Value, q.Unit)
+			}
+		case dr.RateRatio != nil:
+			num, den := quantity(dr.RateRatio.Numerator), quantity(dr.RateRatio.Denominator)
+			if num != nil && den != nil && den.Value > 0 {
+				o.Rate = formatQuantity(*num) + " per " + formatQuantity(*den)
+				if ml, ok := millilitres(*num); ok {
+					if h, ok := hours(*den); ok && h > 0 {
+						v := ml / h
+						o.RateMlPerHour = &v
+					}
+				}
+			}
+		}
+	}
+	if d.Timing != nil && d.Timing.Repeat != nil {
+		rep := d.Timing.Repeat
+		if v, ok := number(rep.Duration); ok {
+			o.Duration = &rules.Quantity{Value: v, Unit: str(rep.DurationUnit)}
+		}
+		o.Bounds = duration(rep.BoundsDuration)
+		if rep.Frequency != nil {
+			o.Frequency = *rep.Frequency
+		}
+		if v, ok := number(rep.Period); ok {
+			o.Period = &rules.Quantity{Value: v, Unit: str(rep.PeriodUnit)}
+		}
+	}
+}
+
+func formatQuantity(q rules.Quantity) string {
+	return strings.TrimSpace(strconv.FormatFloat(q.Value, 'f', -1, 64) + " " + q.Unit)
+}
+
+// rateMlPerHour normalises a rate written as a single UCUM quantity.
+func rateMlPerHour(v float64, unit string) *float64 {
+	var f float64
+	switch unit {
+	case "mL/h", "ml/h", "mL/hr":
+		f = 1
+	case "mL/min", "ml/min":
+		f = 60
+	case "L/h", "l/h":
+		f = 1000
+	case "mL/d", "ml/d", "mL/(24.h)":
+		f = 1.0 / 24
+	default:
+		return nil
+	}
+	r := v * f
+	return &r
+}
+
+func millilitres(q rules.Quantity) (float64, bool) {
+	switch q.Unit {
+	case "mL", "ml":
+		return q.Value, true
+	case "L", "l":
+		return q.Value * 1000, true
+	}
+	return 0, false
+}
+
+// hours converts a UCUM time quantity (or a FHIR UnitsOfTime code) to hours.
+func hours(q rules.Quantity) (float64, bool) {
+	switch q.Unit {
+	case "h", "hr", "hour":
+		return q.Value, true
+	case "min":
+		return q.Value / 60, true
+	case "s":
+		return q.Value / 3600, true
+	case "d", "day":
+		return q.Value * 24, true
+	}
+	return 0, false
+}

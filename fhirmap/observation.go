@@ -1,0 +1,146 @@
+package fhirmap
+
+import (
+	"encoding/json"
+	"fmt"
+	"time"
+
+	"github.com/halite-cds/halite/rules"
+	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
+)
+
+// usableStatus lists the Observation statuses whose values halite uses.
+var usableStatus = map[fhir.ObservationStatus]bool{
+	fhir.ObservationStatusFinal:     true,
+	fhir.ObservationStatusAmended:   true,
+	fhir.ObservationStatusCorrected: true,
+}
+
+// observation maps one Observation. It returns ok=false and no rejection for
+// an Observation whose code halite does not read.
+func (m *mapper) observation(r Resource) {
+	var raw struct {
+		Status *string `json:"status"`
+	}
+	if err := json.Unmarshal(r.Raw, &raw); err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return
+	}
+	obs, err := fhir.UnmarshalObservation(r.Raw)
+	if err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return
+	}
+	code, meas, known := recognise(obs.Code)
+	if !known {
+		return
+	}
+	a := meas.analyte
+	switch {
+	case raw.Status == nil:
+		m.reject(r, a, "status is missing")
+		return
+	case !usableStatus[obs.Status]:
+		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", *raw.Status))
+		return
+	}
+	if obs.Subject == nil || !refersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
+		m.reject(r, a, "subject is not the patient in context")
+		return
+	}
+	at, err := effectiveTime(obs)
+	if err != nil {
+		m.reject(r, a, err.Error())
+		return
+	}
+	if at.After(m.in.At) {
+		m.reject(r, a, "effective time is after the evaluation time")
+		return
+	}
+	q := obs.ValueQuantity
+	if q == nil {
+		m.reject(r, a, "no valueQuantity")
+		return
+	}
+	if q.Comparator != nil {
+		m.reject(r, a, fmt.Sprintf("value has comparator %q", q.Comparator.Code()))
+		return
+	}
+	v, ok := number(q.Value)
+	if !ok {
+		m.reject(r, a, "valueQuantity has no numeric value")
+		return
+	}
+	unit := ucumUnit(q.System, q.Code, q.Unit)
+	cv, err := toCanonical(meas, v, unit)
+	if err != nil {
+		m.reject(r, a, err.Error())
+		return
+	}
+	if ok, why := m.rs.CheckPlausible(a, cv); !ok {
+		m.reject(r, a, why)
+		return
+	}
+	key := seriesKey{a, at.UnixNano(), cv}
+	if first, dup := m.seen[key]; dup {
+		m.reject(r, a, "duplicate of "+first)
+		return
+	}
+	m.seen[key] = r.Ref()
+	m.facts.Labs[a] = append(m.facts.Labs[a], rules.Measurement{
+		Analyte:  a,
+		Value:    cv,
+		At:       at,
+		Source:   r.Ref(),
+		Code:     code,
+		Specimen: meas.specimen,
+		Original: q.Value.String() + " " + unit,
+	})
+}
+
+// seriesKey identifies a result for de-duplication: the same analyte, time
+// and canonical value reported twice is one result.
+type seriesKey struct {
+	analyte rules.Analyte
+	at      int64
+	value   float64
+}
+
+func recognise(cc fhir.CodeableConcept) (string, measure, bool) {
+	for _, c := range cc.Coding {
+		if str(c.System) != SystemLOINC || c.Code == nil {
+			continue
+		}
+		if m, ok := loinc[*c.Code]; ok {
+			return *c.Code, m, true
+		}
+	}
+	return "", measure{}, false
+}
+
+// effectiveTime is the clinically relevant time: effectiveDateTime,
+// effectiveInstant, or the start (else the end) of effectivePeriod. It must
+// carry a time of day, since rates of change are computed from it.
+func effectiveTime(o fhir.Observation) (time.Time, error) {
+	var s string
+	switch {
+	case o.EffectiveDateTime != nil:
+		s = *o.EffectiveDateTime
+	case o.EffectiveInstant != nil:
+		s = *o.EffectiveInstant
+	case o.EffectivePeriod != nil && o.EffectivePeriod.Start != nil:
+		s = *o.EffectivePeriod.Start
+	case o.EffectivePeriod != nil && o.EffectivePeriod.End != nil:
+		s = *o.EffectivePeriod.End
+	default:
+		return time.Time{}, fmt.Errorf("no effective time")
+	}
+	t, hasTime, err := parseDateTime(s)
+	if err != nil {
+		return time.Time{}, fmt.Errorf("effective time: %v", err)
+	}
+	if !hasTime {
+		return time.Time{}, fmt.Errorf("effective time %q has no time of day", s)
+	}
+	return t, nil
+}

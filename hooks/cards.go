@@ -1,0 +1,63 @@
+package hooks
+
+import (
+	"encoding/json"
+
+	"github.com/google/uuid"
+	"github.com/halite-cds/halite/rules"
+)
+
+// SourceLabel is the card source label clinicians see.
+const SourceLabel = "halite sodium safety checks"
+
+// Caution ends every card's detail: the card advises, the prescriber decides.
+const Caution = "_Advisory only. halite computed this from the data listed; it cannot see the whole " +
+	"clinical picture. The prescriber's judgment and local protocol take precedence._"
+
+// OverrideReasonSystem is halite's own code system for override reasons.
+const OverrideReasonSystem = "https://halite-cds.github.io/fhir/CodeSystem/override-reason"
+
+// overrideReasons are offered on every card, in halite's own wording.
+var overrideReasons = []Coding{
+	{System: OverrideReasonSystem, Code: "clinically-justified", Display: "Clinically justified for this patient"},
+	{System: OverrideReasonSystem, Code: "already-monitored", Display: "Already addressed or being monitored"},
+	{System: OverrideReasonSystem, Code: "local-protocol", Display: "Following a local protocol"},
+	{System: OverrideReasonSystem, Code: "data-not-current", Display: "The data shown are incomplete or not current"},
+}
+
+// cardExtension is the machine-readable part of a card, under "halite".
+type cardExtension struct {
+	Halite struct {
+		Rule    string             `json:"rule"`
+		Ruleset string             `json:"ruleset"`
+		Figures map[string]float64 `json:"figures,omitempty"`
+	} `json:"halite"`
+}
+
+// renderCards words findings as cards, each with a uuid (so feedback can
+// refer to it), the caution, override reasons and the ruleset revision.
+func renderCards(fs []rules.Finding, revision string) []Card {
+	cards := make([]Card, 0, len(fs))
+	for _, f := range fs {
+		var ext cardExtension
+		ext.Halite.Rule, ext.Halite.Ruleset = f.Rule, revision
+		if len(f.Figures) > 0 {
+			ext.Halite.Figures = f.Figures
+		}
+		extJSON, _ := json.Marshal(ext) // plain struct of strings and numbers: cannot fail
+		detail := Caution
+		if f.Detail != "" {
+			detail = f.Detail + "\n\n" + Caution
+		}
+		cards = append(cards, Card{
+			UUID:            uuid.NewString(),
+			Summary:         f.Summary,
+			Detail:          detail,
+			Indicator:       f.Indicator.String(),
+			Source:          Source{Label: SourceLabel},
+			OverrideReasons: overrideReasons,
+			Extension:       extJSON,
+		})
+	}
+	return cards
+}

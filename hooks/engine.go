@@ -1,0 +1,126 @@
+package hooks
+
+import (
+	"context"
+	"log/slog"
+	"time"
+
+	"github.com/halite-cds/halite/fhirmap"
+	"github.com/halite-cds/halite/rules"
+)
+
+// Engine runs hook calls: decode, resolve prefetch, map, evaluate, render.
+// The HTTP handlers and the eval command both call it, so a bundle answered
+// on the command line is answered exactly as the server would.
+type Engine struct {
+	registry   *Registry
+	ruleset    *rules.Ruleset
+	newFetcher FetcherFactory
+	limits     Limits
+	log        *slog.Logger
+}
+
+// EngineConfig is what an Engine is built from.
+type EngineConfig struct {
+	Registry *Registry
+	Ruleset  *rules.Ruleset
+	// NewFetcher makes the outbound FHIR client; nil disables fetching, so
+	// only prefetched data is used.
+	NewFetcher FetcherFactory
+	Limits     Limits
+	Log        *slog.Logger
+}
+
+// NewEngine returns an Engine.
+func NewEngine(cfg EngineConfig) *Engine {
+	if cfg.Limits.MaxPages < 1 {
+		cfg.Limits.MaxPages = 1
+	}
+	return &Engine{registry: cfg.Registry, ruleset: cfg.Ruleset, newFetcher: cfg.NewFetcher,
+		limits: cfg.Limits, log: cfg.Log}
+}
+
+// Registry returns the engine's services.
+func (e *Engine) Registry() *Registry { return e.registry }
+
+// Ruleset returns the engine's ruleset.
+func (e *Engine) Ruleset() *rules.Ruleset { return e.ruleset }
+
+// Outcome is the answer to one call with what was learnt on the way, for the
+// eval command's report and for logs. It holds PHI (facts) and must never be
+// logged whole.
+type Outcome struct {
+	Response Response
+	Keys     []Resolved
+	Facts    rules.Facts
+}
+
+// Handle answers one call to service id with body, evaluated at time at.
+func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Time) (*Outcome, error) {
+	svc, ok := e.registry.Lookup(id)
+	if !ok {
+		return nil, &Error{Kind: KindUnknownService, Message: "no CDS service with id " + quote(id)}
+	}
+	call, err := DecodeCall(svc, body)
+	if err != nil {
+		return nil, err
+	}
+	fetch := e.fetcher(call)
+	keys, err := Resolve(ctx, svc, call, fetch, e.limits)
+	if err != nil {
+		return nil, err
+	}
+	facts := fhirmap.Map(mapInput(call, keys, at), e.ruleset)
+	for _, k := range keys {
+		if k.State == Failed || k.State == Unavailable || k.Partial {
+			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
+		}
+	}
+	findings := e.ruleset.Evaluate(svc.Check, facts)
+	return &Outcome{
+		Response: Response{Cards: renderCards(findings, e.ruleset.Revision())},
+		Keys:     keys,
+		Facts:    facts,
+	}, nil
+}
+
+// fetcher returns the outbound client for the call, or nil when the call
+// gave no server and token, or the server may not be used.
+func (e *Engine) fetcher(c *Call) Fetcher {
+	r := c.Request
+	if e.newFetcher == nil || r.FHIRServer == "" || r.FHIRAuthorization == nil {
+		return nil
+	}
+	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization)
+	if err != nil {
+		if e.log != nil {
+			e.log.Warn("fhirServer not used", "reason", err.Error(), "hookInstance", r.HookInstance)
+		}
+		return nil
+	}
+	return f
+}
+
+func mapInput(c *Call, keys []Resolved, at time.Time) fhirmap.Input {
+	in := fhirmap.Input{At: at, PatientID: c.Context.PatientID, DraftOrders: c.DraftOrders}
+	if c.Request.Hook == HookOrderSelect {
+		in.Selections = c.Context.Selections
+	}
+	for _, k := range keys {
+		if k.Key.Key == "patient" {
+			if len(k.Resources) > 0 {
+				in.Patient = k.Resources[0]
+			}
+			continue
+		}
+		in.Resources = append(in.Resources, k.Resources...)
+	}
+	return in
+}
+
+func quote(s string) string {
+	if len(s) > 64 {
+		s = s[:64] + "…"
+	}
+	return "\"" + s + "\""
+}

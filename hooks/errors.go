@@ -1,0 +1,111 @@
+package hooks
+
+import (
+	"errors"
+	"fmt"
+	"net/http"
+)
+
+// Kind classifies an error for the one table that maps errors to HTTP status.
+type Kind int
+
+// Error kinds. KindInternal is the default for errors that carry no kind.
+const (
+	KindInternal       Kind = iota // a fault in halite: 500
+	KindBadRequest                 // malformed or invalid request: 400
+	KindUnauthorized               // missing or invalid credentials: 401
+	KindUnknownService             // no such service: 404
+	KindPrecondition               // required FHIR data neither prefetched nor fetchable: 412
+	KindTooLarge                   // request body over the limit: 413
+	KindUnavailable                // shutting down or over the time budget: 503
+)
+
+// statusOf is the single table from error kind to HTTP status and FHIR
+// OperationOutcome issue type (FHIR R4 IssueType value set).
+var statusOf = map[Kind]struct {
+	status    int
+	issueType string
+}{
+	KindInternal:       {http.StatusInternalServerError, "exception"},
+	KindBadRequest:     {http.StatusBadRequest, "invalid"},
+	KindUnauthorized:   {http.StatusUnauthorized, "login"},
+	KindUnknownService: {http.StatusNotFound, "not-found"},
+	KindPrecondition:   {http.StatusPreconditionFailed, "incomplete"},
+	KindTooLarge:       {http.StatusRequestEntityTooLarge, "too-long"},
+	KindUnavailable:    {http.StatusServiceUnavailable, "transient"},
+}
+
+// Error is an error with a kind and, for bad requests, the field at fault
+// (a path such as "context.patientId").
+type Error struct {
+	Kind    Kind
+	Field   string
+	Message string
+	Err     error
+}
+
+func (e *Error) Error() string {
+	msg := e.Message
+	if e.Field != "" {
+		msg = e.Field + ": " + msg
+	}
+	if e.Err != nil {
+		msg += ": " + e.Err.Error()
+	}
+	return msg
+}
+
+func (e *Error) Unwrap() error { return e.Err }
+
+func badRequest(field, format string, args ...any) *Error {
+	return &Error{Kind: KindBadRequest, Field: field, Message: fmt.Sprintf(format, args...)}
+}
+
+// KindOf returns the kind of err, KindInternal when it has none.
+func KindOf(err error) Kind {
+	var e *Error
+	if errors.As(err, &e) {
+		return e.Kind
+	}
+	return KindInternal
+}
+
+// StatusOf returns the HTTP status for err.
+func StatusOf(err error) int { return statusOf[KindOf(err)].status }
+
+// OperationOutcome is the FHIR R4 OperationOutcome halite returns as the body
+// of every error response (CDS Hooks 3.0 ballot recommends it; 2.0 allows it).
+type OperationOutcome struct {
+	ResourceType string         `json:"resourceType"`
+	Issue        []OutcomeIssue `json:"issue"`
+}
+
+// OutcomeIssue is one issue of an OperationOutcome.
+type OutcomeIssue struct {
+	Severity    string   `json:"severity"`
+	Code        string   `json:"code"`
+	Diagnostics string   `json:"diagnostics,omitempty"`
+	Expression  []string `json:"expression,omitempty"`
+}
+
+// OutcomeOf renders err as an OperationOutcome. Internal errors and
+// authentication failures carry no detail: the first could leak internals,
+// the second would help an attacker.
+func OutcomeOf(err error) OperationOutcome {
+	kind := KindOf(err)
+	issue := OutcomeIssue{Severity: "error", Code: statusOf[kind].issueType}
+	switch kind {
+	case KindInternal:
+		issue.Diagnostics = "internal error"
+	case KindUnauthorized:
+	default:
+		var e *Error
+		if errors.As(err, &e) {
+			issue.Diagnostics = e.Message
+			if e.Field != "" {
+				issue.Expression = []string{e.Field}
+			}
+		}
+	}
+	return OperationOutcome{ResourceType: "OperationOutcome", Issue: []OutcomeIssue{issue}}
+}

@@ -1,0 +1,179 @@
+// Package fhirclient is halite's outbound FHIR client: it reads from the
+// fhirServer a CDS client names, with that client's bearer token, under the
+// call's deadline, with bounded response size, and never leaves the server's
+// origin. Errors never contain the token or the query string (which carries
+// patient identifiers).
+package fhirclient
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"net/url"
+	"strings"
+	"time"
+)
+
+// Options bound the client.
+type Options struct {
+	Timeout          time.Duration // per request, within the caller's deadline
+	MaxResponseBytes int64
+	// AllowHTTPLoopback permits plain http to loopback hosts; for
+	// development only. Everything else must be https.
+	AllowHTTPLoopback bool
+	// Transport replaces the default transport (tests).
+	Transport http.RoundTripper
+}
+
+// Client reads from one FHIR server with one token.
+type Client struct {
+	base     *url.URL
+	token    string
+	http     *http.Client
+	maxBytes int64
+}
+
+// Errors a caller may test for.
+var (
+	ErrInsecure     = errors.New("fhirServer must use https")
+	ErrOffOrigin    = errors.New("URL is not on the fhirServer's origin")
+	ErrTooLarge     = errors.New("response is larger than the limit")
+	ErrHTTPStatus   = errors.New("unexpected HTTP status")
+	ErrRedirectAway = errors.New("redirect leaves the fhirServer's origin")
+)
+
+// New returns a client for server (the base URL) and token.
+func New(server, token string, opt Options) (*Client, error) {
+	base, err := url.Parse(strings.TrimRight(server, "/"))
+	if err != nil || base.Host == "" {
+		return nil, fmt.Errorf("fhir client: fhirServer is not an absolute URL")
+	}
+	switch {
+	case base.Scheme == "https":
+	case base.Scheme == "http" && opt.AllowHTTPLoopback && IsLoopback(base.Hostname()):
+	default:
+		return nil, fmt.Errorf("fhir client: %w", ErrInsecure)
+	}
+	if opt.MaxResponseBytes <= 0 {
+		return nil, fmt.Errorf("fhir client: MaxResponseBytes must be positive")
+	}
+	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes}
+	c.http = &http.Client{
+		Timeout:   opt.Timeout,
+		Transport: opt.Transport,
+		CheckRedirect: func(req *http.Request, via []*http.Request) error {
+			if len(via) >= 3 {
+				return errors.New("too many redirects")
+			}
+			if !c.sameOrigin(req.URL) {
+				return ErrRedirectAway
+			}
+			return nil
+		},
+	}
+	return c, nil
+}
+
+// IsLoopback reports whether host is "localhost" or a loopback IP address.
+func IsLoopback(host string) bool {
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+func (c *Client) sameOrigin(u *url.URL) bool {
+	return u.Scheme == c.base.Scheme && u.Host == c.base.Host &&
+		(u.Path == c.base.Path || strings.HasPrefix(u.Path, c.base.Path+"/"))
+}
+
+// Fetch GETs ref, a FHIR URL relative to the base ("Patient/1",
+// "Observation?…") or an absolute URL on the same origin (a next link).
+func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
+	u, op, err := c.resolve(ref)
+	if err != nil {
+		return nil, err
+	}
+	req, err := http.NewRequestWithContext(ctx, http.MethodGet, u.String(), nil)
+	if err != nil {
+		return nil, fmt.Errorf("fetch %s: %w", op, err)
+	}
+	req.Header.Set("Accept", "application/fhir+json")
+	if c.token != "" {
+		req.Header.Set("Authorization", "Bearer "+c.token)
+	}
+	resp, err := c.http.Do(req)
+	if err != nil {
+		return nil, fmt.Errorf("fetch %s: %w", op, cause(err))
+	}
+	defer resp.Body.Close()
+	if resp.StatusCode != http.StatusOK {
+		_, _ = io.Copy(io.Discard, io.LimitReader(resp.Body, 64<<10))
+		return nil, fmt.Errorf("fetch %s: %w %d", op, ErrHTTPStatus, resp.StatusCode)
+	}
+	body, err := io.ReadAll(io.LimitReader(resp.Body, c.maxBytes+1))
+	if err != nil {
+		return nil, fmt.Errorf("fetch %s: reading body: %w", op, cause(err))
+	}
+	if int64(len(body)) > c.maxBytes {
+		return nil, fmt.Errorf("fetch %s: %w of %d bytes", op, ErrTooLarge, c.maxBytes)
+	}
+	return body, nil
+}
+
+// resolve makes ref absolute and names the operation for errors by its
+// resource type only.
+func (c *Client) resolve(ref string) (*url.URL, string, error) {
+	var u *url.URL
+	if strings.Contains(ref, "://") {
+		parsed, err := url.Parse(ref)
+		if err != nil || !c.sameOrigin(parsed) {
+			return nil, "next page", fmt.Errorf("fetch next page: %w", ErrOffOrigin)
+		}
+		u = parsed
+	} else {
+		path, query, _ := strings.Cut(strings.TrimLeft(ref, "/"), "?")
+		u = &url.URL{Scheme: c.base.Scheme, Host: c.base.Host, Path: c.base.Path + "/" + path, RawQuery: query}
+	}
+	rest := strings.TrimPrefix(strings.TrimPrefix(u.Path, c.base.Path), "/")
+	op, _, _ := strings.Cut(rest, "/")
+	if op == "" {
+		op = "resource"
+	}
+	return u, op, nil
+}
+
+// cause strips URLs from transport errors (url.Error prints the URL, whose
+// query holds patient identifiers).
+func cause(err error) error {
+	var ue *url.Error
+	if errors.As(err, &ue) {
+		if errors.Is(ue.Err, ErrRedirectAway) {
+			return ErrRedirectAway
+		}
+		if ue.Timeout() {
+			return errors.New("timed out")
+		}
+		return fmt.Errorf("%s failed: %v", ue.Op, stripURL(ue.Err))
+	}
+	if errors.Is(err, context.DeadlineExceeded) {
+		return errors.New("timed out")
+	}
+	return err
+}
+
+func stripURL(err error) string {
+	var ue *url.Error
+	if errors.As(err, &ue) {
+		return ue.Op + " failed"
+	}
+	var oe *net.OpError
+	if errors.As(err, &oe) {
+		return oe.Op + " " + oe.Err.Error()
+	}
+	return "transport error"
+}

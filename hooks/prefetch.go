@@ -1,0 +1,208 @@
+package hooks
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/url"
+	"regexp"
+	"strings"
+
+	"github.com/halite-cds/halite/fhirmap"
+)
+
+// Fetcher reads from the client's FHIR server. ref is a relative FHIR URL
+// ("Observation?patient=…") or an absolute one on the same server (a Bundle's
+// next link). Implementations bound time and size and never log the token.
+type Fetcher interface {
+	Fetch(ctx context.Context, ref string) ([]byte, error)
+}
+
+// FetcherFactory makes a Fetcher for the server and token of one call. It
+// fails when the server may not be used; the call then proceeds as if no
+// server had been given.
+type FetcherFactory func(server string, auth *FHIRAuthorization) (Fetcher, error)
+
+// KeyState says how a prefetch key was resolved.
+type KeyState string
+
+// Key states.
+const (
+	Prefetched  KeyState = "prefetched"  // the client sent it
+	Fetched     KeyState = "fetched"     // halite fetched it from fhirServer
+	NoData      KeyState = "null"        // the client sent null: no data, not re-queried
+	Failed      KeyState = "failed"      // the client sent an OperationOutcome, or the fetch failed
+	Unavailable KeyState = "unavailable" // not sent and no usable fhirServer
+)
+
+// Resolved is the outcome for one prefetch key.
+type Resolved struct {
+	Key       PrefetchKey
+	State     KeyState
+	Resources []json.RawMessage
+	// Partial is set when a paginated result could not be read to its end.
+	Partial bool
+	// Reason explains Failed, Unavailable and Partial states, without PHI.
+	Reason string
+}
+
+// Limits bound prefetch resolution.
+type Limits struct {
+	MaxPages int // Bundle pages followed per key, the first included
+}
+
+// userTokens derive the CDS Hooks 2.0 user tokens from context.userId.
+var userTokens = map[string]string{
+	"userPractitionerId":     "Practitioner",
+	"userPractitionerRoleId": "PractitionerRole",
+	"userPatientId":          "Patient",
+	"userRelatedPersonId":    "RelatedPerson",
+}
+
+var tokenPattern = regexp.MustCompile(`\{\{\s*([A-Za-z0-9_.]+)\s*\}\}`)
+
+// RenderTemplate fills a prefetch template's tokens from the call. A token
+// with no value makes the template unusable (ok=false).
+func RenderTemplate(template string, c *Call) (string, bool) {
+	ok := true
+	out := tokenPattern.ReplaceAllStringFunc(template, func(tok string) string {
+		name := tokenPattern.FindStringSubmatch(tok)[1]
+		var v string
+		if field, isCtx := strings.CutPrefix(name, "context."); isCtx {
+			v = c.ContextTokens[field]
+		} else if typ, isUser := userTokens[name]; isUser {
+			if t, id, found := strings.Cut(c.Context.UserID, "/"); found && t == typ {
+				v = id
+			}
+		}
+		if v == "" {
+			ok = false
+		}
+		return url.QueryEscape(v)
+	})
+	return out, ok
+}
+
+// Resolve obtains every prefetch key of svc for the call: prefetched values as
+// sent, absent ones from the FHIR server when fetch is not nil. It fails with
+// KindPrecondition when a required key can be had neither way.
+func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limits) ([]Resolved, error) {
+	out := make([]Resolved, 0, len(svc.Prefetch))
+	var missing []string
+	for _, k := range svc.Prefetch {
+		r := resolveKey(ctx, k, c, fetch, lim)
+		if k.Required && (r.State == Failed || r.State == Unavailable) {
+			missing = append(missing, k.Key+" ("+r.Reason+")")
+		}
+		out = append(out, r)
+	}
+	if len(missing) > 0 {
+		return out, &Error{Kind: KindPrecondition, Field: "prefetch",
+			Message: "required data could not be obtained: " + strings.Join(missing, "; ")}
+	}
+	return out, nil
+}
+
+func resolveKey(ctx context.Context, k PrefetchKey, c *Call, fetch Fetcher, lim Limits) Resolved {
+	r := Resolved{Key: k}
+	raw, sent := c.Request.Prefetch[k.Key]
+	if sent {
+		if string(raw) == "null" {
+			r.State = NoData
+			return r
+		}
+		r.State = Prefetched
+		if err := r.read(ctx, raw, fetch, lim); err != nil {
+			r.State, r.Reason, r.Resources = Failed, err.Error(), nil
+		}
+		return r
+	}
+	if fetch == nil {
+		r.State, r.Reason = Unavailable, "not prefetched and no usable FHIR server"
+		return r
+	}
+	query, ok := RenderTemplate(k.Template, c)
+	if !ok {
+		r.State, r.Reason = Unavailable, "template has a token with no value"
+		return r
+	}
+	body, err := fetch.Fetch(ctx, query)
+	if err != nil {
+		r.State, r.Reason = Failed, err.Error()
+		return r
+	}
+	r.State = Fetched
+	if err := r.read(ctx, body, fetch, lim); err != nil {
+		r.State, r.Reason, r.Resources = Failed, err.Error(), nil
+	}
+	return r
+}
+
+// errOutcome means the data was an OperationOutcome reporting an error.
+var errOutcome = errors.New("the FHIR server reported an error (OperationOutcome)")
+
+// read takes the resources out of one value (a resource or a Bundle),
+// following next links while a fetcher is available.
+func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limits) error {
+	for page := 1; ; page++ {
+		res, err := fhirmap.ReadResource(raw)
+		if err != nil {
+			return fmt.Errorf("page %d: %w", page, err)
+		}
+		switch res.Type {
+		case "OperationOutcome":
+			return errOutcome
+		case "Bundle":
+		default:
+			r.Resources = append(r.Resources, raw)
+			return nil
+		}
+		b, err := fhirmap.ParseBundle(raw)
+		if err != nil {
+			return fmt.Errorf("page %d: %w", page, err)
+		}
+		for _, e := range b.Entries {
+			er, err := fhirmap.ReadResource(e.Resource)
+			if err == nil && er.Type == "OperationOutcome" {
+				if outcomeIsError(e.Resource) {
+					return errOutcome
+				}
+				continue // a search warning (search.mode "outcome")
+			}
+			r.Resources = append(r.Resources, e.Resource)
+		}
+		if b.Next == "" {
+			return nil
+		}
+		if fetch == nil {
+			r.Partial, r.Reason = true, "the result has more pages and there is no usable FHIR server to read them"
+			return nil
+		}
+		if page >= lim.MaxPages {
+			r.Partial, r.Reason = true, fmt.Sprintf("the result has more than %d pages; only %d were read", lim.MaxPages, page)
+			return nil
+		}
+		if raw, err = fetch.Fetch(ctx, b.Next); err != nil {
+			r.Partial, r.Reason = true, "reading page "+fmt.Sprint(page+1)+": "+err.Error()
+			return nil
+		}
+	}
+}
+
+func outcomeIsError(raw json.RawMessage) bool {
+	var oo struct {
+		Issue []struct {
+			Severity string `json:"severity"`
+		} `json:"issue"`
+	}
+	if json.Unmarshal(raw, &oo) != nil {
+		return true
+	}
+	for _, i := range oo.Issue {
+		if i.Severity == "error" || i.Severity == "fatal" {
+			return true
+		}
+	}
+	return false
+}

@@ -1,0 +1,226 @@
+package hooks
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"net/url"
+	"regexp"
+	"strings"
+)
+
+// fhirID is the FHIR R4 id datatype: 1–64 of [A-Za-z0-9-.].
+var fhirID = regexp.MustCompile(`^[A-Za-z0-9\-.]{1,64}$`)
+
+// Call is a decoded, validated service call.
+type Call struct {
+	Request Request
+	Context HookContext
+	// ContextTokens are the root-level primitive context fields, as text, for
+	// prefetch tokens (CDS Hooks 2.0 §Prefetch tokens).
+	ContextTokens map[string]string
+	// DraftOrders are the raw resources of context.draftOrders.
+	DraftOrders []json.RawMessage
+}
+
+// userTypes lists the resource types context.userId may name, per hook
+// (CDS Hooks Library: patient-view, order-select, order-sign).
+var userTypes = map[string][]string{
+	HookPatientView: {"Practitioner", "PractitionerRole", "Patient", "RelatedPerson"},
+	HookOrderSelect: {"Practitioner", "PractitionerRole"},
+	HookOrderSign:   {"Practitioner", "PractitionerRole"},
+}
+
+// DecodeCall parses and validates body as a call to svc. Unknown fields and
+// extension objects are tolerated; every error names the field at fault.
+func DecodeCall(svc Service, body []byte) (*Call, error) {
+	var c Call
+	if len(bytes.TrimSpace(body)) == 0 {
+		return nil, badRequest("", "request body is empty")
+	}
+	if err := json.Unmarshal(body, &c.Request); err != nil {
+		return nil, badRequest(jsonField(err), "request is not a valid CDS Hooks JSON object: %s", jsonProblem(err))
+	}
+	r := &c.Request
+	switch {
+	case r.Hook == "":
+		return nil, badRequest("hook", "is required")
+	case !svc.Serves(r.Hook):
+		return nil, badRequest("hook", "service %s does not serve hook %q (it serves %s)",
+			svc.ID, r.Hook, strings.Join(svc.Hooks, ", "))
+	case r.HookInstance == "":
+		return nil, badRequest("hookInstance", "is required")
+	}
+	if err := validateServer(r); err != nil {
+		return nil, err
+	}
+	if err := c.decodeContext(); err != nil {
+		return nil, err
+	}
+	for key, v := range r.Prefetch {
+		if !isNullOrObject(v) {
+			return nil, badRequest("prefetch."+key, "must be a FHIR resource or null")
+		}
+	}
+	if len(r.Extension) > 0 && !isObject(r.Extension) {
+		return nil, badRequest("extension", "must be an object")
+	}
+	return &c, nil
+}
+
+func validateServer(r *Request) error {
+	if r.FHIRServer != "" {
+		u, err := url.Parse(r.FHIRServer)
+		if err != nil || (u.Scheme != "https" && u.Scheme != "http") || u.Host == "" {
+			return badRequest("fhirServer", "must be an absolute http(s) URL")
+		}
+	}
+	a := r.FHIRAuthorization
+	if a == nil {
+		return nil
+	}
+	switch {
+	case r.FHIRServer == "":
+		return badRequest("fhirServer", "is required when fhirAuthorization is present")
+	case a.AccessToken == "":
+		return badRequest("fhirAuthorization.access_token", "is required")
+	case a.TokenType != "Bearer":
+		return badRequest("fhirAuthorization.token_type", "must be \"Bearer\"")
+	case a.ExpiresIn == nil:
+		return badRequest("fhirAuthorization.expires_in", "is required")
+	case a.Scope == "":
+		return badRequest("fhirAuthorization.scope", "is required")
+	case a.Subject == "":
+		return badRequest("fhirAuthorization.subject", "is required")
+	}
+	return nil
+}
+
+func (c *Call) decodeContext() error {
+	raw := c.Request.Context
+	if len(raw) == 0 || string(raw) == "null" {
+		return badRequest("context", "is required")
+	}
+	var fields map[string]json.RawMessage
+	if err := json.Unmarshal(raw, &fields); err != nil {
+		return badRequest("context", "must be an object")
+	}
+	c.ContextTokens = map[string]string{}
+	for name, v := range fields {
+		var s string
+		if json.Unmarshal(v, &s) == nil {
+			c.ContextTokens[name] = s
+			continue
+		}
+		var n json.Number
+		if json.Unmarshal(v, &n) == nil {
+			c.ContextTokens[name] = n.String()
+		}
+	}
+	if err := json.Unmarshal(raw, &c.Context); err != nil {
+		return badRequest("context."+jsonField(err), "has the wrong type: %s", jsonProblem(err))
+	}
+	ctx := &c.Context
+	hook := c.Request.Hook
+	if ctx.UserID == "" {
+		return badRequest("context.userId", "is required")
+	}
+	if !validUser(hook, ctx.UserID) {
+		return badRequest("context.userId", "must be a reference of the form %s/{id}",
+			strings.Join(userTypes[hook], "|"))
+	}
+	if ctx.PatientID == "" {
+		return badRequest("context.patientId", "is required")
+	}
+	if !fhirID.MatchString(ctx.PatientID) {
+		return badRequest("context.patientId", "must be a FHIR id (1–64 letters, digits, '-' or '.')")
+	}
+	if _, ok := fields["encounterId"]; ok && !fhirID.MatchString(ctx.EncounterID) {
+		return badRequest("context.encounterId", "must be a FHIR id")
+	}
+	if hook == HookPatientView {
+		return nil
+	}
+	return c.decodeOrders(fields)
+}
+
+// decodeOrders validates draftOrders (order hooks) and selections (order-select).
+func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
+	ctx := &c.Context
+	if len(ctx.DraftOrders) == 0 || string(ctx.DraftOrders) == "null" {
+		return badRequest("context.draftOrders", "is required for %s", c.Request.Hook)
+	}
+	var b struct {
+		ResourceType string `json:"resourceType"`
+		Entry        []struct {
+			Resource json.RawMessage `json:"resource"`
+		} `json:"entry"`
+	}
+	if err := json.Unmarshal(ctx.DraftOrders, &b); err != nil || b.ResourceType != "Bundle" {
+		return badRequest("context.draftOrders", "must be a FHIR Bundle")
+	}
+	refs := map[string]bool{}
+	for i, e := range b.Entry {
+		var h struct {
+			ResourceType string `json:"resourceType"`
+			ID           string `json:"id"`
+		}
+		if json.Unmarshal(e.Resource, &h) != nil || h.ResourceType == "" {
+			return badRequest(fmt.Sprintf("context.draftOrders.entry[%d].resource", i), "must be a FHIR resource")
+		}
+		refs[h.ResourceType+"/"+h.ID] = true
+		c.DraftOrders = append(c.DraftOrders, e.Resource)
+	}
+	if c.Request.Hook != HookOrderSelect {
+		return nil
+	}
+	if _, ok := fields["selections"]; !ok || len(ctx.Selections) == 0 {
+		return badRequest("context.selections", "is required for order-select and must not be empty")
+	}
+	for i, s := range ctx.Selections {
+		if !refs[s] {
+			return badRequest(fmt.Sprintf("context.selections[%d]", i), "%q is not an entry of draftOrders", s)
+		}
+	}
+	return nil
+}
+
+func validUser(hook, ref string) bool {
+	typ, id, ok := strings.Cut(ref, "/")
+	if !ok || !fhirID.MatchString(id) {
+		return false
+	}
+	for _, t := range userTypes[hook] {
+		if t == typ {
+			return true
+		}
+	}
+	return false
+}
+
+func isObject(v json.RawMessage) bool {
+	v = bytes.TrimSpace(v)
+	return len(v) > 0 && v[0] == '{'
+}
+
+func isNullOrObject(v json.RawMessage) bool {
+	return string(bytes.TrimSpace(v)) == "null" || isObject(v)
+}
+
+// jsonField names the field a json error is about, when the error says.
+func jsonField(err error) string {
+	if te, ok := err.(*json.UnmarshalTypeError); ok {
+		return te.Field
+	}
+	return ""
+}
+
+func jsonProblem(err error) string {
+	switch e := err.(type) {
+	case *json.UnmarshalTypeError:
+		return fmt.Sprintf("expected %s, got JSON %s", e.Type, e.Value)
+	case *json.SyntaxError:
+		return fmt.Sprintf("syntax error at byte %d", e.Offset)
+	}
+	return "malformed JSON"
+}

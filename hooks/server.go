@@ -1,0 +1,211 @@
+package hooks
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"io"
+	"log/slog"
+	"net/http"
+	"strconv"
+	"strings"
+	"sync/atomic"
+	"time"
+
+	"github.com/gin-gonic/gin"
+)
+
+// ServerConfig holds the HTTP-level settings of the service.
+type ServerConfig struct {
+	MaxBodyBytes int64         // request bodies past this are answered 413
+	CallTimeout  time.Duration // time budget of one hook call, fetches included
+	// CORSOrigins are the browser origins allowed to call the service.
+	CORSOrigins []string
+}
+
+// Health tracks readiness: a draining server is alive but not ready.
+type Health struct {
+	draining atomic.Bool
+}
+
+// Drain marks the server as shutting down, so /readyz fails and load
+// balancers stop sending calls while in-flight ones finish.
+func (h *Health) Drain() { h.draining.Store(true) }
+
+// NewHandler returns the HTTP handler: discovery, service calls, CORS,
+// health and readiness.
+func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) http.Handler {
+	s := &server{engine: e, cfg: cfg, health: health, log: log,
+		origins: map[string]bool{}, discovery: mustJSON(e.Registry().Discovery())}
+	for _, o := range cfg.CORSOrigins {
+		s.origins[strings.TrimRight(o, "/")] = true
+	}
+	r := gin.New()
+	r.RedirectTrailingSlash = false
+	r.RedirectFixedPath = false
+	r.HandleMethodNotAllowed = true
+	r.Use(gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
+	r.GET("/cds-services", s.discover)
+	r.POST("/cds-services/:id", s.call)
+	for _, p := range []string{"/cds-services", "/cds-services/:id", "/cds-services/:id/feedback"} {
+		r.OPTIONS(p, func(c *gin.Context) { c.Status(http.StatusNoContent) })
+	}
+	r.GET("/healthz", func(c *gin.Context) { c.Data(http.StatusOK, "application/json", []byte(`{"status":"ok"}`)) })
+	r.GET("/readyz", s.ready)
+	r.NoRoute(func(c *gin.Context) {
+		s.fail(c, &Error{Kind: KindUnknownService, Message: "no such endpoint"})
+	})
+	r.NoMethod(func(c *gin.Context) {
+		c.Data(http.StatusMethodNotAllowed, "application/json",
+			mustJSON(OperationOutcome{ResourceType: "OperationOutcome",
+				Issue: []OutcomeIssue{{Severity: "error", Code: "not-supported", Diagnostics: "method not allowed"}}}))
+	})
+	return r
+}
+
+type server struct {
+	engine    *Engine
+	cfg       ServerConfig
+	health    *Health
+	log       *slog.Logger
+	origins   map[string]bool
+	discovery []byte
+}
+
+func (s *server) discover(c *gin.Context) {
+	c.Data(http.StatusOK, "application/json", s.discovery)
+}
+
+func (s *server) call(c *gin.Context) {
+	id := c.Param("id")
+	body, err := io.ReadAll(http.MaxBytesReader(c.Writer, c.Request.Body, s.cfg.MaxBodyBytes))
+	if err != nil {
+		var tooLarge *http.MaxBytesError
+		if errors.As(err, &tooLarge) {
+			s.fail(c, &Error{Kind: KindTooLarge, Message: "request body is larger than the limit of " +
+				formatBytes(s.cfg.MaxBodyBytes)})
+			return
+		}
+		s.fail(c, &Error{Kind: KindBadRequest, Message: "request body could not be read"})
+		return
+	}
+	ctx := c.Request.Context()
+	if s.cfg.CallTimeout > 0 {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, s.cfg.CallTimeout)
+		defer cancel()
+	}
+	out, err := s.engine.Handle(ctx, id, body, time.Now())
+	if err != nil {
+		s.fail(c, err)
+		return
+	}
+	c.Set(logCards, len(out.Response.Cards))
+	c.Set(logKeys, keySummary(out.Keys))
+	c.Data(http.StatusOK, "application/json", mustJSON(out.Response))
+}
+
+func (s *server) ready(c *gin.Context) {
+	if s.health.draining.Load() {
+		c.Data(http.StatusServiceUnavailable, "application/json", []byte(`{"status":"draining"}`))
+		return
+	}
+	c.Data(http.StatusOK, "application/json",
+		mustJSON(map[string]string{"status": "ready", "ruleset": s.engine.Ruleset().Revision()}))
+}
+
+// fail answers err with its status and an OperationOutcome.
+func (s *server) fail(c *gin.Context, err error) {
+	c.Set(logError, err.Error())
+	c.Data(StatusOf(err), "application/json", mustJSON(OutcomeOf(err)))
+	c.Abort()
+}
+
+func (s *server) recovered(c *gin.Context, v any) {
+	s.log.Error("panic in handler", "route", c.FullPath())
+	s.fail(c, errors.New("panic"))
+}
+
+// cors answers preflights and marks responses for the configured origins
+// only (CDS Hooks 2.0 §CORS defers to OWASP: no wildcard).
+func (s *server) cors(c *gin.Context) {
+	origin := c.GetHeader("Origin")
+	if origin == "" {
+		c.Next()
+		return
+	}
+	h := c.Writer.Header()
+	h.Add("Vary", "Origin")
+	if !s.origins[origin] {
+		if c.Request.Method == http.MethodOptions {
+			c.AbortWithStatus(http.StatusForbidden)
+			return
+		}
+		c.Next()
+		return
+	}
+	h.Set("Access-Control-Allow-Origin", origin)
+	h.Set("Access-Control-Allow-Headers", "Authorization, Content-Type")
+	h.Set("Access-Control-Allow-Methods", "GET, POST, OPTIONS")
+	h.Set("Access-Control-Max-Age", "600")
+	c.Next()
+}
+
+// Keys of per-request values the access log reads.
+const (
+	logCards = "halite.cards"
+	logKeys  = "halite.prefetch"
+	logError = "halite.error"
+)
+
+// accessLog writes one line per request: route, status, duration, card
+// count and prefetch states. No body, query string or identifier is logged.
+func (s *server) accessLog(c *gin.Context) {
+	start := time.Now()
+	c.Next()
+	attrs := []any{"method", c.Request.Method, "route", c.FullPath(), "status", c.Writer.Status(),
+		"duration_ms", float64(time.Since(start).Microseconds()) / 1000}
+	if id := c.Param("id"); id != "" {
+		if _, known := s.engine.Registry().Lookup(id); known {
+			attrs = append(attrs, "service", id)
+		}
+	}
+	if v, ok := c.Get(logCards); ok {
+		attrs = append(attrs, "cards", v)
+	}
+	if v, ok := c.Get(logKeys); ok {
+		attrs = append(attrs, "prefetch", v)
+	}
+	if v, ok := c.Get(logError); ok && c.Writer.Status() != http.StatusUnauthorized {
+		attrs = append(attrs, "error", v)
+	}
+	s.log.Info("request", attrs...)
+}
+
+func keySummary(keys []Resolved) string {
+	parts := make([]string, 0, len(keys))
+	for _, k := range keys {
+		p := k.Key.Key + "=" + string(k.State)
+		if k.Partial {
+			p += "(partial)"
+		}
+		parts = append(parts, p)
+	}
+	return strings.Join(parts, ",")
+}
+
+func mustJSON(v any) []byte {
+	b, err := json.Marshal(v)
+	if err != nil {
+		panic("hooks: marshal response: " + err.Error()) // only halite's own types reach here
+	}
+	return b
+}
+
+func formatBytes(n int64) string {
+	const mib = 1 << 20
+	if n%mib == 0 {
+		return strconv.FormatInt(n/mib, 10) + " MiB"
+	}
+	return strconv.FormatInt(n, 10) + " bytes"
+}

@@ -1,0 +1,179 @@
+package hooks
+
+import (
+	"sort"
+	"strings"
+
+	"github.com/halite-cds/halite/fhirmap"
+	"github.com/halite-cds/halite/rules"
+)
+
+// Hook names halite serves (CDS Hooks Library STU1).
+const (
+	HookPatientView = "patient-view"
+	HookOrderSelect = "order-select"
+	HookOrderSign   = "order-sign"
+)
+
+// PrefetchKey is one prefetch template. Required keys must be obtained
+// (prefetched, or fetched from fhirServer) or the call is answered 412.
+type PrefetchKey struct {
+	Key      string
+	Template string
+	Required bool
+	// What says, for cards and reports, what the key holds.
+	What string
+}
+
+// Service is one CDS service: its id, the hooks it serves, what it checks
+// and the data it needs.
+type Service struct {
+	ID                string
+	Hooks             []string
+	Title             string
+	Description       string
+	UsageRequirements string
+	Check             rules.Check
+	Prefetch          []PrefetchKey
+}
+
+// Serves reports whether s is registered for hook.
+func (s Service) Serves(hook string) bool {
+	for _, h := range s.Hooks {
+		if h == hook {
+			return true
+		}
+	}
+	return false
+}
+
+// Registry is the fixed set of services, in discovery order.
+type Registry struct {
+	services []Service
+}
+
+// NewRegistry returns halite's services.
+func NewRegistry() *Registry {
+	k := prefetchKeys()
+	return &Registry{services: []Service{
+		{
+			ID:    "sodium-infusion-check",
+			Hooks: []string{HookOrderSelect, HookOrderSign},
+			Title: "Sodium correction check for fluid and sodium-moving orders",
+			Description: "Reviews draft orders that move serum sodium (IV fluids of any tonicity, hypertonic saline, " +
+				"vasopressin-receptor antagonists, desmopressin) against the correction already achieved and the " +
+				"rate limits in force, and estimates the change the order would cause. Advisory only.",
+			UsageRequirements: "Needs the patient's serum sodium results with their times; body weight, age and sex " +
+				"for projections. Draft orders must be MedicationRequests with coded or described products.",
+			Check:    rules.InfusionCheck,
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.bodySize, k.conditions},
+		},
+		{
+			ID:    "sodium-drug-risk",
+			Hooks: []string{HookOrderSelect, HookOrderSign},
+			Title: "Hyponatremia and nephrogenic DI risk of new medication orders",
+			Description: "Checks draft medication orders whose ingredients raise the risk of hyponatremia (SIADH and " +
+				"related mechanisms) or of nephrogenic diabetes insipidus, judged against this patient's sodium, age and " +
+				"active medications. Advisory only.",
+			UsageRequirements: "Needs the patient's recent serum sodium and active MedicationRequests; medications " +
+				"coded with RxNorm or ATC are matched most reliably.",
+			Check:    rules.DrugRisk,
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.medications},
+		},
+		{
+			ID:    "sodium-chart-review",
+			Hooks: []string{HookPatientView},
+			Title: "Sodium trajectory review",
+			Description: "On opening the chart, reviews the sodium trajectory, the correction already achieved, " +
+				"laboratory patterns that may merit a work-up and active drugs that affect sodium. Shows a card only " +
+				"when there is something to act on. Advisory only.",
+			UsageRequirements: "Needs serial serum sodium results with their times; related chemistry, urine studies, " +
+				"body size, active medications and conditions improve the review.",
+			Check: rules.ChartReview,
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize,
+				k.medications, k.conditions},
+		},
+	}}
+}
+
+type keySet struct {
+	patient, sodium, chemistry, urine, bodySize, medications, conditions PrefetchKey
+}
+
+// prefetchKeys builds the templates. They use only the restricted query
+// syntax of CDS Hooks 2.0 §Prefetch query restrictions: instance reads, a
+// resource reference, token parameters by equality (comma = OR), _sort and
+// _count.
+func prefetchKeys() keySet {
+	obs := func(analytes ...rules.Analyte) string {
+		var codes []string
+		for _, a := range analytes {
+			for _, c := range fhirmap.LOINCCodes(a) {
+				codes = append(codes, fhirmap.SystemLOINC+"|"+c)
+			}
+		}
+		sort.Strings(codes)
+		return "Observation?patient={{context.patientId}}&code=" + strings.Join(codes, ",") + "&_sort=-date&_count=200"
+	}
+	return keySet{
+		patient: PrefetchKey{Key: "patient", Template: "Patient/{{context.patientId}}", Required: true,
+			What: "the patient's age and sex"},
+		sodium: PrefetchKey{Key: "sodium", Template: obs(rules.Sodium), Required: true,
+			What: "serum and blood sodium results"},
+		chemistry: PrefetchKey{Key: "chemistry",
+			Template: obs(rules.Potassium, rules.Glucose, rules.Urea, rules.Creatinine, rules.SerumOsmolality),
+			What:     "potassium, glucose, urea, creatinine and serum osmolality"},
+		urine: PrefetchKey{Key: "urine", Template: obs(rules.UrineOsmolality, rules.UrineSodium, rules.UrinePotassium),
+			What: "urine osmolality, sodium and potassium"},
+		bodySize: PrefetchKey{Key: "bodySize", Template: obs(rules.BodyWeight, rules.BodyHeight),
+			What: "body weight and height"},
+		medications: PrefetchKey{Key: "medications",
+			Template: "MedicationRequest?patient={{context.patientId}}&status=active",
+			What:     "active medication orders"},
+		conditions: PrefetchKey{Key: "conditions",
+			Template: "Condition?patient={{context.patientId}}&clinical-status=active",
+			What:     "active conditions"},
+	}
+}
+
+// Lookup returns the service with id.
+func (r *Registry) Lookup(id string) (Service, bool) {
+	for _, s := range r.services {
+		if s.ID == id {
+			return s, true
+		}
+	}
+	return Service{}, false
+}
+
+// Services returns the services in discovery order.
+func (r *Registry) Services() []Service { return r.services }
+
+// ForHook returns the services that serve hook.
+func (r *Registry) ForHook(hook string) []Service {
+	var out []Service
+	for _, s := range r.services {
+		if s.Serves(hook) {
+			out = append(out, s)
+		}
+	}
+	return out
+}
+
+// Discovery returns the discovery document: one entry per service and hook.
+func (r *Registry) Discovery() Discovery {
+	d := Discovery{Services: []ServiceDescription{}}
+	for _, s := range r.services {
+		prefetch := map[string]string{}
+		for _, k := range s.Prefetch {
+			prefetch[k.Key] = k.Template
+		}
+		for _, h := range s.Hooks {
+			d.Services = append(d.Services, ServiceDescription{
+				Hook: h, Title: s.Title, Description: s.Description, ID: s.ID,
+				Prefetch: prefetch, UsageRequirements: s.UsageRequirements,
+			})
+		}
+	}
+	return d
+}

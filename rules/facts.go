@@ -1,0 +1,226 @@
+// Package rules is halite's clinical domain: the facts a hook call is judged on,
+// the policy data (thresholds, plausibility bounds) with its revision, and the
+// rule families that turn facts into findings. It knows nothing of HTTP, FHIR
+// or telemetry; fhirmap builds its facts and hooks renders its findings.
+package rules
+
+import (
+	"math"
+	"time"
+)
+
+// Analyte names a quantity halite reads from the chart.
+type Analyte string
+
+// The analytes halite maps. Values are held in the canonical unit that
+// CanonicalUnit returns for each.
+const (
+	Sodium          Analyte = "sodium"           // serum, plasma or blood
+	Potassium       Analyte = "potassium"        // serum, plasma or blood
+	Glucose         Analyte = "glucose"          // serum, plasma or blood
+	Urea            Analyte = "urea"             // as urea, from urea or urea-nitrogen results
+	Creatinine      Analyte = "creatinine"       // serum or plasma
+	SerumOsmolality Analyte = "serum-osmolality" // measured
+	UrineOsmolality Analyte = "urine-osmolality"
+	UrineSodium     Analyte = "urine-sodium"
+	UrinePotassium  Analyte = "urine-potassium"
+	BodyWeight      Analyte = "body-weight"
+	BodyHeight      Analyte = "body-height"
+)
+
+// analyteOrder is the order Analytes reports.
+var analyteOrder = [...]Analyte{Sodium, Potassium, Glucose, Urea, Creatinine, SerumOsmolality,
+	UrineOsmolality, UrineSodium, UrinePotassium, BodyWeight, BodyHeight}
+
+// Analytes returns every analyte halite maps, in a stable order.
+func Analytes() []Analyte { return analyteOrder[:] }
+
+// CanonicalUnit is the UCUM unit in which values of a are held.
+func CanonicalUnit(a Analyte) string {
+	switch a {
+	case Creatinine:
+		return "umol/L"
+	case SerumOsmolality, UrineOsmolality:
+		return "mosm/kg"
+	case BodyWeight:
+		return "kg"
+	case BodyHeight:
+		return "cm"
+	default:
+		return "mmol/L"
+	}
+}
+
+// Measurement is one accepted result, in its analyte's canonical unit.
+type Measurement struct {
+	Analyte  Analyte
+	Value    float64
+	At       time.Time
+	Source   string // resource reference, e.g. "Observation/na-1"
+	Code     string // the LOINC code it was recognised by
+	Specimen string // "serum or plasma", "blood", "arterial blood", "urine", …
+	// Original is the value and unit as sent, e.g. "136 meq/L", for audit.
+	Original string
+}
+
+// Rejection records a resource that was read but not used, and why.
+type Rejection struct {
+	Source  string // resource reference, e.g. "Observation/na-9"
+	Analyte Analyte
+	Reason  string
+}
+
+// Sex is administrative sex as recorded (FHIR AdministrativeGender).
+type Sex string
+
+// Recorded sexes; SexMissing means the chart has none.
+const (
+	SexMissing Sex = ""
+	SexMale    Sex = "male"
+	SexFemale  Sex = "female"
+	SexOther   Sex = "other"
+	SexUnknown Sex = "unknown"
+)
+
+// Patient holds the demographic facts the rules use. A nil BirthDate or
+// SexMissing means the chart did not say; nothing is defaulted.
+type Patient struct {
+	Reference string
+	BirthDate *time.Time
+	Sex       Sex
+}
+
+// AgeYears is the patient's completed age in whole years at t, and whether the
+// birth date is known.
+func (p Patient) AgeYears(t time.Time) (int, bool) {
+	if p.BirthDate == nil {
+		return 0, false
+	}
+	b := *p.BirthDate
+	years := t.Year() - b.Year()
+	if t.Month() < b.Month() || (t.Month() == b.Month() && t.Day() < b.Day()) {
+		years--
+	}
+	if years < 0 {
+		return 0, false
+	}
+	return years, true
+}
+
+// Coding is a code from a code system.
+type Coding struct {
+	System  string
+	Code    string
+	Display string
+}
+
+// Quantity is a value with its UCUM unit.
+type Quantity struct {
+	Value float64
+	Unit  string
+}
+
+// Ratio is a numerator over a denominator, as in an ingredient strength.
+type Ratio struct {
+	Numerator   Quantity
+	Denominator Quantity
+}
+
+// Ingredient is one ingredient of a medication, with its strength when known.
+type Ingredient struct {
+	Codings  []Coding
+	Text     string
+	Strength *Ratio
+}
+
+// MedicationSource says where a medication's identity was read from.
+type MedicationSource string
+
+// Medication identity sources.
+const (
+	FromCodeableConcept MedicationSource = "codeable-concept"
+	FromContained       MedicationSource = "contained-medication"
+	FromReferenced      MedicationSource = "referenced-medication"
+	FromUnresolved      MedicationSource = "unresolved-reference"
+)
+
+// Medication is what an order is for: its codes, text and ingredients.
+type Medication struct {
+	Source      MedicationSource
+	Codings     []Coding
+	Text        string
+	Form        string
+	Ingredients []Ingredient
+}
+
+// MedicationOrder is a MedicationRequest reduced to what the rules read.
+// Pointers are nil when the order did not say.
+type MedicationOrder struct {
+	Reference  string // "MedicationRequest/id"
+	Status     string
+	Intent     string
+	AuthoredOn *time.Time
+	Medication Medication
+	Route      []Coding
+	RouteText  string
+	Dose       *Quantity
+	// RateMlPerHour is the infusion rate normalised to mL/h, when the order's
+	// rate unit allows it; Rate keeps the rate as written.
+	RateMlPerHour *float64
+	Rate          string
+	// Duration is the duration of one administration (timing.repeat.duration).
+	Duration *Quantity
+	// Bounds is the total course (timing.repeat.boundsDuration).
+	Bounds           *Quantity
+	Frequency        int
+	Period           *Quantity
+	DispenseQuantity *Quantity
+	Draft            bool // carried in context.draftOrders
+	Selected         bool // named in order-select's selections
+}
+
+// Condition is a problem-list or encounter diagnosis.
+type Condition struct {
+	Reference          string
+	Codings            []Coding
+	Text               string
+	ClinicalStatus     string
+	VerificationStatus string
+}
+
+// DataGap records a source of facts halite could not read, so findings can
+// say what they could not check.
+type DataGap struct {
+	Source string // a prefetch key, e.g. "chemistry"
+	Reason string
+}
+
+// Facts is everything one hook call is judged on.
+type Facts struct {
+	At          time.Time
+	Patient     Patient
+	Labs        map[Analyte][]Measurement // each series ordered by time, oldest first
+	Rejected    []Rejection
+	Medications []MedicationOrder // active orders already on the chart
+	DraftOrders []MedicationOrder // orders being selected or signed
+	Conditions  []Condition
+	Gaps        []DataGap
+	Notes       []string // data-quality notes that are not rejections
+}
+
+// Latest returns the most recent measurement of a taken at or before f.At.
+func (f Facts) Latest(a Analyte) (Measurement, bool) {
+	s := f.Labs[a]
+	for i := len(s) - 1; i >= 0; i-- {
+		if !s[i].At.After(f.At) {
+			return s[i], true
+		}
+	}
+	return Measurement{}, false
+}
+
+// Round rounds v to the given number of decimals, for display.
+func Round(v float64, decimals int) float64 {
+	p := math.Pow(10, float64(decimals))
+	return math.Round(v*p) / p
+}

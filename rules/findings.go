@@ -1,0 +1,56 @@
+package rules
+
+// Indicator is a finding's urgency, in increasing order.
+type Indicator int
+
+// Indicators, ordered so that a larger value is more urgent.
+const (
+	Info Indicator = iota + 1
+	Warning
+	Critical
+)
+
+// String returns the CDS Hooks indicator code.
+func (i Indicator) String() string {
+	switch i {
+	case Info:
+		return "info"
+	case Warning:
+		return "warning"
+	case Critical:
+		return "critical"
+	default:
+		return "none"
+	}
+}
+
+// Finding is one actionable result of a rule, before it is worded as a card.
+type Finding struct {
+	Rule      string // stable rule id, e.g. "hyponatremia-overcorrection"
+	Indicator Indicator
+	Summary   string // one sentence with its number, < 140 characters
+	Detail    string // markdown: figures, inputs with dates, method, limits
+	// Figures are the machine-readable numbers, named in camelCase with unit
+	// suffixes where needed (e.g. "riseFromNadir24h", "tbwLitres").
+	Figures map[string]float64
+}
+
+// Check names what a service evaluates; each check runs its own rule families.
+type Check string
+
+// The checks halite runs, one per CDS service.
+const (
+	InfusionCheck Check = "infusion-check" // orders that move serum sodium
+	DrugRisk      Check = "drug-risk"      // drugs that raise hyponatremia or nephrogenic-DI risk
+	ChartReview   Check = "chart-review"   // the sodium trajectory at chart opening
+)
+
+// Evaluate runs the rule families of check c over f and returns the
+// actionable findings, most urgent first. No finding means nothing is
+// actionable, which is answered as an empty card list.
+//
+// No rule family is registered yet for any check: the kinetics, drug-risk and
+// chart-review families are added by their own changes, each with its sources.
+func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
+	return nil
+}
