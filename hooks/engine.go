@@ -2,6 +2,7 @@ package hooks
 
 import (
 	"context"
+	"fmt"
 	"log/slog"
 	"time"
 
@@ -76,12 +77,11 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
 		}
 	}
-	findings := e.ruleset.Evaluate(svc.Check, facts)
-	return &Outcome{
-		Response: Response{Cards: renderCards(findings, e.ruleset.Revision())},
-		Keys:     keys,
-		Facts:    facts,
-	}, nil
+	resp := Response{Cards: renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision())}
+	if err := ValidateResponse(resp); err != nil {
+		return nil, fmt.Errorf("%s: %w", svc.ID, err)
+	}
+	return &Outcome{Response: resp, Keys: keys, Facts: facts}, nil
 }
 
 // fetcher returns the outbound client for the call, or nil when the call

@@ -208,17 +208,6 @@ type Facts struct {
 	Notes       []string // data-quality notes that are not rejections
 }
 
-// Latest returns the most recent measurement of a taken at or before f.At.
-func (f Facts) Latest(a Analyte) (Measurement, bool) {
-	s := f.Labs[a]
-	for i := len(s) - 1; i >= 0; i-- {
-		if !s[i].At.After(f.At) {
-			return s[i], true
-		}
-	}
-	return Measurement{}, false
-}
-
 // Round rounds v to the given number of decimals, for display.
 func Round(v float64, decimals int) float64 {
 	p := math.Pow(10, float64(decimals))

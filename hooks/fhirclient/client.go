@@ -129,7 +129,7 @@ func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
 // resource type only.
 func (c *Client) resolve(ref string) (*url.URL, string, error) {
 	var u *url.URL
-	if strings.Contains(ref, "://") {
+	if path, _, _ := strings.Cut(ref, "?"); strings.Contains(path, "://") {
 		parsed, err := url.Parse(ref)
 		if err != nil || !c.sameOrigin(parsed) {
 			return nil, "next page", fmt.Errorf("fetch next page: %w", ErrOffOrigin)

@@ -1,0 +1,112 @@
+package main
+
+import (
+	"os"
+	"path/filepath"
+	"reflect"
+	"strings"
+	"testing"
+	"time"
+)
+
+func TestConfigDefaultsAreValid(t *testing.T) {
+	cfg, err := loadConfig("", func(string) string { return "" })
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.validate(); err != nil {
+		t.Fatalf("embedded defaults are invalid: %v", err)
+	}
+	if cfg.ListenAddr != "127.0.0.1:8080" || !cfg.DevelopmentMode || cfg.MaxBodyBytes != 8<<20 {
+		t.Errorf("defaults %+v", cfg)
+	}
+}
+
+func TestConfigFileAndEnvironment(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "halite.yaml")
+	os.WriteFile(path, []byte("listen_addr: 127.0.0.1:9090\ncall_timeout: 2s\nfhir_client:\n  max_pages: 4\n"), 0o644)
+	env := map[string]string{"HALITE_FHIR_CLIENT_MAX_PAGES": "7", "HALITE_CORS_ALLOWED_ORIGINS": "https://a.example, https://b.example"}
+	cfg, err := loadConfig(path, func(k string) string { return env[k] })
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cfg.ListenAddr != "127.0.0.1:9090" || time.Duration(cfg.CallTimeout) != 2*time.Second {
+		t.Errorf("file values not applied: %+v", cfg)
+	}
+	if cfg.FHIRClient.MaxPages != 7 || len(cfg.CORSOrigins) != 2 || cfg.CORSOrigins[1] != "https://b.example" {
+		t.Errorf("environment must override the file: %+v", cfg)
+	}
+	if err := cfg.validate(); err != nil {
+		t.Error(err)
+	}
+}
+
+// TestConfigErrorsNameTheKey: every invalid setting is refused at start-up
+// with the key named.
+func TestConfigErrorsNameTheKey(t *testing.T) {
+	for _, tc := range []struct {
+		yaml, env, key string
+	}{
+		{"listen_addr: nonsense\n", "", "listen_addr"},
+		{"listen_addr: 10.1.2.3:8080\n", "", "listen_addr"},
+		{"development_mode: false\n", "", "development_mode"},
+		{"public_base_url: not a url\n", "", "public_base_url"},
+		{"max_body_bytes: 0\n", "", "max_body_bytes"},
+		{"call_timeout: 0s\n", "", "call_timeout"},
+		{"cors_allowed_origins: ['*']\n", "", "cors_allowed_origins[0]"},
+		{"log_level: loud\n", "", "log_level"},
+		{"fhir_client:\n  max_pages: 0\n", "", "fhir_client.max_pages"},
+		{"lisen_addr: 127.0.0.1:1\n", "", "lisen_addr"},
+		{"call_timeout: soon\n", "", "duration"},
+		{"", "HALITE_MAX_BODY_BYTES=lots", "max_body_bytes"},
+		{"", "HALITE_DEVELOPMENT_MODE=maybe", "development_mode"},
+	} {
+		path := filepath.Join(t.TempDir(), "c.yaml")
+		os.WriteFile(path, []byte(tc.yaml), 0o644)
+		name, value, _ := strings.Cut(tc.env, "=")
+		cfg, err := loadConfig(path, func(k string) string {
+			if k == name {
+				return value
+			}
+			return ""
+		})
+		if err == nil {
+			err = cfg.validate()
+		}
+		if err == nil || !strings.Contains(err.Error(), tc.key) {
+			t.Errorf("%q %q: got %v, want an error naming %s", tc.yaml, tc.env, err, tc.key)
+		}
+	}
+}
+
+func TestEnvNames(t *testing.T) {
+	for key, want := range map[string]string{
+		"listen_addr": "HALITE_LISTEN_ADDR", "fhir_client.max_response_bytes": "HALITE_FHIR_CLIENT_MAX_RESPONSE_BYTES"} {
+		if got := envName(key); got != want {
+			t.Errorf("envName(%s) = %s, want %s", key, got, want)
+		}
+	}
+}
+
+// TestEveryKeyHasAnEnvironmentVariable walks Config's YAML keys.
+func TestEveryKeyHasAnEnvironmentVariable(t *testing.T) {
+	have := map[string]bool{}
+	for _, k := range envKeys {
+		have[k.key] = true
+	}
+	var walk func(typ reflect.Type, prefix string)
+	walk = func(typ reflect.Type, prefix string) {
+		for i := 0; i < typ.NumField(); i++ {
+			f := typ.Field(i)
+			key := prefix + strings.Split(f.Tag.Get("yaml"), ",")[0]
+			if f.Type.Kind() == reflect.Struct && f.Type != reflect.TypeOf(Duration(0)) {
+				walk(f.Type, key+".")
+				continue
+			}
+			if !have[key] {
+				t.Errorf("config key %s has no environment variable", key)
+			}
+		}
+	}
+	walk(reflect.TypeOf(Config{}), "")
+}

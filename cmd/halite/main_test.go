@@ -1,0 +1,396 @@
+package main
+
+import (
+	"bufio"
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"flag"
+	"io"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/halite-cds/halite/fhirmap"
+	"github.com/halite-cds/halite/hooks"
+)
+
+var update = flag.Bool("update", false, "rewrite golden files under testdata/")
+
+const scenarioAt = "2026-11-20T08:00:00Z" // testdata/scenarios/README.md
+
+func scenarioFiles(t *testing.T) []string {
+	t.Helper()
+	files, err := filepath.Glob(filepath.Join("..", "..", "testdata", "scenarios", "*.json"))
+	if err != nil || len(files) < 8 {
+		t.Fatalf("scenarios: %v (%d files)", err, len(files))
+	}
+	return files
+}
+
+// syncBuffer is a bytes.Buffer safe for the server goroutine and the test.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
+}
+
+// startServe runs `halite serve` on a free loopback port and returns its
+// base URL, its log, and a stop function that returns run's error.
+func startServe(t *testing.T, args ...string) (string, *syncBuffer, func() error) {
+	t.Helper()
+	ctx, cancel := context.WithCancel(context.Background())
+	pr, pw := io.Pipe()
+	logs := &syncBuffer{}
+	done := make(chan error, 1)
+	go func() {
+		done <- run(ctx, append([]string{"serve", "--addr", "127.0.0.1:0"}, args...), pw, logs)
+		pw.Close()
+	}()
+	line, err := bufio.NewReader(pr).ReadString('\n')
+	if err != nil {
+		cancel()
+		t.Fatalf("serve did not start: %v; log: %s", err, logs.String())
+	}
+	go func() { _, _ = io.Copy(io.Discard, pr) }()
+	base := strings.TrimSpace(strings.TrimPrefix(line, "halite listening on "))
+	stop := func() error {
+		cancel()
+		select {
+		case err := <-done:
+			return err
+		case <-time.After(30 * time.Second):
+			t.Fatal("serve did not stop")
+			return nil
+		}
+	}
+	t.Cleanup(func() { cancel() })
+	return base, logs, stop
+}
+
+func TestServeEndToEnd(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	base, logs, stop := startServe(t)
+
+	resp, err := http.Get(base + "/cds-services")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var d hooks.Discovery
+	if err := json.NewDecoder(resp.Body).Decode(&d); err != nil || len(d.Services) != 5 {
+		t.Fatalf("discovery: %v, %d services", err, len(d.Services))
+	}
+	resp.Body.Close()
+
+	// The README's curl example posts this file.
+	demo, err := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp, err = http.Post(base+"/cds-services/sodium-infusion-check", "application/json", bytes.NewReader(demo))
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 {
+		t.Fatalf("order-sign: %d %s", resp.StatusCode, body)
+	}
+	if err := hooks.CheckNoEmpty(body, "cards"); err != nil {
+		t.Errorf("response: %v", err)
+	}
+	if err := stop(); err != nil {
+		t.Fatalf("serve returned %v", err)
+	}
+	log := logs.String()
+	for _, want := range []string{"DEVELOPMENT MODE", `"ruleset":"`, `"route":"/cds-services/:id"`, `"status":200`, "stopped"} {
+		if !strings.Contains(log, want) {
+			t.Errorf("log lacks %s:\n%s", want, log)
+		}
+	}
+	// No PHI in logs: the demo patient's id and the draft order's id never appear.
+	for _, phi := range []string{"pt-alder", "mr-alder"} {
+		if strings.Contains(log, phi) {
+			t.Errorf("log contains identifier %q", phi)
+		}
+	}
+}
+
+// TestServeDrainsInFlight sends a call whose FHIR fetch is slow, stops the
+// server while it is in flight, and expects the call to finish with 200.
+func TestServeDrainsInFlight(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	b := readScenario(t, "06-no-weight-no-height.json")
+	store := hooks.NewBundleStore(b)
+	store.Token = "tok"
+	entered := make(chan struct{}, 16)
+	release := make(chan struct{})
+	slow := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		entered <- struct{}{}
+		<-release
+		store.ServeHTTP(w, r)
+	}))
+	defer slow.Close()
+	svc, _ := hooks.NewRegistry().Lookup("sodium-drug-risk")
+	req, err := hooks.BuildRequest(b, svc, hooks.RequestOptions{Hook: "order-sign", UserID: "Practitioner/u",
+		OmitPrefetch: true, FHIRServer: slow.URL, AccessToken: "tok"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	base, _, stop := startServe(t)
+	result := make(chan int, 1)
+	go func() {
+		resp, err := http.Post(base+"/cds-services/sodium-drug-risk", "application/json", bytes.NewReader(mustJSON(t, req)))
+		if err != nil {
+			result <- -1
+			return
+		}
+		resp.Body.Close()
+		result <- resp.StatusCode
+	}()
+	<-entered // the call is in flight, blocked in its first fetch
+	stopped := make(chan error, 1)
+	go func() { stopped <- stop() }()
+	time.Sleep(100 * time.Millisecond) // give Shutdown time to begin; the assertion below does not depend on it
+	close(release)
+	if code := <-result; code != 200 {
+		t.Errorf("in-flight call answered %d, want 200", code)
+	}
+	if err := <-stopped; err != nil {
+		t.Errorf("serve returned %v", err)
+	}
+}
+
+func readScenario(t *testing.T, name string) *fhirmap.Bundle {
+	t.Helper()
+	data, err := os.ReadFile(filepath.Join("..", "..", "testdata", "scenarios", name))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := fhirmap.ParseBundle(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
+}
+
+func mustJSON(t *testing.T, v any) []byte {
+	t.Helper()
+	b, err := json.Marshal(v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
+}
+
+// TestEvalGolden runs every scenario on every hook and compares the exact
+// CDS Hooks responses with testdata/golden (regenerate with -update).
+func TestEvalGolden(t *testing.T) {
+	for _, file := range scenarioFiles(t) {
+		for _, hook := range []string{"order-sign", "order-select", "patient-view"} {
+			name := strings.TrimSuffix(filepath.Base(file), ".json") + "." + hook + ".json"
+			t.Run(name, func(t *testing.T) {
+				var out, errOut bytes.Buffer
+				err := run(context.Background(), []string{"eval", "--hook", hook, "--at", scenarioAt, "--json", file}, &out, &errOut)
+				var ex *exitError
+				if err != nil && !errors.As(err, &ex) {
+					t.Fatalf("eval: %v %s", err, errOut.String())
+				}
+				golden := filepath.Join("..", "..", "testdata", "golden", name)
+				if *update {
+					if err := os.WriteFile(golden, out.Bytes(), 0o644); err != nil {
+						t.Fatal(err)
+					}
+				}
+				want, err := os.ReadFile(golden)
+				if err != nil {
+					t.Fatalf("%v (run with -update to create)", err)
+				}
+				if !bytes.Equal(out.Bytes(), want) {
+					t.Errorf("response differs from %s:\n%s", golden, out.String())
+				}
+				var all map[string]hooks.Response
+				if err := json.Unmarshal(out.Bytes(), &all); err != nil || len(all) == 0 {
+					t.Fatalf("output is not a map of responses: %v", err)
+				}
+				for id, r := range all {
+					if err := hooks.ValidateResponse(r); err != nil {
+						t.Errorf("%s: %v", id, err)
+					}
+				}
+			})
+		}
+	}
+}
+
+func TestEvalSingleServiceAndReport(t *testing.T) {
+	file := filepath.Join("..", "..", "testdata", "scenarios", "07-malformed-data.json")
+	var out bytes.Buffer
+	if err := run(context.Background(), []string{"eval", "--hook", "order-sign", "--service", "sodium-drug-risk",
+		"--at", scenarioAt, "--json", file}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	var r hooks.Response
+	if err := json.Unmarshal(out.Bytes(), &r); err != nil || r.Cards == nil {
+		t.Fatalf("--service --json must print exactly one response: %v %s", err, out.String())
+	}
+	out.Reset()
+	if err := run(context.Background(), []string{"eval", file, "--hook", "order-sign", "--at", scenarioAt}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	report := out.String()
+	// The reasons the malformed scenario's observations are rejected.
+	for _, want := range []string{"== sodium-infusion-check", "== sodium-drug-risk", "status is missing",
+		`unit "mmol/dL"`, "implausible value 1400", "no effective time", `status "preliminary"`,
+		"no valueQuantity", "duplicate of", `Patient.gender "f"`} {
+		if !strings.Contains(report, want) {
+			t.Errorf("report lacks %q:\n%s", want, report)
+		}
+	}
+}
+
+func TestCommandErrors(t *testing.T) {
+	dir := t.TempDir()
+	notBundle := filepath.Join(dir, "patient.json")
+	os.WriteFile(notBundle, []byte(`{"resourceType":"Patient","id":"x"}`), 0o644)
+	notJSON := filepath.Join(dir, "bad.json")
+	os.WriteFile(notJSON, []byte(`{"resourceType":`), 0o644)
+	noPatient := filepath.Join(dir, "empty.json")
+	os.WriteFile(noPatient, []byte(`{"resourceType":"Bundle","type":"collection","entry":[]}`), 0o644)
+	scenario := scenarioFiles(t)[0]
+	for _, tc := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"frobnicate"}, "unknown command"},
+		{[]string{"eval", scenario}, "--hook is required"},
+		{[]string{"eval", "--hook", "encounter-start", scenario}, "no service serves"},
+		{[]string{"eval", "--hook", "order-sign", "--service", "sodium-chart-review", scenario}, "does not serve"},
+		{[]string{"eval", "--hook", "order-sign"}, "BUNDLE file is required"},
+		{[]string{"eval", "--hook", "order-sign", filepath.Join(dir, "missing.json")}, "no such file"},
+		{[]string{"eval", "--hook", "order-sign", notBundle}, `want "Bundle"`},
+		{[]string{"eval", "--hook", "order-sign", notJSON}, "read bundle"},
+		{[]string{"eval", "--hook", "patient-view", noPatient}, "no Patient"},
+		{[]string{"eval", "--hook", "order-sign", "--at", "yesterday", scenario}, "--at"},
+		{[]string{"serve", "--addr", "0.0.0.0:8080"}, "listen_addr"},
+	} {
+		err := run(context.Background(), tc.args, io.Discard, io.Discard)
+		if err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%v: got %v, want an error containing %q", tc.args, err, tc.want)
+		}
+	}
+}
+
+func mustLookup(t *testing.T, id string) hooks.Service {
+	s, ok := hooks.NewRegistry().Lookup(id)
+	if !ok {
+		t.Fatal(id)
+	}
+	return s
+}
+
+func TestExitStatus(t *testing.T) {
+	card := func(ind string) hooks.Card { return hooks.Card{Indicator: ind} }
+	for _, tc := range []struct {
+		cards []hooks.Card
+		want  int
+	}{
+		{nil, 0}, {[]hooks.Card{card("info")}, 0}, {[]hooks.Card{card("info"), card("warning")}, 2},
+		{[]hooks.Card{card("critical"), card("warning")}, 3},
+	} {
+		got := exitStatus(map[string]*hooks.Outcome{"a": {Response: hooks.Response{Cards: tc.cards}}})
+		if got != tc.want {
+			t.Errorf("%v: exit %d, want %d", tc.cards, got, tc.want)
+		}
+	}
+}
+
+// TestRequestCommand checks the request an EHR would send: patientId from
+// the bundle's Patient, drafts in draftOrders, every prefetch key answered.
+func TestRequestCommand(t *testing.T) {
+	file := filepath.Join("..", "..", "testdata", "scenarios", "12-normal-sodium-two-drafts.json")
+	var out bytes.Buffer
+	if err := run(context.Background(), []string{"request", "--hook", "order-select", "--service", "sodium-drug-risk", file},
+		&out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	var req hooks.Request
+	if err := json.Unmarshal(out.Bytes(), &req); err != nil {
+		t.Fatal(err)
+	}
+	c, err := hooks.DecodeCall(mustLookup(t, "sodium-drug-risk"), out.Bytes())
+	if err != nil {
+		t.Fatalf("the service rejects the request it was built for: %v", err)
+	}
+	if len(c.DraftOrders) != 2 || len(c.Context.Selections) != 2 {
+		t.Errorf("%d drafts, %d selections; the scenario has two drafts", len(c.DraftOrders), len(c.Context.Selections))
+	}
+	for _, k := range mustLookup(t, "sodium-drug-risk").Prefetch {
+		if _, ok := req.Prefetch[k.Key]; !ok {
+			t.Errorf("prefetch %s missing", k.Key)
+		}
+	}
+	out.Reset()
+	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-drug-risk",
+		"--no-prefetch", "--fhir-server", "https://ehr.example.org/fhir", "--access-token", "t", file}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	req = hooks.Request{}
+	if err := json.Unmarshal(out.Bytes(), &req); err != nil {
+		t.Fatal(err)
+	}
+	if req.Prefetch != nil || req.FHIRServer != "https://ehr.example.org/fhir" || req.FHIRAuthorization == nil {
+		t.Errorf("--no-prefetch --fhir-server: %s", out.String())
+	}
+}
+
+// TestDemoRequestCurrent keeps the README's demo request equal to what
+// `halite request` makes from its scenario (apart from hookInstance).
+func TestDemoRequestCurrent(t *testing.T) {
+	var out bytes.Buffer
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "01-chronic-hypona-3pct-infusion.json")
+	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check",
+		scenario}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	demoPath := filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json")
+	demo, err := os.ReadFile(demoPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	strip := func(b []byte) string {
+		var m map[string]any
+		if err := json.Unmarshal(b, &m); err != nil {
+			t.Fatal(err)
+		}
+		delete(m, "hookInstance")
+		s, _ := json.Marshal(m)
+		return string(s)
+	}
+	if *update {
+		if err := os.WriteFile(demoPath, out.Bytes(), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return
+	}
+	if strip(out.Bytes()) != strip(demo) {
+		t.Errorf("%s is stale; run go test ./cmd/halite -run TestDemoRequestCurrent -update", demoPath)
+	}
+}

@@ -1,0 +1,76 @@
+package hooks
+
+import (
+	"context"
+	"encoding/json"
+	"net/http/httptest"
+	"path/filepath"
+	"reflect"
+	"testing"
+	"time"
+
+	"github.com/halite-cds/halite/hooks/fhirclient"
+)
+
+// TestPrefetchFetchEquivalence answers every scenario twice: once with the
+// data prefetched, once with no prefetch and a FHIR server (serving the same
+// bundle by search, in pages of three, behind a bearer token). CDS Hooks 2.0
+// requires prefetched data to equal the template's result against
+// fhirServer, so both must give the same facts and the same response.
+func TestPrefetchFetchEquivalence(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join("..", "testdata", "scenarios", "*.json"))
+	if err != nil || len(files) == 0 {
+		t.Fatalf("no scenarios: %v", err)
+	}
+	const token = "test-access-token"
+	newFetcher := func(server string, auth *FHIRAuthorization) (Fetcher, error) {
+		return fhirclient.New(server, auth.AccessToken, fhirclient.Options{
+			Timeout: 5 * time.Second, MaxResponseBytes: 1 << 20, AllowHTTPLoopback: true})
+	}
+	withFetch := testEngine(t, newFetcher)
+	prefetchOnly := testEngine(t, nil)
+	for _, file := range files {
+		b := loadScenario(t, filepath.Base(file))
+		store := NewBundleStore(b)
+		store.PageSize, store.Token = 3, token
+		fhir := httptest.NewServer(store)
+		for _, svc := range NewRegistry().Services() {
+			for _, hook := range svc.Hooks {
+				name := filepath.Base(file) + "/" + svc.ID + "/" + hook
+				opt := RequestOptions{Hook: hook, UserID: "Practitioner/test-user"}
+				pre, err := BuildRequest(b, svc, opt)
+				if err != nil {
+					t.Errorf("%s: %v", name, err)
+					continue
+				}
+				opt.OmitPrefetch, opt.FHIRServer, opt.AccessToken = true, fhir.URL+"/fhir/r4", token
+				fet, err := BuildRequest(b, svc, opt)
+				if err != nil {
+					t.Fatalf("%s: %v", name, err)
+				}
+				a, err := prefetchOnly.Handle(context.Background(), svc.ID, mustMarshal(t, pre), scenarioAt)
+				if err != nil {
+					t.Fatalf("%s prefetched: %v", name, err)
+				}
+				f, err := withFetch.Handle(context.Background(), svc.ID, mustMarshal(t, fet), scenarioAt)
+				if err != nil {
+					t.Fatalf("%s fetched: %v", name, err)
+				}
+				for _, k := range f.Keys {
+					if k.State != Fetched || k.Partial {
+						t.Errorf("%s: key %s %s partial=%v (%s)", name, k.Key.Key, k.State, k.Partial, k.Reason)
+					}
+				}
+				if !reflect.DeepEqual(a.Facts, f.Facts) {
+					t.Errorf("%s: facts differ\nprefetch: %+v\nfetched:  %+v", name, a.Facts, f.Facts)
+				}
+				ra, _ := json.Marshal(a.Response)
+				rf, _ := json.Marshal(f.Response)
+				if string(ra) != string(rf) {
+					t.Errorf("%s: responses differ\n%s\n%s", name, ra, rf)
+				}
+			}
+		}
+		fhir.Close()
+	}
+}

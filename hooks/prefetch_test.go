@@ -1,0 +1,171 @@
+package hooks
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"strings"
+	"testing"
+)
+
+// mapFetcher serves canned bodies by ref and records what was asked.
+type mapFetcher struct {
+	bodies map[string]string
+	asked  []string
+}
+
+func (f *mapFetcher) Fetch(_ context.Context, ref string) ([]byte, error) {
+	f.asked = append(f.asked, ref)
+	b, ok := f.bodies[ref]
+	if !ok {
+		return nil, errors.New("fetch Observation: unexpected HTTP status 500")
+	}
+	return []byte(b), nil
+}
+
+func oneKeyService(required bool) Service {
+	return Service{ID: "t", Hooks: []string{HookPatientView}, Prefetch: []PrefetchKey{
+		{Key: "k", Template: "Observation?patient={{context.patientId}}", Required: required, What: "test data"}}}
+}
+
+func callWith(prefetch map[string]json.RawMessage) *Call {
+	return &Call{Request: Request{Prefetch: prefetch}, Context: HookContext{PatientID: "p1"},
+		ContextTokens: map[string]string{"patientId": "p1"}}
+}
+
+const (
+	obsA = `{"resourceType":"Observation","id":"a"}`
+	obsB = `{"resourceType":"Observation","id":"b"}`
+)
+
+// TestResolveStates covers each prefetch key state of CDS Hooks 2.0
+// §Prefetch (absent, null, OperationOutcome, paginated Bundle).
+func TestResolveStates(t *testing.T) {
+	page1 := `{"resourceType":"Bundle","type":"searchset","link":[{"relation":"next","url":"https://ehr.example.org/fhir/Observation?page=2"}],"entry":[{"resource":` + obsA + `}]}`
+	page2 := `{"resourceType":"Bundle","type":"searchset","entry":[{"resource":` + obsB + `}]}`
+	warn := `{"resourceType":"OperationOutcome","issue":[{"severity":"warning","code":"informational"}]}`
+	for _, tc := range []struct {
+		name      string
+		prefetch  map[string]json.RawMessage
+		fetcher   *mapFetcher
+		state     KeyState
+		ids       string
+		partial   bool
+		wantAsked int
+	}{
+		{name: "prefetched bundle", prefetch: map[string]json.RawMessage{"k": json.RawMessage(page2)},
+			state: Prefetched, ids: "b"},
+		{name: "null means no data, never re-queried",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage("null")},
+			fetcher:  &mapFetcher{}, state: NoData},
+		{name: "OperationOutcome is a failed prefetch, not re-queried",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"OperationOutcome","issue":[{"severity":"error","code":"exception"}]}`)},
+			fetcher:  &mapFetcher{}, state: Failed},
+		{name: "Bundle holding an error OperationOutcome fails",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"Bundle","type":"searchset","entry":[{"resource":{"resourceType":"OperationOutcome","issue":[{"severity":"fatal","code":"exception"}]}}]}`)},
+			state:    Failed},
+		{name: "search warning OperationOutcome is skipped",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"Bundle","type":"searchset","entry":[{"resource":` + warn + `},{"resource":` + obsA + `}]}`)},
+			state:    Prefetched, ids: "a"},
+		{name: "absent without server", state: Unavailable},
+		{name: "absent is fetched, next link followed",
+			fetcher: &mapFetcher{bodies: map[string]string{"Observation?patient=p1": page1,
+				"https://ehr.example.org/fhir/Observation?page=2": page2}},
+			state: Fetched, ids: "a,b", wantAsked: 2},
+		{name: "prefetched first page, rest fetched",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(page1)},
+			fetcher:  &mapFetcher{bodies: map[string]string{"https://ehr.example.org/fhir/Observation?page=2": page2}},
+			state:    Prefetched, ids: "a,b", wantAsked: 1},
+		{name: "prefetched first page without server is partial",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(page1)},
+			state:    Prefetched, ids: "a", partial: true},
+		{name: "failing next page is partial",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(page1)},
+			fetcher:  &mapFetcher{}, state: Prefetched, ids: "a", partial: true, wantAsked: 1},
+		{name: "fetch error fails", fetcher: &mapFetcher{}, state: Failed, wantAsked: 1},
+		{name: "single resource", prefetch: map[string]json.RawMessage{"k": json.RawMessage(obsA)},
+			state: Prefetched, ids: "a"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			var f Fetcher
+			if tc.fetcher != nil {
+				f = tc.fetcher
+			}
+			got, err := Resolve(context.Background(), oneKeyService(false), callWith(tc.prefetch), f, Limits{MaxPages: 5})
+			if err != nil {
+				t.Fatalf("Resolve: %v", err)
+			}
+			r := got[0]
+			if r.State != tc.state || r.Partial != tc.partial {
+				t.Errorf("state %s partial %v (%s), want %s partial %v", r.State, r.Partial, r.Reason, tc.state, tc.partial)
+			}
+			if ids := resourceIDs(t, r.Resources); ids != tc.ids {
+				t.Errorf("resources %q, want %q", ids, tc.ids)
+			}
+			if tc.fetcher != nil && len(tc.fetcher.asked) != tc.wantAsked {
+				t.Errorf("fetched %v, want %d fetches", tc.fetcher.asked, tc.wantAsked)
+			}
+		})
+	}
+}
+
+func resourceIDs(t *testing.T, rs []json.RawMessage) string {
+	var ids []string
+	for _, r := range rs {
+		var h struct{ ID string }
+		if err := json.Unmarshal(r, &h); err != nil {
+			t.Fatal(err)
+		}
+		ids = append(ids, h.ID)
+	}
+	return strings.Join(ids, ",")
+}
+
+func TestResolvePageBound(t *testing.T) {
+	bodies := map[string]string{}
+	for i := 1; i <= 10; i++ {
+		ref := fmt.Sprintf("https://ehr.example.org/fhir/Observation?page=%d", i)
+		if i == 1 {
+			ref = "Observation?patient=p1"
+		}
+		bodies[ref] = fmt.Sprintf(`{"resourceType":"Bundle","type":"searchset","link":[{"relation":"next","url":"https://ehr.example.org/fhir/Observation?page=%d"}],"entry":[{"resource":{"resourceType":"Observation","id":"o%d"}}]}`, i+1, i)
+	}
+	f := &mapFetcher{bodies: bodies}
+	got, err := Resolve(context.Background(), oneKeyService(false), callWith(nil), f, Limits{MaxPages: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(f.asked) != 3 || len(got[0].Resources) != 3 || !got[0].Partial {
+		t.Errorf("asked %d pages, %d resources, partial %v; want 3, 3, true", len(f.asked), len(got[0].Resources), got[0].Partial)
+	}
+}
+
+// TestResolveRequiredIs412 follows CDS Hooks 2.0: a required key that is
+// neither prefetched nor fetchable is answered 412 Precondition Failed.
+func TestResolveRequiredIs412(t *testing.T) {
+	for _, tc := range []struct {
+		name     string
+		prefetch map[string]json.RawMessage
+		fetcher  Fetcher
+	}{
+		{"absent, no server", nil, nil},
+		{"absent, fetch fails", nil, &mapFetcher{}},
+		{"OperationOutcome", map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"OperationOutcome","issue":[{"severity":"error","code":"timeout"}]}`)}, nil},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			_, err := Resolve(context.Background(), oneKeyService(true), callWith(tc.prefetch), tc.fetcher, Limits{MaxPages: 2})
+			if StatusOf(err) != 412 {
+				t.Fatalf("got %v (status %d), want 412", err, StatusOf(err))
+			}
+			if !strings.Contains(err.Error(), "k (") {
+				t.Errorf("error %q does not name the key", err)
+			}
+		})
+	}
+	// null for a required key is "no data", not a failure.
+	if _, err := Resolve(context.Background(), oneKeyService(true),
+		callWith(map[string]json.RawMessage{"k": json.RawMessage("null")}), nil, Limits{MaxPages: 1}); err != nil {
+		t.Errorf("null required key: %v", err)
+	}
+}

@@ -1,0 +1,105 @@
+package rules
+
+import (
+	"strings"
+	"testing"
+	"time"
+)
+
+func TestLoadEmbeddedPolicy(t *testing.T) {
+	rs, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.HasPrefix(rs.Revision(), rs.Policy().Version+"+") || len(rs.Revision()) != len(rs.Policy().Version)+17 {
+		t.Errorf("revision %q is not version+16 hex digits", rs.Revision())
+	}
+	for _, a := range Analytes() {
+		if _, ok := rs.Policy().Plausibility[a]; !ok {
+			t.Errorf("no plausibility bounds for %s", a)
+		}
+	}
+}
+
+// TestRevisionFollowsContent: any change to the effective policy changes
+// the revision, so cards and logs always name the thresholds in force.
+func TestRevisionFollowsContent(t *testing.T) {
+	a, err := parse(embeddedPolicy)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := parse(embeddedPolicy)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a.Revision() != b.Revision() {
+		t.Fatalf("revision is not deterministic: %s vs %s", a.Revision(), b.Revision())
+	}
+	changed := strings.Replace(string(embeddedPolicy), `"min": 90,`, `"min": 95,`, 1)
+	if changed == string(embeddedPolicy) {
+		t.Fatal("test edit did not apply")
+	}
+	c, err := parse([]byte(changed))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Revision() == a.Revision() {
+		t.Errorf("changing a bound left the revision at %s", a.Revision())
+	}
+}
+
+func TestParseRejectsBadPolicy(t *testing.T) {
+	for name, edit := range map[string]func(string) string{
+		"unknown field":     func(s string) string { return strings.Replace(s, `"version"`, `"versoin"`, 1) },
+		"wrong unit":        func(s string) string { return strings.Replace(s, `"unit": "umol/L"`, `"unit": "mg/dL"`, 1) },
+		"unknown analyte":   func(s string) string { return strings.Replace(s, `"urine-sodium"`, `"urine-sodum"`, 1) },
+		"min not below max": func(s string) string { return strings.Replace(s, `"max": 200,`, `"max": 80,`, 1) },
+	} {
+		edited := edit(string(embeddedPolicy))
+		if edited == string(embeddedPolicy) {
+			t.Fatalf("%s: test edit did not apply", name)
+		}
+		if _, err := parse([]byte(edited)); err == nil {
+			t.Errorf("%s: accepted", name)
+		}
+	}
+}
+
+func TestCheckPlausible(t *testing.T) {
+	rs, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, tc := range []struct {
+		a  Analyte
+		v  float64
+		ok bool
+	}{
+		{Sodium, 140, true}, {Sodium, 1400, false}, {Sodium, 14, false},
+		{BodyWeight, 0.9, true}, {BodyWeight, 0, false}, {BodyHeight, 1.7, false},
+	} {
+		if ok, why := rs.CheckPlausible(tc.a, tc.v); ok != tc.ok || (!ok && why == "") {
+			t.Errorf("CheckPlausible(%s, %g) = %v %q, want %v", tc.a, tc.v, ok, why, tc.ok)
+		}
+	}
+}
+
+func TestAgeYears(t *testing.T) {
+	birth := time.Date(1960, 3, 15, 0, 0, 0, 0, time.UTC)
+	p := Patient{BirthDate: &birth}
+	for _, tc := range []struct {
+		at   time.Time
+		want int
+	}{
+		{time.Date(2025, 3, 14, 23, 0, 0, 0, time.UTC), 64},
+		{time.Date(2025, 3, 15, 0, 0, 0, 0, time.UTC), 65},
+		{time.Date(2025, 12, 1, 0, 0, 0, 0, time.UTC), 65},
+	} {
+		if got, ok := p.AgeYears(tc.at); !ok || got != tc.want {
+			t.Errorf("AgeYears(%s) = %d, %v; want %d", tc.at, got, ok, tc.want)
+		}
+	}
+	if _, ok := (Patient{}).AgeYears(time.Now()); ok {
+		t.Error("age known without a birth date")
+	}
+}
