@@ -27,7 +27,10 @@ func parseDateTime(s string) (t time.Time, hasTime bool, err error) {
 func parseDate(s string) (time.Time, error) {
 	t, err := time.Parse("2006-01-02", s)
 	if err != nil {
-		if _, _, perr := parseDateTime(s); perr == nil {
+		if _, hasTime, perr := parseDateTime(s); perr == nil {
+			if hasTime {
+				return time.Time{}, fmt.Errorf("%q is a dateTime, not a date", s)
+			}
 			return time.Time{}, fmt.Errorf("%q is a partial date", s)
 		}
 		return time.Time{}, fmt.Errorf("%q is not a FHIR date", s)

@@ -30,23 +30,27 @@ type mapper struct {
 	rs    *rules.Ruleset
 	facts rules.Facts
 	seen  map[seriesKey]string
-	// medications indexes Medication resources by "Medication/id" and fullUrl.
+	// medications indexes Medication resources by "Medication/id".
 	medications map[string]Resource
+	// readMedications caches each referenced Medication once read, so an
+	// unreadable one is rejected once, however many orders point at it.
+	readMedications map[string]readMedication
 }
 
 // Map reads in into facts. Problems with single resources never fail the
 // call: each unusable resource is kept in Facts.Rejected with its reason.
 func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	m := &mapper{
-		in:          in,
-		rs:          rs,
-		facts:       rules.Facts{At: in.At, Labs: map[rules.Analyte][]rules.Measurement{}},
-		seen:        map[seriesKey]string{},
-		medications: map[string]Resource{},
+		in:              in,
+		rs:              rs,
+		facts:           rules.Facts{At: in.At, Labs: map[rules.Analyte][]rules.Measurement{}},
+		seen:            map[seriesKey]string{},
+		medications:     map[string]Resource{},
+		readMedications: map[string]readMedication{},
 	}
 	m.patient()
-	resources := m.distinct(in.Resources)
-	drafts := m.distinct(in.DraftOrders)
+	resources := m.distinct("resources", in.Resources)
+	drafts := m.distinct("draftOrders", in.DraftOrders)
 	for _, r := range append(resources, drafts...) {
 		if r.Type == "Medication" {
 			m.medications[r.Ref()] = r
@@ -85,16 +89,16 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	return m.facts
 }
 
-// distinct reads each raw resource once; resources that are not FHIR
-// resources are rejected.
-func (m *mapper) distinct(raws []json.RawMessage) []Resource {
+// distinct reads each raw resource of the named list once; values that are
+// not FHIR resources are rejected.
+func (m *mapper) distinct(list string, raws []json.RawMessage) []Resource {
 	var out []Resource
 	seen := map[string]bool{}
 	for i, raw := range raws {
 		r, err := ReadResource(raw)
 		if err != nil {
 			m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{
-				Source: fmt.Sprintf("entry %d", i), Reason: err.Error()})
+				Source: fmt.Sprintf("%s[%d]", list, i), Reason: err.Error()})
 			continue
 		}
 		if r.ID != "" {

@@ -61,22 +61,54 @@ func (m *mapper) medicationOf(r Resource, mr fhir.MedicationRequest) rules.Medic
 		med.Source = rules.FromContained
 		return med
 	}
-	for key, res := range m.medications {
-		if key == ref || refersTo(ref, "Medication", res.ID) {
-			med, err := fhir.UnmarshalMedication(res.Raw)
-			if err != nil {
-				m.reject(res, "", "invalid resource: "+err.Error())
-				return unresolved
-			}
-			out := medication(med)
-			out.Source = rules.FromReferenced
-			return out
+	if typ, id, ok := lastTwo(ref); ok && typ == "Medication" {
+		if med, ok := m.referencedMedication("Medication/" + id); ok {
+			return med
+		}
+		if _, exists := m.medications["Medication/"+id]; exists {
+			return unresolved
 		}
 	}
 	if ref != "" {
 		m.note("%s: Medication %s is not in the data", r.Ref(), ref)
 	}
 	return unresolved
+}
+
+// readMedication is a referenced Medication as read, or ok=false when it
+// could not be read.
+type readMedication struct {
+	med rules.Medication
+	ok  bool
+}
+
+// referencedMedication reads the Medication with reference ref once.
+func (m *mapper) referencedMedication(ref string) (rules.Medication, bool) {
+	if got, done := m.readMedications[ref]; done {
+		return got.med, got.ok
+	}
+	res, exists := m.medications[ref]
+	if !exists {
+		return rules.Medication{}, false
+	}
+	var got readMedication
+	if med, err := fhir.UnmarshalMedication(res.Raw); err != nil {
+		m.reject(res, "", "invalid resource: "+err.Error())
+	} else {
+		got.med, got.ok = medication(med), true
+		got.med.Source = rules.FromReferenced
+	}
+	m.readMedications[ref] = got
+	return got.med, got.ok
+}
+
+// lastTwo splits a relative or absolute reference into its type and id.
+func lastTwo(ref string) (typ, id string, ok bool) {
+	parts := strings.Split(ref, "/")
+	if len(parts) < 2 || parts[len(parts)-1] == "" {
+		return "", "", false
+	}
+	return parts[len(parts)-2], parts[len(parts)-1], true
 }
 
 func containedMedication(raw json.RawMessage, id string) (rules.Medication, bool) {

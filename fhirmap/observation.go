@@ -16,32 +16,34 @@ var usableStatus = map[fhir.ObservationStatus]bool{
 	fhir.ObservationStatusCorrected: true,
 }
 
-// observation maps one Observation. It returns ok=false and no rejection for
-// an Observation whose code halite does not read.
+// observation maps one Observation. One whose code halite does not read is
+// skipped without a rejection, before the full decode, so that an error in a
+// resource halite does not use is not reported against it.
 func (m *mapper) observation(r Resource) {
-	var raw struct {
-		Status *string `json:"status"`
+	var head struct {
+		Status *string              `json:"status"`
+		Code   fhir.CodeableConcept `json:"code"`
 	}
-	if err := json.Unmarshal(r.Raw, &raw); err != nil {
+	if err := json.Unmarshal(r.Raw, &head); err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return
 	}
-	obs, err := fhir.UnmarshalObservation(r.Raw)
-	if err != nil {
-		m.reject(r, "", "invalid resource: "+err.Error())
-		return
-	}
-	code, meas, known := recognise(obs.Code)
+	code, meas, known := recognise(head.Code)
 	if !known {
 		return
 	}
 	a := meas.analyte
-	switch {
-	case raw.Status == nil:
+	if head.Status == nil {
 		m.reject(r, a, "status is missing")
 		return
-	case !usableStatus[obs.Status]:
-		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", *raw.Status))
+	}
+	obs, err := fhir.UnmarshalObservation(r.Raw)
+	if err != nil {
+		m.reject(r, a, "invalid resource: "+err.Error())
+		return
+	}
+	if !usableStatus[obs.Status] {
+		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", *head.Status))
 		return
 	}
 	if obs.Subject == nil || !refersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
@@ -81,7 +83,7 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, why)
 		return
 	}
-	key := seriesKey{a, at.UnixNano(), cv}
+	key := seriesKey{a, at.Unix(), at.Nanosecond(), cv}
 	if first, dup := m.seen[key]; dup {
 		m.reject(r, a, "duplicate of "+first)
 		return
@@ -102,7 +104,8 @@ func (m *mapper) observation(r Resource) {
 // and canonical value reported twice is one result.
 type seriesKey struct {
 	analyte rules.Analyte
-	at      int64
+	unix    int64
+	nanos   int
 	value   float64
 }
 

@@ -23,7 +23,8 @@ var unitSynonyms = map[string]string{
 	"meq/l":        "meq/L",
 	"mEq/L":        "meq/L",
 	"umol/l":       "umol/L",
-	"µmol/L":       "umol/L",
+	"µmol/L":       "umol/L", // U+00B5 micro sign
+	"μmol/L":       "umol/L", // U+03BC Greek small mu
 	"mg/dl":        "mg/dL",
 	"mmol/kg":      "mmol/kg",
 	"mOsm/kg":      "mosm/kg",

@@ -43,6 +43,9 @@ var (
 	ErrTooLarge     = errors.New("response is larger than the limit")
 	ErrHTTPStatus   = errors.New("unexpected HTTP status")
 	ErrRedirectAway = errors.New("redirect leaves the fhirServer's origin")
+	ErrBadRef       = errors.New("not a valid FHIR URL")
+
+	errTooManyRedirects = errors.New("too many redirects")
 )
 
 // New returns a client for server (the base URL) and token.
@@ -66,7 +69,7 @@ func New(server, token string, opt Options) (*Client, error) {
 		Transport: opt.Transport,
 		CheckRedirect: func(req *http.Request, via []*http.Request) error {
 			if len(via) >= 3 {
-				return errors.New("too many redirects")
+				return errTooManyRedirects
 			}
 			if !c.sameOrigin(req.URL) {
 				return ErrRedirectAway
@@ -86,9 +89,24 @@ func IsLoopback(host string) bool {
 	return ip != nil && ip.IsLoopback()
 }
 
+// sameOrigin reports whether u is on the base's scheme and host and at or
+// under its path. Paths with dot segments are refused outright, so "../"
+// can never climb out of the base.
 func (c *Client) sameOrigin(u *url.URL) bool {
+	if hasDotSegment(u.Path) {
+		return false
+	}
 	return u.Scheme == c.base.Scheme && u.Host == c.base.Host &&
 		(u.Path == c.base.Path || strings.HasPrefix(u.Path, c.base.Path+"/"))
+}
+
+func hasDotSegment(p string) bool {
+	for _, seg := range strings.Split(p, "/") {
+		if seg == "." || seg == ".." {
+			return true
+		}
+	}
+	return false
 }
 
 // Fetch GETs ref, a FHIR URL relative to the base ("Patient/1",
@@ -100,7 +118,7 @@ func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	}
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, u.String(), nil)
 	if err != nil {
-		return nil, fmt.Errorf("fetch %s: %w", op, err)
+		return nil, fmt.Errorf("fetch %s: %w", op, ErrBadRef) // the error would quote the URL
 	}
 	req.Header.Set("Accept", "application/fhir+json")
 	if c.token != "" {
@@ -128,52 +146,60 @@ func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
 // resolve makes ref absolute and names the operation for errors by its
 // resource type only.
 func (c *Client) resolve(ref string) (*url.URL, string, error) {
-	var u *url.URL
-	if path, _, _ := strings.Cut(ref, "?"); strings.Contains(path, "://") {
-		parsed, err := url.Parse(ref)
-		if err != nil || !c.sameOrigin(parsed) {
-			return nil, "next page", fmt.Errorf("fetch next page: %w", ErrOffOrigin)
-		}
-		u = parsed
-	} else {
-		path, query, _ := strings.Cut(strings.TrimLeft(ref, "/"), "?")
-		u = &url.URL{Scheme: c.base.Scheme, Host: c.base.Host, Path: c.base.Path + "/" + path, RawQuery: query}
+	parsed, err := url.Parse(ref)
+	if err != nil {
+		return nil, "resource", fmt.Errorf("fetch resource: %w", ErrBadRef)
 	}
-	rest := strings.TrimPrefix(strings.TrimPrefix(u.Path, c.base.Path), "/")
-	op, _, _ := strings.Cut(rest, "/")
-	if op == "" {
-		op = "resource"
+	u := parsed
+	if parsed.Scheme == "" && parsed.Host == "" {
+		u = &url.URL{Scheme: c.base.Scheme, Host: c.base.Host,
+			Path: c.base.Path + "/" + strings.TrimLeft(parsed.Path, "/"), RawQuery: parsed.RawQuery}
+	}
+	op := operation(strings.TrimPrefix(u.Path, c.base.Path))
+	if !c.sameOrigin(u) {
+		return nil, op, fmt.Errorf("fetch %s: %w", op, ErrOffOrigin)
 	}
 	return u, op, nil
 }
 
-// cause strips URLs from transport errors (url.Error prints the URL, whose
-// query holds patient identifiers).
-func cause(err error) error {
-	var ue *url.Error
-	if errors.As(err, &ue) {
-		if errors.Is(ue.Err, ErrRedirectAway) {
-			return ErrRedirectAway
-		}
-		if ue.Timeout() {
-			return errors.New("timed out")
-		}
-		return fmt.Errorf("%s failed: %v", ue.Op, stripURL(ue.Err))
+// operation is the resource type a path names, or "resource": never any
+// other text from the path, which may hold identifiers.
+func operation(p string) string {
+	typ, _, _ := strings.Cut(strings.TrimLeft(p, "/"), "/")
+	if typ == "" || typ[0] < 'A' || typ[0] > 'Z' {
+		return "resource"
 	}
-	if errors.Is(err, context.DeadlineExceeded) {
-		return errors.New("timed out")
+	for _, r := range typ {
+		if (r < 'A' || r > 'Z') && (r < 'a' || r > 'z') {
+			return "resource"
+		}
 	}
-	return err
+	return typ
 }
 
-func stripURL(err error) string {
+// cause strips URLs from transport errors (url.Error prints the URL, whose
+// query holds patient identifiers) and keeps context errors testable.
+func cause(err error) error {
+	switch {
+	case errors.Is(err, ErrRedirectAway):
+		return ErrRedirectAway
+	case errors.Is(err, errTooManyRedirects):
+		return errTooManyRedirects
+	case errors.Is(err, context.Canceled):
+		return fmt.Errorf("cancelled: %w", context.Canceled)
+	case errors.Is(err, context.DeadlineExceeded):
+		return fmt.Errorf("timed out: %w", context.DeadlineExceeded)
+	}
 	var ue *url.Error
 	if errors.As(err, &ue) {
-		return ue.Op + " failed"
+		if ue.Timeout() {
+			return fmt.Errorf("timed out: %w", context.DeadlineExceeded)
+		}
+		var oe *net.OpError
+		if errors.As(ue.Err, &oe) {
+			return fmt.Errorf("%s: %v", oe.Op, oe.Err)
+		}
+		return errors.New("transport error")
 	}
-	var oe *net.OpError
-	if errors.As(err, &oe) {
-		return oe.Op + " " + oe.Err.Error()
-	}
-	return "transport error"
+	return errors.New("transport error")
 }

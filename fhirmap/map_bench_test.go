@@ -1,0 +1,45 @@
+package fhirmap
+
+import (
+	"encoding/json"
+	"fmt"
+	"testing"
+	"time"
+)
+
+func BenchmarkMap200(b *testing.B) {
+	// 200 Observations cycling through sodium, potassium, glucose and weight,
+	// one per 15 minutes back from the evaluation time, and 20 MedicationRequests.
+	// Values are invented and inside the policy bounds (rules/data/policy.json).
+	kinds := []struct{ code, unit, value string }{
+		{"2951-2", "mmol/L", "131"}, // sodium
+		{"2823-3", "mmol/L", "4.1"}, // potassium
+		{"2345-7", "mg/dL", "110"},  // glucose
+		{"29463-7", "kg", "70"},     // weight
+	}
+	in := Input{At: testAt, PatientID: testPatient,
+		Patient: json.RawMessage(`{"resourceType":"Patient","id":"p1","gender":"female","birthDate":"1980-11-20"}`)}
+	for i := 0; i < 200; i++ {
+		k := kinds[i%len(kinds)]
+		at := testAt.Add(-time.Duration(i+1) * 15 * time.Minute).Format(time.RFC3339)
+		in.Resources = append(in.Resources, obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw())
+	}
+	for i := 0; i < 20; i++ {
+		dosage := `"dosageInstruction":[{"timing":{"repeat":{"boundsDuration":{"value":8,"code":"h"}}},"doseAndRate":[{"rateQuantity":{"value":75,"unit":"mL/h","system":"http://unitsofmeasure.org","code":"mL/h"}}]}]`
+		if i%2 == 0 {
+			in.Resources = append(in.Resources, mr(fmt.Sprintf("a%d", i), "active", nsConcept+","+dosage))
+		} else {
+			in.DraftOrders = append(in.DraftOrders, mr(fmt.Sprintf("d%d", i), "draft", nsConcept+","+dosage))
+		}
+	}
+	rs := ruleset(b)
+	// Sanity check outside the timer: everything is read.
+	if f := Map(in, rs); len(f.Rejected) != 0 || len(f.Medications) != 10 || len(f.DraftOrders) != 10 {
+		b.Fatalf("setup: %d rejected, %d medications, %d drafts", len(f.Rejected), len(f.Medications), len(f.DraftOrders))
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for b.Loop() {
+		Map(in, rs)
+	}
+}
