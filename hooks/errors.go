@@ -103,6 +103,7 @@ func OutcomeOf(err error) OperationOutcome {
 		if errors.As(err, &e) {
 			issue.Diagnostics = e.Message
 			if e.Field != "" {
+				issue.Diagnostics = e.Field + " " + e.Message
 				issue.Expression = []string{e.Field}
 			}
 		}

@@ -110,3 +110,18 @@ func TestEveryKeyHasAnEnvironmentVariable(t *testing.T) {
 	}
 	walk(reflect.TypeOf(Config{}), "")
 }
+
+// TestExampleConfigIsValid keeps deploy/halite.example.yaml loadable.
+func TestExampleConfigIsValid(t *testing.T) {
+	cfg, err := loadConfig(filepath.Join("..", "..", "deploy", "halite.example.yaml"), func(string) string { return "" })
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.validate(); err != nil {
+		t.Fatal(err)
+	}
+	def := defaultConfig()
+	if cfg.MaxBodyBytes != def.MaxBodyBytes || cfg.CallTimeout != def.CallTimeout || cfg.FHIRClient != def.FHIRClient {
+		t.Errorf("the example says it shows the defaults, but differs: %+v vs %+v", cfg, def)
+	}
+}
