@@ -38,7 +38,7 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 	}
 	store := NewBundleStore(b)
 	var patientID string
-	var drafts []json.RawMessage
+	var drafts []stored
 	var draftRefs []string
 	for _, r := range store.resources {
 		switch {
@@ -48,7 +48,7 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 			}
 			patientID = r.res.ID
 		case orderTypes[r.res.Type] && r.fields.Status == "draft":
-			drafts = append(drafts, r.res.Raw)
+			drafts = append(drafts, r)
 			draftRefs = append(draftRefs, r.res.Ref())
 		}
 	}
@@ -68,8 +68,8 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 			Type         string  `json:"type"`
 			Entry        []entry `json:"entry"`
 		}{ResourceType: "Bundle", Type: "collection"}
-		for _, d := range drafts {
-			bundle.Entry = append(bundle.Entry, entry{Resource: d})
+		for _, d := range store.withMedications(drafts) {
+			bundle.Entry = append(bundle.Entry, entry{Resource: d.res.Raw})
 		}
 		raw, err := json.Marshal(bundle)
 		if err != nil {

@@ -2,6 +2,8 @@ package hooks
 
 import (
 	"encoding/json"
+	"fmt"
+	"slices"
 
 	"github.com/google/uuid"
 	"github.com/halite-cds/halite/rules"
@@ -36,7 +38,7 @@ type cardExtension struct {
 
 // renderCards words findings as cards, each with a uuid (so feedback can
 // refer to it), the caution, override reasons and the ruleset revision.
-func renderCards(fs []rules.Finding, revision string) []Card {
+func renderCards(fs []rules.Finding, revision string) ([]Card, error) {
 	cards := make([]Card, 0, len(fs))
 	for _, f := range fs {
 		var ext cardExtension
@@ -44,7 +46,10 @@ func renderCards(fs []rules.Finding, revision string) []Card {
 		if len(f.Figures) > 0 {
 			ext.Halite.Figures = f.Figures
 		}
-		extJSON, _ := json.Marshal(ext) // plain struct of strings and numbers: cannot fail
+		extJSON, err := json.Marshal(ext)
+		if err != nil { // a NaN or infinite figure
+			return nil, fmt.Errorf("render %s: %w", f.Rule, err)
+		}
 		detail := Caution
 		if f.Detail != "" {
 			detail = f.Detail + "\n\n" + Caution
@@ -55,9 +60,9 @@ func renderCards(fs []rules.Finding, revision string) []Card {
 			Detail:          detail,
 			Indicator:       f.Indicator.String(),
 			Source:          Source{Label: SourceLabel},
-			OverrideReasons: overrideReasons,
+			OverrideReasons: slices.Clone(overrideReasons),
 			Extension:       extJSON,
 		})
 	}
-	return cards
+	return cards, nil
 }

@@ -2,6 +2,7 @@ package hooks
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"log/slog"
 	"time"
@@ -71,13 +72,20 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 	if err != nil {
 		return nil, err
 	}
-	facts := fhirmap.Map(mapInput(call, keys, at), e.ruleset)
+	in := mapInput(call, keys, at)
+	in.Resources = append(in.Resources,
+		fetchMedications(ctx, fetch, append(append([]json.RawMessage(nil), in.Resources...), in.DraftOrders...))...)
+	facts := fhirmap.Map(in, e.ruleset)
 	for _, k := range keys {
 		if k.State == Failed || k.State == Unavailable || k.Partial {
 			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
 		}
 	}
-	resp := Response{Cards: renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision())}
+	cards, err := renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision())
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", svc.ID, err)
+	}
+	resp := Response{Cards: cards}
 	if err := ValidateResponse(resp); err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}

@@ -6,10 +6,12 @@ import (
 	"net/http/httptest"
 	"path/filepath"
 	"reflect"
+	"strings"
 	"testing"
 	"time"
 
 	"github.com/halite-cds/halite/hooks/fhirclient"
+	"github.com/halite-cds/halite/rules"
 )
 
 // TestPrefetchFetchEquivalence answers every scenario twice: once with the
@@ -59,6 +61,17 @@ func TestPrefetchFetchEquivalence(t *testing.T) {
 				for _, k := range f.Keys {
 					if k.State != Fetched || k.Partial {
 						t.Errorf("%s: key %s %s partial=%v (%s)", name, k.Key.Key, k.State, k.Partial, k.Reason)
+					}
+				}
+				// Scenario 09's draft names its product by a Medication reference
+				// (0.9% NaCl with KCl, two ingredients): prefetch carries it in
+				// draftOrders, the fetch path must read Medication/{id}.
+				if strings.HasPrefix(filepath.Base(file), "09-") && hook != HookPatientView {
+					for _, o := range []*Outcome{a, f} {
+						d := o.Facts.DraftOrders
+						if len(d) != 1 || d[0].Medication.Source != rules.FromReferenced || len(d[0].Medication.Ingredients) != 2 {
+							t.Errorf("%s: referenced Medication not resolved: %+v", name, d)
+						}
 					}
 				}
 				if !reflect.DeepEqual(a.Facts, f.Facts) {

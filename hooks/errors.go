@@ -11,13 +11,15 @@ type Kind int
 
 // Error kinds. KindInternal is the default for errors that carry no kind.
 const (
-	KindInternal       Kind = iota // a fault in halite: 500
-	KindBadRequest                 // malformed or invalid request: 400
-	KindUnauthorized               // missing or invalid credentials: 401
-	KindUnknownService             // no such service: 404
-	KindPrecondition               // required FHIR data neither prefetched nor fetchable: 412
-	KindTooLarge                   // request body over the limit: 413
-	KindUnavailable                // shutting down or over the time budget: 503
+	KindInternal         Kind = iota // a fault in halite: 500
+	KindBadRequest                   // malformed or invalid request: 400
+	KindForbidden                    // a browser origin that is not allowed: 403
+	KindUnknownService               // no such service or endpoint: 404
+	KindMethodNotAllowed             // wrong method on a known endpoint: 405
+	KindPrecondition                 // required FHIR data neither prefetched nor fetchable: 412
+	KindTooLarge                     // request body over the limit: 413
+	KindUnsupportedMedia             // a body that is not declared as JSON: 415
+	KindUnavailable                  // the call's time budget ran out: 503
 )
 
 // statusOf is the single table from error kind to HTTP status and FHIR
@@ -26,13 +28,15 @@ var statusOf = map[Kind]struct {
 	status    int
 	issueType string
 }{
-	KindInternal:       {http.StatusInternalServerError, "exception"},
-	KindBadRequest:     {http.StatusBadRequest, "invalid"},
-	KindUnauthorized:   {http.StatusUnauthorized, "login"},
-	KindUnknownService: {http.StatusNotFound, "not-found"},
-	KindPrecondition:   {http.StatusPreconditionFailed, "incomplete"},
-	KindTooLarge:       {http.StatusRequestEntityTooLarge, "too-long"},
-	KindUnavailable:    {http.StatusServiceUnavailable, "transient"},
+	KindInternal:         {http.StatusInternalServerError, "exception"},
+	KindBadRequest:       {http.StatusBadRequest, "invalid"},
+	KindForbidden:        {http.StatusForbidden, "forbidden"},
+	KindUnknownService:   {http.StatusNotFound, "not-found"},
+	KindMethodNotAllowed: {http.StatusMethodNotAllowed, "not-supported"},
+	KindPrecondition:     {http.StatusPreconditionFailed, "incomplete"},
+	KindTooLarge:         {http.StatusRequestEntityTooLarge, "too-long"},
+	KindUnsupportedMedia: {http.StatusUnsupportedMediaType, "not-supported"},
+	KindUnavailable:      {http.StatusServiceUnavailable, "transient"},
 }
 
 // Error is an error with a kind and, for bad requests, the field at fault
@@ -44,6 +48,7 @@ type Error struct {
 	Err     error
 }
 
+// Error returns the field, the message and the wrapped cause.
 func (e *Error) Error() string {
 	msg := e.Message
 	if e.Field != "" {
@@ -55,6 +60,7 @@ func (e *Error) Error() string {
 	return msg
 }
 
+// Unwrap returns the wrapped cause.
 func (e *Error) Unwrap() error { return e.Err }
 
 func badRequest(field, format string, args ...any) *Error {
@@ -88,16 +94,14 @@ type OutcomeIssue struct {
 	Expression  []string `json:"expression,omitempty"`
 }
 
-// OutcomeOf renders err as an OperationOutcome. Internal errors and
-// authentication failures carry no detail: the first could leak internals,
-// the second would help an attacker.
+// OutcomeOf renders err as an OperationOutcome. Internal errors carry no
+// detail, which could leak internals.
 func OutcomeOf(err error) OperationOutcome {
 	kind := KindOf(err)
 	issue := OutcomeIssue{Severity: "error", Code: statusOf[kind].issueType}
 	switch kind {
 	case KindInternal:
 		issue.Diagnostics = "internal error"
-	case KindUnauthorized:
 	default:
 		var e *Error
 		if errors.As(err, &e) {

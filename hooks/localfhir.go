@@ -91,7 +91,28 @@ func (s *BundleStore) Query(ref string) (json.RawMessage, error) {
 		}
 		return matches[0].res.Raw, nil
 	}
-	return searchset(matches, ""), nil
+	return searchset(s.withMedications(matches), ""), nil
+}
+
+// withMedications adds the Medications that matched MedicationRequests
+// reference, as an EHR that includes them in its prefetch would.
+func (s *BundleStore) withMedications(matches []stored) []stored {
+	raws := make([]json.RawMessage, len(matches))
+	for i, m := range matches {
+		raws[i] = m.res.Raw
+	}
+	held := resourceIDs("Medication", raws)
+	for _, id := range medicationRefs(raws) {
+		if held[id] {
+			continue
+		}
+		for _, r := range s.resources {
+			if r.res.Type == "Medication" && r.res.ID == id {
+				matches = append(matches, r)
+			}
+		}
+	}
+	return matches
 }
 
 func (s *BundleStore) match(ref string) (out []stored, read bool, err error) {

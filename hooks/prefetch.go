@@ -5,9 +5,9 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"net/url"
 	"regexp"
 	"strings"
+	"sync"
 
 	"github.com/halite-cds/halite/fhirmap"
 )
@@ -43,8 +43,22 @@ type Resolved struct {
 	Resources []json.RawMessage
 	// Partial is set when a paginated result could not be read to its end.
 	Partial bool
-	// Reason explains Failed, Unavailable and Partial states, without PHI.
+	// Reason explains Failed, Unavailable and Partial states, without PHI;
+	// it is safe to give the caller.
 	Reason string
+	// Err is the fetch error behind Reason, with detail for logs only.
+	Err error
+}
+
+// publicReason is what a fetch error may tell the caller: the Fetcher's own
+// public reason if it has one, else a generic one (the detail could map the
+// network behind halite).
+func publicReason(err error) string {
+	var p interface{ Public() string }
+	if errors.As(err, &p) {
+		return p.Public()
+	}
+	return "the FHIR server request failed"
 }
 
 // Limits bound prefetch resolution.
@@ -62,8 +76,9 @@ var userTokens = map[string]string{
 
 var tokenPattern = regexp.MustCompile(`\{\{\s*([A-Za-z0-9_.]+)\s*\}\}`)
 
-// RenderTemplate fills a prefetch template's tokens from the call. A token
-// with no value makes the template unusable (ok=false).
+// RenderTemplate fills a prefetch template's tokens from the call. The values
+// are validated FHIR ids and Type/id references, which need no escaping in a
+// path or a query. A token with no value makes the template unusable (ok=false).
 func RenderTemplate(template string, c *Call) (string, bool) {
 	ok := true
 	out := tokenPattern.ReplaceAllStringFunc(template, func(tok string) string {
@@ -79,7 +94,7 @@ func RenderTemplate(template string, c *Call) (string, bool) {
 		if v == "" {
 			ok = false
 		}
-		return url.QueryEscape(v)
+		return v
 	})
 	return out, ok
 }
@@ -87,15 +102,26 @@ func RenderTemplate(template string, c *Call) (string, bool) {
 // Resolve obtains every prefetch key of svc for the call: prefetched values as
 // sent, absent ones from the FHIR server when fetch is not nil. It fails with
 // KindPrecondition when a required key can be had neither way.
+//
+// Keys are resolved concurrently, so the call's time budget bounds the
+// slowest key, not the sum; Fetcher implementations must be safe for
+// concurrent use. A budget that runs out is KindUnavailable.
 func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limits) ([]Resolved, error) {
-	out := make([]Resolved, 0, len(svc.Prefetch))
+	out := make([]Resolved, len(svc.Prefetch))
+	var wg sync.WaitGroup
+	for i, k := range svc.Prefetch {
+		wg.Go(func() { out[i] = resolveKey(ctx, k, c, fetch, lim) })
+	}
+	wg.Wait()
+	if ctx.Err() != nil {
+		return out, &Error{Kind: KindUnavailable, Message: "the call's time budget ran out while fetching FHIR data",
+			Err: ctx.Err()}
+	}
 	var missing []string
-	for _, k := range svc.Prefetch {
-		r := resolveKey(ctx, k, c, fetch, lim)
-		if k.Required && (r.State == Failed || r.State == Unavailable) {
-			missing = append(missing, k.Key+" ("+r.Reason+")")
+	for _, r := range out {
+		if r.Key.Required && (r.State == Failed || r.State == Unavailable) {
+			missing = append(missing, r.Key.Key+" ("+r.Reason+")")
 		}
-		out = append(out, r)
 	}
 	if len(missing) > 0 {
 		return out, &Error{Kind: KindPrecondition, Field: "prefetch",
@@ -129,7 +155,7 @@ func resolveKey(ctx context.Context, k PrefetchKey, c *Call, fetch Fetcher, lim 
 	}
 	body, err := fetch.Fetch(ctx, query)
 	if err != nil {
-		r.State, r.Reason = Failed, err.Error()
+		r.State, r.Reason, r.Err = Failed, publicReason(err), err
 		return r
 	}
 	r.State = Fetched
@@ -184,7 +210,7 @@ func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limi
 			return nil
 		}
 		if raw, err = fetch.Fetch(ctx, b.Next); err != nil {
-			r.Partial, r.Reason = true, "reading page "+fmt.Sprint(page+1)+": "+err.Error()
+			r.Partial, r.Reason, r.Err = true, "reading page "+fmt.Sprint(page+1)+": "+publicReason(err), err
 			return nil
 		}
 	}

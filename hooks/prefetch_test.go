@@ -6,16 +6,20 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
 	"testing"
 )
 
 // mapFetcher serves canned bodies by ref and records what was asked.
 type mapFetcher struct {
+	mu     sync.Mutex
 	bodies map[string]string
 	asked  []string
 }
 
 func (f *mapFetcher) Fetch(_ context.Context, ref string) ([]byte, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
 	f.asked = append(f.asked, ref)
 	b, ok := f.bodies[ref]
 	if !ok {
@@ -100,7 +104,7 @@ func TestResolveStates(t *testing.T) {
 			if r.State != tc.state || r.Partial != tc.partial {
 				t.Errorf("state %s partial %v (%s), want %s partial %v", r.State, r.Partial, r.Reason, tc.state, tc.partial)
 			}
-			if ids := resourceIDs(t, r.Resources); ids != tc.ids {
+			if ids := idsOf(t, r.Resources); ids != tc.ids {
 				t.Errorf("resources %q, want %q", ids, tc.ids)
 			}
 			if tc.fetcher != nil && len(tc.fetcher.asked) != tc.wantAsked {
@@ -110,7 +114,7 @@ func TestResolveStates(t *testing.T) {
 	}
 }
 
-func resourceIDs(t *testing.T, rs []json.RawMessage) string {
+func idsOf(t *testing.T, rs []json.RawMessage) string {
 	var ids []string
 	for _, r := range rs {
 		var h struct{ ID string }

@@ -16,12 +16,16 @@ var fhirID = regexp.MustCompile(`^[A-Za-z0-9\-.]{1,64}$`)
 type Call struct {
 	Request Request
 	Context HookContext
-	// ContextTokens are the root-level primitive context fields, as text, for
-	// prefetch tokens (CDS Hooks 2.0 §Prefetch tokens).
+	// ContextTokens are the validated root-level context fields usable as
+	// prefetch tokens (CDS Hooks 2.0 §Prefetch tokens): userId, patientId and
+	// encounterId, whose values are FHIR ids or Type/id references.
 	ContextTokens map[string]string
 	// DraftOrders are the raw resources of context.draftOrders.
 	DraftOrders []json.RawMessage
 }
+
+// contextFields are the context fields halite reads.
+var contextFields = []string{"userId", "patientId", "encounterId", "selections", "draftOrders"}
 
 // userTypes lists the resource types context.userId may name, per hook
 // (CDS Hooks Library: patient-view, order-select, order-sign).
@@ -84,7 +88,7 @@ func validateServer(r *Request) error {
 		return badRequest("fhirServer", "is required when fhirAuthorization is present")
 	case a.AccessToken == "":
 		return badRequest("fhirAuthorization.access_token", "is required")
-	case a.TokenType != "Bearer":
+	case !strings.EqualFold(a.TokenType, "Bearer"): // RFC 6749 §5.1: case-insensitive
 		return badRequest("fhirAuthorization.token_type", "must be \"Bearer\"")
 	case a.ExpiresIn == nil:
 		return badRequest("fhirAuthorization.expires_in", "is required")
@@ -105,16 +109,14 @@ func (c *Call) decodeContext() error {
 	if err := json.Unmarshal(raw, &fields); err != nil {
 		return badRequest("context", "must be an object")
 	}
-	c.ContextTokens = map[string]string{}
-	for name, v := range fields {
-		var s string
-		if json.Unmarshal(v, &s) == nil {
-			c.ContextTokens[name] = s
-			continue
-		}
-		var n json.Number
-		if json.Unmarshal(v, &n) == nil {
-			c.ContextTokens[name] = n.String()
+	// encoding/json matches keys case-insensitively; a case variant of a
+	// field halite reads could be validated under one spelling and used
+	// under another, so it is refused.
+	for name := range fields {
+		for _, known := range contextFields {
+			if name != known && strings.EqualFold(name, known) {
+				return badRequest("context."+name, "is not a context field; field names are case-sensitive (%s)", known)
+			}
 		}
 	}
 	if err := json.Unmarshal(raw, &c.Context); err != nil {
@@ -137,6 +139,14 @@ func (c *Call) decodeContext() error {
 	}
 	if _, ok := fields["encounterId"]; ok && !fhirID.MatchString(ctx.EncounterID) {
 		return badRequest("context.encounterId", "must be a FHIR id")
+	}
+	// Prefetch tokens come from the validated fields only.
+	c.ContextTokens = map[string]string{"userId": ctx.UserID, "patientId": ctx.PatientID}
+	if ctx.EncounterID != "" {
+		c.ContextTokens["encounterId"] = ctx.EncounterID
+	}
+	if a := c.Request.FHIRAuthorization; a != nil && a.Patient != "" && a.Patient != ctx.PatientID {
+		return badRequest("fhirAuthorization.patient", "names a patient other than context.patientId")
 	}
 	if hook == HookPatientView {
 		return nil

@@ -16,6 +16,10 @@ func TestDecodeCallValid(t *testing.T) {
 		t.Run(tc.service+"/"+tc.hook, func(t *testing.T) {
 			m := requestMap(t, tc.scenario, tc.service, tc.hook)
 			m["extension"] = map[string]any{"org.example.unknown": map[string]any{"x": 1}}
+			// RFC 6749 §5.1: the token type is case-insensitive.
+			m["fhirServer"] = "https://ehr.example.org/fhir"
+			m["fhirAuthorization"] = map[string]any{"access_token": "t", "token_type": "bearer", "expires_in": 300,
+				"scope": "patient/*.read", "subject": "halite"}
 			m["someFutureField"] = "tolerated"
 			c, err := DecodeCall(mustService(t, tc.service), mustMarshal(t, m))
 			if err != nil {
@@ -88,6 +92,13 @@ func TestDecodeCallErrors(t *testing.T) {
 		}},
 		{"prefetch value not a resource", HookOrderSign, "prefetch.sodium",
 			func(m map[string]any) { m["prefetch"].(map[string]any)["sodium"] = []any{1} }},
+		{"case variant of patientId", HookOrderSign, "context.PatientId",
+			func(m map[string]any) { ctx(m)["PatientId"] = "someone-else" }},
+		{"fhirAuthorization.patient differs", HookOrderSign, "fhirAuthorization.patient", func(m map[string]any) {
+			m["fhirServer"] = "https://ehr.example.org/fhir"
+			m["fhirAuthorization"] = map[string]any{"access_token": "t", "token_type": "Bearer", "expires_in": 300,
+				"scope": "patient/*.read", "subject": "halite", "patient": "someone-else"}
+		}},
 		{"extension not an object", HookOrderSign, "extension", func(m map[string]any) { m["extension"] = []any{1} }},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
@@ -127,7 +138,7 @@ func TestRenderTemplate(t *testing.T) {
 		{"PractitionerRole/{{userPractitionerRoleId}}", "PractitionerRole/r-9", true},
 		{"Practitioner/{{userPractitionerId}}", "Practitioner/", false},
 		{"Encounter/{{context.encounterId}}", "Encounter/", false},
-		{"{{context.userId}}", "PractitionerRole%2Fr-9", true},
+		{"{{context.userId}}", "PractitionerRole/r-9", true},
 	} {
 		got, ok := RenderTemplate(tc.tmpl, c)
 		if got != tc.want || ok != tc.ok {

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"io"
 	"log/slog"
+	"mime"
 	"net/http"
 	"strconv"
 	"strings"
@@ -47,7 +48,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.Use(gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
 	r.GET("/cds-services", s.discover)
 	r.POST("/cds-services/:id", s.call)
-	for _, p := range []string{"/cds-services", "/cds-services/:id", "/cds-services/:id/feedback"} {
+	for _, p := range []string{"/cds-services", "/cds-services/:id"} {
 		r.OPTIONS(p, func(c *gin.Context) { c.Status(http.StatusNoContent) })
 	}
 	r.GET("/healthz", func(c *gin.Context) { c.Data(http.StatusOK, "application/json", []byte(`{"status":"ok"}`)) })
@@ -56,9 +57,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 		s.fail(c, &Error{Kind: KindUnknownService, Message: "no such endpoint"})
 	})
 	r.NoMethod(func(c *gin.Context) {
-		c.Data(http.StatusMethodNotAllowed, "application/json",
-			mustJSON(OperationOutcome{ResourceType: "OperationOutcome",
-				Issue: []OutcomeIssue{{Severity: "error", Code: "not-supported", Diagnostics: "method not allowed"}}}))
+		s.fail(c, &Error{Kind: KindMethodNotAllowed, Message: "method not allowed"})
 	})
 	return r
 }
@@ -78,6 +77,14 @@ func (s *server) discover(c *gin.Context) {
 
 func (s *server) call(c *gin.Context) {
 	id := c.Param("id")
+	// Only JSON bodies: a browser can send text/plain across origins without
+	// a CORS preflight, so accepting it would let any web page call halite.
+	if mt, _, err := mime.ParseMediaType(c.GetHeader("Content-Type")); err != nil ||
+		(mt != "application/json" && mt != "application/fhir+json") {
+		s.fail(c, &Error{Kind: KindUnsupportedMedia, Field: "Content-Type",
+			Message: "must be application/json"})
+		return
+	}
 	body, err := io.ReadAll(http.MaxBytesReader(c.Writer, c.Request.Body, s.cfg.MaxBodyBytes))
 	if err != nil {
 		var tooLarge *http.MaxBytesError
@@ -114,9 +121,10 @@ func (s *server) ready(c *gin.Context) {
 		mustJSON(map[string]string{"status": "ready", "ruleset": s.engine.Ruleset().Revision()}))
 }
 
-// fail answers err with its status and an OperationOutcome.
+// fail answers err with its status and an OperationOutcome. The log gets
+// the error's kind and field only: messages can quote request values.
 func (s *server) fail(c *gin.Context, err error) {
-	c.Set(logError, err.Error())
+	c.Set(logError, errorSummary(err))
 	c.Data(StatusOf(err), "application/json", mustJSON(OutcomeOf(err)))
 	c.Abort()
 }
@@ -137,8 +145,10 @@ func (s *server) cors(c *gin.Context) {
 	h := c.Writer.Header()
 	h.Add("Vary", "Origin")
 	if !s.origins[origin] {
-		if c.Request.Method == http.MethodOptions {
-			c.AbortWithStatus(http.StatusForbidden)
+		// Reads stay open (the browser withholds the answer); anything that
+		// acts — preflights and POSTs — is refused.
+		if c.Request.Method != http.MethodGet && c.Request.Method != http.MethodHead {
+			s.fail(c, &Error{Kind: KindForbidden, Message: "origin not allowed"})
 			return
 		}
 		c.Next()
@@ -176,10 +186,25 @@ func (s *server) accessLog(c *gin.Context) {
 	if v, ok := c.Get(logKeys); ok {
 		attrs = append(attrs, "prefetch", v)
 	}
-	if v, ok := c.Get(logError); ok && c.Writer.Status() != http.StatusUnauthorized {
+	if v, ok := c.Get(logError); ok {
 		attrs = append(attrs, "error", v)
 	}
 	s.log.Info("request", attrs...)
+}
+
+// errorSummary describes err for logs without request values: its kind and
+// the field at fault, or for internal errors the message (halite's own).
+func errorSummary(err error) string {
+	var e *Error
+	switch {
+	case !errors.As(err, &e):
+		return "internal: " + err.Error()
+	case e.Kind == KindInternal:
+		return "internal: " + e.Error()
+	case e.Field != "":
+		return statusOf[e.Kind].issueType + " " + e.Field
+	}
+	return statusOf[e.Kind].issueType
 }
 
 func keySummary(keys []Resolved) string {

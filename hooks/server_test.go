@@ -2,12 +2,14 @@ package hooks
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"io"
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -15,12 +17,37 @@ import (
 )
 
 func testServer(t *testing.T, cfg ServerConfig) (*httptest.Server, *Health) {
+	srv, h, _ := testServerWith(t, cfg, nil)
+	return srv, h
+}
+
+// testServerWith starts a handler whose engine uses f, logging to the
+// returned buffer.
+func testServerWith(t *testing.T, cfg ServerConfig, f FetcherFactory) (*httptest.Server, *Health, *lockedBuffer) {
 	t.Helper()
 	gin.SetMode(gin.TestMode)
 	h := &Health{}
-	srv := httptest.NewServer(NewHandler(testEngine(t, nil), cfg, h, slog.New(slog.NewTextHandler(io.Discard, nil))))
+	logs := &lockedBuffer{}
+	srv := httptest.NewServer(NewHandler(testEngine(t, f), cfg, h, slog.New(slog.NewJSONHandler(logs, nil))))
 	t.Cleanup(srv.Close)
-	return srv, h
+	return srv, h, logs
+}
+
+type lockedBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *lockedBuffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedBuffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
 }
 
 func defaultServerConfig() ServerConfig {
@@ -200,5 +227,89 @@ func TestHealthAndReadiness(t *testing.T) {
 	health.Drain()
 	if get("/healthz") != 200 || get("/readyz") != 503 {
 		t.Error("while draining: want healthz 200 and readyz 503")
+	}
+}
+
+// blockingFetcher blocks until the call's context ends.
+type blockingFetcher struct{}
+
+func (blockingFetcher) Fetch(ctx context.Context, _ string) ([]byte, error) {
+	<-ctx.Done()
+	return nil, ctx.Err()
+}
+
+// TestServiceCallFailures covers the status paths that need a FHIR server,
+// a fault, a wrong method, media type or origin (DESIGN §2.1).
+func TestServiceCallFailures(t *testing.T) {
+	fetchCall := requestMap(t, "01-chronic-hypona-3pct-infusion.json", "sodium-infusion-check", HookOrderSign)
+	delete(fetchCall, "prefetch")
+	fetchCall["fhirServer"] = "https://ehr.example.org/fhir"
+	fetchCall["fhirAuthorization"] = map[string]any{"access_token": "secret-token", "token_type": "Bearer",
+		"expires_in": 60, "scope": "patient/*.read", "subject": "halite"}
+	body := mustMarshal(t, fetchCall)
+	const path = "/cds-services/sodium-infusion-check"
+	cfg := defaultServerConfig()
+	cfg.CallTimeout = 200 * time.Millisecond
+	for _, tc := range []struct {
+		name    string
+		factory FetcherFactory
+		method  string
+		header  map[string]string
+		status  int
+	}{
+		{"FHIR server fails", func(string, *FHIRAuthorization) (Fetcher, error) { return &mapFetcher{}, nil },
+			http.MethodPost, nil, 412},
+		{"time budget runs out", func(string, *FHIRAuthorization) (Fetcher, error) { return blockingFetcher{}, nil },
+			http.MethodPost, nil, 503},
+		{"panic is a 500", func(string, *FHIRAuthorization) (Fetcher, error) { panic("test fault") },
+			http.MethodPost, nil, 500},
+		{"text/plain is refused", nil, http.MethodPost, map[string]string{"Content-Type": "text/plain"}, 415},
+		{"POST from a foreign origin", nil, http.MethodPost, map[string]string{"Origin": "https://evil.example.net"}, 403},
+		{"wrong method", nil, http.MethodPut, nil, 405},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			srv, _, logs := testServerWith(t, cfg, tc.factory)
+			req, _ := http.NewRequest(tc.method, srv.URL+path, bytes.NewReader(body))
+			req.Header.Set("Content-Type", "application/json")
+			for k, v := range tc.header {
+				req.Header.Set(k, v)
+			}
+			resp, err := http.DefaultClient.Do(req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			b, _ := io.ReadAll(resp.Body)
+			resp.Body.Close()
+			if resp.StatusCode != tc.status {
+				t.Fatalf("status %d, want %d: %s", resp.StatusCode, tc.status, b)
+			}
+			var oo OperationOutcome
+			if err := json.Unmarshal(b, &oo); err != nil || oo.ResourceType != "OperationOutcome" {
+				t.Errorf("error body is not an OperationOutcome: %s", b)
+			}
+			for _, secret := range []string{"secret-token", "pt-alder", "test fault"} {
+				if strings.Contains(string(b), secret) {
+					t.Errorf("response leaks %q: %s", secret, b)
+				}
+			}
+			if strings.Contains(logs.String(), "secret-token") || strings.Contains(logs.String(), "pt-alder") {
+				t.Errorf("log leaks the token or patient id: %s", logs.String())
+			}
+		})
+	}
+}
+
+// TestErrorLogsCarryNoRequestValues: a 400 about a selection logs the
+// field, not the reference the EHR sent.
+func TestErrorLogsCarryNoRequestValues(t *testing.T) {
+	srv, _, logs := testServerWith(t, defaultServerConfig(), nil)
+	m := requestMap(t, "01-chronic-hypona-3pct-infusion.json", "sodium-infusion-check", HookOrderSelect)
+	m["context"].(map[string]any)["selections"] = []any{"MedicationRequest/secret-order-id"}
+	resp, _ := post(t, srv.URL+"/cds-services/sodium-infusion-check", mustMarshal(t, m), nil)
+	if resp.StatusCode != 400 {
+		t.Fatalf("status %d", resp.StatusCode)
+	}
+	if l := logs.String(); strings.Contains(l, "secret-order-id") || !strings.Contains(l, "context.selections[0]") {
+		t.Errorf("log should name the field and not the value: %s", l)
 	}
 }

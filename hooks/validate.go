@@ -20,6 +20,11 @@ func ValidateResponse(r Response) error {
 			return fmt.Errorf("response: cards[%d]: %w", i, err)
 		}
 	}
+	for i, a := range r.SystemActions {
+		if err := validateAction(a); err != nil {
+			return fmt.Errorf("response: systemActions[%d]: %w", i, err)
+		}
+	}
 	raw, err := json.Marshal(r)
 	if err != nil {
 		return fmt.Errorf("response: %w", err)

@@ -2,6 +2,7 @@ package hooks
 
 import (
 	"encoding/json"
+	"math"
 	"strings"
 	"testing"
 
@@ -87,7 +88,10 @@ func TestValidateResponse(t *testing.T) {
 func TestRenderCards(t *testing.T) {
 	f := rules.Finding{Rule: "test-rule", Indicator: rules.Critical, Summary: "Test finding 12 mmol/L",
 		Detail: "Figures.", Figures: map[string]float64{"riseFromNadir24h": 12}}
-	cards := renderCards([]rules.Finding{f, f}, "rev-1")
+	cards, err := renderCards([]rules.Finding{f, f}, "rev-1")
+	if err != nil {
+		t.Fatal(err)
+	}
 	if len(cards) != 2 || cards[0].UUID == "" || cards[0].UUID == cards[1].UUID {
 		t.Fatalf("cards need distinct uuids: %+v", cards)
 	}
@@ -105,7 +109,16 @@ func TestRenderCards(t *testing.T) {
 	if err := ValidateResponse(Response{Cards: cards}); err != nil {
 		t.Errorf("rendered cards are invalid: %v", err)
 	}
-	if got := renderCards(nil, "rev-1"); got == nil || len(got) != 0 {
-		t.Errorf("no findings must render an empty, non-nil card list, got %#v", got)
+	if got, err := renderCards(nil, "rev-1"); err != nil || got == nil || len(got) != 0 {
+		t.Errorf("no findings must render an empty, non-nil card list, got %#v %v", got, err)
+	}
+	cards[0].OverrideReasons[0].Display = "changed"
+	if cards[1].OverrideReasons[0].Display == "changed" || overrideReasons[0].Display == "changed" {
+		t.Error("cards share their override reasons")
+	}
+	bad := f
+	bad.Figures = map[string]float64{"x": math.NaN()}
+	if _, err := renderCards([]rules.Finding{bad}, "rev-1"); err == nil {
+		t.Error("a NaN figure must fail rendering, not drop the extension")
 	}
 }

@@ -14,6 +14,7 @@ import (
 	"net/http"
 	"net/url"
 	"strings"
+	"syscall"
 	"time"
 )
 
@@ -21,8 +22,8 @@ import (
 type Options struct {
 	Timeout          time.Duration // per request, within the caller's deadline
 	MaxResponseBytes int64
-	// AllowHTTPLoopback permits plain http to loopback hosts; for
-	// development only. Everything else must be https.
+	// AllowHTTPLoopback permits loopback servers, over plain http too; for
+	// development only. Everything else must be https to a public address.
 	AllowHTTPLoopback bool
 	// Transport replaces the default transport (tests).
 	Transport http.RoundTripper
@@ -64,9 +65,13 @@ func New(server, token string, opt Options) (*Client, error) {
 		return nil, fmt.Errorf("fhir client: MaxResponseBytes must be positive")
 	}
 	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes}
+	transport := opt.Transport
+	if transport == nil {
+		transport = guardedTransport(opt.AllowHTTPLoopback)
+	}
 	c.http = &http.Client{
 		Timeout:   opt.Timeout,
-		Transport: opt.Transport,
+		Transport: transport,
 		CheckRedirect: func(req *http.Request, via []*http.Request) error {
 			if len(via) >= 3 {
 				return errTooManyRedirects
@@ -78,6 +83,39 @@ func New(server, token string, opt Options) (*Client, error) {
 		},
 	}
 	return c, nil
+}
+
+// ErrBlockedAddress means fhirServer resolved to an address halite does not
+// call: private, link-local, unspecified or multicast, or loopback outside
+// development. The check is made on the address actually dialled, so DNS
+// rebinding cannot slip past it.
+var ErrBlockedAddress = errors.New("fhirServer resolves to a blocked address")
+
+// guardedTransport is the default transport with a dial-time address check.
+func guardedTransport(allowLoopback bool) http.RoundTripper {
+	d := &net.Dialer{Timeout: 5 * time.Second, Control: func(_, address string, _ syscall.RawConn) error {
+		host, _, err := net.SplitHostPort(address)
+		if err != nil {
+			return ErrBlockedAddress
+		}
+		ip := net.ParseIP(host)
+		switch {
+		case ip == nil:
+			return ErrBlockedAddress
+		case ip.IsLoopback():
+			if !allowLoopback {
+				return ErrBlockedAddress
+			}
+		case ip.IsPrivate(), ip.IsLinkLocalUnicast(), ip.IsLinkLocalMulticast(), ip.IsUnspecified(),
+			ip.IsMulticast(), ip.IsInterfaceLocalMulticast():
+			return ErrBlockedAddress
+		}
+		return nil
+	}}
+	t := http.DefaultTransport.(*http.Transport).Clone()
+	t.DialContext = d.DialContext
+	t.Proxy = nil // a proxy would be dialled instead of the checked address
+	return t
 }
 
 // IsLoopback reports whether host is "localhost" or a loopback IP address.
@@ -109,9 +147,56 @@ func hasDotSegment(p string) bool {
 	return false
 }
 
+// Error is a failed fetch. Its message carries the detail for logs (never
+// the token, URL or query); Public is the short reason safe to give the
+// caller, which tells nothing about the network beyond the FHIR server's
+// own answer.
+type Error struct {
+	Reason string
+	Err    error
+}
+
+func (e *Error) Error() string { return e.Err.Error() }
+
+// Unwrap returns the detailed cause.
+func (e *Error) Unwrap() error { return e.Err }
+
+// Public returns the reason to show the caller.
+func (e *Error) Public() string { return e.Reason }
+
+// statusError is a non-200 answer.
+type statusError struct{ code int }
+
+func (e *statusError) Error() string        { return fmt.Sprintf("%v %d", ErrHTTPStatus, e.code) }
+func (e *statusError) Is(target error) bool { return target == ErrHTTPStatus }
+
 // Fetch GETs ref, a FHIR URL relative to the base ("Patient/1",
 // "Observation?…") or an absolute URL on the same origin (a next link).
+// Its errors are *Error.
 func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
+	body, err := c.fetch(ctx, ref)
+	if err != nil {
+		return nil, &Error{Reason: publicReason(err), Err: err}
+	}
+	return body, nil
+}
+
+func publicReason(err error) string {
+	var se *statusError
+	switch {
+	case errors.As(err, &se):
+		return fmt.Sprintf("the FHIR server answered HTTP %d", se.code)
+	case errors.Is(err, ErrTooLarge):
+		return "the FHIR server's answer was larger than the limit"
+	case errors.Is(err, context.DeadlineExceeded):
+		return "the FHIR server did not answer in time"
+	case errors.Is(err, ErrOffOrigin), errors.Is(err, ErrRedirectAway), errors.Is(err, ErrBadRef):
+		return "a link or redirect pointed away from fhirServer"
+	}
+	return "the FHIR server could not be reached"
+}
+
+func (c *Client) fetch(ctx context.Context, ref string) ([]byte, error) {
 	u, op, err := c.resolve(ref)
 	if err != nil {
 		return nil, err
@@ -131,7 +216,7 @@ func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	defer resp.Body.Close()
 	if resp.StatusCode != http.StatusOK {
 		_, _ = io.Copy(io.Discard, io.LimitReader(resp.Body, 64<<10))
-		return nil, fmt.Errorf("fetch %s: %w %d", op, ErrHTTPStatus, resp.StatusCode)
+		return nil, fmt.Errorf("fetch %s: %w", op, &statusError{resp.StatusCode})
 	}
 	body, err := io.ReadAll(io.LimitReader(resp.Body, c.maxBytes+1))
 	if err != nil {
