@@ -12,7 +12,7 @@ func (m *mapper) condition(r Resource) {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return
 	}
-	if !refersTo(str(c.Subject.Reference), "Patient", m.in.PatientID) {
+	if !RefersTo(str(c.Subject.Reference), "Patient", m.in.PatientID) {
 		m.reject(r, "", "subject is not the patient in context")
 		return
 	}

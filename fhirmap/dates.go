@@ -5,10 +5,10 @@ import (
 	"time"
 )
 
-// parseDateTime reads a FHIR dateTime or instant. It accepts the partial forms
+// ParseDateTime reads a FHIR dateTime or instant. It accepts the partial forms
 // FHIR allows (YYYY, YYYY-MM, YYYY-MM-DD) and reports whether the value
 // carried a time of day; a time of day without a zone is invalid in FHIR R4.
-func parseDateTime(s string) (t time.Time, hasTime bool, err error) {
+func ParseDateTime(s string) (t time.Time, hasTime bool, err error) {
 	for _, layout := range []string{time.RFC3339Nano, time.RFC3339} {
 		if t, err := time.Parse(layout, s); err == nil {
 			return t, true, nil
@@ -27,7 +27,7 @@ func parseDateTime(s string) (t time.Time, hasTime bool, err error) {
 func parseDate(s string) (time.Time, error) {
 	t, err := time.Parse("2006-01-02", s)
 	if err != nil {
-		if _, hasTime, perr := parseDateTime(s); perr == nil {
+		if _, hasTime, perr := ParseDateTime(s); perr == nil {
 			if hasTime {
 				return time.Time{}, fmt.Errorf("%q is a dateTime, not a date", s)
 			}

@@ -29,12 +29,12 @@ func TestParseDateTime(t *testing.T) {
 	}
 	for _, tt := range tests {
 		t.Run(tt.in, func(t *testing.T) {
-			got, hasTime, err := parseDateTime(tt.in)
+			got, hasTime, err := ParseDateTime(tt.in)
 			if (err != nil) != tt.wantErr {
 				t.Fatalf("err %v, wantErr %v", err, tt.wantErr)
 			}
 			if !got.Equal(tt.want) || hasTime != tt.wantTime {
-				t.Errorf("parseDateTime(%q) = %v, %v; want %v, %v", tt.in, got, hasTime, tt.want, tt.wantTime)
+				t.Errorf("ParseDateTime(%q) = %v, %v; want %v, %v", tt.in, got, hasTime, tt.want, tt.wantTime)
 			}
 		})
 	}

@@ -110,31 +110,31 @@ func FuzzParseDateTime(f *testing.F) {
 		f.Add(s)
 	}
 	f.Fuzz(func(t *testing.T, s string) {
-		got, hasTime, err := parseDateTime(s)
+		got, hasTime, err := ParseDateTime(s)
 		if err != nil {
 			if hasTime || !got.IsZero() {
-				t.Errorf("parseDateTime(%q) = %v, %v with error %v", s, got, hasTime, err)
+				t.Errorf("ParseDateTime(%q) = %v, %v with error %v", s, got, hasTime, err)
 			}
 			return
 		}
 		want, rerr := time.Parse(time.RFC3339, s)
 		if hasTime {
 			if rerr != nil {
-				t.Fatalf("parseDateTime(%q) has a time but RFC 3339 parsing fails: %v", s, rerr)
+				t.Fatalf("ParseDateTime(%q) has a time but RFC 3339 parsing fails: %v", s, rerr)
 			}
 			if !got.Equal(want) {
-				t.Errorf("parseDateTime(%q) = %v, RFC 3339 gives %v", s, got, want)
+				t.Errorf("ParseDateTime(%q) = %v, RFC 3339 gives %v", s, got, want)
 			}
 			return
 		}
 		if rerr == nil {
-			t.Errorf("parseDateTime(%q) says no time of day, but it is an RFC 3339 time", s)
+			t.Errorf("ParseDateTime(%q) says no time of day, but it is an RFC 3339 time", s)
 		}
 		if n := len(s); n != 4 && n != 7 && n != 10 {
-			t.Errorf("parseDateTime(%q) accepted a date of length %d; FHIR date forms are 4, 7 or 10 characters", s, n)
+			t.Errorf("ParseDateTime(%q) accepted a date of length %d; FHIR date forms are 4, 7 or 10 characters", s, n)
 		}
 		if got.Location() != time.UTC || got.Hour() != 0 || got.Minute() != 0 || got.Second() != 0 || got.Nanosecond() != 0 {
-			t.Errorf("parseDateTime(%q) = %v, want UTC midnight", s, got)
+			t.Errorf("ParseDateTime(%q) = %v, want UTC midnight", s, got)
 		}
 	})
 }

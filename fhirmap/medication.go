@@ -21,13 +21,13 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 		m.reject(r, "", "status is missing")
 		return rules.MedicationOrder{}, false
 	}
-	if ref := str(mr.Subject.Reference); ref != "" && !refersTo(ref, "Patient", m.in.PatientID) {
+	if !RefersTo(str(mr.Subject.Reference), "Patient", m.in.PatientID) { // subject is 1..1 in R4
 		m.reject(r, "", "subject is not the patient in context")
 		return rules.MedicationOrder{}, false
 	}
 	o := rules.MedicationOrder{Reference: r.Ref(), Status: mr.Status, Intent: mr.Intent}
 	if mr.AuthoredOn != nil {
-		if t, _, err := parseDateTime(*mr.AuthoredOn); err == nil {
+		if t, _, err := ParseDateTime(*mr.AuthoredOn); err == nil {
 			o.AuthoredOn = &t
 		} else {
 			m.note("%s: authoredOn: %v", r.Ref(), err)
@@ -35,7 +35,9 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 	}
 	o.Medication = m.medicationOf(r, mr)
 	if len(mr.DosageInstruction) > 0 {
-		dosage(&o, mr.DosageInstruction[0])
+		for _, ignored := range dosage(&o, mr.DosageInstruction[0]) {
+			m.note("%s: %s is not read", r.Ref(), ignored)
+		}
 		if len(mr.DosageInstruction) > 1 {
 			m.note("%s: only the first of %d dosage instructions is read", r.Ref(), len(mr.DosageInstruction))
 		}
@@ -152,11 +154,21 @@ func medication(med fhir.Medication) rules.Medication {
 	return out
 }
 
-// dosage reads route, dose, rate and timing from the first dosage instruction.
-func dosage(o *rules.MedicationOrder, d fhir.Dosage) {
+// dosage reads route, dose, rate and timing from the first dosage
+// instruction, and names the forms it left unread so they can be noted.
+func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 	o.Route, o.RouteText = codings(d.Route)
+	if len(d.DoseAndRate) > 1 {
+		ignored = append(ignored, "doseAndRate after the first")
+	}
 	if len(d.DoseAndRate) > 0 {
 		dr := d.DoseAndRate[0]
+		if dr.DoseRange != nil {
+			ignored = append(ignored, "doseRange")
+		}
+		if dr.RateRange != nil {
+			ignored = append(ignored, "rateRange")
+		}
 		o.Dose = quantity(dr.DoseQuantity)
 		switch {
 		case dr.RateQuantity != nil:
@@ -183,13 +195,12 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) {
 			o.Duration = &rules.Quantity{Value: v, Unit: str(rep.DurationUnit)}
 		}
 		o.Bounds = duration(rep.BoundsDuration)
-		if rep.Frequency != nil {
-			o.Frequency = *rep.Frequency
-		}
+		o.Frequency = rep.Frequency
 		if v, ok := number(rep.Period); ok {
 			o.Period = &rules.Quantity{Value: v, Unit: str(rep.PeriodUnit)}
 		}
 	}
+	return ignored
 }
 
 func formatQuantity(q rules.Quantity) string {

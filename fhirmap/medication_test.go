@@ -189,7 +189,7 @@ func TestMapDosageTiming(t *testing.T) {
 	}{
 		{"duration", qstr(o.Duration), "20 min"},
 		{"bounds", qstr(o.Bounds), "20 h"},
-		{"frequency", fmt.Sprint(o.Frequency), "2"},
+		{"frequency", fmt.Sprint(*o.Frequency), "2"},
 		{"period", qstr(o.Period), "1 d"},
 		{"dose", qstr(o.Dose), "150 mL"},
 		{"dispense quantity", qstr(o.DispenseQuantity), "500 mL"},
@@ -214,7 +214,7 @@ func TestMapDosageTiming(t *testing.T) {
 func TestMapDosageAbsent(t *testing.T) {
 	o := draftOrder(t, Input{DraftOrders: []json.RawMessage{mr("m", "draft", nsConcept)}})
 	if o.Dose != nil || o.Duration != nil || o.Bounds != nil || o.Period != nil || o.DispenseQuantity != nil ||
-		o.RateMlPerHour != nil || o.Rate != "" || o.Frequency != 0 || o.AuthoredOn != nil || o.Route != nil {
+		o.RateMlPerHour != nil || o.Rate != "" || o.Frequency != nil || o.AuthoredOn != nil || o.Route != nil {
 		t.Errorf("order %+v, want nothing but identity and status", o)
 	}
 }

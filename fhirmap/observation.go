@@ -46,7 +46,7 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", *head.Status))
 		return
 	}
-	if obs.Subject == nil || !refersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
+	if obs.Subject == nil || !RefersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
 		m.reject(r, a, "subject is not the patient in context")
 		return
 	}
@@ -138,7 +138,7 @@ func effectiveTime(o fhir.Observation) (time.Time, error) {
 	default:
 		return time.Time{}, fmt.Errorf("no effective time")
 	}
-	t, hasTime, err := parseDateTime(s)
+	t, hasTime, err := ParseDateTime(s)
 	if err != nil {
 		return time.Time{}, fmt.Errorf("effective time: %v", err)
 	}

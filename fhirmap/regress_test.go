@@ -73,3 +73,29 @@ func TestGreekMuMicromole(t *testing.T) {
 		t.Errorf("creatinine %+v, rejected %+v", s, f.Rejected)
 	}
 }
+
+func TestMedicationRequestWithoutSubjectRejected(t *testing.T) {
+	// MedicationRequest.subject is 1..1 in FHIR R4.
+	f := mapResources(t, json.RawMessage(`{"resourceType":"MedicationRequest","id":"ns","status":"active","intent":"order",`+
+		`"medicationCodeableConcept":{"text":"invented drug"}}`))
+	if len(f.Medications) != 0 || len(f.Rejected) != 1 || f.Rejected[0].Source != "MedicationRequest/ns" {
+		t.Errorf("medications %+v rejected %+v", f.Medications, f.Rejected)
+	}
+}
+
+func TestUnreadDosageFormsAreNoted(t *testing.T) {
+	raw := json.RawMessage(`{"resourceType":"MedicationRequest","id":"r","status":"active","intent":"order",` +
+		`"subject":{"reference":"Patient/p1"},"medicationCodeableConcept":{"text":"invented drug"},` +
+		`"dosageInstruction":[{"doseAndRate":[{"doseRange":{"low":{"value":1,"code":"mg"}},` +
+		`"rateRange":{"low":{"value":1,"code":"mL/h"}}},{"doseQuantity":{"value":2,"code":"mg"}}]}]}`)
+	f := mapResources(t, raw)
+	notes := strings.Join(f.Notes, "\n")
+	for _, want := range []string{"doseAndRate after the first", "doseRange", "rateRange"} {
+		if !strings.Contains(notes, want) {
+			t.Errorf("notes %q lack %q", notes, want)
+		}
+	}
+	if len(f.Medications) != 1 || f.Medications[0].Frequency != nil || f.Medications[0].Dose != nil {
+		t.Errorf("an absent frequency or dose must stay absent: %+v", f.Medications)
+	}
+}

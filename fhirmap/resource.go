@@ -87,9 +87,9 @@ func ParseBundle(raw []byte) (*Bundle, error) {
 	return out, nil
 }
 
-// refersTo reports whether reference ref points at resource typ/id, in its
+// RefersTo reports whether reference ref points at resource typ/id, in its
 // relative ("Patient/1") or absolute (".../Patient/1") form.
-func refersTo(ref, typ, id string) bool {
+func RefersTo(ref, typ, id string) bool {
 	rel := typ + "/" + id
 	return ref == rel || strings.HasSuffix(ref, "/"+rel)
 }

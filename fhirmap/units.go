@@ -26,11 +26,9 @@ var unitSynonyms = map[string]string{
 	"µmol/L":       "umol/L", // U+00B5 micro sign
 	"μmol/L":       "umol/L", // U+03BC Greek small mu
 	"mg/dl":        "mg/dL",
-	"mmol/kg":      "mmol/kg",
 	"mOsm/kg":      "mosm/kg",
 	"mosm/kg{H2O}": "mosm/kg",
 	"mOsm/kg{H2O}": "mosm/kg",
-	"l":            "L",
 }
 
 // toCanonical converts value v in UCUM unit u, for LOINC measure m, to the

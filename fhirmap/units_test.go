@@ -80,9 +80,9 @@ func TestLOINCCodes(t *testing.T) {
 			t.Errorf("LOINCCodes(%s) = %v, not sorted", a, codes)
 		}
 	}
-	// Serum/plasma sodium 2951-2 and blood sodium 2947-0 are the codes the
-	// scenarios use (testdata/scenarios/README.md); 32717-1 arterial and
-	// 39791-9 venous are from memory (LOINC, Regenstrief).
+	// LOINC sodium codes (Regenstrief), verified in halite's clinical
+	// reference notes §8 (source V-B): 2951-2 serum/plasma, 2947-0 blood,
+	// 32717-1 arterial blood, 39791-9 venous blood.
 	want := []string{"2947-0", "2951-2", "32717-1", "39791-9"}
 	got := LOINCCodes(rules.Sodium)
 	if len(got) != len(want) {

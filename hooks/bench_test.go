@@ -10,8 +10,10 @@ import (
 	"github.com/halite-cds/halite/fhirmap"
 )
 
-// benchRequest is an order-sign call for sodium-chart-review-sized data:
-// 200 Observations across the prefetch keys and 20 active MedicationRequests.
+// benchRequest is a patient-view call to sodium-chart-review with 200
+// Observations across the prefetch keys and 20 active MedicationRequests.
+// All values, codes after 36437 and the birth date are invented load data,
+// not clinical check values.
 func benchRequest(b *testing.B) []byte {
 	b.Helper()
 	at := scenarioAt

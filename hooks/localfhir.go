@@ -204,21 +204,13 @@ func (f searchFields) date() string {
 
 // dateKey orders dates; unreadable ones sort as the zero time.
 func dateKey(s string) time.Time {
-	for _, layout := range []string{time.RFC3339Nano, "2006-01-02", "2006-01", "2006"} {
-		if t, err := time.Parse(layout, s); err == nil {
-			return t
-		}
-	}
-	return time.Time{}
+	t, _, _ := fhirmap.ParseDateTime(s)
+	return t
 }
 
 func refMatches(f searchFields, id string) bool {
-	for _, r := range []*refField{f.Subject, f.Patient} {
-		if r != nil && (r.Reference == "Patient/"+id || strings.HasSuffix(r.Reference, "/Patient/"+id)) {
-			return true
-		}
-	}
-	return false
+	return (f.Subject != nil && fhirmap.RefersTo(f.Subject.Reference, "Patient", id)) ||
+		(f.Patient != nil && fhirmap.RefersTo(f.Patient.Reference, "Patient", id))
 }
 
 // tokenMatches applies a token search value list ("system|code,code").

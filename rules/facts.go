@@ -172,7 +172,7 @@ type MedicationOrder struct {
 	Duration *Quantity
 	// Bounds is the total course (timing.repeat.boundsDuration).
 	Bounds           *Quantity
-	Frequency        int
+	Frequency        *int // administrations per Period
 	Period           *Quantity
 	DispenseQuantity *Quantity
 	Draft            bool // carried in context.draftOrders

@@ -65,6 +65,9 @@ func TestParseRejectsBadPolicy(t *testing.T) {
 	}
 }
 
+// TestCheckPlausible checks against the policy's own bounds (sodium 90–200
+// mmol/L, weight 0.3–400 kg, height 20–250 cm; halite policy data, common
+// practice), with invented values either side.
 func TestCheckPlausible(t *testing.T) {
 	rs, err := Load()
 	if err != nil {

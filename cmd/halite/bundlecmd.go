@@ -74,7 +74,14 @@ func readBundle(path string) (*fhirmap.Bundle, error) {
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
-	return b, nil
+	switch b.Type {
+	case "collection", "searchset", "transaction", "batch":
+		return b, nil
+	case "":
+		return nil, fmt.Errorf("%s: Bundle.type is missing (use collection)", path)
+	default:
+		return nil, fmt.Errorf("%s: Bundle.type %q: halite reads collection, searchset, transaction or batch bundles", path, b.Type)
+	}
 }
 
 // oneBundle checks that exactly one bundle path was given.

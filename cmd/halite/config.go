@@ -25,6 +25,7 @@ type Config struct {
 	MaxBodyBytes    int64            `yaml:"max_body_bytes"`
 	CallTimeout     Duration         `yaml:"call_timeout"`
 	ShutdownGrace   Duration         `yaml:"shutdown_grace"`
+	DrainDelay      Duration         `yaml:"readiness_drain_delay"`
 	CORSOrigins     []string         `yaml:"cors_allowed_origins"`
 	LogLevel        string           `yaml:"log_level"`
 	FHIRClient      FHIRClientConfig `yaml:"fhir_client"`
@@ -78,6 +79,7 @@ var envKeys = []struct {
 	{"max_body_bytes", func(c *Config, v string) (err error) { c.MaxBodyBytes, err = strconv.ParseInt(v, 10, 64); return }},
 	{"call_timeout", func(c *Config, v string) error { return setDuration(&c.CallTimeout, v) }},
 	{"shutdown_grace", func(c *Config, v string) error { return setDuration(&c.ShutdownGrace, v) }},
+	{"readiness_drain_delay", func(c *Config, v string) error { return setDuration(&c.DrainDelay, v) }},
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},
@@ -162,6 +164,9 @@ func (c Config) validate() error {
 	}
 	if c.ShutdownGrace < 0 {
 		return fmt.Errorf("config: shutdown_grace: must not be negative")
+	}
+	if c.DrainDelay < 0 || time.Duration(c.DrainDelay) > 5*time.Minute {
+		return fmt.Errorf("config: readiness_drain_delay: must be between 0s and 5m")
 	}
 	for i, o := range c.CORSOrigins {
 		u, err := url.Parse(o)

@@ -272,6 +272,10 @@ func TestCommandErrors(t *testing.T) {
 	os.WriteFile(notBundle, []byte(`{"resourceType":"Patient","id":"x"}`), 0o644)
 	notJSON := filepath.Join(dir, "bad.json")
 	os.WriteFile(notJSON, []byte(`{"resourceType":`), 0o644)
+	noType := filepath.Join(dir, "notype.json")
+	os.WriteFile(noType, []byte(`{"resourceType":"Bundle","entry":[]}`), 0o644)
+	document := filepath.Join(dir, "document.json")
+	os.WriteFile(document, []byte(`{"resourceType":"Bundle","type":"document","entry":[]}`), 0o644)
 	noPatient := filepath.Join(dir, "empty.json")
 	os.WriteFile(noPatient, []byte(`{"resourceType":"Bundle","type":"collection","entry":[]}`), 0o644)
 	scenario := scenarioFiles(t)[0]
@@ -288,6 +292,8 @@ func TestCommandErrors(t *testing.T) {
 		{[]string{"eval", "--hook", "order-sign", notBundle}, `want "Bundle"`},
 		{[]string{"eval", "--hook", "order-sign", notJSON}, "read bundle"},
 		{[]string{"eval", "--hook", "patient-view", noPatient}, "no Patient"},
+		{[]string{"eval", "--hook", "patient-view", noType}, "Bundle.type is missing"},
+		{[]string{"request", "--hook", "patient-view", document}, `Bundle.type "document"`},
 		{[]string{"eval", "--hook", "order-sign", "--at", "yesterday", scenario}, "--at"},
 		{[]string{"serve", "--addr", "0.0.0.0:8080"}, "listen_addr"},
 	} {
@@ -392,5 +398,31 @@ func TestDemoRequestCurrent(t *testing.T) {
 	}
 	if strip(out.Bytes()) != strip(demo) {
 		t.Errorf("%s is stale; run go test ./cmd/halite -run TestDemoRequestCurrent -update", demoPath)
+	}
+}
+
+// TestServeReadinessFailsDuringDrainDelay: after SIGTERM, /readyz answers
+// 503 while the listener still serves, for readiness_drain_delay.
+func TestServeReadinessFailsDuringDrainDelay(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	t.Setenv("HALITE_READINESS_DRAIN_DELAY", "1s")
+	base, _, stop := startServe(t)
+	stopped := make(chan error, 1)
+	go func() { stopped <- stop() }()
+	saw503 := false
+	for i := 0; i < 200 && !saw503; i++ { // bounded poll; the delay keeps the listener open
+		resp, err := http.Get(base + "/readyz")
+		if err != nil {
+			break
+		}
+		resp.Body.Close()
+		saw503 = resp.StatusCode == http.StatusServiceUnavailable
+		time.Sleep(10 * time.Millisecond)
+	}
+	if !saw503 {
+		t.Error("/readyz never answered 503 during the drain delay")
+	}
+	if err := <-stopped; err != nil {
+		t.Errorf("serve returned %v", err)
 	}
 }

@@ -85,6 +85,11 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	case <-ctx.Done():
 	}
 	health.Drain()
+	if d := time.Duration(cfg.DrainDelay); d > 0 {
+		// Keep serving while load balancers notice the failing /readyz.
+		log.Info("shutting down: readiness failed, still serving", "readiness_drain_delay", d.String())
+		time.Sleep(d)
+	}
 	log.Info("shutting down: draining in-flight calls", "grace", time.Duration(cfg.ShutdownGrace).String())
 	shutdownCtx, cancel := context.WithTimeout(context.Background(), time.Duration(cfg.ShutdownGrace))
 	defer cancel()

@@ -825,10 +825,9 @@ func TestFetchErrorsOmitPatientIDInPath(t *testing.T) {
 	}
 }
 
-// BUG (client.go:101-103): when http.NewRequestWithContext rejects the URL
-// built from a relative ref (here: a control character in the query), Fetch
-// wraps the *url.Error as is, and its message quotes the whole URL, query
-// included.
+// Regression: when http.NewRequestWithContext rejected the URL built from a
+// relative ref (a control character in the query), Fetch once wrapped the
+// *url.Error as is, whose message quotes the whole URL, query included.
 func TestFetchErrorOmitsQueryWithControlCharacter(t *testing.T) {
 	s := startServer(t, false, nil)
 	c := newClient(t, s, "/fhir/r4", secretToken, fhirclient.Options{})
@@ -847,8 +846,8 @@ func TestFetchErrorOmitsQueryWithControlCharacter(t *testing.T) {
 	}
 }
 
-// BUG (client.go sameOrigin and resolve): dot segments are compared textually,
-// so "/fhir/r4/../../admin" counts as under the base path "/fhir/r4" and is
+// Regression: dot segments were once compared textually, so
+// "/fhir/r4/../../admin" counted as under the base path "/fhir/r4" and was
 // sent, with the token, as is; a server that normalises the path serves
 // /admin. Either refusing the ref or sending a cleaned path under the base
 // would do.
