@@ -426,3 +426,60 @@ func TestServeReadinessFailsDuringDrainDelay(t *testing.T) {
 		t.Errorf("serve returned %v", err)
 	}
 }
+
+// TestServeBundleFetchPath: a request with no prefetch, pointed at
+// `halite serve-bundle`, is answered through the fetch path as the
+// prefetched one is.
+func TestServeBundleFetchPath(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "09-rapid-correction-high-risk.json")
+	ctx, cancel := context.WithCancel(context.Background())
+	pr, pw := io.Pipe()
+	done := make(chan error, 1)
+	go func() {
+		done <- run(ctx, []string{"serve-bundle", "--addr", "127.0.0.1:0", "--page-size", "2", "--token", "tok", scenario},
+			pw, io.Discard)
+		pw.Close()
+	}()
+	line, err := bufio.NewReader(pr).ReadString('\n')
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	go func() { _, _ = io.Copy(io.Discard, pr) }()
+	fhirURL := strings.TrimSpace(line[strings.Index(line, "http://"):])
+
+	var req bytes.Buffer
+	if err := run(context.Background(), []string{"request", "--hook", "patient-view", "--no-prefetch",
+		"--fhir-server", fhirURL, "--access-token", "tok", scenario}, &req, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	var reqs map[string]json.RawMessage
+	if err := json.Unmarshal(req.Bytes(), &reqs); err != nil {
+		t.Fatal(err)
+	}
+	base, logs, stop := startServe(t)
+	resp, err := http.Post(base+"/cds-services/sodium-chart-review", "application/json", bytes.NewReader(reqs["sodium-chart-review"]))
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 {
+		t.Fatalf("status %d: %s", resp.StatusCode, body)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(logs.String(), "sodium=fetched") || strings.Contains(logs.String(), "tok\"") {
+		t.Errorf("the call did not go through the fetch path, or logged the token:\n%s", logs.String())
+	}
+	cancel()
+	if err := <-done; err != nil {
+		t.Errorf("serve-bundle returned %v", err)
+	}
+	if err := run(context.Background(), []string{"serve-bundle", "--addr", "0.0.0.0:0", scenario}, io.Discard, io.Discard); err == nil ||
+		!strings.Contains(err.Error(), "loopback") {
+		t.Errorf("serve-bundle on a public address: %v", err)
+	}
+}

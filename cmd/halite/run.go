@@ -20,6 +20,7 @@ Usage:
   halite serve   [--config FILE] [--addr HOST:PORT]
   halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] BUNDLE
   halite request --hook HOOK [--service ID] BUNDLE
+  halite serve-bundle [--addr HOST:PORT] [--page-size N] [--token T] BUNDLE
   halite help
 
 Run "halite COMMAND --help" for a command's flags.
@@ -39,6 +40,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = eval(ctx, rest, stdout, stderr)
 	case "request":
 		err = request(rest, stdout, stderr)
+	case "serve-bundle":
+		err = serveBundle(ctx, rest, stdout, stderr)
 	case "help", "-h", "--help":
 		fmt.Fprint(stdout, usage)
 		return nil

@@ -1,0 +1,61 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"time"
+
+	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/fhirclient"
+)
+
+// serveBundle serves a bundle as a small read-only FHIR server on loopback,
+// so the fetch path can be tried: point a request's fhirServer at it
+// (`halite request --no-prefetch --fhir-server URL --access-token T`).
+func serveBundle(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("serve-bundle", "serve-bundle [--addr HOST:PORT] [--page-size N] [--token T] BUNDLE", stderr)
+	addr := fs.String("addr", "127.0.0.1:8090", "loopback listen address `HOST:PORT`")
+	pageSize := fs.Int("page-size", 0, "split search results into pages of `N` entries linked by next (0: one page)")
+	token := fs.String("token", "", "require this bearer `token`")
+	pos, err := parseFlags(fs, args)
+	if err != nil {
+		return err
+	}
+	path, err := oneBundle(pos)
+	if err != nil {
+		return err
+	}
+	host, _, err := net.SplitHostPort(*addr)
+	if err != nil || !fhirclient.IsLoopback(host) {
+		return fmt.Errorf("--addr: %q: serve-bundle listens on a loopback address only", *addr)
+	}
+	if *pageSize < 0 {
+		return errors.New("--page-size: must not be negative")
+	}
+	b, err := readBundle(path)
+	if err != nil {
+		return err
+	}
+	store := hooks.NewBundleStore(b)
+	store.PageSize, store.Token = *pageSize, *token
+	ln, err := net.Listen("tcp", *addr)
+	if err != nil {
+		return fmt.Errorf("serve-bundle: %w", err)
+	}
+	srv := &http.Server{Handler: store, ReadHeaderTimeout: 10 * time.Second}
+	served := make(chan error, 1)
+	go func() { served <- srv.Serve(ln) }()
+	fmt.Fprintf(stdout, "serving %s as a read-only FHIR server at http://%s/fhir\n", path, ln.Addr())
+	select {
+	case err := <-served:
+		return fmt.Errorf("serve-bundle: %w", err)
+	case <-ctx.Done():
+	}
+	shutdownCtx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	return srv.Shutdown(shutdownCtx)
+}
