@@ -84,8 +84,12 @@ func readBundle(path string) (*fhirmap.Bundle, error) {
 	}
 }
 
-// oneBundle checks that exactly one bundle path was given.
-func oneBundle(args []string) (string, error) {
+// parseBundleArgs parses the flags and returns the one BUNDLE argument.
+func parseBundleArgs(fs *flag.FlagSet, args []string) (string, error) {
+	args, err := parseFlags(fs, args)
+	if err != nil {
+		return "", err
+	}
 	switch len(args) {
 	case 1:
 		return args[0], nil
@@ -112,11 +116,7 @@ func request(args []string, stdout, stderr io.Writer) error {
 	server := fs.String("fhir-server", "", "send this `URL` as fhirServer")
 	token := fs.String("access-token", "", "with --fhir-server, send this `token` in fhirAuthorization")
 	noPrefetch := fs.Bool("no-prefetch", false, "leave prefetch out, so the service must fetch from --fhir-server")
-	pos, err := parseFlags(fs, args)
-	if err != nil {
-		return err
-	}
-	path, err := oneBundle(pos)
+	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
 	}

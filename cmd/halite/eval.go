@@ -31,11 +31,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
 	asJSON := fs.Bool("json", false, "print the exact CDS Hooks response (keyed by service id without --service)")
-	pos, err := parseFlags(fs, args)
-	if err != nil {
-		return err
-	}
-	path, err := oneBundle(pos)
+	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
 	}

@@ -21,11 +21,7 @@ func serveBundle(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	addr := fs.String("addr", "127.0.0.1:8090", "loopback listen address `HOST:PORT`")
 	pageSize := fs.Int("page-size", 0, "split search results into pages of `N` entries linked by next (0: one page)")
 	token := fs.String("token", "", "require this bearer `token`")
-	pos, err := parseFlags(fs, args)
-	if err != nil {
-		return err
-	}
-	path, err := oneBundle(pos)
+	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
 	}
