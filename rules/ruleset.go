@@ -21,10 +21,41 @@ type Bounds struct {
 	Source string  `json:"source"`
 }
 
+// Limit is a rate-of-correction limit with its source.
+type Limit struct {
+	Value  float64 `json:"value"`
+	Unit   string  `json:"unit"`
+	Source string  `json:"source"`
+}
+
+// Limits are the rate-of-correction limits in force.
+type Limits struct {
+	HyponatremiaRise24h         Limit `json:"hyponatremiaRise24h"`
+	HyponatremiaRise48h         Limit `json:"hyponatremiaRise48h"`
+	HyponatremiaRise24hHighRisk Limit `json:"hyponatremiaRise24hHighRisk"`
+	HypernatremiaFall24h        Limit `json:"hypernatremiaFall24h"`
+	HypernatremiaFallPerHour    Limit `json:"hypernatremiaFallPerHour"`
+}
+
+// TBWPolicy holds the total-body-water fractions of weight and the ages
+// that select them.
+type TBWPolicy struct {
+	Child          float64 `json:"child"`
+	Man            float64 `json:"man"`
+	Woman          float64 `json:"woman"`
+	ElderlyMan     float64 `json:"elderlyMan"`
+	ElderlyWoman   float64 `json:"elderlyWoman"`
+	AdultFromAge   int     `json:"adultFromAge"`
+	ElderlyFromAge int     `json:"elderlyFromAge"`
+	Source         string  `json:"source"`
+}
+
 // Policy is the versioned, embedded policy data the rules read.
 type Policy struct {
 	Version      string             `json:"version"`
 	Note         string             `json:"note,omitempty"`
+	Limits       Limits             `json:"limits"`
+	TBW          TBWPolicy          `json:"tbw"`
 	Plausibility map[Analyte]Bounds `json:"plausibility"`
 }
 
@@ -50,6 +81,9 @@ func parse(data []byte) (*Ruleset, error) {
 	if p.Version == "" {
 		return nil, fmt.Errorf("load policy: version is empty")
 	}
+	if err := p.validateKinetics(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
 	for _, a := range Analytes() {
 		b, ok := p.Plausibility[a]
 		if !ok {
@@ -68,6 +102,36 @@ func parse(data []byte) (*Ruleset, error) {
 		}
 	}
 	return &Ruleset{revision: revisionOf(p), policy: p}, nil
+}
+
+func (p Policy) validateKinetics() error {
+	l := p.Limits
+	for name, lim := range map[string]Limit{
+		"hyponatremiaRise24h": l.HyponatremiaRise24h, "hyponatremiaRise48h": l.HyponatremiaRise48h,
+		"hyponatremiaRise24hHighRisk": l.HyponatremiaRise24hHighRisk, "hypernatremiaFall24h": l.HypernatremiaFall24h,
+		"hypernatremiaFallPerHour": l.HypernatremiaFallPerHour,
+	} {
+		if lim.Value <= 0 || lim.Unit == "" || lim.Source == "" {
+			return fmt.Errorf("limits.%s needs a positive value, a unit and a source", name)
+		}
+	}
+	if l.HyponatremiaRise24hHighRisk.Value > l.HyponatremiaRise24h.Value {
+		return fmt.Errorf("limits.hyponatremiaRise24hHighRisk must not exceed hyponatremiaRise24h")
+	}
+	if l.HyponatremiaRise48h.Value < l.HyponatremiaRise24h.Value {
+		return fmt.Errorf("limits.hyponatremiaRise48h must not be below hyponatremiaRise24h")
+	}
+	t := p.TBW
+	for name, f := range map[string]float64{"child": t.Child, "man": t.Man, "woman": t.Woman,
+		"elderlyMan": t.ElderlyMan, "elderlyWoman": t.ElderlyWoman} {
+		if f <= 0 || f >= 1 {
+			return fmt.Errorf("tbw.%s must be a fraction between 0 and 1", name)
+		}
+	}
+	if t.AdultFromAge <= 0 || t.ElderlyFromAge <= t.AdultFromAge || t.Source == "" {
+		return fmt.Errorf("tbw needs 0 < adultFromAge < elderlyFromAge and a source")
+	}
+	return nil
 }
 
 func knownAnalyte(a Analyte) bool {

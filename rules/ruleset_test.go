@@ -54,13 +54,27 @@ func TestParseRejectsBadPolicy(t *testing.T) {
 		"wrong unit":        func(s string) string { return strings.Replace(s, `"unit": "umol/L"`, `"unit": "mg/dL"`, 1) },
 		"unknown analyte":   func(s string) string { return strings.Replace(s, `"urine-sodium"`, `"urine-sodum"`, 1) },
 		"min not below max": func(s string) string { return strings.Replace(s, `"max": 200,`, `"max": 80,`, 1) },
+		"high-risk limit above the 24-h limit": func(s string) string {
+			return strings.Replace(s, `{"value": 8, `, `{"value": 12,`, 1)
+		},
+		"limit without source": func(s string) string {
+			return strings.Replace(s, `"mmol/L/h", "source": "Adrogué HJ, Madias NE, N Engl J Med 2000;342:1493-1499 (from memory)"`,
+				`"mmol/L/h", "source": ""`, 1)
+		},
+		"TBW fraction above 1": func(s string) string { return strings.Replace(s, `"child": 0.6`, `"child": 1.2`, 1) },
+		"elderly age below adult age": func(s string) string {
+			return strings.Replace(s, `"elderlyFromAge": 65`, `"elderlyFromAge": 10`, 1)
+		},
 	} {
 		edited := edit(string(embeddedPolicy))
 		if edited == string(embeddedPolicy) {
 			t.Fatalf("%s: test edit did not apply", name)
 		}
-		if _, err := parse([]byte(edited)); err == nil {
+		_, err := parse([]byte(edited))
+		if err == nil {
 			t.Errorf("%s: accepted", name)
+		} else if strings.Contains(err.Error(), "unknown field") && name != "unknown field" {
+			t.Errorf("%s: refused for the wrong reason: %v", name, err)
 		}
 	}
 }

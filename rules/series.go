@@ -1,0 +1,67 @@
+package rules
+
+import "time"
+
+// SodiumWindow is the change of serum sodium inside one trailing window
+// ending at the evaluation time.
+type SodiumWindow struct {
+	Hours int
+	// Nadir and Peak are the lowest and highest values in the window, and
+	// Latest the last; RiseFromNadir = Latest − Nadir and FallFromPeak =
+	// Peak − Latest, each ≥ 0.
+	Nadir, Peak, Latest Measurement
+	RiseFromNadir       float64
+	FallFromPeak        float64
+	Used                []Measurement // the values in the window, oldest first
+}
+
+// SodiumTrend is the analysis of a sodium series at a time.
+type SodiumTrend struct {
+	Window24h, Window48h *SodiumWindow // nil when the window holds no value
+	// HourlyRate is (last − previous)/hours between the last two values in
+	// the 48-h window; nil with fewer than two.
+	HourlyRate *float64
+}
+
+// AnalyseSodium measures the change already achieved: rise from the nadir
+// and fall from the peak in the trailing 24-h and 48-h windows ending at at
+// (rolling windows, as the US panel applies its limits "in any 24-h period":
+// Verbalis JG et al., Am J Med 2013;126:S1–S42), and the latest hourly rate.
+// series must be ordered oldest first, as fhirmap builds it.
+func AnalyseSodium(series []Measurement, at time.Time) SodiumTrend {
+	var t SodiumTrend
+	t.Window24h = window(series, at, 24)
+	t.Window48h = window(series, at, 48)
+	if w := t.Window48h; w != nil && len(w.Used) >= 2 {
+		a, b := w.Used[len(w.Used)-2], w.Used[len(w.Used)-1]
+		if h := b.At.Sub(a.At).Hours(); h > 0 {
+			r := (b.Value - a.Value) / h
+			t.HourlyRate = &r
+		}
+	}
+	return t
+}
+
+func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
+	from := at.Add(-time.Duration(hours) * time.Hour)
+	w := &SodiumWindow{Hours: hours}
+	for _, m := range series {
+		if m.At.Before(from) || m.At.After(at) {
+			continue
+		}
+		if len(w.Used) == 0 || m.Value < w.Nadir.Value {
+			w.Nadir = m
+		}
+		if len(w.Used) == 0 || m.Value > w.Peak.Value {
+			w.Peak = m
+		}
+		w.Used = append(w.Used, m)
+	}
+	if len(w.Used) == 0 {
+		return nil
+	}
+	w.Latest = w.Used[len(w.Used)-1]
+	w.RiseFromNadir = w.Latest.Value - w.Nadir.Value
+	w.FallFromPeak = w.Peak.Value - w.Latest.Value
+	return w
+}
