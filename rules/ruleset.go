@@ -64,11 +64,22 @@ type Policy struct {
 type Ruleset struct {
 	revision string
 	policy   Policy
+	fluids   *fluidTable
 }
 
 // Load parses and validates the embedded policy data.
 func Load() (*Ruleset, error) {
-	return parse(embeddedPolicy)
+	rs, err := parse(embeddedPolicy)
+	if err != nil {
+		return nil, err
+	}
+	if rs.fluids, err = parseFluids(embeddedInfusates); err != nil {
+		return nil, err
+	}
+	// The revision covers the fluid table too.
+	sum := sha256.Sum256(append([]byte(rs.revision), embeddedInfusates...))
+	rs.revision = rs.policy.Version + "+" + hex.EncodeToString(sum[:8])
+	return rs, nil
 }
 
 func parse(data []byte) (*Ruleset, error) {

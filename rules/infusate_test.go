@@ -1,0 +1,104 @@
+package rules
+
+import (
+	"testing"
+)
+
+const rxnorm = "http://www.nlm.nih.gov/research/umls/rxnorm"
+
+func loadRuleset(t *testing.T) *Ruleset {
+	t.Helper()
+	rs, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return rs
+}
+
+// TestSaltMolarMasses recomputes each salt's molar mass from IUPAC standard
+// atomic weights (abridged, 2021).
+func TestSaltMolarMasses(t *testing.T) {
+	const na, k, cl, c, h, o = 22.990, 39.098, 35.45, 12.011, 1.008, 15.999
+	want := map[string]float64{
+		"sodium chloride":    na + cl,
+		"potassium chloride": k + cl,
+		"sodium bicarbonate": na + h + c + 3*o,
+		"sodium lactate":     3*c + 5*h + na + 3*o, // C3H5NaO3
+		"sodium acetate":     2*c + 3*h + na + 2*o, // C2H3NaO2
+	}
+	for _, s := range salts {
+		if w := want[s.names[0]]; !near(s.molarMass, w, 0.01) {
+			t.Errorf("%s: %.3f g/mol, IUPAC weights give %.3f", s.names[0], s.molarMass, w)
+		}
+	}
+}
+
+func TestInfusateComposition(t *testing.T) {
+	rs := loadRuleset(t)
+	gPer100mL := func(v float64) *Ratio {
+		return &Ratio{Numerator: Quantity{Value: v, Unit: "g"}, Denominator: Quantity{Value: 100, Unit: "mL"}}
+	}
+	mgPerML := func(v float64) *Ratio {
+		return &Ratio{Numerator: Quantity{Value: v, Unit: "mg"}, Denominator: Quantity{Value: 1, Unit: "mL"}}
+	}
+	ing := func(code, name string, s *Ratio) Ingredient {
+		return Ingredient{Codings: []Coding{{System: rxnorm, Code: code}}, Text: name, Strength: s}
+	}
+	for _, tc := range []struct {
+		name  string
+		med   Medication
+		na, k float64
+		tol   float64
+	}{
+		// Product codes from the RxNorm extract; values from FDA labels [V].
+		{"0.9% by SCD 1807639", Medication{Codings: []Coding{{System: rxnorm, Code: "1807639"}}}, 154, 0, 0},
+		{"3% by SCD 730781", Medication{Codings: []Coding{{System: rxnorm, Code: "730781"}}}, 513, 0, 0},
+		{"lactated Ringer's by SCD 847630", Medication{Codings: []Coding{{System: rxnorm, Code: "847630"}}}, 130, 4, 0},
+		// Ingredient strengths [derived: g/L ÷ g/mol]; 3% NaCl agrees with its
+		// FDA label value 513 mEq/L [V] to 0.5.
+		{"3 g/100 mL sodium chloride", Medication{Ingredients: []Ingredient{ing("9863", "sodium chloride", gPer100mL(3))}}, 513, 0, 0.5},
+		{"0.9% NaCl + KCl 20 mmol/L", Medication{Ingredients: []Ingredient{
+			ing("9863", "sodium chloride", gPer100mL(0.9)),
+			ing("8591", "potassium chloride", &Ratio{Numerator: Quantity{Value: 20, Unit: "mmol"}, Denominator: Quantity{Value: 1000, Unit: "mL"}}),
+		}}, 154, 20, 0.1},
+		// Lactated Ringer's from its RxNorm strengths (NaCl 6, sodium lactate
+		// 3.1, KCl 0.3 mg/mL): agrees with the label's Na 130, K 4 [V] to 0.5.
+		{"lactated Ringer's from strengths", Medication{Ingredients: []Ingredient{
+			ing("9863", "sodium chloride", mgPerML(6)), ing("56489", "sodium lactate", mgPerML(3.1)),
+			ing("8591", "potassium chloride", mgPerML(0.3)), {Text: "calcium chloride", Strength: mgPerML(0.2)},
+		}}, 130, 4, 0.5},
+		// Names (the fluid table, same label values).
+		{"name: 3% saline", Medication{Text: "3% Saline"}, 513, 0, 0},
+		{"name: NaCl 0.45%", Medication{Text: "NaCl 0.45%"}, 77, 0, 0},
+		{"name: D5W", Medication{Text: "D5W"}, 0, 0, 0},
+		{"name with KCl additive", Medication{Text: "0.9% sodium chloride with KCl 20 mmol/L"}, 154, 20, 0},
+		{"name from coding display", Medication{Codings: []Coding{{System: rxnorm, Code: "0", Display: "Lactated Ringer's"}}}, 130, 4, 0},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			c, ok := rs.InfusateComposition(tc.med)
+			if !ok {
+				t.Fatalf("composition unknown")
+			}
+			if !near(c.Na, tc.na, tc.tol) || !near(c.K, tc.k, tc.tol) || c.Basis == "" || c.Source == "" {
+				t.Errorf("got %+v, want Na %g K %g (±%g)", c, tc.na, tc.k, tc.tol)
+			}
+		})
+	}
+	for name, med := range map[string]Medication{
+		"unknown text":            {Text: "invented drug"},
+		"sertraline":              {Codings: []Coding{{System: rxnorm, Code: "36437"}}},
+		"salt without strength":   {Ingredients: []Ingredient{{Text: "sodium chloride"}}},
+		"strength in odd units":   {Ingredients: []Ingredient{{Text: "sodium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "tablet"}, Denominator: Quantity{Value: 1, Unit: "mL"}}}}},
+		"substring is not a salt": {Ingredients: []Ingredient{{Text: "disodium chlorideX", Strength: mgPerML(1)}}},
+	} {
+		if c, ok := rs.InfusateComposition(med); ok {
+			t.Errorf("%s: got %+v, want unknown (never guessed)", name, c)
+		}
+	}
+}
+
+func TestFluidTableCodesAreUnique(t *testing.T) {
+	if _, err := parseFluids([]byte(`{"note":"","fluids":[{"id":"a","rxnorm":["1"],"na":1,"source":"s"},{"id":"b","rxnorm":["1"],"na":1,"source":"s"}]}`)); err == nil {
+		t.Error("a code listed twice was accepted")
+	}
+}
