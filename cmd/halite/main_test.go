@@ -405,12 +405,14 @@ func TestDemoRequestCurrent(t *testing.T) {
 // 503 while the listener still serves, for readiness_drain_delay.
 func TestServeReadinessFailsDuringDrainDelay(t *testing.T) {
 	t.Setenv("HALITE_CONFIG", "")
-	t.Setenv("HALITE_READINESS_DRAIN_DELAY", "1s")
+	// A generous delay: the test only needs one /readyz poll inside it, even
+	// on a loaded CI machine.
+	t.Setenv("HALITE_READINESS_DRAIN_DELAY", "3s")
 	base, _, stop := startServe(t)
 	stopped := make(chan error, 1)
 	go func() { stopped <- stop() }()
 	saw503 := false
-	for i := 0; i < 200 && !saw503; i++ { // bounded poll; the delay keeps the listener open
+	for i := 0; i < 600 && !saw503; i++ { // bounded poll; the delay keeps the listener open
 		resp, err := http.Get(base + "/readyz")
 		if err != nil {
 			break

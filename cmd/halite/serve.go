@@ -109,6 +109,7 @@ func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger) *hooks.Engine {
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
 		AllowHTTPLoopback: cfg.DevelopmentMode,
+		Transport:         fhirclient.NewTransport(cfg.DevelopmentMode), // one pool for all calls
 	}
 	return hooks.NewEngine(hooks.EngineConfig{
 		Registry: hooks.NewRegistry(),

@@ -25,7 +25,8 @@ type Options struct {
 	// AllowHTTPLoopback permits loopback servers, over plain http too; for
 	// development only. Everything else must be https to a public address.
 	AllowHTTPLoopback bool
-	// Transport replaces the default transport (tests).
+	// Transport is the transport to use, normally one NewTransport shared by
+	// all clients; nil makes a new guarded one.
 	Transport http.RoundTripper
 }
 
@@ -67,7 +68,7 @@ func New(server, token string, opt Options) (*Client, error) {
 	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes}
 	transport := opt.Transport
 	if transport == nil {
-		transport = guardedTransport(opt.AllowHTTPLoopback)
+		transport = NewTransport(opt.AllowHTTPLoopback)
 	}
 	c.http = &http.Client{
 		Timeout:   opt.Timeout,
@@ -91,8 +92,11 @@ func New(server, token string, opt Options) (*Client, error) {
 // rebinding cannot slip past it.
 var ErrBlockedAddress = errors.New("fhirServer resolves to a blocked address")
 
-// guardedTransport is the default transport with a dial-time address check.
-func guardedTransport(allowLoopback bool) http.RoundTripper {
+// NewTransport is the default transport with a dial-time address check
+// (loopback allowed only with allowLoopback). Make one and share it through
+// Options.Transport: a transport per client would keep a connection pool per
+// call.
+func NewTransport(allowLoopback bool) http.RoundTripper {
 	d := &net.Dialer{Timeout: 5 * time.Second, Control: func(_, address string, _ syscall.RawConn) error {
 		host, _, err := net.SplitHostPort(address)
 		if err != nil {
