@@ -50,13 +50,34 @@ type TBWPolicy struct {
 	Source         string  `json:"source"`
 }
 
+// ConditionCodes lists the codes of one demyelination risk factor in one
+// code system, by exact code or by prefix (ICD-10-CM categories).
+type ConditionCodes struct {
+	Factor   string   `json:"factor"`
+	System   string   `json:"system"`
+	Codes    []string `json:"codes,omitempty"`
+	Prefixes []string `json:"prefixes,omitempty"`
+	Source   string   `json:"source"`
+}
+
+// DemyelinationRiskPolicy defines the high osmotic-demyelination risk
+// features halite can read from labs and coded conditions.
+type DemyelinationRiskPolicy struct {
+	SodiumAtOrBelow float64          `json:"sodiumAtOrBelow"`
+	PotassiumBelow  float64          `json:"potassiumBelow"`
+	WindowHours     int              `json:"windowHours"`
+	Source          string           `json:"source"`
+	Conditions      []ConditionCodes `json:"conditions"`
+}
+
 // Policy is the versioned, embedded policy data the rules read.
 type Policy struct {
-	Version      string             `json:"version"`
-	Note         string             `json:"note,omitempty"`
-	Limits       Limits             `json:"limits"`
-	TBW          TBWPolicy          `json:"tbw"`
-	Plausibility map[Analyte]Bounds `json:"plausibility"`
+	Version           string                  `json:"version"`
+	Note              string                  `json:"note,omitempty"`
+	Limits            Limits                  `json:"limits"`
+	DemyelinationRisk DemyelinationRiskPolicy `json:"demyelinationRisk"`
+	TBW               TBWPolicy               `json:"tbw"`
+	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -131,6 +152,15 @@ func (p Policy) validateKinetics() error {
 	}
 	if l.HyponatremiaRise48h.Value < l.HyponatremiaRise24h.Value {
 		return fmt.Errorf("limits.hyponatremiaRise48h must not be below hyponatremiaRise24h")
+	}
+	d := p.DemyelinationRisk
+	if d.SodiumAtOrBelow <= 0 || d.PotassiumBelow <= 0 || d.WindowHours <= 0 || d.Source == "" {
+		return fmt.Errorf("demyelinationRisk needs positive thresholds, a window and a source")
+	}
+	for i, c := range d.Conditions {
+		if c.Factor == "" || c.System == "" || c.Source == "" || len(c.Codes)+len(c.Prefixes) == 0 {
+			return fmt.Errorf("demyelinationRisk.conditions[%d] needs a factor, a system, codes or prefixes, and a source", i)
+		}
 	}
 	t := p.TBW
 	for name, f := range map[string]float64{"child": t.Child, "man": t.Man, "woman": t.Woman,

@@ -1,0 +1,66 @@
+package rules
+
+import (
+	"fmt"
+	"strings"
+	"time"
+)
+
+// RiskFactor is one high osmotic-demyelination risk feature found, with the
+// evidence ("sodium 104 mmol/L at …", "Condition/c1 ICD-10-CM F10.20").
+type RiskFactor struct {
+	Factor   string
+	Evidence string
+}
+
+// DemyelinationRisk lists the high-risk features present at at: a sodium at
+// or below the policy threshold, or a potassium below its threshold, within
+// the policy window; or an active Condition coded as a listed factor. Any
+// one makes the risk high. A feature halite cannot read (no potassium, an
+// uncoded condition) is simply not found: the card says what was checked.
+func DemyelinationRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []RiskFactor {
+	var out []RiskFactor
+	from := at.Add(-time.Duration(p.WindowHours) * time.Hour)
+	inWindow := func(m Measurement) bool { return !m.At.Before(from) && !m.At.After(at) }
+	for _, m := range f.Labs[Sodium] {
+		if inWindow(m) && m.Value <= p.SodiumAtOrBelow {
+			out = append(out, RiskFactor{"sodium at or below " + fmt.Sprint(p.SodiumAtOrBelow) + " mmol/L",
+				fmt.Sprintf("sodium %g mmol/L at %s", m.Value, m.At.UTC().Format(time.RFC3339))})
+			break
+		}
+	}
+	for _, m := range f.Labs[Potassium] {
+		if inWindow(m) && m.Value < p.PotassiumBelow {
+			out = append(out, RiskFactor{"hypokalemia",
+				fmt.Sprintf("potassium %g mmol/L at %s", m.Value, m.At.UTC().Format(time.RFC3339))})
+			break
+		}
+	}
+	seen := map[string]bool{}
+	for _, c := range f.Conditions {
+		for _, cd := range c.Codings {
+			for _, list := range p.Conditions {
+				if cd.System != list.System || seen[list.Factor] || !list.matches(cd.Code) {
+					continue
+				}
+				seen[list.Factor] = true
+				out = append(out, RiskFactor{list.Factor, c.Reference + " " + cd.System + " " + cd.Code})
+			}
+		}
+	}
+	return out
+}
+
+func (c ConditionCodes) matches(code string) bool {
+	for _, x := range c.Codes {
+		if code == x {
+			return true
+		}
+	}
+	for _, p := range c.Prefixes {
+		if strings.HasPrefix(code, p) {
+			return true
+		}
+	}
+	return false
+}
