@@ -180,8 +180,8 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 			num, den := quantity(dr.RateRatio.Numerator), quantity(dr.RateRatio.Denominator)
 			if num != nil && den != nil && den.Value > 0 {
 				o.Rate = formatQuantity(*num) + " per " + formatQuantity(*den)
-				if ml, ok := millilitres(*num); ok {
-					if h, ok := hours(*den); ok && h > 0 {
+				if ml, ok := rules.VolumeMl(*num); ok {
+					if h, ok := rules.DurationHours(*den); ok && h > 0 {
 						v := ml / h
 						o.RateMlPerHour = &v
 					}
@@ -224,29 +224,4 @@ func rateMlPerHour(v float64, unit string) *float64 {
 	}
 	r := v * f
 	return &r
-}
-
-func millilitres(q rules.Quantity) (float64, bool) {
-	switch q.Unit {
-	case "mL", "ml":
-		return q.Value, true
-	case "L", "l":
-		return q.Value * 1000, true
-	}
-	return 0, false
-}
-
-// hours converts a UCUM time quantity (or a FHIR UnitsOfTime code) to hours.
-func hours(q rules.Quantity) (float64, bool) {
-	switch q.Unit {
-	case "h", "hr", "hour":
-		return q.Value, true
-	case "min":
-		return q.Value / 60, true
-	case "s":
-		return q.Value / 3600, true
-	case "d", "day":
-		return q.Value * 24, true
-	}
-	return 0, false
 }

@@ -1,0 +1,82 @@
+package rules
+
+import (
+	"fmt"
+	"math"
+)
+
+// Volume24h is the volume (litres) an order would give in the next 24 h,
+// and how it was worked out: from an infusion rate (bounded by the ordered
+// course, boundsDuration, and the ordered total, dispenseRequest.quantity),
+// or from a bolus dose in mL repeated per its timing. ok is false when the
+// order says neither; nothing is assumed.
+func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
+	window := 24.0
+	if o.Bounds != nil {
+		if h, known := DurationHours(*o.Bounds); known && h < window {
+			window = h
+		}
+	}
+	total := math.Inf(1)
+	if o.DispenseQuantity != nil {
+		if ml, known := VolumeMl(*o.DispenseQuantity); known {
+			total = ml
+		}
+	}
+	switch {
+	case o.RateMlPerHour != nil:
+		ml := *o.RateMlPerHour * window
+		basis = fmt.Sprintf("%g mL/h for %g h", *o.RateMlPerHour, window)
+		if ml > total {
+			ml, basis = total, basis+fmt.Sprintf(", capped at the ordered %g mL", total)
+		}
+		return ml / 1000, basis, true
+	case o.Dose != nil:
+		dose, known := VolumeMl(*o.Dose)
+		if !known {
+			return 0, "", false
+		}
+		n := 1.0
+		basis = fmt.Sprintf("one dose of %g mL", dose)
+		if o.Frequency != nil && o.Period != nil {
+			if h, known := DurationHours(*o.Period); known && h > 0 {
+				n = math.Floor(float64(*o.Frequency) * window / h)
+				if n < 1 {
+					n = 1
+				}
+				basis = fmt.Sprintf("%g doses of %g mL in %g h", n, dose, window)
+			}
+		}
+		ml := math.Min(n*dose, total)
+		return ml / 1000, basis, true
+	}
+	return 0, "", false
+}
+
+// VolumeMl converts a volume quantity (mL or L) to mL.
+func VolumeMl(q Quantity) (float64, bool) {
+	switch q.Unit {
+	case "mL", "ml":
+		return q.Value, true
+	case "L", "l":
+		return q.Value * 1000, true
+	}
+	return 0, false
+}
+
+// DurationHours converts a UCUM or FHIR UnitsOfTime duration to hours.
+func DurationHours(q Quantity) (float64, bool) {
+	switch q.Unit {
+	case "h", "hr", "hour", "hours":
+		return q.Value, true
+	case "min":
+		return q.Value / 60, true
+	case "s":
+		return q.Value / 3600, true
+	case "d", "day", "days":
+		return q.Value * 24, true
+	case "wk":
+		return q.Value * 24 * 7, true
+	}
+	return 0, false
+}
