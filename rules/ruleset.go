@@ -40,6 +40,9 @@ type Limits struct {
 // TBWPolicy holds the total-body-water fractions of weight and the ages
 // that select them.
 type TBWPolicy struct {
+	// Method is "adrogue-madias" (weight × fraction) or "watson" (Watson's
+	// formula when height and age are known, else the fraction).
+	Method         string  `json:"method"`
 	Child          float64 `json:"child"`
 	Man            float64 `json:"man"`
 	Woman          float64 `json:"woman"`
@@ -70,12 +73,21 @@ type DemyelinationRiskPolicy struct {
 	Conditions      []ConditionCodes `json:"conditions"`
 }
 
+// ProjectionPolicy sets how recent the inputs of a projection must be.
+type ProjectionPolicy struct {
+	WeightMaxAgeHours  float64 `json:"weightMaxAgeHours"`
+	SodiumMaxAgeHours  float64 `json:"sodiumMaxAgeHours"`
+	HypernatremiaAbove float64 `json:"hypernatremiaAbove"`
+	Source             string  `json:"source"`
+}
+
 // Policy is the versioned, embedded policy data the rules read.
 type Policy struct {
 	Version           string                  `json:"version"`
 	Note              string                  `json:"note,omitempty"`
 	Limits            Limits                  `json:"limits"`
 	DemyelinationRisk DemyelinationRiskPolicy `json:"demyelinationRisk"`
+	Projection        ProjectionPolicy        `json:"projection"`
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 }
@@ -162,7 +174,13 @@ func (p Policy) validateKinetics() error {
 			return fmt.Errorf("demyelinationRisk.conditions[%d] needs a factor, a system, codes or prefixes, and a source", i)
 		}
 	}
+	if pr := p.Projection; pr.WeightMaxAgeHours <= 0 || pr.SodiumMaxAgeHours <= 0 || pr.HypernatremiaAbove <= 0 || pr.Source == "" {
+		return fmt.Errorf("projection needs positive ages, a hypernatremia threshold and a source")
+	}
 	t := p.TBW
+	if t.Method != "adrogue-madias" && t.Method != "watson" {
+		return fmt.Errorf("tbw.method %q is not adrogue-madias or watson", t.Method)
+	}
 	for name, f := range map[string]float64{"child": t.Child, "man": t.Man, "woman": t.Woman,
 		"elderlyMan": t.ElderlyMan, "elderlyWoman": t.ElderlyWoman} {
 		if f <= 0 || f >= 1 {

@@ -1,0 +1,126 @@
+package rules
+
+import (
+	"sort"
+	"strings"
+	"testing"
+	"time"
+)
+
+// Scenario facts are invented; expectations are derived from the mass
+// balance ΔNa = V·(Na+K−Na)/(TBW+V) (Adrogué–Madias scaled to volume; Chen
+// & Shey, Kidney360 2021) with the policy limits (10/24 h, 18/48 h, 8/24 h
+// at high risk: Spasovski 2014, Verbalis 2013 via George 2018) and the
+// 3% NaCl label value 513 mmol/L (FDA label [V]).
+func assessFacts(t *testing.T, sex Sex, birth string, weight float64, na map[float64]float64, extra map[Analyte][]Measurement) Facts {
+	t.Helper()
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	f := Facts{At: at, Labs: map[Analyte][]Measurement{}}
+	if birth != "" {
+		b, _ := time.Parse("2006-01-02", birth)
+		f.Patient = Patient{BirthDate: &b, Sex: sex}
+	} else {
+		f.Patient.Sex = sex
+	}
+	// hours ago → value, oldest first
+	var hours []float64
+	for h := range na {
+		hours = append(hours, h)
+	}
+	sort.Sort(sort.Reverse(sort.Float64Slice(hours))) // most hours ago first
+	for _, h := range hours {
+		f.Labs[Sodium] = append(f.Labs[Sodium], Measurement{Analyte: Sodium, Value: na[h], At: at.Add(-time.Duration(h * float64(time.Hour)))})
+	}
+	if weight > 0 {
+		f.Labs[BodyWeight] = []Measurement{{Analyte: BodyWeight, Value: weight, At: at.Add(-12 * time.Hour)}}
+	}
+	for a, s := range extra {
+		f.Labs[a] = s
+	}
+	return f
+}
+
+func saline3(rate float64) MedicationOrder {
+	return MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "3% saline"}, RateMlPerHour: &rate}
+}
+
+func TestAssessInfusionOvershoot(t *testing.T) {
+	rs := loadRuleset(t)
+	// 40-year-old woman, 60 kg (TBW 30 L), sodium 112 → 116 in the last 24 h.
+	f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{20: 112, 2: 116}, nil)
+	a := rs.AssessInfusion(f, saline3(25))
+	if len(a.Missing) != 0 || a.ProjectedTotal24h == nil || a.MaxRateMlPerHour == nil {
+		t.Fatalf("incomplete: %+v", a)
+	}
+	// V = 0.6 L: change = 0.6 × (513 − 116)/(30 + 0.6) = 7.7843; total 4 + 7.7843.
+	if !near(*a.ProjectedChange24h, 0.6*397/30.6, 1e-9) || !near(*a.ProjectedTotal24h, 4+0.6*397/30.6, 1e-9) {
+		t.Errorf("projected %v total %v", *a.ProjectedChange24h, *a.ProjectedTotal24h)
+	}
+	if a.Limit24h != 10 || a.Achieved24h != 4 || *a.TBWLitres != 30 {
+		t.Errorf("limit %v achieved %v TBW %v", a.Limit24h, a.Achieved24h, *a.TBWLitres)
+	}
+	// Allowed 6 more: V = 6 × 30/(397 − 6) L over 24 h.
+	if want := 6.0 * 30 / 391 * 1000 / 24; !near(*a.MaxRateMlPerHour, want, 1e-9) {
+		t.Errorf("max rate %v, want %v", *a.MaxRateMlPerHour, want)
+	}
+	// The rate that fits projects exactly the limit (the property).
+	fit := rs.AssessInfusion(f, saline3(*a.MaxRateMlPerHour))
+	if !near(*fit.ProjectedTotal24h, 10, 0.01) {
+		t.Errorf("at the rate that fits, total %v, want 10", *fit.ProjectedTotal24h)
+	}
+}
+
+func TestAssessInfusionHighRisk(t *testing.T) {
+	rs := loadRuleset(t)
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	f := assessFacts(t, SexMale, "1968-03-01", 72, map[float64]float64{20: 112, 2: 115},
+		map[Analyte][]Measurement{Potassium: {{Analyte: Potassium, Value: 3.1, At: at.Add(-6 * time.Hour)}}})
+	a := rs.AssessInfusion(f, saline3(20))
+	if a.Limit24h != 8 || len(a.Risk) != 1 || a.Risk[0].Factor != "hypokalemia" {
+		t.Errorf("limit %v risk %+v; want the 8 mmol/L high-risk limit for hypokalemia", a.Limit24h, a.Risk)
+	}
+}
+
+func TestAssessInfusionMissingInputs(t *testing.T) {
+	rs := loadRuleset(t)
+	for _, tc := range []struct {
+		name string
+		f    Facts
+		want string
+	}{
+		{"no weight", assessFacts(t, SexFemale, "1986-01-10", 0, map[float64]float64{2: 116}, nil), "body weight"},
+		{"no sex", assessFacts(t, SexMissing, "1986-01-10", 60, map[float64]float64{2: 116}, nil), "sex"},
+		{"no birth date", assessFacts(t, SexFemale, "", 60, map[float64]float64{2: 116}, nil), "age"},
+		{"sodium too old", assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{30: 116}, nil), "serum sodium"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			a := rs.AssessInfusion(tc.f, saline3(25))
+			if a.ProjectedChange24h != nil || !strings.Contains(strings.Join(a.Missing, "; "), tc.want) {
+				t.Errorf("projected %v, missing %q; want no projection and %q named", a.ProjectedChange24h, a.Missing, tc.want)
+			}
+		})
+	}
+	a := rs.AssessInfusion(assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{2: 116}, nil),
+		MedicationOrder{Medication: Medication{Text: "invented fluid"}})
+	if a.Composition != nil || !strings.Contains(strings.Join(a.Missing, "; "), "sodium and potassium content") {
+		t.Errorf("unknown composition: %+v", a.Missing)
+	}
+}
+
+func TestAssessInfusionHypernatremia(t *testing.T) {
+	rs := loadRuleset(t)
+	// 70-year-old man, 68 kg (TBW 34 L), sodium 161 → 150 in 19 h, 5% dextrose 150 mL/h.
+	f := assessFacts(t, SexMale, "1956-05-05", 68, map[float64]float64{20: 161, 10: 156, 1: 150}, nil)
+	rate := 150.0
+	a := rs.AssessInfusion(f, MedicationOrder{Medication: Medication{Text: "D5W"}, RateMlPerHour: &rate})
+	if !a.Hypernatremia || a.Limit24h != 10 || a.Achieved24h != 11 || !a.LimitReached {
+		t.Fatalf("%+v", a)
+	}
+	// V = 3.6 L: change = 3.6 × (0 − 150)/(34 + 3.6); total −11 + change.
+	if want := 3.6 * -150 / 37.6; !near(*a.ProjectedChange24h, want, 1e-9) || !near(*a.ProjectedTotal24h, -11+want, 1e-9) {
+		t.Errorf("projected %v total %v", *a.ProjectedChange24h, *a.ProjectedTotal24h)
+	}
+	if a.MaxRateMlPerHour == nil || *a.MaxRateMlPerHour != 0 {
+		t.Errorf("limit already reached: max rate %v, want 0", a.MaxRateMlPerHour)
+	}
+}
