@@ -46,11 +46,13 @@ const (
 )
 
 // Evaluate runs the rule families of check c over f and returns the
-// actionable findings, most urgent first. No finding means nothing is
-// actionable, which is answered as an empty card list.
-//
-// No rule family is registered yet for any check: the kinetics, drug-risk and
-// chart-review families are added by their own changes, each with its sources.
+// actionable findings. No finding means nothing is actionable, which is
+// answered as an empty card list. The drug-risk and chart-review families
+// are not written yet.
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
+	switch c {
+	case InfusionCheck:
+		return r.infusionFindings(f)
+	}
 	return nil
 }
