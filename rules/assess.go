@@ -59,8 +59,10 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 
 	if w, ok := latestWithin(f.Labs[BodyWeight], f.At, p.Projection.WeightMaxAgeHours); ok {
 		a.Weight = &w
-		if tbw, method, err := totalBodyWater(p.TBW, f, w.Value); err == nil {
+		if tbw, method, err := totalBodyWater(p.TBW, f, w.Value); err == nil && tbw > 0 {
 			a.TBWLitres, a.TBWMethod = &tbw, method
+		} else if err == nil {
+			a.Missing = append(a.Missing, "a plausible total body water (the formula gave none for this weight)")
 		} else {
 			a.Missing = append(a.Missing, err.Error())
 		}

@@ -20,7 +20,8 @@ const (
 const hypertonicAtLeast = 500
 
 // infusionFindings judges each selected draft order whose sodium content is
-// known or that is hypertonic by name:
+// known (the limit rules apply only to an order that moves sodium the way
+// the limit restricts):
 //   - critical: the measured change already exceeds a limit and the order
 //     moves sodium further the same way, or the projected 24-h total exceeds
 //     the limit at high demyelination risk;
@@ -59,7 +60,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Rule, fd.Indicator = RuleLimitExceeded, Critical
 		fd.Summary = fmt.Sprintf("Sodium already %s %.1f mmol/L in 24 h (limit %g); this order moves it further",
 			pastTense(word), a.Achieved24h, a.Limit24h)
-	case a.ProjectedTotal24h != nil && sign**a.ProjectedTotal24h > a.Limit24h:
+	case a.ProjectedTotal24h != nil && sameWay && sign**a.ProjectedTotal24h > a.Limit24h:
 		fd.Rule, fd.Indicator = RuleProjectedOver, Warning
 		if len(a.Risk) > 0 && !a.Hypernatremia {
 			fd.Indicator = Critical

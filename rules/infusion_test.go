@@ -36,6 +36,8 @@ func TestInfusionCardPolicy(t *testing.T) {
 		{"hypertonic without a weight", woman(0, map[float64]float64{2: 116}, nil), order("3% saline", 10), RuleNoProjection, Warning},
 		// 0.24 L of 3%: 0.24 × 397/30.24 = 3.2 mmol/L, within the limit.
 		{"hypertonic within the limit", woman(60, map[float64]float64{2: 116}, nil), order("3% saline", 10), RuleHypertonicOrder, Info},
+		// Rising too fast already, but 5% dextrose lowers sodium: no limit card.
+		{"order moving the other way", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 100), "", 0},
 		{"isotonic at normal sodium", woman(60, map[float64]float64{2: 139}, nil), order("0.9% sodium chloride", 100), "", 0},
 		{"not selected", woman(60, map[float64]float64{20: 110, 2: 121}, nil),
 			MedicationOrder{Medication: Medication{Text: "3% saline"}, RateMlPerHour: rate(10)}, "", 0},
