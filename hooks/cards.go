@@ -37,8 +37,10 @@ type cardExtension struct {
 }
 
 // renderCards words findings as cards, each with a uuid (so feedback can
-// refer to it), the caution, override reasons and the ruleset revision.
-func renderCards(fs []rules.Finding, revision string) ([]Card, error) {
+// refer to it), the caution, override reasons, the ruleset revision and its
+// suggestions; the suggestions of a card are alternatives, so at most one
+// is chosen.
+func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Card, error) {
 	cards := make([]Card, 0, len(fs))
 	for _, f := range fs {
 		var ext cardExtension
@@ -54,14 +56,24 @@ func renderCards(fs []rules.Finding, revision string) ([]Card, error) {
 		if f.Detail != "" {
 			detail = f.Detail + "\n\n" + Caution
 		}
+		sugg, err := suggestions(f, in)
+		if err != nil {
+			return nil, fmt.Errorf("render %s: %w", f.Rule, err)
+		}
+		selection := ""
+		if len(sugg) > 0 {
+			selection = "at-most-one"
+		}
 		cards = append(cards, Card{
-			UUID:            uuid.NewString(),
-			Summary:         f.Summary,
-			Detail:          detail,
-			Indicator:       f.Indicator.String(),
-			Source:          Source{Label: SourceLabel},
-			OverrideReasons: slices.Clone(overrideReasons),
-			Extension:       extJSON,
+			UUID:              uuid.NewString(),
+			Summary:           f.Summary,
+			Detail:            detail,
+			Indicator:         f.Indicator.String(),
+			Source:            Source{Label: SourceLabel},
+			Suggestions:       sugg,
+			SelectionBehavior: selection,
+			OverrideReasons:   slices.Clone(overrideReasons),
+			Extension:         extJSON,
 		})
 	}
 	return cards, nil

@@ -81,7 +81,8 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
 		}
 	}
-	cards, err := renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision())
+	cards, err := renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision(),
+		suggestionInput{At: at, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftOrders)})
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}

@@ -88,7 +88,7 @@ func TestValidateResponse(t *testing.T) {
 func TestRenderCards(t *testing.T) {
 	f := rules.Finding{Rule: "test-rule", Indicator: rules.Critical, Summary: "Test finding 12 mmol/L",
 		Detail: "Figures.", Figures: map[string]float64{"riseFromNadir24h": 12}}
-	cards, err := renderCards([]rules.Finding{f, f}, "rev-1")
+	cards, err := renderCards([]rules.Finding{f, f}, "rev-1", suggestionInput{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -109,7 +109,7 @@ func TestRenderCards(t *testing.T) {
 	if err := ValidateResponse(Response{Cards: cards}); err != nil {
 		t.Errorf("rendered cards are invalid: %v", err)
 	}
-	if got, err := renderCards(nil, "rev-1"); err != nil || got == nil || len(got) != 0 {
+	if got, err := renderCards(nil, "rev-1", suggestionInput{}); err != nil || got == nil || len(got) != 0 {
 		t.Errorf("no findings must render an empty, non-nil card list, got %#v %v", got, err)
 	}
 	cards[0].OverrideReasons[0].Display = "changed"
@@ -118,7 +118,7 @@ func TestRenderCards(t *testing.T) {
 	}
 	bad := f
 	bad.Figures = map[string]float64{"x": math.NaN()}
-	if _, err := renderCards([]rules.Finding{bad}, "rev-1"); err == nil {
+	if _, err := renderCards([]rules.Finding{bad}, "rev-1", suggestionInput{}); err == nil {
 		t.Error("a NaN figure must fail rendering, not drop the extension")
 	}
 }

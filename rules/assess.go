@@ -18,6 +18,11 @@ type InfusionAssessment struct {
 	Latest      *Measurement // the latest sodium, if within the policy age
 	Trend       SodiumTrend
 	Risk        []RiskFactor
+	// RiskUnchecked names the risk features halite had no data for.
+	RiskUnchecked []string
+	// Infant is set under one year of age, where the TBW fraction used may
+	// be too low.
+	Infant bool
 	// Hypernatremia is set when the latest sodium is above the policy
 	// threshold: the fall limits apply instead of the rise limits.
 	Hypernatremia bool
@@ -34,10 +39,38 @@ type InfusionAssessment struct {
 	VolumeBasis              string
 	ProjectedChange24h       *float64
 	ProjectedTotal24h        *float64 // achieved + projected, signed as the change
-	MaxRateMlPerHour         *float64 // nil when no rate can exceed the limit, or inputs are missing
-	LimitReached             bool     // nothing more is allowed in the window
-	Missing                  []string
+	// Allowed is the change still allowed (≥ 0, unsigned) by the tightest
+	// limit, Binding says which limit that is; both are set with a
+	// projection.
+	Allowed float64
+	Binding LimitKind
+	// OverLimit is set when the projected change exceeds Allowed in the
+	// direction the limits restrict.
+	OverLimit bool
+	// MaxVolume24hLitres is the largest volume in the next 24 h inside the
+	// allowance; MaxRateMlPerHour gives it as a rate over InfusionHours for
+	// a rate-based order. Both nil when no volume can exceed the limit, or
+	// inputs are missing.
+	MaxVolume24hLitres *float64
+	MaxRateMlPerHour   *float64
+	InfusionHours      float64
+	LimitReached       bool // nothing more is allowed in the window
+	// FreeWaterDeficitLitres is set for hypernatremia with a TBW:
+	// TBW × (Na/140 − 1).
+	FreeWaterDeficitLitres *float64
+	Context                TonicityContext
+	Missing                []string
 }
+
+// LimitKind names a limit that can bind a projection.
+type LimitKind string
+
+// The limits a projection is held against.
+const (
+	Bound24h    LimitKind = "24h"    // the 24-h rise or fall
+	Bound48h    LimitKind = "48h"    // the 48-h rise (hyponatremia)
+	BoundHourly LimitKind = "hourly" // the hourly fall (hypernatremia)
+)
 
 // AssessInfusion works out the assessment of order o on facts f.
 func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment {
@@ -54,6 +87,10 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 		a.Missing = append(a.Missing, fmt.Sprintf("a serum sodium from the last %g h", p.Projection.SodiumMaxAgeHours))
 	}
 	a.Risk = DemyelinationRisk(p.DemyelinationRisk, f, f.At)
+	a.RiskUnchecked = UncheckedRisk(p.DemyelinationRisk, f, f.At)
+	if age, ok := f.Patient.AgeYears(f.At); ok && age < 1 {
+		a.Infant = true
+	}
 	a.Hypernatremia = a.Latest != nil && a.Latest.Value > p.Projection.HypernatremiaAbove
 	a.setLimits(p.Limits)
 
@@ -74,7 +111,17 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	} else {
 		a.Missing = append(a.Missing, "the volume the order gives in 24 h (rate, or dose in mL)")
 	}
-	a.project()
+	if h, ok := InfusionHours(o); ok {
+		a.InfusionHours = h
+	}
+	a.project(p.Limits)
+	if a.Hypernatremia && a.TBWLitres != nil {
+		d := FreeWaterDeficit(*a.TBWLitres, a.Latest.Value, 140)
+		a.FreeWaterDeficitLitres = &d
+	}
+	if a.Latest != nil {
+		a.Context = Tonicity(f, *a.Latest, p.Projection.SodiumMaxAgeHours)
+	}
 	return a
 }
 
@@ -98,35 +145,44 @@ func (a *InfusionAssessment) setLimits(l Limits) {
 	}
 }
 
-// project fills the projection when every input is there.
-func (a *InfusionAssessment) project() {
+// project fills the projection when every input is there. The allowance
+// is the tightest of the limits in force: for hyponatremia the 24-h and
+// 48-h rises; for hypernatremia the 24-h fall and, for a rate-based order,
+// the hourly fall over the hours it runs.
+func (a *InfusionAssessment) project(l Limits) {
 	if a.Composition == nil || a.Latest == nil || a.TBWLitres == nil {
 		return
 	}
 	naK, na, tbw := a.Composition.NaK(), a.Latest.Value, *a.TBWLitres
 	d := DeltaPerLitre(naK, na, tbw)
 	a.DeltaPerLitre = &d
-	// The allowance left in the window, signed as the change it limits.
-	allowed := a.Limit24h - a.Achieved24h
-	if !a.Hypernatremia && a.Limit48h > 0 {
-		allowed = math.Min(allowed, a.Limit48h-a.Achieved48h)
-	}
+	a.Allowed, a.Binding = a.Limit24h-a.Achieved24h, Bound24h
 	sign := 1.0
 	if a.Hypernatremia {
 		sign = -1
+		if perHour := l.HypernatremiaFallPerHour.Value; a.InfusionHours > 0 && perHour*a.InfusionHours < a.Allowed {
+			a.Allowed, a.Binding = perHour*a.InfusionHours, BoundHourly
+		}
+	} else if a.Limit48h > 0 && a.Limit48h-a.Achieved48h < a.Allowed {
+		a.Allowed, a.Binding = a.Limit48h-a.Achieved48h, Bound48h
 	}
-	if allowed <= 0 {
-		a.LimitReached = true
-		allowed = 0
+	if a.Allowed <= 0 {
+		a.LimitReached, a.Allowed = true, 0
 	}
 	if a.Volume24hLitres != nil {
 		c := ProjectedChange(*a.Volume24hLitres, naK, na, tbw)
 		total := sign*a.Achieved24h + c
 		a.ProjectedChange24h, a.ProjectedTotal24h = &c, &total
+		// A change the limits do not restrict (a fall in hyponatremia, a
+		// rise in hypernatremia) is never over them.
+		a.OverLimit = sign*c > 0 && sign*c > a.Allowed+1e-9
 	}
-	if v := MaxVolume(sign*allowed, naK, na, tbw); !math.IsInf(v, 1) {
-		rate := v * 1000 / 24
-		a.MaxRateMlPerHour = &rate
+	if v := MaxVolume(sign*a.Allowed, naK, na, tbw); sign*d > 0 && !math.IsInf(v, 1) {
+		a.MaxVolume24hLitres = &v
+		if a.InfusionHours > 0 {
+			rate := v * 1000 / a.InfusionHours
+			a.MaxRateMlPerHour = &rate
+		}
 	}
 }
 

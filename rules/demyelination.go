@@ -17,7 +17,8 @@ type RiskFactor struct {
 // or below the policy threshold, or a potassium below its threshold, within
 // the policy window; or an active Condition coded as a listed factor. Any
 // one makes the risk high. A feature halite cannot read (no potassium, an
-// uncoded condition) is simply not found: the card says what was checked.
+// uncoded condition) is not found; UncheckedRisk names the missing labs so
+// the card can say so.
 func DemyelinationRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []RiskFactor {
 	var out []RiskFactor
 	from := at.Add(-time.Duration(p.WindowHours) * time.Hour)
@@ -49,6 +50,18 @@ func DemyelinationRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []RiskF
 		}
 	}
 	return out
+}
+
+// UncheckedRisk names the lab risk features DemyelinationRisk had no data
+// for, so a card can say the high-risk limit was not ruled out.
+func UncheckedRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []string {
+	from := at.Add(-time.Duration(p.WindowHours) * time.Hour)
+	for _, m := range f.Labs[Potassium] {
+		if !m.At.Before(from) && !m.At.After(at) {
+			return nil
+		}
+	}
+	return []string{fmt.Sprintf("no potassium result in the last %d h", p.WindowHours)}
 }
 
 func (c ConditionCodes) matches(code string) bool {

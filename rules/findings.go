@@ -33,6 +33,37 @@ type Finding struct {
 	// Figures are the machine-readable numbers, named in camelCase with unit
 	// suffixes where needed (e.g. "riseFromNadir24h", "tbwLitres").
 	Figures map[string]float64
+	// Order is the draft order the finding is about ("MedicationRequest/id"),
+	// empty for a finding about the chart.
+	Order string
+	// Advice lists the changes the card may suggest, in the order offered;
+	// hooks builds them as FHIR resources. The prescriber chooses.
+	Advice []Advice
+}
+
+// AdviceKind is a change a card may suggest.
+type AdviceKind string
+
+// Kinds of advice.
+const (
+	// AdviseRate: the draft order at a lower rate, with a sodium re-check.
+	AdviseRate AdviceKind = "rate"
+	// AdviseRecheck: a serum sodium re-check.
+	AdviseRecheck AdviceKind = "recheck"
+	// AdviseWithdraw: remove the draft order.
+	AdviseWithdraw AdviceKind = "withdraw"
+)
+
+// Advice is one suggestion before it becomes FHIR resources.
+type Advice struct {
+	Kind  AdviceKind
+	Label string // what the clinician reads on the button, < 80 characters
+	// RateMlPerHour is the new rate (AdviseRate).
+	RateMlPerHour float64
+	// RecheckHours is when to re-check sodium, from the evaluation time
+	// (AdviseRate and AdviseRecheck).
+	RecheckHours float64
+	Recommended  bool
 }
 
 // Check names what a service evaluates; each check runs its own rule families.
@@ -52,7 +83,7 @@ const (
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	switch c {
 	case InfusionCheck:
-		return r.infusionFindings(f)
+		return append(r.infusionFindings(f), r.waterDrugFindings(f)...)
 	}
 	return nil
 }

@@ -84,22 +84,34 @@ var salts = []salt{
 	{[]string{"potassium chloride"}, []string{"8591"}, 74.548, true},
 	{[]string{"sodium bicarbonate"}, nil, 84.006, false},
 	{[]string{"sodium lactate"}, []string{"56489"}, 112.06, false},
+	{[]string{"sodium acetate trihydrate"}, nil, 136.08, false},
 	{[]string{"sodium acetate"}, nil, 82.034, false},
 }
 
 // InfusateComposition works out the Na and K of a medication: from its
-// RxNorm product code when the fluid table knows it, else from its
-// ingredient strengths, else from its name. ok is false when none works;
-// halite then says the composition is unknown.
+// RxNorm product code when the fluid table knows it (plus any potassium
+// chloride added, from the ingredients or the name), else from its
+// ingredient strengths, else from its name. ok is false when none works, or
+// an additive cannot be converted; halite then says the composition is
+// unknown.
 func (r *Ruleset) InfusateComposition(m Medication) (Composition, bool) {
 	t := r.fluids
 	for _, c := range m.Codings {
-		if c.System != "http://www.nlm.nih.gov/research/umls/rxnorm" {
+		if c.System != SystemRxNorm {
 			continue
 		}
 		if i, ok := t.byCode[c.Code]; ok {
 			f := t.Fluids[i]
-			return Composition{Na: f.Na, K: f.K, Basis: "RxNorm " + c.Code + " (" + f.Label + ")", Source: f.Source}, true
+			comp := Composition{Na: f.Na, K: f.K, Basis: "RxNorm " + c.Code + " (" + f.Label + ")", Source: f.Source}
+			k, ok := addedPotassium(m)
+			if !ok {
+				return Composition{}, false
+			}
+			if k > 0 {
+				comp.K += k
+				comp.Basis += fmt.Sprintf(" with potassium chloride %g mmol/L added", Round(k, 1))
+			}
+			return comp, true
 		}
 	}
 	if c, ok := fromIngredients(m.Ingredients); ok {
@@ -111,6 +123,46 @@ func (r *Ruleset) InfusateComposition(m Medication) (Composition, bool) {
 		}
 	}
 	return Composition{}, false
+}
+
+// addedPotassium is the potassium (mmol/L) added to a coded base fluid:
+// the potassium salts among its ingredients with a convertible strength, or
+// a "KCl 20 mmol/L" in its name. ok is false when a potassium ingredient's
+// strength cannot be converted.
+func addedPotassium(m Medication) (float64, bool) {
+	var k float64
+	for _, ing := range m.Ingredients {
+		s, known := saltOf(ing)
+		if !known || !s.potassium {
+			continue
+		}
+		if ing.Strength == nil {
+			return 0, false
+		}
+		mmol, ok := mmolPerL(*ing.Strength, s.molarMass)
+		if !ok {
+			return 0, false
+		}
+		k += mmol
+	}
+	if k > 0 {
+		return k, true
+	}
+	for _, text := range append([]string{m.Text}, displays(m.Codings)...) {
+		if mm := kclInName.FindStringSubmatch(normaliseName(text)); mm != nil {
+			k, _ = kclValue(mm)
+			return k, true
+		}
+	}
+	return 0, true
+}
+
+func kclValue(m []string) (float64, error) {
+	v := m[1]
+	if v == "" {
+		v = m[2]
+	}
+	return strconv.ParseFloat(v, 64)
 }
 
 func displays(cs []Coding) []string {
@@ -132,6 +184,9 @@ func fromIngredients(ings []Ingredient) (Composition, bool) {
 	for _, ing := range ings {
 		s, ok := saltOf(ing)
 		if !ok {
+			if mentionsSodiumOrPotassium(ing) {
+				return Composition{}, false // a salt halite cannot convert
+			}
 			continue
 		}
 		if ing.Strength == nil {
@@ -156,11 +211,21 @@ func fromIngredients(ings []Ingredient) (Composition, bool) {
 	return c, true
 }
 
+// mentionsSodiumOrPotassium reports whether an ingredient names sodium or
+// potassium, so an unlisted salt is not silently left out.
+func mentionsSodiumOrPotassium(ing Ingredient) bool {
+	text := strings.ToLower(ing.Text)
+	for _, c := range ing.Codings {
+		text += " " + strings.ToLower(c.Display)
+	}
+	return wordIn(text, "sodium") || wordIn(text, "potassium")
+}
+
 func saltOf(ing Ingredient) (salt, bool) {
 	for _, s := range salts {
 		for _, c := range ing.Codings {
 			for _, code := range s.rxnorm {
-				if c.System == "http://www.nlm.nih.gov/research/umls/rxnorm" && c.Code == code {
+				if c.System == SystemRxNorm && c.Code == code {
 					return s, true
 				}
 			}
@@ -213,7 +278,7 @@ func mmolPerL(r Ratio, molarMass float64) (float64, bool) {
 
 var (
 	spaces    = regexp.MustCompile(`\s+`)
-	kclInName = regexp.MustCompile(`(?:with|\+|and)?\s*(?:potassium chloride|kcl)\s*(\d+(?:\.\d+)?)\s*(?:mmol|meq)(?:/l)?|(\d+(?:\.\d+)?)\s*(?:mmol|meq)(?:/l)?\s*(?:potassium chloride|kcl)`)
+	kclInName = regexp.MustCompile(`(?:with|\+|and)?\s*(?:potassium chloride|kcl)\s*(\d+(?:\.\d+)?)\s*(?:mmol|meq)/l|(\d+(?:\.\d+)?)\s*(?:mmol|meq)/l\s*(?:potassium chloride|kcl)`)
 )
 
 // normaliseName lower-cases, folds "nacl" and "saline" spellings, and
@@ -236,11 +301,7 @@ func (t *fluidTable) fromName(text string) (Composition, bool) {
 	}
 	var k float64
 	if m := kclInName.FindStringSubmatch(name); m != nil {
-		v := m[1]
-		if v == "" {
-			v = m[2]
-		}
-		k, _ = strconv.ParseFloat(v, 64)
+		k, _ = kclValue(m)
 		name = strings.TrimSpace(strings.Replace(name, m[0], "", 1))
 	}
 	i, ok := t.byName[name]

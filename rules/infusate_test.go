@@ -20,11 +20,12 @@ func loadRuleset(t *testing.T) *Ruleset {
 func TestSaltMolarMasses(t *testing.T) {
 	const na, k, cl, c, h, o = 22.990, 39.098, 35.45, 12.011, 1.008, 15.999
 	want := map[string]float64{
-		"sodium chloride":    na + cl,
-		"potassium chloride": k + cl,
-		"sodium bicarbonate": na + h + c + 3*o,
-		"sodium lactate":     3*c + 5*h + na + 3*o, // C3H5NaO3
-		"sodium acetate":     2*c + 3*h + na + 2*o, // C2H3NaO2
+		"sodium chloride":           na + cl,
+		"potassium chloride":        k + cl,
+		"sodium bicarbonate":        na + h + c + 3*o,
+		"sodium lactate":            3*c + 5*h + na + 3*o,             // C3H5NaO3
+		"sodium acetate":            2*c + 3*h + na + 2*o,             // C2H3NaO2
+		"sodium acetate trihydrate": 2*c + 3*h + na + 2*o + 3*(2*h+o), // C2H3NaO2·3H2O
 	}
 	for _, s := range salts {
 		if w := want[s.names[0]]; !near(s.molarMass, w, 0.01) {
@@ -73,6 +74,15 @@ func TestInfusateComposition(t *testing.T) {
 		{"name: D5W", Medication{Text: "D5W"}, 0, 0, 0},
 		{"name with KCl additive", Medication{Text: "0.9% sodium chloride with KCl 20 mmol/L"}, 154, 20, 0},
 		{"name from coding display", Medication{Codings: []Coding{{System: rxnorm, Code: "0", Display: "Lactated Ringer's"}}}, 130, 4, 0},
+		// A coded base fluid keeps potassium chloride added to it, from an
+		// ingredient or from the text (0.9% NaCl 154 [V] + KCl as ordered).
+		{"coded 0.9% with a KCl ingredient", Medication{Codings: []Coding{{System: rxnorm, Code: "313002"}}, Ingredients: []Ingredient{
+			ing("8591", "potassium chloride", &Ratio{Numerator: Quantity{Value: 40, Unit: "mmol"}, Denominator: Quantity{Value: 1, Unit: "L"}}),
+		}}, 154, 40, 0},
+		{"coded 0.9% with KCl in the text", Medication{Codings: []Coding{{System: rxnorm, Code: "313002"}}, Text: "NS with KCl 40 mmol/L"}, 154, 40, 0},
+		// Sodium acetate trihydrate, 136.08 g/mol [derived, IUPAC weights]:
+		// 6.8 g/L is 50.0 mmol/L, not the 82.9 the anhydrous salt would give.
+		{"sodium acetate trihydrate", Medication{Ingredients: []Ingredient{{Text: "sodium acetate trihydrate", Strength: mgPerML(6.8)}}}, 49.97, 0, 0.01},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			c, ok := rs.InfusateComposition(tc.med)
@@ -90,6 +100,10 @@ func TestInfusateComposition(t *testing.T) {
 		"salt without strength":   {Ingredients: []Ingredient{{Text: "sodium chloride"}}},
 		"strength in odd units":   {Ingredients: []Ingredient{{Text: "sodium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "tablet"}, Denominator: Quantity{Value: 1, Unit: "mL"}}}}},
 		"substring is not a salt": {Ingredients: []Ingredient{{Text: "disodium chlorideX", Strength: mgPerML(1)}}},
+		"unlisted sodium salt":    {Ingredients: []Ingredient{ing("9863", "sodium chloride", mgPerML(5)), {Text: "sodium gluconate", Strength: mgPerML(5)}}},
+		"KCl per bag, not per L":  {Text: "0.9% sodium chloride with KCl 20 mmol"},
+		"coded fluid, KCl strength unconvertible": {Codings: []Coding{{System: rxnorm, Code: "313002"}},
+			Ingredients: []Ingredient{{Text: "potassium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "vial"}, Denominator: Quantity{Value: 1, Unit: "L"}}}}},
 	} {
 		if c, ok := rs.InfusateComposition(med); ok {
 			t.Errorf("%s: got %+v, want unknown (never guessed)", name, c)

@@ -13,21 +13,20 @@ const (
 	RuleProjectedOver   = "sodium-projected-over-limit"
 	RuleNoProjection    = "hypertonic-projection-unavailable"
 	RuleHypertonicOrder = "hypertonic-saline-projection"
+	RuleWaterDrug       = "water-balance-drug-caution"
 )
 
-// hypertonicAtLeast is the infusate Na + K (mmol/L) from which a fluid is
-// treated as hypertonic saline: 3% sodium chloride is 513 (FDA label [V]).
-const hypertonicAtLeast = 500
-
 // infusionFindings judges each selected draft order whose sodium content is
-// known (the limit rules apply only to an order that moves sodium the way
-// the limit restricts):
-//   - critical: the measured change already exceeds a limit and the order
-//     moves sodium further the same way, or the projected 24-h total exceeds
-//     the limit at high demyelination risk;
-//   - warning: the projected 24-h total exceeds the limit, or a hypertonic
-//     order cannot be projected (an input is missing);
-//   - info: any other hypertonic order, with its projection;
+// known. Which rule answers is decided here, in this order; the indicator
+// and re-check interval of each rule are policy data (cards.rules):
+//   - sodium-limit-exceeded: the measured change already exceeds the 24-h
+//     or 48-h limit and the order moves sodium further the same way;
+//   - sodium-projected-over-limit: the projected change exceeds what the
+//     tightest limit still allows (its high-risk indicator applies at high
+//     demyelination risk in hyponatremia);
+//   - hypertonic-projection-unavailable: a hypertonic order that cannot be
+//     projected because an input is missing;
+//   - hypertonic-saline-projection: any other hypertonic order;
 //   - nothing otherwise.
 func (r *Ruleset) infusionFindings(f Facts) []Finding {
 	var out []Finding
@@ -47,38 +46,92 @@ func (r *Ruleset) infusionFindings(f Facts) []Finding {
 }
 
 func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
-	hypertonic := a.Composition.NaK() >= hypertonicAtLeast
+	hypertonic := a.Composition.NaK() >= r.policy.Cards.HypertonicNaKAtLeast
 	word, sign := "rise", 1.0
 	if a.Hypernatremia {
 		word, sign = "fall", -1
 	}
-	fd := Finding{Figures: a.figures()}
+	fd := Finding{Figures: a.figures(), Order: a.Order.Reference}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.DeltaPerLitre != nil && sign**a.DeltaPerLitre > 0
 	switch {
 	case a.Latest != nil && exceeded && sameWay:
-		fd.Rule, fd.Indicator = RuleLimitExceeded, Critical
-		fd.Summary = fmt.Sprintf("Sodium already %s %.1f mmol/L in 24 h (limit %g); this order moves it further",
-			pastTense(word), a.Achieved24h, a.Limit24h)
-	case a.ProjectedTotal24h != nil && sameWay && sign**a.ProjectedTotal24h > a.Limit24h:
-		fd.Rule, fd.Indicator = RuleProjectedOver, Warning
-		if len(a.Risk) > 0 && !a.Hypernatremia {
-			fd.Indicator = Critical
+		fd.Rule = RuleLimitExceeded
+		if a.Achieved24h > a.Limit24h {
+			fd.Summary = fmt.Sprintf("Sodium already %s %.1f mmol/L in 24 h (limit %g); this order moves it further",
+				pastTense(word), a.Achieved24h, a.Limit24h)
+		} else {
+			fd.Summary = fmt.Sprintf("Sodium already rose %.1f mmol/L in 48 h (limit %g); this order raises it further",
+				a.Achieved48h, a.Limit48h)
 		}
-		fd.Summary = fmt.Sprintf("Projected sodium %s %.1f mmol/L in 24 h with this order, above the %g mmol/L limit",
-			word, math.Abs(*a.ProjectedTotal24h), a.Limit24h)
+	case a.OverLimit:
+		fd.Rule = RuleProjectedOver
+		fd.Summary = r.overSummary(a, word)
 	case hypertonic && a.ProjectedChange24h == nil:
-		fd.Rule, fd.Indicator = RuleNoProjection, Warning
+		fd.Rule = RuleNoProjection
 		fd.Summary = "Hypertonic saline order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
+	case hypertonic && !a.Hypernatremia:
+		fd.Rule = RuleHypertonicOrder
+		fd.Summary = fmt.Sprintf("Hypertonic saline: projected sodium rise %.1f mmol/L in 24 h, %.1f already (limit %g)",
+			*a.ProjectedTotal24h, a.Achieved24h, a.Limit24h)
 	case hypertonic:
-		fd.Rule, fd.Indicator = RuleHypertonicOrder, Info
-		fd.Summary = fmt.Sprintf("Hypertonic saline: projected sodium %s %.1f mmol/L in 24 h (limit %g mmol/L)",
-			word, math.Abs(*a.ProjectedTotal24h), a.Limit24h)
+		fd.Rule = RuleHypertonicOrder
+		fd.Summary = fmt.Sprintf("Hypertonic saline with sodium %g mmol/L: projected change %+.1f mmol/L in 24 h",
+			a.Latest.Value, *a.ProjectedChange24h)
 	default:
 		return Finding{}, false
 	}
-	fd.Detail = r.detail(a, word)
+	rule := r.cardRule(fd.Rule)
+	fd.Indicator = rule.Indicator
+	if fd.Rule == RuleProjectedOver && len(a.Risk) > 0 && !a.Hypernatremia && rule.HighRisk != 0 {
+		fd.Indicator = rule.HighRisk
+	}
+	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
+	fd.Detail = r.detail(a, word, rule.RecheckHours)
 	return fd, true
+}
+
+func (r *Ruleset) overSummary(a InfusionAssessment, word string) string {
+	l := r.policy.Limits
+	switch a.Binding {
+	case Bound48h:
+		return fmt.Sprintf("Projected sodium rise passes the 48-h limit of %g mmol/L: %.1f already, %+.1f from this order",
+			a.Limit48h, a.Achieved48h, *a.ProjectedChange24h)
+	case BoundHourly:
+		return fmt.Sprintf("Projected sodium fall %.2f mmol/L per hour with this order, above the %g mmol/L per hour limit",
+			math.Abs(*a.ProjectedChange24h)/a.InfusionHours, l.HypernatremiaFallPerHour.Value)
+	}
+	return fmt.Sprintf("Projected sodium %s %.1f mmol/L in 24 h with this order, above the %g mmol/L limit",
+		word, math.Abs(*a.ProjectedTotal24h), a.Limit24h)
+}
+
+// infusionAdvice is what a card of rule id suggests: for a projected
+// overshoot the order at the rate that fits (rounded down to 0.1 mL/h, so
+// it stays inside the limit), a re-check, or removing the draft; for a
+// limit already exceeded a re-check or removing the draft; otherwise a
+// re-check.
+func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Advice {
+	recheck := recheckAdvice(recheckHours)
+	withdraw := Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"}
+	switch id {
+	case RuleLimitExceeded:
+		return []Advice{recheck, withdraw}
+	case RuleProjectedOver:
+		var out []Advice
+		if a.MaxRateMlPerHour != nil {
+			if rate := math.Floor(*a.MaxRateMlPerHour*10) / 10; rate >= 0.1 {
+				out = append(out, Advice{Kind: AdviseRate, RateMlPerHour: rate, RecheckHours: recheckHours, Recommended: true,
+					Label: fmt.Sprintf("Change the rate to %g mL/h and re-check sodium in %g h", rate, recheckHours)})
+			}
+		}
+		return append(out, recheck, withdraw)
+	}
+	return []Advice{recheck}
+}
+
+// recheckAdvice suggests a serum sodium in hours.
+func recheckAdvice(hours float64) Advice {
+	return Advice{Kind: AdviseRecheck, RecheckHours: hours, Label: fmt.Sprintf("Re-check serum sodium in %g h", hours)}
 }
 
 func pastTense(word string) string {
@@ -110,10 +163,10 @@ func (a InfusionAssessment) figures() map[string]float64 {
 		fig["sodiumLatest"] = a.Latest.Value
 	}
 	if w := a.Trend.Window24h; w != nil {
-		fig["riseFromNadir24h"], fig["fallFromPeak24h"] = w.RiseFromNadir, w.FallFromPeak
+		fig["riseFromNadir24h"], fig["fallFromPeak24h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
 	}
 	if w := a.Trend.Window48h; w != nil {
-		fig["riseFromNadir48h"] = w.RiseFromNadir
+		fig["riseFromNadir48h"] = Round(w.RiseFromNadir, 1)
 	}
 	set := func(name string, v *float64, decimals int) {
 		if v != nil {
@@ -125,28 +178,41 @@ func (a InfusionAssessment) figures() map[string]float64 {
 	set("volume24hLitres", a.Volume24hLitres, 3)
 	set("projectedChange24h", a.ProjectedChange24h, 1)
 	set("projectedTotal24h", a.ProjectedTotal24h, 1)
+	set("maxVolume24hLitres", a.MaxVolume24hLitres, 3)
 	set("maxRateMlPerHour", a.MaxRateMlPerHour, 1)
+	set("freeWaterDeficitLitres", a.FreeWaterDeficitLitres, 1)
+	c := a.Context
+	set("correctedSodiumKatz", c.CorrectedKatz, 1)
+	set("correctedSodiumHillier", c.CorrectedHillier, 1)
+	set("calculatedOsmolality", c.CalculatedOsmolality, 0)
+	set("effectiveOsmolality", c.EffectiveOsmolality, 0)
+	set("measuredOsmolality", c.MeasuredOsmolality, 0)
+	set("osmolalGap", c.OsmolalGap, 0)
 	return fig
 }
 
-func (r *Ruleset) detail(a InfusionAssessment, word string) string {
+func stamp(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") }
+
+func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64) string {
 	l := r.policy.Limits
 	var b strings.Builder
 	line := func(format string, args ...any) { fmt.Fprintf(&b, "- "+format+"\n", args...) }
-	stamp := func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") }
 	b.WriteString("**Figures**\n\n")
 	if a.Latest != nil {
 		line("Latest sodium: %g mmol/L (%s, %s)", a.Latest.Value, stamp(a.Latest.At), a.Latest.Source)
 	}
 	if w := a.Trend.Window24h; w != nil {
 		if a.Hypernatremia {
-			line("Fall already measured: %g mmol/L from the peak of %g (%s) in the last 24 h", w.FallFromPeak, w.Peak.Value, stamp(w.Peak.At))
+			line("Fall already measured: %.1f mmol/L from the peak of %.1f (%s) in the last 24 h", w.FallFromPeak, w.Peak.Value, stamp(w.Peak.At))
 		} else {
-			line("Rise already measured: %g mmol/L from the nadir of %g (%s) in the last 24 h", w.RiseFromNadir, w.Nadir.Value, stamp(w.Nadir.At))
+			line("Rise already measured: %.1f mmol/L from the nadir of %.1f (%s) in the last 24 h", w.RiseFromNadir, w.Nadir.Value, stamp(w.Nadir.At))
+		}
+		if w.Start != nil {
+			line("The value at the start of the 24-h window, %.1f mmol/L, is interpolated from the results either side", w.Start.Value)
 		}
 	}
 	if w := a.Trend.Window48h; w != nil && !a.Hypernatremia {
-		line("Rise in the last 48 h: %g mmol/L from the nadir of %g", w.RiseFromNadir, w.Nadir.Value)
+		line("Rise in the last 48 h: %.1f mmol/L from the nadir of %.1f", w.RiseFromNadir, w.Nadir.Value)
 	}
 	switch {
 	case a.Hypernatremia:
@@ -162,8 +228,20 @@ func (r *Ruleset) detail(a InfusionAssessment, word string) string {
 	for _, rf := range a.Risk {
 		line("Demyelination risk factor: %s (%s)", rf.Factor, rf.Evidence)
 	}
+	for _, u := range a.RiskUnchecked {
+		if a.Hypernatremia {
+			break // the demyelination limits restrict a rise, not a fall
+		}
+		line("Not checked for demyelination risk: %s; if the risk is high, the limit is %g mmol/L per 24 h", u,
+			l.HyponatremiaRise24hHighRisk.Value)
+	}
+	if a.Infant {
+		line("Infant: total body water is a larger fraction of weight than the 0.6 used (about 0.7–0.8, from memory), " +
+			"so the projection may overstate the change and understate the rate that fits")
+	}
 	if a.Weight != nil && a.TBWLitres != nil {
-		line("Total body water: %.1f L, %s of %g kg weighed %s", *a.TBWLitres, a.TBWMethod, a.Weight.Value, stamp(a.Weight.At))
+		line("Total body water: %.1f L, %s of %g kg weighed %s%s", *a.TBWLitres, a.TBWMethod, Round(a.Weight.Value, 1),
+			stamp(a.Weight.At), asSent(*a.Weight))
 	}
 	c := a.Composition
 	line("Infusate: sodium %g + potassium %g mmol/L, from %s (%s)", Round(c.Na, 1), Round(c.K, 1), c.Basis, c.Source)
@@ -176,18 +254,73 @@ func (r *Ruleset) detail(a InfusionAssessment, word string) string {
 	if a.ProjectedChange24h != nil {
 		line("Projected change from this order: %+.1f mmol/L; projected 24-h total: %+.1f mmol/L", *a.ProjectedChange24h, *a.ProjectedTotal24h)
 	}
+	if a.DeltaPerLitre != nil && !a.LimitReached {
+		line("Still allowed: %.1f mmol/L, set by %s", a.Allowed, r.describeLimit(a))
+	}
 	switch {
 	case a.LimitReached:
-		line("The %s allowed in this 24-h window is already used", word)
+		line("The %s allowed by %s is already used", word, r.describeLimit(a))
 	case a.MaxRateMlPerHour != nil:
-		line("Largest rate that keeps the projected 24-h total within the limit: %.1f mL/h", *a.MaxRateMlPerHour)
+		line("Largest rate that keeps the projection within the limit: %.1f mL/h over %g h (%.3f L)",
+			*a.MaxRateMlPerHour, a.InfusionHours, *a.MaxVolume24hLitres)
+	case a.MaxVolume24hLitres != nil:
+		line("Largest volume in the next 24 h that keeps the projection within the limit: %.0f mL", *a.MaxVolume24hLitres*1000)
 	}
+	if a.FreeWaterDeficitLitres != nil {
+		line("Free-water deficit: %.1f L, classic formula TBW × (Na/140 − 1) (Adrogué HJ, Madias NE, N Engl J Med 2000;342:1493-1499)",
+			*a.FreeWaterDeficitLitres)
+	}
+	r.contextLines(&b, a.Context)
+	line("Policy re-check interval for this card: %g h", recheckHours)
 	if len(a.Missing) > 0 {
 		b.WriteString("\n**Could not be computed without**: " + strings.Join(a.Missing, "; ") + ". Nothing was assumed in their place.\n")
 	}
 	b.WriteString("\n**Method**: mass balance ΔNa = V·(Na + K of the infusate − serum Na)/(TBW + V), the " +
 		"Adrogué–Madias formula (N Engl J Med 2000) scaled to the 24-h volume (Chen & Shey, Kidney360 2021). " +
-		"Rolling 24-h and 48-h windows end now. The projection ignores urine output, insensible and other " +
+		"Rolling 24-h and 48-h windows end now; the projected 24-h total adds the order's next 24 h to the " +
+		"change already measured in the last 24 h. The projection ignores urine output, insensible and other " +
 		"ongoing losses, and other fluids and drugs; measured sodium is the guide.")
 	return b.String()
+}
+
+// asSent gives the value as the chart sent it when halite converted it.
+func asSent(m Measurement) string {
+	if m.Original == "" || m.Original == fmt.Sprintf("%g %s", m.Value, CanonicalUnit(m.Analyte)) {
+		return ""
+	}
+	return " (sent as " + m.Original + ")"
+}
+
+func (r *Ruleset) describeLimit(a InfusionAssessment) string {
+	switch a.Binding {
+	case Bound48h:
+		return fmt.Sprintf("the 48-h limit of %g mmol/L", a.Limit48h)
+	case BoundHourly:
+		return fmt.Sprintf("the limit of %g mmol/L per hour over the %g h the order runs",
+			r.policy.Limits.HypernatremiaFallPerHour.Value, a.InfusionHours)
+	}
+	return fmt.Sprintf("the 24-h limit of %g mmol/L", a.Limit24h)
+}
+
+// contextLines writes the tonicity figures that could be computed.
+func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
+	if c.CorrectedKatz != nil {
+		fmt.Fprintf(b, "- Glucose-corrected sodium: %.1f mmol/L (Katz, 1.6 per 100 mg/dL; N Engl J Med 1973) or %.1f mmol/L "+
+			"(Hillier, 2.4 per 100 mg/dL; Am J Med 1999)\n", *c.CorrectedKatz, *c.CorrectedHillier)
+	}
+	if c.EffectiveOsmolality != nil {
+		fmt.Fprintf(b, "- Effective osmolality 2·Na + glucose: %.0f mOsm/kg (%s)", *c.EffectiveOsmolality, c.Class)
+		if c.CalculatedOsmolality != nil {
+			fmt.Fprintf(b, "; calculated osmolality 2·Na + glucose + urea: %.0f mOsm/kg", *c.CalculatedOsmolality)
+		}
+		b.WriteString("\n")
+	}
+	if c.OsmolalGap != nil {
+		fmt.Fprintf(b, "- Osmolal gap: %.0f mOsm/kg (measured %.0f − calculated)\n", *c.OsmolalGap, *c.MeasuredOsmolality)
+	} else if c.MeasuredOsmolality != nil {
+		fmt.Fprintf(b, "- Measured osmolality: %.0f mOsm/kg\n", *c.MeasuredOsmolality)
+	}
+	for _, m := range c.Inputs {
+		fmt.Fprintf(b, "- Used: %s %g %s (%s, %s)%s\n", m.Analyte, Round(m.Value, 1), CanonicalUnit(m.Analyte), stamp(m.At), m.Source, asSent(m))
+	}
 }

@@ -1,6 +1,8 @@
 package rules
 
 import (
+	"fmt"
+	"strings"
 	"testing"
 	"time"
 	"unicode/utf8"
@@ -39,6 +41,30 @@ func TestInfusionCardPolicy(t *testing.T) {
 		// Rising too fast already, but 5% dextrose lowers sodium: no limit card.
 		{"order moving the other way", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 100), "", 0},
 		{"isotonic at normal sodium", woman(60, map[float64]float64{2: 139}, nil), order("0.9% sodium chloride", 100), "", 0},
+		// 48-h rise already 14 (106 → 120 over 40 h). The 24-h window starts at
+		// 106 + 11 × 16/20 = 114.8 (interpolated), so 5.2 in 24 h and 4.8 left;
+		// the 48-h limit of 18 leaves 4, which binds. 0.48 L of 3% adds
+		// 0.48 × 393/30.48 = 6.2 > 4.
+		{"48-h limit binds", woman(60, map[float64]float64{40: 106, 20: 117, 2: 120}, nil), order("3% saline", 20), RuleProjectedOver, Warning},
+		// Hypernatremia, 5% dextrose 500 mL/h for 2 h: 1 L × (0 − 152)/(31) = −4.9 in 2 h,
+		// 2.45 mmol/L per hour > 0.5 per hour, though within 10 per 24 h.
+		{"hourly fall limit binds", woman(62, map[float64]float64{2: 152}, nil),
+			MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "D5W"}, RateMlPerHour: rate(500),
+				Bounds: &Quantity{Value: 2, Unit: "h"}, Selected: true}, RuleProjectedOver, Warning},
+		{"tolvaptan at sodium 122", woman(60, map[float64]float64{2: 122}, nil),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Text: "Tolvaptan 15 mg tablet"}, Selected: true}, RuleWaterDrug, Warning},
+		{"tolvaptan coded by RxNorm SCD after a 6 mmol/L rise", woman(60, map[float64]float64{20: 120, 2: 126}, nil),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemRxNorm, Code: "849827"}}}, Selected: true},
+			RuleWaterDrug, Warning},
+		{"desmopressin by ATC at high risk", woman(60, map[float64]float64{2: 131}, lowK),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
+			RuleWaterDrug, Warning},
+		{"tolvaptan with no recent sodium", woman(60, map[float64]float64{30: 128}, nil),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Text: "tolvaptan"}, Selected: true}, RuleWaterDrugNoSodium, Info},
+		{"tolvaptan at 131, no risk, slow rise", woman(60, map[float64]float64{20: 129, 2: 131}, lowKnormal(at)),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Text: "tolvaptan"}, Selected: true}, "", 0},
+		{"a name inside another word does not match", woman(60, map[float64]float64{2: 122}, nil),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Text: "antitolvaptanoid"}, Selected: true}, "", 0},
 		{"not selected", woman(60, map[float64]float64{20: 110, 2: 121}, nil),
 			MedicationOrder{Medication: Medication{Text: "3% saline"}, RateMlPerHour: rate(10)}, "", 0},
 	} {
@@ -56,9 +82,65 @@ func TestInfusionCardPolicy(t *testing.T) {
 				t.Fatalf("got %+v, want %s %s", got, tc.rule, tc.indicator)
 			}
 			fd := got[0]
-			if n := utf8.RuneCountInString(fd.Summary); n >= 140 || fd.Detail == "" || fd.Figures["limit24h"] == 0 {
+			isWater := fd.Rule == RuleWaterDrug || fd.Rule == RuleWaterDrugNoSodium
+			if n := utf8.RuneCountInString(fd.Summary); n >= 140 || fd.Detail == "" || (!isWater && fd.Figures["limit24h"] == 0) {
 				t.Errorf("summary %d characters %q, detail %d bytes, figures %v", n, fd.Summary, len(fd.Detail), fd.Figures)
 			}
+			if strings.HasPrefix(tc.name, "48-h") && !strings.Contains(fd.Summary, "48-h limit") {
+				t.Errorf("summary %q does not name the 48-h limit", fd.Summary)
+			}
+			if strings.HasPrefix(tc.name, "hourly") && !strings.Contains(fd.Summary, "per hour") {
+				t.Errorf("summary %q does not name the hourly limit", fd.Summary)
+			}
+			if fd.Order != tc.order.Reference || len(fd.Advice) == 0 || fd.Advice[0].Label == "" {
+				t.Errorf("order %q, advice %+v", fd.Order, fd.Advice)
+			}
+			if want := rs.Policy().Cards.Rules[fd.Rule].RecheckHours; !strings.Contains(fd.Detail, fmt.Sprintf("interval for this card: %g h", want)) {
+				t.Errorf("detail does not state the %g h re-check interval", want)
+			}
 		})
+	}
+}
+
+func lowKnormal(at time.Time) map[Analyte][]Measurement {
+	return map[Analyte][]Measurement{Potassium: {{Analyte: Potassium, Value: 4.1, At: at.Add(-6 * time.Hour)}}}
+}
+
+// TestRateThatFitsAdvice: a projected overshoot suggests the order at the
+// rate that fits, rounded down to 0.1 mL/h, and at that rate the order is
+// no longer over the limit (the projection meets the limit to 0.1 mL/h of
+// rate). Facts invented; arithmetic from the mass balance.
+func TestRateThatFitsAdvice(t *testing.T) {
+	rs := loadRuleset(t)
+	f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{20: 112, 2: 116}, nil)
+	rate := 25.0
+	o := MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "3% saline"}, RateMlPerHour: &rate, Selected: true}
+	f.DraftOrders = []MedicationOrder{o}
+	got := rs.Evaluate(InfusionCheck, f)
+	if len(got) != 1 || got[0].Rule != RuleProjectedOver {
+		t.Fatalf("got %+v", got)
+	}
+	adv := got[0].Advice
+	if len(adv) != 3 || adv[0].Kind != AdviseRate || !adv[0].Recommended || adv[1].Kind != AdviseRecheck || adv[2].Kind != AdviseWithdraw {
+		t.Fatalf("advice %+v", adv)
+	}
+	// Allowed 6: V = 6 × 30/(397 − 6) L over 24 h = 19.18 mL/h → 19.1.
+	if adv[0].RateMlPerHour != 19.1 {
+		t.Errorf("suggested rate %v, want 19.1", adv[0].RateMlPerHour)
+	}
+	fit := adv[0].RateMlPerHour
+	f.DraftOrders[0].RateMlPerHour = &fit
+	again := rs.Evaluate(InfusionCheck, f)
+	if len(again) != 1 || again[0].Rule != RuleHypertonicOrder || again[0].Figures["projectedTotal24h"] > 10 {
+		t.Errorf("at the suggested rate: %+v", again)
+	}
+	// A 6-h course spreads the same allowance over 6 h: four times the rate.
+	f.DraftOrders[0].RateMlPerHour = &rate
+	f.DraftOrders[0].Bounds = &Quantity{Value: 6, Unit: "h"}
+	rate6 := 100.0
+	f.DraftOrders[0].RateMlPerHour = &rate6
+	a := rs.AssessInfusion(f, f.DraftOrders[0])
+	if want := 6.0 * 30 / 391 * 1000 / 6; a.MaxRateMlPerHour == nil || !near(*a.MaxRateMlPerHour, want, 1e-9) {
+		t.Errorf("6-h course: max rate %v, want %v", a.MaxRateMlPerHour, want)
 	}
 }

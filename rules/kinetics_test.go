@@ -234,11 +234,20 @@ func TestAnalyseSodium(t *testing.T) {
 	if w24 == nil || w48 == nil {
 		t.Fatal("windows missing")
 	}
-	if w24.Nadir.Value != 118 || w24.Latest.Value != 123 || w24.RiseFromNadir != 5 || len(w24.Used) != 3 {
+	// The window's start is interpolated from the values either side:
+	// 24 h: 114 at −40 h, 118 at −20 h → 117.2 at −24 h; rise 123 − 117.2.
+	// 48 h: 110 at −60 h, 114 at −40 h → 112.4 at −48 h; rise 123 − 112.4.
+	if w24.Start == nil || !near(w24.Nadir.Value, 117.2, 1e-9) || w24.Latest.Value != 123 || !near(w24.RiseFromNadir, 5.8, 1e-9) || len(w24.Used) != 4 {
 		t.Errorf("24 h: %+v", w24)
 	}
-	if w48.Nadir.Value != 114 || w48.RiseFromNadir != 9 || w48.FallFromPeak != 0 {
+	if !near(w48.Nadir.Value, 112.4, 1e-9) || !near(w48.RiseFromNadir, 10.6, 1e-9) || w48.FallFromPeak != 0 {
 		t.Errorf("48 h: %+v", w48)
+	}
+	// A rise that straddles the window's start (the review's case: 110 at
+	// −25 h, 119.5 at −1 h) counts 9.5 × 23/24 of it, not nothing.
+	straddle := AnalyseSodium([]Measurement{m(25, 110), m(1, 119.5)}, at)
+	if !near(straddle.Window24h.RiseFromNadir, 9.5*23/24, 1e-9) {
+		t.Errorf("straddling rise %v, want %v", straddle.Window24h.RiseFromNadir, 9.5*23/24)
 	}
 	if tr.HourlyRate == nil || *tr.HourlyRate != 0.5 { // (123 − 121)/4 h
 		t.Errorf("hourly rate %v, want 0.5", tr.HourlyRate)
@@ -249,5 +258,37 @@ func TestAnalyseSodium(t *testing.T) {
 	}
 	if empty := AnalyseSodium([]Measurement{m(72, 120)}, at); empty.Window24h != nil || empty.Window48h != nil || empty.HourlyRate != nil {
 		t.Errorf("a value outside both windows must leave them empty: %+v", empty)
+	}
+}
+
+// TestTonicity: the context figures for Na 130 with glucose 600 mg/dL and
+// urea 5 mmol/L: Katz 138.0, Hillier 142.0 [derived, reference notes §3];
+// effective osmolality 2·130 + 33.3 = 293.3, calculated 298.3, and an
+// osmolal gap against a measured 310. A glucose two days away is not used.
+func TestTonicity(t *testing.T) {
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	g := 600 / glucoseMgPerDLPerMmol
+	na := Measurement{Analyte: Sodium, Value: 130, At: at.Add(-time.Hour)}
+	f := Facts{At: at, Labs: map[Analyte][]Measurement{
+		Glucose:         {{Analyte: Glucose, Value: g, At: at.Add(-time.Hour)}},
+		Urea:            {{Analyte: Urea, Value: 5, At: at.Add(-2 * time.Hour)}},
+		SerumOsmolality: {{Analyte: SerumOsmolality, Value: 310, At: at.Add(-time.Hour)}},
+	}}
+	c := Tonicity(f, na, 24)
+	if c.CorrectedKatz == nil || !near(*c.CorrectedKatz, 138, 1e-9) || !near(*c.CorrectedHillier, 142, 1e-9) {
+		t.Fatalf("corrected %v %v", c.CorrectedKatz, c.CorrectedHillier)
+	}
+	if !near(*c.EffectiveOsmolality, 260+g, 1e-9) || !near(*c.CalculatedOsmolality, 265+g, 1e-9) ||
+		!near(*c.OsmolalGap, 310-265-g, 1e-9) || c.Class != Isotonic || len(c.Inputs) != 3 {
+		t.Errorf("%+v", c)
+	}
+	// Na 118, glucose 5 mmol/L: effective 241, hypotonic; no correction below 100 mg/dL.
+	f.Labs[Glucose][0].Value = 5
+	if c := Tonicity(f, Measurement{Analyte: Sodium, Value: 118, At: at}, 24); c.Class != Hypotonic || c.CorrectedKatz != nil {
+		t.Errorf("%+v", c)
+	}
+	f.Labs[Glucose][0].At = at.Add(-48 * time.Hour)
+	if c := Tonicity(f, na, 24); c.EffectiveOsmolality != nil || c.Class != "" {
+		t.Errorf("a glucose 47 h from the sodium was used: %+v", c)
 	}
 }

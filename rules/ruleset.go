@@ -88,6 +88,8 @@ type Policy struct {
 	Limits            Limits                  `json:"limits"`
 	DemyelinationRisk DemyelinationRiskPolicy `json:"demyelinationRisk"`
 	Projection        ProjectionPolicy        `json:"projection"`
+	Cards             CardPolicy              `json:"cards"`
+	WaterDrugs        WaterDrugPolicy         `json:"waterDrugs"`
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 }
@@ -101,8 +103,17 @@ type Ruleset struct {
 }
 
 // Load parses and validates the embedded policy data.
-func Load() (*Ruleset, error) {
-	rs, err := parse(embeddedPolicy)
+func Load() (*Ruleset, error) { return LoadWithOverride(nil) }
+
+// LoadWithOverride is Load with a site's override applied: a JSON document
+// shaped like the policy whose members replace the embedded ones (objects
+// are merged member by member; arrays, values and map entries such as one
+// card rule are replaced whole), as in a JSON
+// merge patch (RFC 7386) without deletion. The result is validated as a
+// whole and its revision differs from the embedded one whenever the
+// effective policy does. An empty override is no override.
+func LoadWithOverride(override []byte) (*Ruleset, error) {
+	rs, err := parse(embeddedPolicy, override)
 	if err != nil {
 		return nil, err
 	}
@@ -115,17 +126,32 @@ func Load() (*Ruleset, error) {
 	return rs, nil
 }
 
-func parse(data []byte) (*Ruleset, error) {
+func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 	var p Policy
-	dec := json.NewDecoder(bytes.NewReader(data))
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&p); err != nil {
+	if err := decodeStrict(data, &p); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	for _, o := range overrides {
+		if len(bytes.TrimSpace(o)) == 0 {
+			continue
+		}
+		if err := decodeStrict(o, &p); err != nil {
+			return nil, fmt.Errorf("load policy override: %w", err)
+		}
+		if err := overrideCitesLimits(o); err != nil {
+			return nil, fmt.Errorf("load policy override: %w", err)
+		}
 	}
 	if p.Version == "" {
 		return nil, fmt.Errorf("load policy: version is empty")
 	}
 	if err := p.validateKinetics(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.Cards.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.WaterDrugs.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	for _, a := range Analytes() {
@@ -146,6 +172,40 @@ func parse(data []byte) (*Ruleset, error) {
 		}
 	}
 	return &Ruleset{revision: revisionOf(p), policy: p}, nil
+}
+
+// overrideCitesLimits requires a site that changes a limit's value to give
+// that limit's source too, so no card cites the embedded source for a value
+// it does not hold.
+func overrideCitesLimits(o []byte) error {
+	var doc struct {
+		Limits map[string]map[string]json.RawMessage `json:"limits"`
+	}
+	if err := json.Unmarshal(o, &doc); err != nil {
+		return err
+	}
+	for name, l := range doc.Limits {
+		if _, v := l["value"]; v {
+			if _, s := l["source"]; !s {
+				return fmt.Errorf("limits.%s: a changed value needs its source", name)
+			}
+		}
+	}
+	return nil
+}
+
+// decodeStrict decodes one JSON document into v, refusing unknown members
+// and trailing data.
+func decodeStrict(data []byte, v any) error {
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		return err
+	}
+	if dec.More() {
+		return fmt.Errorf("data after the JSON document")
+	}
+	return nil
 }
 
 func (p Policy) validateKinetics() error {

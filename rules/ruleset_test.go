@@ -120,3 +120,48 @@ func TestAgeYears(t *testing.T) {
 		t.Error("age known without a birth date")
 	}
 }
+
+// TestLoadWithOverride: a site override changes only what it names, is
+// validated as a whole, and changes the revision.
+func TestLoadWithOverride(t *testing.T) {
+	base, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	rs, err := LoadWithOverride([]byte(`{"limits": {"hyponatremiaRise24h": {"value": 9, "source": "local protocol (invented for this test)"}},
+		"cards": {"rules": {"hypertonic-saline-projection": {"indicator": "warning", "recheckHours": 2}}}}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	l := rs.Policy().Limits.HyponatremiaRise24h
+	if l.Value != 9 || l.Unit != "mmol/L" || l.Source != "local protocol (invented for this test)" {
+		t.Errorf("overridden limit %+v: value and source replaced, unit kept", l)
+	}
+	if got := rs.Policy().Limits.HyponatremiaRise48h; got != base.Policy().Limits.HyponatremiaRise48h {
+		t.Errorf("an unnamed limit changed: %+v", got)
+	}
+	if r := rs.Policy().Cards.Rules[RuleHypertonicOrder]; r.Indicator != Warning || r.RecheckHours != 2 {
+		t.Errorf("card rule %+v", r)
+	}
+	if len(rs.Policy().Cards.Rules) != len(base.Policy().Cards.Rules) {
+		t.Errorf("overriding one card rule dropped others: %d rules", len(rs.Policy().Cards.Rules))
+	}
+	if rs.Revision() == base.Revision() {
+		t.Error("override left the revision unchanged")
+	}
+	if same, err := LoadWithOverride([]byte("  ")); err != nil || same.Revision() != base.Revision() {
+		t.Errorf("empty override: %v, revision %s vs %s", err, same.Revision(), base.Revision())
+	}
+	for name, o := range map[string]string{
+		"unknown member":         `{"limits": {"hyponatremiaRise24": {"value": 9, "source": "x"}}}`,
+		"value without a source": `{"limits": {"hyponatremiaRise24h": {"value": 9}}}`,
+		"invalid as a whole":     `{"limits": {"hyponatremiaRise24hHighRisk": {"value": 14, "source": "x"}}}`,
+		"unknown indicator":      `{"cards": {"rules": {"hypertonic-saline-projection": {"indicator": "urgent"}}}}`,
+		"unknown rule":           `{"cards": {"rules": {"no-such-rule": {"indicator": "info", "recheckHours": 2}}}}`,
+		"trailing data":          `{} {}`,
+	} {
+		if _, err := LoadWithOverride([]byte(o)); err == nil {
+			t.Errorf("%s: accepted", name)
+		}
+	}
+}

@@ -12,7 +12,11 @@ type SodiumWindow struct {
 	Nadir, Peak, Latest Measurement
 	RiseFromNadir       float64
 	FallFromPeak        float64
-	Used                []Measurement // the values in the window, oldest first
+	Used                []Measurement // the values used, oldest first
+	// Start is the value interpolated at the window's start when a value
+	// precedes the window; it is counted with the values inside (see
+	// window) and is first in Used.
+	Start *Measurement
 }
 
 // SodiumTrend is the analysis of a sodium series at a time.
@@ -27,6 +31,8 @@ type SodiumTrend struct {
 // and fall from the peak in the trailing 24-h and 48-h windows ending at at
 // (rolling windows, as the US panel applies its limits "in any 24-h period":
 // Verbalis JG et al., Am J Med 2013;126:S1–S42), and the latest hourly rate.
+// A value before a window gives, by linear interpolation, the value at the
+// window's start, so a change that straddles the start is not missed.
 // series must be ordered oldest first, as fhirmap builds it.
 func AnalyseSodium(series []Measurement, at time.Time) SodiumTrend {
 	var t SodiumTrend
@@ -45,10 +51,7 @@ func AnalyseSodium(series []Measurement, at time.Time) SodiumTrend {
 func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	from := at.Add(-time.Duration(hours) * time.Hour)
 	w := &SodiumWindow{Hours: hours}
-	for _, m := range series {
-		if m.At.Before(from) || m.At.After(at) {
-			continue
-		}
+	consider := func(m Measurement) {
 		if len(w.Used) == 0 || m.Value < w.Nadir.Value {
 			w.Nadir = m
 		}
@@ -57,7 +60,33 @@ func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 		}
 		w.Used = append(w.Used, m)
 	}
-	if len(w.Used) == 0 {
+	// A change that began before the window and went on inside it is
+	// counted from the window's start: the value there is interpolated
+	// linearly between the last value before the window and the first
+	// inside it (so a straddling change is not missed, nor overstated by
+	// counting its part before the window).
+	var before *Measurement
+	for i, m := range series {
+		if m.At.Before(from) {
+			before = &series[i]
+		}
+	}
+	inside := 0
+	for _, m := range series {
+		if m.At.Before(from) || m.At.After(at) {
+			continue
+		}
+		if inside == 0 && before != nil && m.At.After(from) {
+			frac := from.Sub(before.At).Seconds() / m.At.Sub(before.At).Seconds()
+			start := Measurement{Analyte: before.Analyte, At: from, Value: before.Value + frac*(m.Value-before.Value),
+				Source: "interpolated between " + before.Source + " and " + m.Source}
+			w.Start = &start
+			consider(start)
+		}
+		consider(m)
+		inside++
+	}
+	if inside == 0 {
 		return nil
 	}
 	w.Latest = w.Used[len(w.Used)-1]

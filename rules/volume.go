@@ -9,7 +9,8 @@ import (
 // and how it was worked out: from an infusion rate (bounded by the ordered
 // course, boundsDuration, and the ordered total, dispenseRequest.quantity),
 // or from a bolus dose in mL repeated per its timing. ok is false when the
-// order says neither; nothing is assumed.
+// order says neither, or gives a rate or dose that is not positive; nothing
+// is assumed.
 func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 	window := 24.0
 	if o.Bounds != nil {
@@ -19,11 +20,13 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 	}
 	total := math.Inf(1)
 	if o.DispenseQuantity != nil {
-		if ml, known := VolumeMl(*o.DispenseQuantity); known {
+		if ml, known := VolumeMl(*o.DispenseQuantity); known && ml > 0 {
 			total = ml
 		}
 	}
 	switch {
+	case o.RateMlPerHour != nil && *o.RateMlPerHour <= 0:
+		return 0, "", false
 	case o.RateMlPerHour != nil:
 		ml := *o.RateMlPerHour * window
 		basis = fmt.Sprintf("%g mL/h for %g h", *o.RateMlPerHour, window)
@@ -33,7 +36,7 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 		return ml / 1000, basis, true
 	case o.Dose != nil:
 		dose, known := VolumeMl(*o.Dose)
-		if !known {
+		if !known || dose <= 0 {
 			return 0, "", false
 		}
 		n := 1.0
@@ -51,6 +54,21 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 		return ml / 1000, basis, true
 	}
 	return 0, "", false
+}
+
+// InfusionHours is how long, within the next 24 h, a rate-based order runs
+// at its rate: 24 h, or the ordered course when shorter. ok is false for an
+// order without a rate (a bolus), for which a rate that fits is not given.
+func InfusionHours(o MedicationOrder) (float64, bool) {
+	if o.RateMlPerHour == nil || *o.RateMlPerHour <= 0 {
+		return 0, false
+	}
+	if o.Bounds != nil {
+		if h, known := DurationHours(*o.Bounds); known && h > 0 && h < 24 {
+			return h, true
+		}
+	}
+	return 24, true
 }
 
 // VolumeMl converts a volume quantity (mL or L) to mL.

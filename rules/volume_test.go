@@ -22,6 +22,9 @@ func TestVolume24h(t *testing.T) {
 		{"100 mL every 6 h", MedicationOrder{Dose: q(100, "mL"), Frequency: i(1), Period: q(6, "h")}, 0.4, true},
 		{"oral 50 mg: no volume", MedicationOrder{Dose: q(50, "mg")}, 0, false},
 		{"nothing said", MedicationOrder{}, 0, false},
+		{"negative rate", MedicationOrder{RateMlPerHour: f(-2000)}, 0, false},
+		{"zero dose", MedicationOrder{Dose: q(0, "mL")}, 0, false},
+		{"negative ordered total is ignored", MedicationOrder{RateMlPerHour: f(10), DispenseQuantity: q(-5, "L")}, 0.24, true},
 	} {
 		got, basis, ok := Volume24h(tc.o)
 		if ok != tc.known || !near(got, tc.want, 1e-9) || (ok && basis == "") {

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"github.com/halite-cds/halite/hooks/fhirclient"
+	"github.com/halite-cds/halite/rules"
 	"go.yaml.in/yaml/v3"
 )
 
@@ -29,6 +30,9 @@ type Config struct {
 	CORSOrigins     []string         `yaml:"cors_allowed_origins"`
 	LogLevel        string           `yaml:"log_level"`
 	FHIRClient      FHIRClientConfig `yaml:"fhir_client"`
+	// PolicyOverride is the path of a site's policy override (JSON shaped
+	// like rules/data/policy.json); empty means the embedded policy.
+	PolicyOverride string `yaml:"policy_override"`
 }
 
 // FHIRClientConfig bounds the outbound FHIR client.
@@ -82,6 +86,7 @@ var envKeys = []struct {
 	{"readiness_drain_delay", func(c *Config, v string) error { return setDuration(&c.DrainDelay, v) }},
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
+	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
 	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},
 	{"fhir_client.max_response_bytes", func(c *Config, v string) (err error) {
 		c.FHIRClient.MaxResponseBytes, err = strconv.ParseInt(v, 10, 64)
@@ -135,6 +140,23 @@ func loadConfig(path string, getenv func(string) string) (Config, error) {
 		}
 	}
 	return cfg, nil
+}
+
+// loadRuleset loads the embedded policy with the site override at path
+// applied (none if path is empty).
+func loadRuleset(path string) (*rules.Ruleset, error) {
+	if path == "" {
+		return rules.Load()
+	}
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("policy_override: %w", err)
+	}
+	rs, err := rules.LoadWithOverride(data)
+	if err != nil {
+		return nil, fmt.Errorf("policy_override %s: %w", path, err)
+	}
+	return rs, nil
 }
 
 // validate checks every key, naming the first that is wrong.

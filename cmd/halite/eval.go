@@ -26,11 +26,12 @@ const (
 // eval runs a bundle through the same pipeline as the server and prints the
 // response: a readable report, or with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] BUNDLE", stderr)
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
 	asJSON := fs.Bool("json", false, "print the exact CDS Hooks response (keyed by service id without --service)")
+	policy := fs.String("policy-override", "", "apply a site policy override `file` (JSON shaped like the embedded policy)")
 	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
@@ -41,7 +42,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 			return fmt.Errorf("--at: %q is not an RFC 3339 time such as 2026-11-20T08:00:00Z", *at)
 		}
 	}
-	rs, err := rules.Load()
+	rs, err := loadRuleset(*policy)
 	if err != nil {
 		return err
 	}
@@ -123,6 +124,13 @@ func writeReport(w io.Writer, hook string, at time.Time, revision string, svcs [
 		}
 		for _, c := range o.Response.Cards {
 			fmt.Fprintf(tw, "%s\t%s\n", strings.ToUpper(c.Indicator), c.Summary)
+			for _, s := range c.Suggestions {
+				mark := ""
+				if s.IsRecommended {
+					mark = " (recommended)"
+				}
+				fmt.Fprintf(tw, "  suggests\t%s%s\n", s.Label, mark)
+			}
 		}
 		fmt.Fprintln(tw, "-- data")
 		for _, k := range o.Keys {

@@ -490,3 +490,44 @@ func TestServeBundleFetchPath(t *testing.T) {
 		t.Errorf("serve-bundle on a public address: %v", err)
 	}
 }
+
+// TestEvalPolicyOverride: a site override changes the card and the
+// ruleset revision stamped on it; a bad override is refused by name.
+func TestEvalPolicyOverride(t *testing.T) {
+	file := filepath.Join("..", "..", "testdata", "scenarios", "15-hypona-3pct-at-suggested-rate.json")
+	evalJSON := func(extra ...string) hooks.Response {
+		t.Helper()
+		var out bytes.Buffer
+		args := append([]string{"eval", "--hook", "order-sign", "--service", "sodium-infusion-check", "--at", scenarioAt, "--json"}, extra...)
+		err := run(context.Background(), append(args, file), &out, io.Discard)
+		var ee *exitError
+		if err != nil && !errors.As(err, &ee) {
+			t.Fatal(err)
+		}
+		var r hooks.Response
+		if err := json.Unmarshal(out.Bytes(), &r); err != nil || len(r.Cards) != 1 {
+			t.Fatalf("want one card: %v %s", err, out.String())
+		}
+		return r
+	}
+	base := evalJSON()
+	override := filepath.Join(t.TempDir(), "site.json")
+	if err := os.WriteFile(override, []byte(`{"cards": {"rules": {"hypertonic-saline-projection": {"indicator": "warning", "recheckHours": 2}}}}`), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	site := evalJSON("--policy-override", override)
+	if base.Cards[0].Indicator != "info" || site.Cards[0].Indicator != "warning" {
+		t.Errorf("indicators %s → %s, want info → warning", base.Cards[0].Indicator, site.Cards[0].Indicator)
+	}
+	if bytes.Equal(base.Cards[0].Extension, site.Cards[0].Extension) {
+		t.Error("the override did not change the ruleset revision on the card")
+	}
+	bad := filepath.Join(t.TempDir(), "bad.json")
+	if err := os.WriteFile(bad, []byte(`{"limits": {"hyponatremiaRise24h": {"value": 12}}}`), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	err := run(context.Background(), []string{"eval", "--hook", "order-sign", "--policy-override", bad, file}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "policy_override") || !strings.Contains(err.Error(), "needs its source") {
+		t.Errorf("bad override: %v", err)
+	}
+}

@@ -43,7 +43,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err := cfg.validate(); err != nil {
 		return err
 	}
-	rs, err := rules.Load()
+	rs, err := loadRuleset(cfg.PolicyOverride)
 	if err != nil {
 		return err
 	}

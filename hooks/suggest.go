@@ -1,0 +1,181 @@
+package hooks
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"strconv"
+	"time"
+
+	"github.com/google/uuid"
+	"github.com/halite-cds/halite/rules"
+)
+
+// Codes of the sodium re-check halite suggests.
+const (
+	LOINCSystem   = "http://loinc.org"
+	SodiumLOINC   = "2951-2"
+	sodiumDisplay = "Sodium [Moles/volume] in Serum or Plasma"
+	ucumSystem    = "http://unitsofmeasure.org"
+)
+
+// suggestionInput is what building suggestions needs from the call.
+type suggestionInput struct {
+	At        time.Time
+	PatientID string
+	// Drafts are the draft orders by reference ("MedicationRequest/id").
+	Drafts map[string]json.RawMessage
+}
+
+// draftIndex keys the raw draft orders by their reference.
+func draftIndex(raws []json.RawMessage) map[string]json.RawMessage {
+	out := make(map[string]json.RawMessage, len(raws))
+	for _, raw := range raws {
+		var head struct {
+			ResourceType string `json:"resourceType"`
+			ID           string `json:"id"`
+		}
+		if json.Unmarshal(raw, &head) == nil && head.ResourceType != "" && head.ID != "" {
+			out[head.ResourceType+"/"+head.ID] = raw
+		}
+	}
+	return out
+}
+
+// suggestions builds a finding's advice as CDS Hooks suggestions with
+// FHIR R4 resources: an update of the draft at the new rate (with a
+// sodium re-check), a sodium re-check ServiceRequest to create, or the
+// deletion of the draft by resourceId. Advice that cannot be built from
+// the call (no draft to update, a draft with several rates) is left out,
+// never guessed.
+func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
+	var out []Suggestion
+	for _, adv := range f.Advice {
+		var actions []Action
+		switch adv.Kind {
+		case rules.AdviseRate:
+			updated, ok, err := withRate(in.Drafts[f.Order], adv.RateMlPerHour)
+			if err != nil {
+				return nil, fmt.Errorf("suggest a rate for %s: %w", f.Order, err)
+			}
+			if !ok {
+				continue
+			}
+			recheck, err := recheckRequest(in, f.Order, adv.RecheckHours)
+			if err != nil {
+				return nil, err
+			}
+			actions = []Action{
+				{Type: "update", Description: fmt.Sprintf("Set the infusion rate of the draft order to %s mL/h", formatRate(adv.RateMlPerHour)), Resource: updated},
+				{Type: "create", Description: fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, adv.RecheckHours), Resource: recheck},
+			}
+		case rules.AdviseRecheck:
+			recheck, err := recheckRequest(in, f.Order, adv.RecheckHours)
+			if err != nil {
+				return nil, err
+			}
+			actions = []Action{{Type: "create", Description: fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, adv.RecheckHours), Resource: recheck}}
+		case rules.AdviseWithdraw:
+			if _, ok := in.Drafts[f.Order]; !ok {
+				continue
+			}
+			actions = []Action{{Type: "delete", Description: "Remove the draft order " + f.Order, ResourceID: f.Order}}
+		default:
+			return nil, fmt.Errorf("suggest: unknown advice kind %q", adv.Kind)
+		}
+		out = append(out, Suggestion{Label: adv.Label, UUID: uuid.NewString(), IsRecommended: adv.Recommended, Actions: actions})
+	}
+	return out, nil
+}
+
+func formatRate(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
+
+// withRate returns the draft order with its rate set to mlPerHour, as a
+// UCUM rateQuantity replacing the rateQuantity or rateRatio it had, and
+// its instruction text marked as superseded. ok is
+// false when there is no draft or it does not carry exactly one rate in
+// one dosage instruction (the rate halite read), so the change would be
+// ambiguous.
+func withRate(draft json.RawMessage, mlPerHour float64) (json.RawMessage, bool, error) {
+	if draft == nil {
+		return nil, false, nil
+	}
+	dec := json.NewDecoder(bytes.NewReader(draft))
+	dec.UseNumber() // keep every other number exactly as sent
+	var mr map[string]any
+	if err := dec.Decode(&mr); err != nil {
+		return nil, false, fmt.Errorf("decode draft: %w", err)
+	}
+	dis, _ := mr["dosageInstruction"].([]any)
+	if len(dis) != 1 {
+		return nil, false, nil
+	}
+	di, _ := dis[0].(map[string]any)
+	drs, _ := di["doseAndRate"].([]any)
+	if len(drs) != 1 {
+		return nil, false, nil
+	}
+	dr, _ := drs[0].(map[string]any)
+	if dr == nil || (dr["rateQuantity"] == nil && dr["rateRatio"] == nil) {
+		return nil, false, nil
+	}
+	delete(dr, "rateRatio")
+	delete(dr, "rateRange")
+	// The free-text instruction may state the old rate; keep it, marked as
+	// superseded, so nothing the prescriber wrote is lost.
+	if text, ok := di["text"].(string); ok && text != "" {
+		di["text"] = fmt.Sprintf("Rate changed to %s mL/h; earlier instruction: %s", formatRate(mlPerHour), text)
+	}
+	dr["rateQuantity"] = map[string]any{"value": json.Number(formatRate(mlPerHour)), "unit": "mL/h", "system": ucumSystem, "code": "mL/h"}
+	out, err := json.Marshal(mr)
+	if err != nil {
+		return nil, false, fmt.Errorf("encode draft: %w", err)
+	}
+	return out, true, nil
+}
+
+// serviceRequest is the part of FHIR R4 ServiceRequest halite writes.
+type serviceRequest struct {
+	ResourceType       string          `json:"resourceType"`
+	Status             string          `json:"status"`
+	Intent             string          `json:"intent"`
+	Code               codeableConcept `json:"code"`
+	Subject            reference       `json:"subject"`
+	BasedOn            []reference     `json:"basedOn,omitempty"`
+	OccurrenceDateTime string          `json:"occurrenceDateTime"`
+	Note               []annotation    `json:"note"`
+}
+
+type codeableConcept struct {
+	Coding []Coding `json:"coding"`
+	Text   string   `json:"text"`
+}
+
+type reference struct {
+	Reference string `json:"reference"`
+}
+
+type annotation struct {
+	Text string `json:"text"`
+}
+
+// recheckRequest is a draft ServiceRequest for a serum sodium at at +
+// hours, for the patient in context, based on the draft order when there
+// is one.
+func recheckRequest(in suggestionInput, order string, hours float64) (json.RawMessage, error) {
+	sr := serviceRequest{
+		ResourceType: "ServiceRequest", Status: "draft", Intent: "order",
+		Code:               codeableConcept{Coding: []Coding{{System: LOINCSystem, Code: SodiumLOINC, Display: sodiumDisplay}}, Text: "Serum sodium"},
+		Subject:            reference{Reference: "Patient/" + in.PatientID},
+		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
+		Note:               []annotation{{Text: fmt.Sprintf("Sodium re-check %g h after the order, suggested by halite; timing per local protocol.", hours)}},
+	}
+	if _, ok := in.Drafts[order]; ok {
+		sr.BasedOn = []reference{{Reference: order}}
+	}
+	out, err := json.Marshal(sr)
+	if err != nil {
+		return nil, fmt.Errorf("encode sodium re-check: %w", err)
+	}
+	return out, nil
+}

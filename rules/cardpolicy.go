@@ -1,0 +1,109 @@
+package rules
+
+import (
+	"encoding/json"
+	"fmt"
+	"slices"
+)
+
+// MarshalJSON writes the CDS Hooks indicator code.
+func (i Indicator) MarshalJSON() ([]byte, error) {
+	if i < Info || i > Critical {
+		return nil, fmt.Errorf("indicator %d is not info, warning or critical", int(i))
+	}
+	return json.Marshal(i.String())
+}
+
+// UnmarshalJSON reads "info", "warning" or "critical".
+func (i *Indicator) UnmarshalJSON(data []byte) error {
+	var s string
+	if err := json.Unmarshal(data, &s); err != nil {
+		return fmt.Errorf("indicator: %w", err)
+	}
+	for _, c := range []Indicator{Info, Warning, Critical} {
+		if c.String() == s {
+			*i = c
+			return nil
+		}
+	}
+	return fmt.Errorf("indicator %q is not info, warning or critical", s)
+}
+
+// CardRule is the card policy of one rule: the indicator its card carries
+// (HighRisk at high osmotic-demyelination risk, where the rule makes the
+// distinction) and the interval of the sodium re-check it suggests.
+type CardRule struct {
+	Indicator    Indicator `json:"indicator"`
+	HighRisk     Indicator `json:"highRiskIndicator,omitempty"`
+	RecheckHours float64   `json:"recheckHours"`
+}
+
+// CardPolicy is the indicator table and the thresholds that pick a rule.
+type CardPolicy struct {
+	// HypertonicNaKAtLeast is the infusate Na + K (mmol/L) from which an
+	// order is hypertonic saline and always answered with a card.
+	HypertonicNaKAtLeast float64             `json:"hypertonicNaKAtLeast"`
+	Rules                map[string]CardRule `json:"rules"`
+	Source               string              `json:"source"`
+}
+
+// WaterDrug is a drug acting on renal water handling (a vasopressin V2
+// receptor antagonist or agonist) whose effect on sodium no formula
+// predicts, recognised by RxNorm ingredient or product code, ATC code or
+// name.
+type WaterDrug struct {
+	Name   string   `json:"name"`
+	RxNorm []string `json:"rxnorm"`
+	ATC    []string `json:"atc"`
+	Names  []string `json:"names"`
+	Source string   `json:"source"`
+}
+
+// WaterDrugPolicy sets when an order for a WaterDrug is flagged: sodium
+// below SodiumBelow, high demyelination risk, or a rise of at least
+// RiseAlready24h in the trailing 24 h.
+type WaterDrugPolicy struct {
+	SodiumBelow    float64     `json:"sodiumBelow"`
+	RiseAlready24h float64     `json:"riseAlready24h"`
+	Source         string      `json:"source"`
+	Drugs          []WaterDrug `json:"drugs"`
+}
+
+// infusionRules are the rule ids the card policy must cover.
+var infusionRules = [...]string{RuleLimitExceeded, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug, RuleWaterDrugNoSodium}
+
+func (c CardPolicy) validate() error {
+	if c.HypertonicNaKAtLeast <= 154 || c.Source == "" {
+		return fmt.Errorf("cards needs hypertonicNaKAtLeast above 0.9%% saline's 154 mmol/L and a source")
+	}
+	for _, id := range infusionRules {
+		r, ok := c.Rules[id]
+		if !ok {
+			return fmt.Errorf("cards.rules.%s is missing", id)
+		}
+		if r.Indicator == 0 || r.RecheckHours <= 0 || r.RecheckHours > 72 {
+			return fmt.Errorf("cards.rules.%s needs an indicator and recheckHours between 0 and 72", id)
+		}
+	}
+	for id := range c.Rules {
+		if !slices.Contains(infusionRules[:], id) {
+			return fmt.Errorf("cards.rules.%s is not a rule halite has", id)
+		}
+	}
+	return nil
+}
+
+func (w WaterDrugPolicy) validate() error {
+	if w.SodiumBelow <= 0 || w.RiseAlready24h <= 0 || w.Source == "" {
+		return fmt.Errorf("waterDrugs needs positive thresholds and a source")
+	}
+	for i, d := range w.Drugs {
+		if d.Name == "" || d.Source == "" || len(d.RxNorm)+len(d.ATC)+len(d.Names) == 0 {
+			return fmt.Errorf("waterDrugs.drugs[%d] needs a name, codes or names, and a source", i)
+		}
+	}
+	return nil
+}
+
+// cardRule returns the policy of rule id, which validation guarantees.
+func (r *Ruleset) cardRule(id string) CardRule { return r.policy.Cards.Rules[id] }

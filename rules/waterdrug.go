@@ -1,0 +1,172 @@
+package rules
+
+import (
+	"fmt"
+	"strings"
+	"unicode"
+	"unicode/utf8"
+)
+
+// Code systems halite matches drugs by.
+const (
+	SystemRxNorm = "http://www.nlm.nih.gov/research/umls/rxnorm"
+	SystemATC    = "http://www.whocc.no/atc"
+)
+
+// RuleWaterDrugNoSodium answers a water-balance drug order with no recent
+// sodium to judge it against.
+const RuleWaterDrugNoSodium = "water-balance-drug-no-recent-sodium"
+
+// match finds the water-balance drug an order is for, by RxNorm
+// code, ATC code, ingredient code, or (last) name on word boundaries, and
+// says how it matched.
+func (w WaterDrugPolicy) match(m Medication) (WaterDrug, string, bool) {
+	codings := append([]Coding(nil), m.Codings...)
+	texts := []string{m.Text}
+	for _, ing := range m.Ingredients {
+		codings = append(codings, ing.Codings...)
+		texts = append(texts, ing.Text)
+	}
+	for _, c := range codings {
+		for _, d := range w.Drugs {
+			switch {
+			case c.System == SystemRxNorm && contains(d.RxNorm, c.Code):
+				return d, "RxNorm " + c.Code, true
+			case c.System == SystemATC && contains(d.ATC, c.Code):
+				return d, "ATC " + c.Code, true
+			}
+		}
+	}
+	for _, c := range codings {
+		texts = append(texts, c.Display)
+	}
+	for _, t := range texts {
+		for _, d := range w.Drugs {
+			for _, n := range d.Names {
+				if wordIn(strings.ToLower(t), n) {
+					return d, fmt.Sprintf("name %q", n), true
+				}
+			}
+		}
+	}
+	return WaterDrug{}, "", false
+}
+
+func contains(list []string, s string) bool {
+	for _, x := range list {
+		if x == s {
+			return true
+		}
+	}
+	return false
+}
+
+// wordIn reports whether word occurs in text on word boundaries, so that a
+// name inside another word does not match.
+func wordIn(text, word string) bool {
+	word = strings.ToLower(word)
+	if word == "" {
+		return false
+	}
+	for from := 0; ; {
+		i := strings.Index(text[from:], word)
+		if i < 0 {
+			return false
+		}
+		start, end := from+i, from+i+len(word)
+		before, _ := utf8.DecodeLastRuneInString(text[:start])
+		after, _ := utf8.DecodeRuneInString(text[end:])
+		if (start == 0 || !isWordRune(before)) && (end == len(text) || !isWordRune(after)) {
+			return true
+		}
+		from = start + 1
+	}
+}
+
+func isWordRune(r rune) bool { return unicode.IsLetter(r) || unicode.IsDigit(r) }
+
+// waterDrugFindings flags each selected draft order for a vasopressin
+// receptor antagonist or agonist when the latest sodium is below the
+// policy threshold, the demyelination risk is high, or sodium has already
+// risen by the policy amount in 24 h; and says so when there is no recent
+// sodium to judge the order against. No formula predicts these drugs, so
+// no projection is given.
+func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
+	p := r.policy
+	var out []Finding
+	for _, o := range f.DraftOrders {
+		if !o.Selected {
+			continue
+		}
+		drug, how, ok := p.WaterDrugs.match(o.Medication)
+		if !ok {
+			continue
+		}
+		trend := AnalyseSodium(f.Labs[Sodium], f.At)
+		risk := DemyelinationRisk(p.DemyelinationRisk, f, f.At)
+		latest, haveNa := latestWithin(f.Labs[Sodium], f.At, p.Projection.SodiumMaxAgeHours)
+		var reasons []string
+		fig := map[string]float64{"odsHighRisk": 0}
+		if len(risk) > 0 {
+			fig["odsHighRisk"] = 1
+			reasons = append(reasons, "high osmotic-demyelination risk")
+		}
+		if w := trend.Window24h; w != nil {
+			fig["riseFromNadir24h"], fig["fallFromPeak24h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
+			if w.RiseFromNadir >= p.WaterDrugs.RiseAlready24h {
+				reasons = append(reasons, fmt.Sprintf("a rise of %.1f mmol/L already in 24 h", w.RiseFromNadir))
+			}
+		}
+		if haveNa {
+			fig["sodiumLatest"] = latest.Value
+			if latest.Value < p.WaterDrugs.SodiumBelow {
+				reasons = append([]string{fmt.Sprintf("sodium %g mmol/L", latest.Value)}, reasons...)
+			}
+		}
+		id := RuleWaterDrug
+		var summary string
+		switch {
+		case len(reasons) > 0:
+			summary = fmt.Sprintf("%s order with %s: no formula predicts the sodium change", capitalise(drug.Name), strings.Join(reasons, ", "))
+		case !haveNa:
+			id = RuleWaterDrugNoSodium
+			summary = fmt.Sprintf("%s order: no serum sodium from the last %g h to judge it against", capitalise(drug.Name),
+				p.Projection.SodiumMaxAgeHours)
+		default:
+			continue
+		}
+		rule := r.cardRule(id)
+		var b strings.Builder
+		b.WriteString("**Figures**\n\n")
+		fmt.Fprintf(&b, "- Order: %s, recognised as %s by %s (%s)\n", o.Reference, drug.Name, how, drug.Source)
+		if haveNa {
+			fmt.Fprintf(&b, "- Latest sodium: %g mmol/L (%s, %s)\n", latest.Value, stamp(latest.At), latest.Source)
+		} else {
+			fmt.Fprintf(&b, "- No serum sodium from the last %g h\n", p.Projection.SodiumMaxAgeHours)
+		}
+		if w := trend.Window24h; w != nil {
+			fmt.Fprintf(&b, "- Rise in the last 24 h: %.1f mmol/L from the nadir of %.1f (%s)\n", w.RiseFromNadir, w.Nadir.Value, stamp(w.Nadir.At))
+		}
+		for _, rf := range risk {
+			fmt.Fprintf(&b, "- Demyelination risk factor: %s (%s)\n", rf.Factor, rf.Evidence)
+		}
+		for _, u := range UncheckedRisk(p.DemyelinationRisk, f, f.At) {
+			fmt.Fprintf(&b, "- Not checked for demyelination risk: %s\n", u)
+		}
+		fmt.Fprintf(&b, "- Flagged when sodium is below %g mmol/L, the demyelination risk is high, or sodium has risen %g mmol/L "+
+			"in 24 h (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.RiseAlready24h, p.WaterDrugs.Source)
+		fmt.Fprintf(&b, "- Policy re-check interval for this card: %g h\n", rule.RecheckHours)
+		b.WriteString("\n**Method**: no formula predicts the change these drugs cause (a vasopressin antagonist's aquaresis " +
+			"or an agonist's antidiuresis depends on intake, urine output and other therapy); measured sodium is the guide.")
+		out = append(out, Finding{Rule: id, Indicator: rule.Indicator, Summary: shorten(summary, 139), Detail: b.String(),
+			Figures: fig, Order: o.Reference, Advice: []Advice{recheckAdvice(rule.RecheckHours)}})
+	}
+	return out
+}
+
+func capitalise(s string) string {
+	if s == "" {
+		return s
+	}
+	return strings.ToUpper(s[:1]) + s[1:]
+}
