@@ -66,11 +66,15 @@ func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	// inside it (so a straddling change is not missed, nor overstated by
 	// counting its part before the window).
 	var before *Measurement
+	n := 1 // room for the interpolated start
 	for i, m := range series {
 		if m.At.Before(from) {
 			before = &series[i]
+		} else if !m.At.After(at) {
+			n++
 		}
 	}
+	w.Used = make([]Measurement, 0, n)
 	inside := 0
 	for _, m := range series {
 		if m.At.Before(from) || m.At.After(at) {
