@@ -165,3 +165,32 @@ func TestLoadWithOverride(t *testing.T) {
 		}
 	}
 }
+
+// TestLimitsFromGuidelines holds the embedded limits to their published
+// values (reference notes §1): 10 mmol/L in the first 24 h (Spasovski G et
+// al., Eur J Endocrinol 2014; from memory), 18 in 48 h (Verbalis JG et al.,
+// Am J Med 2013, from memory; the SALSA trial's overcorrection definition,
+// Baek SH et al., JAMA Intern Med 2021 [V]), 8 in any 24 h at high risk
+// (Verbalis 2013 as restated by George JC et al., CJASN 2018 [V]); a fall of
+// 10 per 24 h and 0.5 per hour in hypernatremia (Adrogué HJ, Madias NE,
+// N Engl J Med 2000;342:1493-1499, from memory; the same in a review by
+// Theisen-Toupal J, Mattison MLP [V]). Each must name its source.
+func TestLimitsFromGuidelines(t *testing.T) {
+	l := policy(t).Limits
+	for _, tc := range []struct {
+		name   string
+		got    Limit
+		want   float64
+		author string
+	}{
+		{"hyponatremiaRise24h", l.HyponatremiaRise24h, 10, "Spasovski"},
+		{"hyponatremiaRise48h", l.HyponatremiaRise48h, 18, "Verbalis"},
+		{"hyponatremiaRise24hHighRisk", l.HyponatremiaRise24hHighRisk, 8, "George"},
+		{"hypernatremiaFall24h", l.HypernatremiaFall24h, 10, "Adrogué"},
+		{"hypernatremiaFallPerHour", l.HypernatremiaFallPerHour, 0.5, "Adrogué"},
+	} {
+		if tc.got.Value != tc.want || !strings.Contains(tc.got.Source, tc.author) {
+			t.Errorf("%s = %g (%q), want %g citing %s", tc.name, tc.got.Value, tc.got.Source, tc.want, tc.author)
+		}
+	}
+}
