@@ -64,11 +64,17 @@ func (v *fhirValidator) validate(t *testing.T, raw json.RawMessage) error {
 	return s.Validate(inst)
 }
 
-// TestSuggestedResourcesValidate runs every scenario through the infusion
+// TestFHIRSchema loads the schema once (it is large) and runs its checks.
+func TestFHIRSchema(t *testing.T) {
+	v := newFHIRValidator(t)
+	t.Run("validator rejects broken resources", func(t *testing.T) { validatorRejects(t, v) })
+	t.Run("suggested resources validate", func(t *testing.T) { suggestedResourcesValidate(t, v) })
+}
+
+// suggestedResourcesValidate runs every scenario through the infusion
 // check on both order hooks and validates every resource a suggestion
 // carries against the official FHIR R4 JSON schema.
-func TestSuggestedResourcesValidate(t *testing.T) {
-	v := newFHIRValidator(t)
+func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 	e := testEngine(t, nil)
 	files, err := filepath.Glob(filepath.Join("..", "testdata", "scenarios", "*.json"))
 	if err != nil {
@@ -114,10 +120,9 @@ func TestSuggestedResourcesValidate(t *testing.T) {
 	t.Logf("validated actions: %v", kinds)
 }
 
-// TestFHIRValidatorRejects shows the validator catches a broken resource,
-// so the test above can fail.
-func TestFHIRValidatorRejects(t *testing.T) {
-	v := newFHIRValidator(t)
+// validatorRejects shows the validator catches a broken resource, so the
+// scenario check can fail.
+func validatorRejects(t *testing.T, v *fhirValidator) {
 	good := `{"resourceType":"ServiceRequest","status":"draft","intent":"order","subject":{"reference":"Patient/p"}}`
 	if err := v.validate(t, json.RawMessage(good)); err != nil {
 		t.Fatalf("a minimal valid ServiceRequest was refused: %v", err)
