@@ -27,13 +27,19 @@ var overrideReasons = []Coding{
 	{System: OverrideReasonSystem, Code: "data-not-current", Display: "The data shown are incomplete or not current"},
 }
 
-// cardExtension is the machine-readable part of a card, under "halite".
-type cardExtension struct {
-	Halite struct {
-		Rule    string             `json:"rule"`
-		Ruleset string             `json:"ruleset"`
-		Figures map[string]float64 `json:"figures,omitempty"`
-	} `json:"halite"`
+// cardExtension is the machine-readable part of a card, under "halite":
+// the rule, the ruleset revision, the figures, and the finding's other
+// attributes beside them.
+func cardExtension(f rules.Finding, revision string) (json.RawMessage, error) {
+	h := make(map[string]any, len(f.Attributes)+3)
+	for k, v := range f.Attributes {
+		h[k] = v
+	}
+	h["rule"], h["ruleset"] = f.Rule, revision
+	if len(f.Figures) > 0 {
+		h["figures"] = f.Figures
+	}
+	return json.Marshal(map[string]any{"halite": h})
 }
 
 // renderCards words findings as cards, each with a uuid (so feedback can
@@ -43,12 +49,7 @@ type cardExtension struct {
 func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Card, error) {
 	cards := make([]Card, 0, len(fs))
 	for _, f := range fs {
-		var ext cardExtension
-		ext.Halite.Rule, ext.Halite.Ruleset = f.Rule, revision
-		if len(f.Figures) > 0 {
-			ext.Halite.Figures = f.Figures
-		}
-		extJSON, err := json.Marshal(ext)
+		extJSON, err := cardExtension(f, revision)
 		if err != nil { // a NaN or infinite figure
 			return nil, fmt.Errorf("render %s: %w", f.Rule, err)
 		}

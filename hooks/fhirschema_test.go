@@ -71,8 +71,8 @@ func TestFHIRSchema(t *testing.T) {
 	t.Run("suggested resources validate", func(t *testing.T) { suggestedResourcesValidate(t, v) })
 }
 
-// suggestedResourcesValidate runs every scenario through the infusion
-// check on both order hooks and validates every resource a suggestion
+// suggestedResourcesValidate runs every scenario through the order-hook
+// services on both order hooks and validates every resource a suggestion
 // carries against the official FHIR R4 JSON schema.
 func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 	e := testEngine(t, nil)
@@ -83,13 +83,15 @@ func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 	kinds := map[string]int{}
 	for _, file := range files {
 		name := filepath.Base(file)
-		for _, hook := range []string{HookOrderSelect, HookOrderSign} {
-			req, err := BuildRequest(loadScenario(t, name), mustService(t, "sodium-infusion-check"),
+		for _, call := range [][2]string{{"sodium-infusion-check", HookOrderSelect}, {"sodium-infusion-check", HookOrderSign},
+			{"sodium-drug-risk", HookOrderSelect}, {"sodium-drug-risk", HookOrderSign}} {
+			svc, hook := call[0], call[1]
+			req, err := BuildRequest(loadScenario(t, name), mustService(t, svc),
 				RequestOptions{Hook: hook, UserID: "Practitioner/test-user"})
 			if err != nil {
 				continue // a scenario without draft orders cannot make an order hook call
 			}
-			out, err := e.Handle(t.Context(), "sodium-infusion-check", mustMarshal(t, req), scenarioAt)
+			out, err := e.Handle(t.Context(), svc, mustMarshal(t, req), scenarioAt)
 			if err != nil {
 				t.Fatalf("%s %s: %v", name, hook, err)
 			}

@@ -75,10 +75,10 @@ func NewRegistry() *Registry {
 			Description: "Checks draft medication orders whose ingredients raise the risk of hyponatremia (SIADH and " +
 				"related mechanisms) or of nephrogenic diabetes insipidus, judged against this patient's sodium, age and " +
 				"active medications. Advisory only.",
-			UsageRequirements: "Needs the patient's recent serum sodium and active MedicationRequests; medications " +
-				"coded with RxNorm or ATC are matched most reliably.",
+			UsageRequirements: "Needs the patient's recent serum sodium and active MedicationRequests; serum and urine " +
+				"osmolality for the concentrating-defect pattern; medications coded with RxNorm or ATC are matched most reliably.",
 			Check:    rules.DrugRisk,
-			Prefetch: []PrefetchKey{k.patient, k.sodium, k.medications},
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.medications},
 		},
 		{
 			ID:    "sodium-chart-review",

@@ -67,14 +67,19 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 			}
 			actions = []Action{
 				{Type: "update", Description: fmt.Sprintf("Set the infusion rate of the draft order to %s mL/h", formatRate(adv.RateMlPerHour)), Resource: updated},
-				{Type: "create", Description: fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, adv.RecheckHours), Resource: recheck},
+				{Type: "create", Description: recheckDescription(adv.RecheckHours), Resource: recheck},
 			}
 		case rules.AdviseRecheck:
-			recheck, err := recheckRequest(in, f.Order, adv.RecheckHours)
-			if err != nil {
-				return nil, err
+			for _, h := range []float64{adv.RecheckHours, adv.FollowUpHours} {
+				if h == 0 && len(actions) > 0 {
+					break // no follow-up
+				}
+				recheck, err := recheckRequest(in, f.Order, h)
+				if err != nil {
+					return nil, err
+				}
+				actions = append(actions, Action{Type: "create", Description: recheckDescription(h), Resource: recheck})
 			}
-			actions = []Action{{Type: "create", Description: fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, adv.RecheckHours), Resource: recheck}}
 		case rules.AdviseWithdraw:
 			if _, ok := in.Drafts[f.Order]; !ok {
 				continue
@@ -86,6 +91,16 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 		out = append(out, Suggestion{Label: adv.Label, UUID: uuid.NewString(), IsRecommended: adv.Recommended, Actions: actions})
 	}
 	return out, nil
+}
+
+func recheckDescription(hours float64) string {
+	switch {
+	case hours == 0:
+		return fmt.Sprintf("Order a serum sodium (LOINC %s) now", SodiumLOINC)
+	case hours >= 48:
+		return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g days", SodiumLOINC, hours/24)
+	}
+	return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, hours)
 }
 
 func formatRate(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
@@ -168,7 +183,7 @@ func recheckRequest(in suggestionInput, order string, hours float64) (json.RawMe
 		Code:               codeableConcept{Coding: []Coding{{System: LOINCSystem, Code: SodiumLOINC, Display: sodiumDisplay}}, Text: "Serum sodium"},
 		Subject:            reference{Reference: "Patient/" + in.PatientID},
 		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
-		Note:               []annotation{{Text: fmt.Sprintf("Sodium re-check %g h after the order, suggested by halite; timing per local protocol.", hours)}},
+		Note:               []annotation{{Text: "Serum sodium check suggested by halite; timing per local protocol."}},
 	}
 	if _, ok := in.Drafts[order]; ok {
 		sr.BasedOn = []reference{{Reference: order}}

@@ -99,7 +99,13 @@ func TestRenderCards(t *testing.T) {
 	if c.Indicator != "critical" || !strings.HasSuffix(c.Detail, Caution) || !strings.HasPrefix(c.Detail, "Figures.") {
 		t.Errorf("card %+v", c)
 	}
-	var ext cardExtension
+	var ext struct {
+		Halite struct {
+			Rule    string             `json:"rule"`
+			Ruleset string             `json:"ruleset"`
+			Figures map[string]float64 `json:"figures"`
+		} `json:"halite"`
+	}
 	if err := json.Unmarshal(c.Extension, &ext); err != nil {
 		t.Fatal(err)
 	}

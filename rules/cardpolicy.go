@@ -107,3 +107,52 @@ func (w WaterDrugPolicy) validate() error {
 
 // cardRule returns the policy of rule id, which validation guarantees.
 func (r *Ruleset) cardRule(id string) CardRule { return r.policy.Cards.Rules[id] }
+
+// SodiumBand gives the indicator of a hyponatremia-risk drug card when the
+// latest sodium is below Below; WeakerEvidence (if set) applies to drugs
+// whose evidence is not strong.
+type SodiumBand struct {
+	Below          float64   `json:"below"`
+	Indicator      Indicator `json:"indicator"`
+	WeakerEvidence Indicator `json:"weakerEvidenceIndicator,omitempty"`
+}
+
+// DrugRiskPolicy is the severity table of the drug-risk check.
+type DrugRiskPolicy struct {
+	SodiumMaxAgeHours float64      `json:"sodiumMaxAgeHours"`
+	Bands             []SodiumBand `json:"bands"` // ascending by Below
+	// RenewalStepDownFrom: a renewal is one step lower than a new start
+	// when the sodium is at or above this value.
+	RenewalStepDownFrom   float64 `json:"renewalStepDownFrom"`
+	ElderlyFromAge        int     `json:"elderlyFromAge"`
+	FallWindowHours       int     `json:"fallWindowHours"`
+	FallAtLeast           float64 `json:"fallAtLeast"`
+	HypernatremiaAbove    float64 `json:"hypernatremiaAbove"`
+	SerumOsmolalityAbove  float64 `json:"serumOsmolalityAbove"`
+	UrineOsmolalityBelow  float64 `json:"urineOsmolalityBelow"`
+	LabPairHours          float64 `json:"labPairHours"`
+	LowSodiumRecheckHours float64 `json:"lowSodiumRecheckHours"`
+	NewStartFollowUpHours float64 `json:"newStartFollowUpHours"`
+	Source                string  `json:"source"`
+}
+
+func (d DrugRiskPolicy) validate() error {
+	if d.SodiumMaxAgeHours <= 0 || d.Source == "" || len(d.Bands) == 0 {
+		return fmt.Errorf("drugRisk needs sodiumMaxAgeHours, bands and a source")
+	}
+	for i, b := range d.Bands {
+		if b.Indicator == 0 || (i > 0 && b.Below <= d.Bands[i-1].Below) {
+			return fmt.Errorf("drugRisk.bands[%d] needs an indicator and a threshold above the previous band", i)
+		}
+	}
+	for name, v := range map[string]float64{"renewalStepDownFrom": d.RenewalStepDownFrom, "fallAtLeast": d.FallAtLeast,
+		"hypernatremiaAbove": d.HypernatremiaAbove, "serumOsmolalityAbove": d.SerumOsmolalityAbove,
+		"urineOsmolalityBelow": d.UrineOsmolalityBelow, "labPairHours": d.LabPairHours,
+		"lowSodiumRecheckHours": d.LowSodiumRecheckHours, "newStartFollowUpHours": d.NewStartFollowUpHours,
+		"elderlyFromAge": float64(d.ElderlyFromAge), "fallWindowHours": float64(d.FallWindowHours)} {
+		if v <= 0 {
+			return fmt.Errorf("drugRisk.%s must be positive", name)
+		}
+	}
+	return nil
+}

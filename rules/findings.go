@@ -33,6 +33,9 @@ type Finding struct {
 	// Figures are the machine-readable numbers, named in camelCase with unit
 	// suffixes where needed (e.g. "riseFromNadir24h", "tbwLitres").
 	Figures map[string]float64
+	// Attributes are machine-readable values that are not numbers (the
+	// drug-risk check's ingredient, evidence, match, multipliers).
+	Attributes map[string]any
 	// Order is the draft order the finding is about ("MedicationRequest/id"),
 	// empty for a finding about the chart.
 	Order string
@@ -61,9 +64,11 @@ type Advice struct {
 	// RateMlPerHour is the new rate (AdviseRate).
 	RateMlPerHour float64
 	// RecheckHours is when to re-check sodium, from the evaluation time
-	// (AdviseRate and AdviseRecheck).
+	// (AdviseRate and AdviseRecheck); 0 is now.
 	RecheckHours float64
-	Recommended  bool
+	// FollowUpHours, when set, adds a second sodium check at that time.
+	FollowUpHours float64
+	Recommended   bool
 }
 
 // Check names what a service evaluates; each check runs its own rule families.
@@ -78,12 +83,14 @@ const (
 
 // Evaluate runs the rule families of check c over f and returns the
 // actionable findings. No finding means nothing is actionable, which is
-// answered as an empty card list. The drug-risk and chart-review families
-// are not written yet.
+// answered as an empty card list. The chart-review family is not written
+// yet.
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	switch c {
 	case InfusionCheck:
 		return append(r.infusionFindings(f), r.waterDrugFindings(f)...)
+	case DrugRisk:
+		return r.drugRiskFindings(f)
 	}
 	return nil
 }

@@ -90,6 +90,7 @@ type Policy struct {
 	Projection        ProjectionPolicy        `json:"projection"`
 	Cards             CardPolicy              `json:"cards"`
 	WaterDrugs        WaterDrugPolicy         `json:"waterDrugs"`
+	DrugRisk          DrugRiskPolicy          `json:"drugRisk"`
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 }
@@ -100,6 +101,7 @@ type Ruleset struct {
 	revision string
 	policy   Policy
 	fluids   *fluidTable
+	drugs    *drugKB
 }
 
 // Load parses and validates the embedded policy data.
@@ -120,8 +122,15 @@ func LoadWithOverride(override []byte) (*Ruleset, error) {
 	if rs.fluids, err = parseFluids(embeddedInfusates); err != nil {
 		return nil, err
 	}
-	// The revision covers the fluid table too.
-	sum := sha256.Sum256(append([]byte(rs.revision), embeddedInfusates...))
+	if rs.drugs, err = parseDrugs(embeddedDrugs, embeddedProducts); err != nil {
+		return nil, err
+	}
+	// The revision covers the fluid table and the drug knowledge base too.
+	h := sha256.New()
+	for _, part := range [][]byte{[]byte(rs.revision), embeddedInfusates, embeddedDrugs, embeddedProducts} {
+		h.Write(part)
+	}
+	sum := h.Sum(nil)
 	rs.revision = rs.policy.Version + "+" + hex.EncodeToString(sum[:8])
 	return rs, nil
 }
@@ -152,6 +161,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.WaterDrugs.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.DrugRisk.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	for _, a := range Analytes() {

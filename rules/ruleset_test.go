@@ -63,7 +63,7 @@ func TestParseRejectsBadPolicy(t *testing.T) {
 		},
 		"TBW fraction above 1": func(s string) string { return strings.Replace(s, `"child": 0.6`, `"child": 1.2`, 1) },
 		"elderly age below adult age": func(s string) string {
-			return strings.Replace(s, `"elderlyFromAge": 65`, `"elderlyFromAge": 10`, 1)
+			return strings.Replace(s, `"adultFromAge": 18, "elderlyFromAge": 65`, `"adultFromAge": 18, "elderlyFromAge": 10`, 1)
 		},
 	} {
 		edited := edit(string(embeddedPolicy))

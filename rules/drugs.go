@@ -1,0 +1,259 @@
+package rules
+
+import (
+	"bufio"
+	"bytes"
+	_ "embed"
+	"fmt"
+	"sort"
+	"strings"
+)
+
+//go:embed data/drugs.json
+var embeddedDrugs []byte
+
+//go:embed data/rxnorm-products.tsv
+var embeddedProducts []byte
+
+// Sodium effects a drug can have.
+const (
+	EffectHyponatremia  = "hyponatremia"
+	EffectNephrogenicDI = "nephrogenic-di"
+	EffectRapidRise     = "rapid-sodium-rise"
+)
+
+// Evidence strengths, halite's own three words (drugs.json defines them).
+const (
+	EvidenceStrong   = "strong"
+	EvidenceModerate = "moderate"
+	EvidenceLimited  = "limited"
+)
+
+// DrugEffect is one sodium effect of an ingredient with its evidence.
+type DrugEffect struct {
+	Effect    string `json:"effect"`
+	Mechanism string `json:"mechanism,omitempty"` // hyponatremia: SIADH, renal-salt-loss or other
+	Evidence  string `json:"evidence"`
+	Citation  string `json:"citation"`
+	Note      string `json:"note"`
+}
+
+// DrugIngredient is one knowledge-base entry.
+type DrugIngredient struct {
+	Name     string       `json:"name"`
+	RxNorm   []string     `json:"rxnorm"` // ingredient codes (IN, PIN)
+	ATC      []string     `json:"atc"`    // level-5 codes
+	Class    string       `json:"class"`
+	Synonyms []string     `json:"synonyms,omitempty"`
+	Effects  []DrugEffect `json:"effects"`
+	// IntendedToRaiseSodium marks drugs given to raise sodium (vaptans,
+	// demeclocycline): judged on hypernatremia, not as a risk.
+	IntendedToRaiseSodium bool `json:"intendedToRaiseSodium,omitempty"`
+}
+
+// Effect returns the ingredient's effect e, if it has it.
+func (d DrugIngredient) Effect(e string) (DrugEffect, bool) {
+	for _, x := range d.Effects {
+		if x.Effect == e {
+			return x, true
+		}
+	}
+	return DrugEffect{}, false
+}
+
+// DrugClass groups ingredients.
+type DrugClass struct {
+	ID   string `json:"id"`
+	Name string `json:"name"`
+}
+
+// drugKB is the knowledge base indexed for matching.
+type drugKB struct {
+	Note        string            `json:"note"`
+	Evidence    map[string]string `json:"evidence"`
+	Classes     []DrugClass       `json:"classes"`
+	Ingredients []DrugIngredient  `json:"ingredients"`
+	byRxNorm    map[string]int    // ingredient code → entry
+	byProduct   map[string][]int  // SCD/SCDC code → entries
+	byATC       map[string]int    // level-5 code → entry
+	byClassATC  map[string][]int  // level-4 code → entries
+	names       []nameEntry       // every name and synonym, longest first
+}
+
+type nameEntry struct {
+	name  string
+	entry int
+}
+
+var effects = map[string]bool{EffectHyponatremia: true, EffectNephrogenicDI: true, EffectRapidRise: true}
+var mechanisms = map[string]bool{"SIADH": true, "renal-salt-loss": true, "other": true}
+
+func parseDrugs(data, products []byte) (*drugKB, error) {
+	kb := &drugKB{byRxNorm: map[string]int{}, byProduct: map[string][]int{}, byATC: map[string]int{}, byClassATC: map[string][]int{}}
+	if err := decodeStrict(data, kb); err != nil {
+		return nil, fmt.Errorf("load drugs: %w", err)
+	}
+	for _, ev := range []string{EvidenceStrong, EvidenceModerate, EvidenceLimited} {
+		if kb.Evidence[ev] == "" {
+			return nil, fmt.Errorf("load drugs: evidence %q is not defined", ev)
+		}
+	}
+	classes := map[string]bool{}
+	for _, c := range kb.Classes {
+		classes[c.ID] = true
+	}
+	for i, d := range kb.Ingredients {
+		if d.Name == "" || len(d.RxNorm)+len(d.ATC) == 0 || !classes[d.Class] || len(d.Effects) == 0 {
+			return nil, fmt.Errorf("load drugs: ingredients[%d] (%s) needs a name, codes, a known class and effects", i, d.Name)
+		}
+		for _, e := range d.Effects {
+			if !effects[e.Effect] || kb.Evidence[e.Evidence] == "" || e.Citation == "" ||
+				(e.Effect == EffectHyponatremia) != mechanisms[e.Mechanism] {
+				return nil, fmt.Errorf("load drugs: %s: effect %+v needs a known effect, evidence and citation (and a mechanism for hyponatremia only)", d.Name, e)
+			}
+		}
+		for _, c := range d.RxNorm {
+			if _, dup := kb.byRxNorm[c]; dup {
+				return nil, fmt.Errorf("load drugs: RxNorm %s is listed twice", c)
+			}
+			kb.byRxNorm[c] = i
+		}
+		for _, c := range d.ATC {
+			if len(c) != 7 {
+				return nil, fmt.Errorf("load drugs: %s: ATC %q is not a level-5 code", d.Name, c)
+			}
+			kb.byATC[c] = i
+			kb.byClassATC[c[:5]] = append(kb.byClassATC[c[:5]], i)
+		}
+		for _, n := range append([]string{d.Name}, d.Synonyms...) {
+			kb.names = append(kb.names, nameEntry{strings.ToLower(n), i})
+		}
+	}
+	sort.SliceStable(kb.names, func(a, b int) bool { return len(kb.names[a].name) > len(kb.names[b].name) })
+	if err := kb.readProducts(products); err != nil {
+		return nil, err
+	}
+	return kb, nil
+}
+
+// readProducts maps product codes (SCD, SCDC) to the entries of their
+// ingredients from the RxNorm extract (tab-separated, '#' provenance lines).
+func (kb *drugKB) readProducts(data []byte) error {
+	sc := bufio.NewScanner(bytes.NewReader(data))
+	line := 0
+	for sc.Scan() {
+		line++
+		text := sc.Text()
+		if strings.HasPrefix(text, "#") || strings.HasPrefix(text, "ingredient_rxcui") || text == "" {
+			continue
+		}
+		f := strings.Split(text, "\t")
+		if len(f) != 6 {
+			return fmt.Errorf("load drug products: line %d has %d fields, want 6", line, len(f))
+		}
+		i, ok := kb.byRxNorm[f[0]]
+		if !ok {
+			continue // an ingredient with no sodium effect (e.g. sodium chloride)
+		}
+		if !containsInt(kb.byProduct[f[3]], i) {
+			kb.byProduct[f[3]] = append(kb.byProduct[f[3]], i)
+		}
+	}
+	return sc.Err()
+}
+
+func containsInt(list []int, v int) bool {
+	for _, x := range list {
+		if x == v {
+			return true
+		}
+	}
+	return false
+}
+
+// DrugMatch is one ingredient an order was recognised as, and how.
+type DrugMatch struct {
+	Ingredient DrugIngredient
+	// By says how it matched, e.g. "RxNorm 36437 (ingredient)", "RxNorm
+	// 312940 (product)", "ATC N06AB06", "ATC class N06AB", "name \"sertraline\"".
+	By string
+	// Code is the RxNorm ingredient code of the entry (its first), for the
+	// card's extension.
+	Code string
+}
+
+// MatchDrug recognises the knowledge-base ingredients of a medication: by
+// RxNorm ingredient or product code, by ATC code or class (on the
+// medication or its ingredients), and by name on word boundaries as a last
+// resort. A multi-ingredient product matches every listed ingredient.
+func (r *Ruleset) MatchDrug(m Medication) []DrugMatch {
+	kb := r.drugs
+	var out []DrugMatch
+	seen := map[int]bool{}
+	add := func(i int, by string) {
+		if seen[i] {
+			return
+		}
+		seen[i] = true
+		d := kb.Ingredients[i]
+		code := ""
+		if len(d.RxNorm) > 0 {
+			code = d.RxNorm[0]
+		}
+		out = append(out, DrugMatch{Ingredient: d, By: by, Code: code})
+	}
+	codings := append([]Coding(nil), m.Codings...)
+	for _, ing := range m.Ingredients {
+		codings = append(codings, ing.Codings...)
+	}
+	for _, c := range codings {
+		switch c.System {
+		case SystemRxNorm:
+			if i, ok := kb.byRxNorm[c.Code]; ok {
+				add(i, "RxNorm "+c.Code+" (ingredient)")
+			}
+			for _, i := range kb.byProduct[c.Code] {
+				add(i, "RxNorm "+c.Code+" (product)")
+			}
+		case SystemATC:
+			if i, ok := kb.byATC[c.Code]; ok {
+				add(i, "ATC "+c.Code)
+			} else if len(c.Code) == 5 {
+				for _, i := range kb.byClassATC[c.Code] {
+					add(i, "ATC class "+c.Code)
+				}
+			}
+		}
+	}
+	if len(out) > 0 {
+		return out
+	}
+	texts := []string{m.Text}
+	for _, ing := range m.Ingredients {
+		texts = append(texts, ing.Text)
+	}
+	for _, c := range codings {
+		texts = append(texts, c.Display)
+	}
+	for _, t := range texts {
+		t = strings.ToLower(t)
+		for _, n := range kb.names {
+			if wordIn(t, n.name) {
+				add(n.entry, fmt.Sprintf("name %q", n.name))
+			}
+		}
+	}
+	return out
+}
+
+// Drugs returns the knowledge base's ingredients, for listing.
+func (r *Ruleset) Drugs() []DrugIngredient { return r.drugs.Ingredients }
+
+// DrugClasses returns the knowledge base's classes.
+func (r *Ruleset) DrugClasses() []DrugClass { return r.drugs.Classes }
+
+// DrugNote is the knowledge base's provenance note.
+func (r *Ruleset) DrugNote() string { return r.drugs.Note }
+
+// EvidenceMeaning says what an evidence word means.
+func (r *Ruleset) EvidenceMeaning(e string) string { return r.drugs.Evidence[e] }
