@@ -44,3 +44,54 @@ func BenchmarkEvaluate(b *testing.B) {
 		rs.Evaluate(InfusionCheck, f)
 	}
 }
+
+// BenchmarkMatchDrug matches one product-coded order, then one named only
+// in text (the slowest path: every name of the knowledge base), against the
+// whole knowledge base.
+func BenchmarkMatchDrug(b *testing.B) {
+	rs, err := Load()
+	if err != nil {
+		b.Fatal(err)
+	}
+	coded := Medication{Codings: []Coding{{System: SystemRxNorm, Code: "200371"}}}
+	named := Medication{Text: "escitalopram 10 mg tablet, take one daily"}
+	if len(rs.MatchDrug(coded)) != 1 || len(rs.MatchDrug(named)) != 1 {
+		b.Fatal("benchmark orders did not match")
+	}
+	b.Run("product code", func(b *testing.B) {
+		b.ReportAllocs()
+		for b.Loop() {
+			rs.MatchDrug(coded)
+		}
+	})
+	b.Run("name", func(b *testing.B) {
+		b.ReportAllocs()
+		for b.Loop() {
+			rs.MatchDrug(named)
+		}
+	})
+}
+
+// BenchmarkEvaluateDrugRisk: the drug-risk check on the same call with 20
+// active medications (a mix of coded and named, some risk drugs).
+func BenchmarkEvaluateDrugRisk(b *testing.B) {
+	rs, err := Load()
+	if err != nil {
+		b.Fatal(err)
+	}
+	f := benchFacts(b)
+	names := []string{"omeprazole", "metformin", "amlodipine", "atorvastatin", "hydrochlorothiazide"}
+	for i := 0; i < 20; i++ {
+		f.Medications = append(f.Medications, MedicationOrder{Reference: "MedicationRequest/m", Status: "active",
+			Medication: Medication{Text: names[i%len(names)] + " tablet"}})
+	}
+	f.DraftOrders = append(f.DraftOrders, MedicationOrder{Reference: "MedicationRequest/s", Status: "draft", Selected: true,
+		Medication: Medication{Codings: []Coding{{System: SystemRxNorm, Code: "200371"}}}})
+	if n := len(rs.Evaluate(DrugRisk, f)); n != 1 {
+		b.Fatalf("%d findings, want 1 (citalopram)", n)
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		rs.Evaluate(DrugRisk, f)
+	}
+}

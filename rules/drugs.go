@@ -5,7 +5,7 @@ import (
 	"bytes"
 	_ "embed"
 	"fmt"
-	"sort"
+	"slices"
 	"strings"
 )
 
@@ -77,19 +77,29 @@ type drugKB struct {
 	byProduct   map[string][]int  // SCD/SCDC code → entries
 	byATC       map[string]int    // level-5 code → entry
 	byClassATC  map[string][]int  // level-4 code → entries
-	names       []nameEntry       // every name and synonym, longest first
+	// byFirstWord indexes every name and synonym, as words, by its first
+	// word, so a text is matched in one pass over its words.
+	byFirstWord map[string][]nameEntry
 }
 
 type nameEntry struct {
 	name  string
+	words []string
 	entry int
+}
+
+// words splits lower-cased text into its runs of letters and digits, so
+// names match on word boundaries only.
+func words(text string) []string {
+	return strings.FieldsFunc(strings.ToLower(text), func(r rune) bool { return !isWordRune(r) })
 }
 
 var effects = map[string]bool{EffectHyponatremia: true, EffectNephrogenicDI: true, EffectRapidRise: true}
 var mechanisms = map[string]bool{"SIADH": true, "renal-salt-loss": true, "other": true}
 
 func parseDrugs(data, products []byte) (*drugKB, error) {
-	kb := &drugKB{byRxNorm: map[string]int{}, byProduct: map[string][]int{}, byATC: map[string]int{}, byClassATC: map[string][]int{}}
+	kb := &drugKB{byRxNorm: map[string]int{}, byProduct: map[string][]int{}, byATC: map[string]int{}, byClassATC: map[string][]int{},
+		byFirstWord: map[string][]nameEntry{}}
 	if err := decodeStrict(data, kb); err != nil {
 		return nil, fmt.Errorf("load drugs: %w", err)
 	}
@@ -126,10 +136,13 @@ func parseDrugs(data, products []byte) (*drugKB, error) {
 			kb.byClassATC[c[:5]] = append(kb.byClassATC[c[:5]], i)
 		}
 		for _, n := range append([]string{d.Name}, d.Synonyms...) {
-			kb.names = append(kb.names, nameEntry{strings.ToLower(n), i})
+			w := words(n)
+			if len(w) == 0 {
+				return nil, fmt.Errorf("load drugs: %s: name %q has no words", d.Name, n)
+			}
+			kb.byFirstWord[w[0]] = append(kb.byFirstWord[w[0]], nameEntry{strings.ToLower(n), w, i})
 		}
 	}
-	sort.SliceStable(kb.names, func(a, b int) bool { return len(kb.names[a].name) > len(kb.names[b].name) })
 	if err := kb.readProducts(products); err != nil {
 		return nil, err
 	}
@@ -236,10 +249,12 @@ func (r *Ruleset) MatchDrug(m Medication) []DrugMatch {
 		texts = append(texts, c.Display)
 	}
 	for _, t := range texts {
-		t = strings.ToLower(t)
-		for _, n := range kb.names {
-			if wordIn(t, n.name) {
-				add(n.entry, fmt.Sprintf("name %q", n.name))
+		ws := words(t)
+		for i, w := range ws {
+			for _, n := range kb.byFirstWord[w] {
+				if i+len(n.words) <= len(ws) && slices.Equal(ws[i:i+len(n.words)], n.words) {
+					add(n.entry, fmt.Sprintf("name %q", n.name))
+				}
 			}
 		}
 	}

@@ -39,6 +39,7 @@ var knownGaps = map[string]string{
 	"RxNorm 1369 bendroflumethiazide": "from memory; not in the prescribable subset",
 	"RxNorm 1482501 eslicarbazepine":  "clinical-sources §7.2 [V] (PIN eslicarbazepine acetate; the extract lists the IN only)",
 	"RxNorm 42634 desmopressin":       "clinical-sources §7.2 [V] (PIN desmopressin acetate; the extract lists the IN only)",
+	"RxNorm 10635 tolbutamide":        "clinical-sources §7.2, from memory; absent from the prescribable subset",
 	"RxNorm 4337 fentanyl":            "clinical-sources §7.2 [V]; the extract was not asked for fentanyl",
 	"ATC N02AB03 fentanyl":            "clinical-sources §7.2 [V]; the ATC extract was not asked for fentanyl",
 }

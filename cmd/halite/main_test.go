@@ -531,3 +531,32 @@ func TestEvalPolicyOverride(t *testing.T) {
 		t.Errorf("bad override: %v", err)
 	}
 }
+
+// TestRulesCommand: halite rules prints the revision, thresholds and the
+// knowledge base; --json is the same as data.
+func TestRulesCommand(t *testing.T) {
+	var out bytes.Buffer
+	if err := run(context.Background(), []string{"rules"}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	text := out.String()
+	for _, want := range []string{"ruleset 2026.", "hyponatremia rise per 24 h", "sodium-projected-over-limit",
+		"sodium below 125", "sertraline", "RxNorm 36437", "lithium", "re-validate every code"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("rules output lacks %q", want)
+		}
+	}
+	out.Reset()
+	if err := run(context.Background(), []string{"rules", "--json"}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	var doc struct {
+		Ruleset string `json:"ruleset"`
+		Drugs   struct {
+			Ingredients []json.RawMessage `json:"ingredients"`
+		} `json:"drugs"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &doc); err != nil || !strings.HasPrefix(doc.Ruleset, "2026.") || len(doc.Drugs.Ingredients) < 80 {
+		t.Errorf("rules --json: %v, %s, %d ingredients", err, doc.Ruleset, len(doc.Drugs.Ingredients))
+	}
+}

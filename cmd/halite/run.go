@@ -18,7 +18,8 @@ const usage = `halite: sodium safety checks as a CDS Hooks 2.0 service.
 
 Usage:
   halite serve   [--config FILE] [--addr HOST:PORT]
-  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] BUNDLE
+  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE
+  halite rules   [--policy-override FILE] [--json]
   halite request --hook HOOK [--service ID] BUNDLE
   halite serve-bundle [--addr HOST:PORT] [--page-size N] [--token T] BUNDLE
   halite help
@@ -38,6 +39,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = serve(ctx, rest, stdout, stderr)
 	case "eval":
 		err = eval(ctx, rest, stdout, stderr)
+	case "rules":
+		err = rulesCmd(rest, stdout, stderr)
 	case "request":
 		err = request(rest, stdout, stderr)
 	case "serve-bundle":

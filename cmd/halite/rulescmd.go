@@ -1,0 +1,105 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"sort"
+	"strings"
+	"text/tabwriter"
+
+	"github.com/halite-cds/halite/rules"
+)
+
+// rulesCmd prints the ruleset in force: its revision, the thresholds and
+// card policy, and the drug knowledge base, as text or (--json) as data.
+func rulesCmd(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("rules", "rules [--policy-override FILE] [--json]", stderr)
+	policy := fs.String("policy-override", "", "apply a site policy override `file` first")
+	asJSON := fs.Bool("json", false, "print the effective policy and knowledge base as JSON")
+	rest, err := parseFlags(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(rest) > 0 {
+		return errors.New("rules takes no arguments")
+	}
+	rs, err := loadRuleset(*policy)
+	if err != nil {
+		return err
+	}
+	if *asJSON {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		return enc.Encode(map[string]any{"ruleset": rs.Revision(), "policy": rs.Policy(),
+			"drugs": map[string]any{"note": rs.DrugNote(), "classes": rs.DrugClasses(), "ingredients": rs.Drugs()}})
+	}
+	p := rs.Policy()
+	tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', 0)
+	fmt.Fprintf(tw, "ruleset %s\n\n== limits\n", rs.Revision())
+	l := p.Limits
+	for _, x := range []struct {
+		name string
+		lim  rules.Limit
+	}{{"hyponatremia rise per 24 h", l.HyponatremiaRise24h}, {"hyponatremia rise per 48 h", l.HyponatremiaRise48h},
+		{"hyponatremia rise per 24 h, high risk", l.HyponatremiaRise24hHighRisk}, {"hypernatremia fall per 24 h", l.HypernatremiaFall24h},
+		{"hypernatremia fall per hour", l.HypernatremiaFallPerHour}} {
+		fmt.Fprintf(tw, "%s\t%g %s\t%s\n", x.name, x.lim.Value, x.lim.Unit, x.lim.Source)
+	}
+	fmt.Fprintf(tw, "\n== infusion cards (hypertonic from Na + K %g mmol/L)\n", p.Cards.HypertonicNaKAtLeast)
+	ids := make([]string, 0, len(p.Cards.Rules))
+	for id := range p.Cards.Rules {
+		ids = append(ids, id)
+	}
+	sort.Strings(ids)
+	for _, id := range ids {
+		r := p.Cards.Rules[id]
+		ind := r.Indicator.String()
+		if r.HighRisk != 0 {
+			ind += " (high risk: " + r.HighRisk.String() + ")"
+		}
+		fmt.Fprintf(tw, "%s\t%s\tre-check %g h\n", id, ind, r.RecheckHours)
+	}
+	d := p.DrugRisk
+	fmt.Fprintf(tw, "\n== drug-risk thresholds\n")
+	for _, b := range d.Bands {
+		weaker := ""
+		if b.WeakerEvidence != 0 {
+			weaker = " (" + b.WeakerEvidence.String() + " unless the evidence is strong)"
+		}
+		fmt.Fprintf(tw, "sodium below %g\t%s%s\n", b.Below, b.Indicator, weaker)
+	}
+	fmt.Fprintf(tw, "renewal one step lower from\t%g mmol/L\n", d.RenewalStepDownFrom)
+	fmt.Fprintf(tw, "sodium counts as recent for\t%g days\n", d.SodiumMaxAgeHours/24)
+	fmt.Fprintf(tw, "risk multipliers\tage >= %d; another risk drug; a thiazide; a fall >= %g mmol/L in %d days\n",
+		d.ElderlyFromAge, d.FallAtLeast, d.FallWindowHours/24)
+	fmt.Fprintf(tw, "nephrogenic DI\tsodium > %g, or serum osmolality > %g with urine osmolality < %g\n",
+		d.HypernatremiaAbove, d.SerumOsmolalityAbove, d.UrineOsmolalityBelow)
+	fmt.Fprintf(tw, "source\t%s\n", d.Source)
+	fmt.Fprintf(tw, "\n== drug knowledge base (%d ingredients)\n", len(rs.Drugs()))
+	byClass := map[string][]rules.DrugIngredient{}
+	for _, ing := range rs.Drugs() {
+		byClass[ing.Class] = append(byClass[ing.Class], ing)
+	}
+	for _, c := range rs.DrugClasses() {
+		if len(byClass[c.ID]) == 0 {
+			continue
+		}
+		fmt.Fprintf(tw, "-- %s\n", c.Name)
+		for _, ing := range byClass[c.ID] {
+			var eff []string
+			for _, e := range ing.Effects {
+				s := e.Effect
+				if e.Mechanism != "" {
+					s += " (" + e.Mechanism + ")"
+				}
+				eff = append(eff, s+", "+e.Evidence)
+			}
+			fmt.Fprintf(tw, "%s\tRxNorm %s\tATC %s\t%s\t%s\n", ing.Name, strings.Join(ing.RxNorm, " "),
+				strings.Join(ing.ATC, " "), strings.Join(eff, "; "), ing.Effects[0].Citation)
+		}
+	}
+	fmt.Fprintf(tw, "\n%s\n", rs.DrugNote())
+	return tw.Flush()
+}
