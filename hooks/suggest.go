@@ -13,8 +13,8 @@ import (
 
 // Codes of the sodium re-check halite suggests.
 const (
-	LOINCSystem   = "http://loinc.org"
-	SodiumLOINC   = "2951-2"
+	loincSystem   = "http://loinc.org"
+	sodiumLOINC   = "2951-2"
 	sodiumDisplay = "Sodium [Moles/volume] in Serum or Plasma"
 	ucumSystem    = "http://unitsofmeasure.org"
 )
@@ -96,11 +96,11 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 func recheckDescription(hours float64) string {
 	switch {
 	case hours == 0:
-		return fmt.Sprintf("Order a serum sodium (LOINC %s) now", SodiumLOINC)
+		return fmt.Sprintf("Order a serum sodium (LOINC %s) now", sodiumLOINC)
 	case hours >= 48:
-		return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g days", SodiumLOINC, hours/24)
+		return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g days", sodiumLOINC, hours/24)
 	}
-	return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", SodiumLOINC, hours)
+	return fmt.Sprintf("Order a serum sodium (LOINC %s) in %g h", sodiumLOINC, hours)
 }
 
 func formatRate(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
@@ -156,7 +156,7 @@ type serviceRequest struct {
 	Intent             string          `json:"intent"`
 	Code               codeableConcept `json:"code"`
 	Subject            reference       `json:"subject"`
-	BasedOn            []reference     `json:"basedOn,omitempty"`
+	SupportingInfo     []reference     `json:"supportingInfo,omitempty"`
 	OccurrenceDateTime string          `json:"occurrenceDateTime"`
 	Note               []annotation    `json:"note"`
 }
@@ -175,18 +175,18 @@ type annotation struct {
 }
 
 // recheckRequest is a draft ServiceRequest for a serum sodium at at +
-// hours, for the patient in context, based on the draft order when there
-// is one.
+// hours, for the patient in context, citing the draft order as supporting
+// information when there is one (basedOn would claim it fulfils the order).
 func recheckRequest(in suggestionInput, order string, hours float64) (json.RawMessage, error) {
 	sr := serviceRequest{
 		ResourceType: "ServiceRequest", Status: "draft", Intent: "order",
-		Code:               codeableConcept{Coding: []Coding{{System: LOINCSystem, Code: SodiumLOINC, Display: sodiumDisplay}}, Text: "Serum sodium"},
+		Code:               codeableConcept{Coding: []Coding{{System: loincSystem, Code: sodiumLOINC, Display: sodiumDisplay}}, Text: "Serum sodium"},
 		Subject:            reference{Reference: "Patient/" + in.PatientID},
 		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
 		Note:               []annotation{{Text: "Serum sodium check suggested by halite; timing per local protocol."}},
 	}
 	if _, ok := in.Drafts[order]; ok {
-		sr.BasedOn = []reference{{Reference: order}}
+		sr.SupportingInfo = []reference{{Reference: order}}
 	}
 	out, err := json.Marshal(sr)
 	if err != nil {

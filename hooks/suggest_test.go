@@ -64,7 +64,7 @@ func TestSuggestionsSkipWhatCannotBeBuilt(t *testing.T) {
 	}
 	res := string(got[0].Actions[0].Resource)
 	if !strings.Contains(res, `"occurrenceDateTime":"2026-11-20T12:00:00Z"`) || !strings.Contains(res, `"reference":"Patient/p1"`) ||
-		strings.Contains(res, "basedOn") || !strings.Contains(res, `"code":"2951-2"`) {
+		strings.Contains(res, "supportingInfo") || !strings.Contains(res, `"code":"2951-2"`) {
 		t.Errorf("re-check request %s", res)
 	}
 }

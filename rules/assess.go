@@ -54,7 +54,11 @@ type InfusionAssessment struct {
 	MaxVolume24hLitres *float64
 	MaxRateMlPerHour   *float64
 	InfusionHours      float64
-	LimitReached       bool // nothing more is allowed in the window
+	// RunHours is how long the order gives fluid in the next 24 h (see
+	// RunHours); 0 when the order does not say, and then the hourly fall
+	// limit is not checked.
+	RunHours     float64
+	LimitReached bool // nothing more is allowed in the window
 	// FreeWaterDeficitLitres is set for hypernatremia with a TBW:
 	// TBW × (Na/140 − 1).
 	FreeWaterDeficitLitres *float64
@@ -114,6 +118,9 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	if h, ok := InfusionHours(o); ok {
 		a.InfusionHours = h
 	}
+	if h, ok := RunHours(o); ok {
+		a.RunHours = h
+	}
 	a.project(p.Limits)
 	if a.Hypernatremia && a.TBWLitres != nil {
 		d := FreeWaterDeficit(*a.TBWLitres, a.Latest.Value, 140)
@@ -147,8 +154,8 @@ func (a *InfusionAssessment) setLimits(l Limits) {
 
 // project fills the projection when every input is there. The allowance
 // is the tightest of the limits in force: for hyponatremia the 24-h and
-// 48-h rises; for hypernatremia the 24-h fall and, for a rate-based order,
-// the hourly fall over the hours it runs.
+// 48-h rises; for hypernatremia the 24-h fall and the hourly fall over the
+// hours the order runs (when it says).
 func (a *InfusionAssessment) project(l Limits) {
 	if a.Composition == nil || a.Latest == nil || a.TBWLitres == nil {
 		return
@@ -160,8 +167,8 @@ func (a *InfusionAssessment) project(l Limits) {
 	sign := 1.0
 	if a.Hypernatremia {
 		sign = -1
-		if perHour := l.HypernatremiaFallPerHour.Value; a.InfusionHours > 0 && perHour*a.InfusionHours < a.Allowed {
-			a.Allowed, a.Binding = perHour*a.InfusionHours, BoundHourly
+		if perHour := l.HypernatremiaFallPerHour.Value; a.RunHours > 0 && perHour*a.RunHours < a.Allowed {
+			a.Allowed, a.Binding = perHour*a.RunHours, BoundHourly
 		}
 	} else if a.Limit48h > 0 && a.Limit48h-a.Achieved48h < a.Allowed {
 		a.Allowed, a.Binding = a.Limit48h-a.Achieved48h, Bound48h

@@ -52,16 +52,19 @@ type CardPolicy struct {
 // predicts, recognised by RxNorm ingredient or product code, ATC code or
 // name.
 type WaterDrug struct {
-	Name   string   `json:"name"`
-	RxNorm []string `json:"rxnorm"`
-	ATC    []string `json:"atc"`
-	Names  []string `json:"names"`
-	Source string   `json:"source"`
+	Name string `json:"name"`
+	// RaisesSodium is true for a receptor antagonist (aquaresis), false for
+	// an agonist (antidiuresis), which lowers sodium.
+	RaisesSodium bool     `json:"raisesSodium"`
+	RxNorm       []string `json:"rxnorm"`
+	ATC          []string `json:"atc"`
+	Names        []string `json:"names"`
+	Source       string   `json:"source"`
 }
 
 // WaterDrugPolicy sets when an order for a WaterDrug is flagged: sodium
-// below SodiumBelow, high demyelination risk, or a rise of at least
-// RiseAlready24h in the trailing 24 h.
+// below SodiumBelow; for a drug that raises sodium also high demyelination
+// risk, or a rise of at least RiseAlready24h in the trailing 24 h.
 type WaterDrugPolicy struct {
 	SodiumBelow    float64     `json:"sodiumBelow"`
 	RiseAlready24h float64     `json:"riseAlready24h"`
@@ -83,6 +86,9 @@ func (c CardPolicy) validate() error {
 		}
 		if r.Indicator == 0 || r.RecheckHours <= 0 || r.RecheckHours > 72 {
 			return fmt.Errorf("cards.rules.%s needs an indicator and recheckHours between 0 and 72", id)
+		}
+		if r.HighRisk != 0 && id != RuleProjectedOver {
+			return fmt.Errorf("cards.rules.%s: highRiskIndicator applies to %s only", id, RuleProjectedOver)
 		}
 	}
 	for id := range c.Rules {

@@ -52,16 +52,25 @@ func DemyelinationRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []RiskF
 	return out
 }
 
-// UncheckedRisk names the lab risk features DemyelinationRisk had no data
-// for, so a card can say the high-risk limit was not ruled out.
+// UncheckedRisk names what DemyelinationRisk could not check (no recent
+// potassium, a prefetch that failed or was partial), so a card can say the
+// high-risk limit was not ruled out.
 func UncheckedRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []string {
+	var out []string
 	from := at.Add(-time.Duration(p.WindowHours) * time.Hour)
+	haveK := false
 	for _, m := range f.Labs[Potassium] {
 		if !m.At.Before(from) && !m.At.After(at) {
-			return nil
+			haveK = true
 		}
 	}
-	return []string{fmt.Sprintf("no potassium result in the last %d h", p.WindowHours)}
+	if !haveK {
+		out = append(out, fmt.Sprintf("no potassium result in the last %d h", p.WindowHours))
+	}
+	for _, g := range f.Gaps {
+		out = append(out, "data not obtained ("+g.Source+": "+g.Reason+")")
+	}
+	return out
 }
 
 func (c ConditionCodes) matches(code string) bool {

@@ -96,6 +96,11 @@ var salts = []salt{
 // unknown.
 func (r *Ruleset) InfusateComposition(m Medication) (Composition, bool) {
 	t := r.fluids
+	// A full list of strengths (with a sodium salt) is the most specific
+	// statement of what is in the bag.
+	if c, ok := fromIngredients(m.Ingredients); ok && c.Na > 0 {
+		return c, true
+	}
 	for _, c := range m.Codings {
 		if c.System != SystemRxNorm {
 			continue
@@ -149,9 +154,13 @@ func addedPotassium(m Medication) (float64, bool) {
 		return k, true
 	}
 	for _, text := range append([]string{m.Text}, displays(m.Codings)...) {
-		if mm := kclInName.FindStringSubmatch(normaliseName(text)); mm != nil {
+		name := normaliseName(text)
+		if mm := kclInName.FindStringSubmatch(name); mm != nil {
 			k, _ = kclValue(mm)
 			return k, true
+		}
+		if wordIn(name, "kcl") || strings.Contains(name, "potassium chloride") {
+			return 0, false // potassium named without a per-litre amount: unknown, never dropped
 		}
 	}
 	return 0, true

@@ -79,6 +79,11 @@ func TestInfusateComposition(t *testing.T) {
 		{"coded 0.9% with a KCl ingredient", Medication{Codings: []Coding{{System: rxnorm, Code: "313002"}}, Ingredients: []Ingredient{
 			ing("8591", "potassium chloride", &Ratio{Numerator: Quantity{Value: 40, Unit: "mmol"}, Denominator: Quantity{Value: 1, Unit: "L"}}),
 		}}, 154, 40, 0},
+		// A coded lactated Ringer's that also lists its own strengths is read
+		// from the strengths once, not as the table's K plus the listed KCl.
+		{"coded LR with its strengths", Medication{Codings: []Coding{{System: rxnorm, Code: "847630"}}, Ingredients: []Ingredient{
+			ing("9863", "sodium chloride", mgPerML(6)), ing("56489", "sodium lactate", mgPerML(3.1)), ing("8591", "potassium chloride", mgPerML(0.3)),
+		}}, 130, 4, 0.5},
 		{"coded 0.9% with KCl in the text", Medication{Codings: []Coding{{System: rxnorm, Code: "313002"}}, Text: "NS with KCl 40 mmol/L"}, 154, 40, 0},
 		// Sodium acetate trihydrate, 136.08 g/mol [derived, IUPAC weights]:
 		// 6.8 g/L is 50.0 mmol/L, not the 82.9 the anhydrous salt would give.
@@ -95,13 +100,14 @@ func TestInfusateComposition(t *testing.T) {
 		})
 	}
 	for name, med := range map[string]Medication{
-		"unknown text":            {Text: "invented drug"},
-		"sertraline":              {Codings: []Coding{{System: rxnorm, Code: "36437"}}},
-		"salt without strength":   {Ingredients: []Ingredient{{Text: "sodium chloride"}}},
-		"strength in odd units":   {Ingredients: []Ingredient{{Text: "sodium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "tablet"}, Denominator: Quantity{Value: 1, Unit: "mL"}}}}},
-		"substring is not a salt": {Ingredients: []Ingredient{{Text: "disodium chlorideX", Strength: mgPerML(1)}}},
-		"unlisted sodium salt":    {Ingredients: []Ingredient{ing("9863", "sodium chloride", mgPerML(5)), {Text: "sodium gluconate", Strength: mgPerML(5)}}},
-		"KCl per bag, not per L":  {Text: "0.9% sodium chloride with KCl 20 mmol"},
+		"unknown text":             {Text: "invented drug"},
+		"sertraline":               {Codings: []Coding{{System: rxnorm, Code: "36437"}}},
+		"salt without strength":    {Ingredients: []Ingredient{{Text: "sodium chloride"}}},
+		"strength in odd units":    {Ingredients: []Ingredient{{Text: "sodium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "tablet"}, Denominator: Quantity{Value: 1, Unit: "mL"}}}}},
+		"substring is not a salt":  {Ingredients: []Ingredient{{Text: "disodium chlorideX", Strength: mgPerML(1)}}},
+		"unlisted sodium salt":     {Ingredients: []Ingredient{ing("9863", "sodium chloride", mgPerML(5)), {Text: "sodium gluconate", Strength: mgPerML(5)}}},
+		"KCl per bag, not per L":   {Text: "0.9% sodium chloride with KCl 20 mmol"},
+		"coded fluid, KCl per bag": {Codings: []Coding{{System: rxnorm, Code: "313002"}}, Text: "NS 1 L with KCl 40 mmol"},
 		"coded fluid, KCl strength unconvertible": {Codings: []Coding{{System: rxnorm, Code: "313002"}},
 			Ingredients: []Ingredient{{Text: "potassium chloride", Strength: &Ratio{Numerator: Quantity{Value: 1, Unit: "vial"}, Denominator: Quantity{Value: 1, Unit: "L"}}}}},
 	} {

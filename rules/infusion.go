@@ -69,14 +69,14 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Summary = r.overSummary(a, word)
 	case hypertonic && a.ProjectedChange24h == nil:
 		fd.Rule = RuleNoProjection
-		fd.Summary = "Hypertonic saline order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
+		fd.Summary = "Hypertonic sodium order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
 	case hypertonic && !a.Hypernatremia:
 		fd.Rule = RuleHypertonicOrder
-		fd.Summary = fmt.Sprintf("Hypertonic saline: projected sodium rise %.1f mmol/L in 24 h, %.1f already (limit %g)",
-			*a.ProjectedTotal24h, a.Achieved24h, a.Limit24h)
+		fd.Summary = fmt.Sprintf("Hypertonic sodium: projected 24-h rise %.1f mmol/L (%.1f measured + %.1f from this order), limit %g",
+			*a.ProjectedTotal24h, a.Achieved24h, *a.ProjectedChange24h, a.Limit24h)
 	case hypertonic:
 		fd.Rule = RuleHypertonicOrder
-		fd.Summary = fmt.Sprintf("Hypertonic saline with sodium %g mmol/L: projected change %+.1f mmol/L in 24 h",
+		fd.Summary = fmt.Sprintf("Hypertonic sodium with sodium %g mmol/L: projected change %+.1f mmol/L in 24 h",
 			a.Latest.Value, *a.ProjectedChange24h)
 	default:
 		return Finding{}, false
@@ -99,10 +99,10 @@ func (r *Ruleset) overSummary(a InfusionAssessment, word string) string {
 			a.Limit48h, a.Achieved48h, *a.ProjectedChange24h)
 	case BoundHourly:
 		return fmt.Sprintf("Projected sodium fall %.2f mmol/L per hour with this order, above the %g mmol/L per hour limit",
-			math.Abs(*a.ProjectedChange24h)/a.InfusionHours, l.HypernatremiaFallPerHour.Value)
+			math.Abs(*a.ProjectedChange24h)/a.RunHours, l.HypernatremiaFallPerHour.Value)
 	}
-	return fmt.Sprintf("Projected sodium %s %.1f mmol/L in 24 h with this order, above the %g mmol/L limit",
-		word, math.Abs(*a.ProjectedTotal24h), a.Limit24h)
+	return fmt.Sprintf("Projected 24-h sodium %s %.1f mmol/L (%.1f measured + %.1f from this order), above the %g limit",
+		word, math.Abs(*a.ProjectedTotal24h), a.Achieved24h, math.Abs(*a.ProjectedChange24h), a.Limit24h)
 }
 
 // infusionAdvice is what a card of rule id suggests: for a projected
@@ -178,8 +178,15 @@ func (a InfusionAssessment) figures() map[string]float64 {
 	set("volume24hLitres", a.Volume24hLitres, 3)
 	set("projectedChange24h", a.ProjectedChange24h, 1)
 	set("projectedTotal24h", a.ProjectedTotal24h, 1)
-	set("maxVolume24hLitres", a.MaxVolume24hLitres, 3)
-	set("maxRateMlPerHour", a.MaxRateMlPerHour, 1)
+	// Limits are shown rounded down, so no shown figure passes them.
+	floor := func(name string, v *float64, decimals int) {
+		if v != nil {
+			p := math.Pow(10, float64(decimals))
+			fig[name] = math.Floor(*v*p) / p
+		}
+	}
+	floor("maxVolume24hLitres", a.MaxVolume24hLitres, 3)
+	floor("maxRateMlPerHour", a.MaxRateMlPerHour, 1)
 	set("freeWaterDeficitLitres", a.FreeWaterDeficitLitres, 1)
 	c := a.Context
 	set("correctedSodiumKatz", c.CorrectedKatz, 1)
@@ -236,8 +243,11 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 			l.HyponatremiaRise24hHighRisk.Value)
 	}
 	if a.Infant {
-		line("Infant: total body water is a larger fraction of weight than the 0.6 used (about 0.7–0.8, from memory), " +
-			"so the projection may overstate the change and understate the rate that fits")
+		line("Infant: total body water is a larger fraction of weight than the %g used (about 0.7–0.8, from memory), "+
+			"so the projection may overstate the change and understate the rate that fits", r.policy.TBW.Child)
+	}
+	if a.Hypernatremia && a.RunHours == 0 && a.DeltaPerLitre != nil {
+		line("The hourly fall limit was not checked: the order gives no rate or dose duration")
 	}
 	if a.Weight != nil && a.TBWLitres != nil {
 		line("Total body water: %.1f L, %s of %g kg weighed %s%s", *a.TBWLitres, a.TBWMethod, Round(a.Weight.Value, 1),
@@ -261,10 +271,11 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	case a.LimitReached:
 		line("The %s allowed by %s is already used", word, r.describeLimit(a))
 	case a.MaxRateMlPerHour != nil:
-		line("Largest rate that keeps the projection within the limit: %.1f mL/h over %g h (%.3f L)",
-			*a.MaxRateMlPerHour, a.InfusionHours, *a.MaxVolume24hLitres)
+		line("Largest rate that keeps the projection within the limit: %g mL/h over %g h (%g L), rounded down",
+			math.Floor(*a.MaxRateMlPerHour*10)/10, a.InfusionHours, math.Floor(*a.MaxVolume24hLitres*1000)/1000)
 	case a.MaxVolume24hLitres != nil:
-		line("Largest volume in the next 24 h that keeps the projection within the limit: %.0f mL", *a.MaxVolume24hLitres*1000)
+		line("Largest volume in the next 24 h that keeps the projection within the limit: %g mL, rounded down",
+			math.Floor(*a.MaxVolume24hLitres*1000))
 	}
 	if a.FreeWaterDeficitLitres != nil {
 		line("Free-water deficit: %.1f L, classic formula TBW × (Na/140 − 1) (Adrogué HJ, Madias NE, N Engl J Med 2000;342:1493-1499)",
@@ -296,8 +307,8 @@ func (r *Ruleset) describeLimit(a InfusionAssessment) string {
 	case Bound48h:
 		return fmt.Sprintf("the 48-h limit of %g mmol/L", a.Limit48h)
 	case BoundHourly:
-		return fmt.Sprintf("the limit of %g mmol/L per hour over the %g h the order runs",
-			r.policy.Limits.HypernatremiaFallPerHour.Value, a.InfusionHours)
+		return fmt.Sprintf("the limit of %g mmol/L per hour over the %.2g h the order runs",
+			r.policy.Limits.HypernatremiaFallPerHour.Value, a.RunHours)
 	}
 	return fmt.Sprintf("the 24-h limit of %g mmol/L", a.Limit24h)
 }

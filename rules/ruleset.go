@@ -183,7 +183,11 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 			return nil, fmt.Errorf("load policy: plausibility.%s is not an analyte halite maps", a)
 		}
 	}
-	return &Ruleset{revision: revisionOf(p), policy: p}, nil
+	rev, err := revisionOf(p)
+	if err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	return &Ruleset{revision: rev, policy: p}, nil
 }
 
 // overrideCitesLimits requires a site that changes a limit's value to give
@@ -276,10 +280,13 @@ func knownAnalyte(a Analyte) bool {
 
 // revisionOf is the policy version plus the first 8 bytes of a SHA-256 over the
 // policy's canonical JSON, so any change to the effective policy changes it.
-func revisionOf(p Policy) string {
-	canon, _ := json.Marshal(p) // map keys are sorted by encoding/json
+func revisionOf(p Policy) (string, error) {
+	canon, err := json.Marshal(p) // map keys are sorted by encoding/json
+	if err != nil {
+		return "", fmt.Errorf("revision: %w", err)
+	}
 	sum := sha256.Sum256(canon)
-	return p.Version + "+" + hex.EncodeToString(sum[:8])
+	return p.Version + "+" + hex.EncodeToString(sum[:8]), nil
 }
 
 // Revision identifies the ruleset; it is stamped on every card and log line.

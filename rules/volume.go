@@ -71,6 +71,36 @@ func InfusionHours(o MedicationOrder) (float64, bool) {
 	return 24, true
 }
 
+// RunHours is how long the order gives fluid within the next 24 h, for
+// the hourly limit: a rate-based order runs for 24 h, its ordered course
+// or until its ordered total is given, whichever is first; a dose-based
+// order for its doses times the duration of each (timing.repeat.duration).
+// ok is false when the order does not say (a dose with no duration).
+func RunHours(o MedicationOrder) (float64, bool) {
+	if h, ok := InfusionHours(o); ok {
+		if o.DispenseQuantity != nil {
+			if ml, known := VolumeMl(*o.DispenseQuantity); known && ml > 0 && ml / *o.RateMlPerHour < h {
+				h = ml / *o.RateMlPerHour
+			}
+		}
+		return h, true
+	}
+	if o.Dose == nil || o.Duration == nil {
+		return 0, false
+	}
+	each, ok := DurationHours(*o.Duration)
+	if !ok || each <= 0 {
+		return 0, false
+	}
+	n := 1.0
+	if o.Frequency != nil && o.Period != nil {
+		if h, known := DurationHours(*o.Period); known && h > 0 {
+			n = math.Max(1, math.Floor(float64(*o.Frequency)*24/h))
+		}
+	}
+	return math.Min(24, n*each), true
+}
+
 // VolumeMl converts a volume quantity (mL or L) to mL.
 func VolumeMl(q Quantity) (float64, bool) {
 	switch q.Unit {

@@ -109,11 +109,13 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		fig := map[string]float64{"odsHighRisk": 0}
 		if len(risk) > 0 {
 			fig["odsHighRisk"] = 1
-			reasons = append(reasons, "high osmotic-demyelination risk")
+			if drug.RaisesSodium {
+				reasons = append(reasons, "high osmotic-demyelination risk")
+			}
 		}
 		if w := trend.Window24h; w != nil {
 			fig["riseFromNadir24h"], fig["fallFromPeak24h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
-			if w.RiseFromNadir >= p.WaterDrugs.RiseAlready24h {
+			if drug.RaisesSodium && w.RiseFromNadir >= p.WaterDrugs.RiseAlready24h {
 				reasons = append(reasons, fmt.Sprintf("a rise of %.1f mmol/L already in 24 h", w.RiseFromNadir))
 			}
 		}
@@ -153,8 +155,13 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		for _, u := range UncheckedRisk(p.DemyelinationRisk, f, f.At) {
 			fmt.Fprintf(&b, "- Not checked for demyelination risk: %s\n", u)
 		}
-		fmt.Fprintf(&b, "- Flagged when sodium is below %g mmol/L, the demyelination risk is high, or sodium has risen %g mmol/L "+
-			"in 24 h (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.RiseAlready24h, p.WaterDrugs.Source)
+		if drug.RaisesSodium {
+			fmt.Fprintf(&b, "- Flagged because it raises sodium: when sodium is below %g mmol/L, the demyelination risk is high, "+
+				"or sodium has risen %g mmol/L in 24 h (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.RiseAlready24h, p.WaterDrugs.Source)
+		} else {
+			fmt.Fprintf(&b, "- Flagged because it lowers sodium (antidiuresis): when sodium is below %g mmol/L; water intake "+
+				"decides how far sodium falls (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.Source)
+		}
 		fmt.Fprintf(&b, "- Policy re-check interval for this card: %g h\n", rule.RecheckHours)
 		b.WriteString("\n**Method**: no formula predicts the change these drugs cause (a vasopressin antagonist's aquaresis " +
 			"or an agonist's antidiuresis depends on intake, urine output and other therapy); measured sodium is the guide.")
