@@ -84,12 +84,12 @@ func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 	for _, file := range files {
 		name := filepath.Base(file)
 		for _, call := range [][2]string{{"sodium-infusion-check", HookOrderSelect}, {"sodium-infusion-check", HookOrderSign},
-			{"sodium-drug-risk", HookOrderSelect}, {"sodium-drug-risk", HookOrderSign}} {
+			{"sodium-drug-risk", HookOrderSelect}, {"sodium-drug-risk", HookOrderSign}, {"sodium-chart-review", HookPatientView}} {
 			svc, hook := call[0], call[1]
 			req, err := BuildRequest(loadScenario(t, name), mustService(t, svc),
 				RequestOptions{Hook: hook, UserID: "Practitioner/test-user"})
 			if err != nil {
-				continue // a scenario without draft orders cannot make an order hook call
+				continue // a scenario without draft orders cannot make an order-hook call
 			}
 			out, err := e.Handle(t.Context(), svc, mustMarshal(t, req), scenarioAt)
 			if err != nil {

@@ -5,18 +5,28 @@ import (
 	"encoding/json"
 	"fmt"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/google/uuid"
 	"github.com/halite-cds/halite/rules"
 )
 
-// Codes of the sodium re-check halite suggests.
+// Codes of the laboratory tests halite suggests.
 const (
-	loincSystem   = "http://loinc.org"
-	sodiumLOINC   = "2951-2"
-	sodiumDisplay = "Sodium [Moles/volume] in Serum or Plasma"
-	ucumSystem    = "http://unitsofmeasure.org"
+	loincSystem = "http://loinc.org"
+	sodiumLOINC = "2951-2"
+	ucumSystem  = "http://unitsofmeasure.org"
+)
+
+// labTest is a test a suggestion can order, by LOINC code.
+type labTest struct{ code, display, text string }
+
+// The tests halite suggests (LOINC displays as in the reference notes §8).
+var (
+	serumSodium    = labTest{sodiumLOINC, "Sodium [Moles/volume] in Serum or Plasma", "Serum sodium"}
+	urineOsmolTest = labTest{"2695-5", "Osmolality of Urine", "Urine osmolality"}
+	urineSodium    = labTest{"2955-3", "Sodium [Moles/volume] in Urine", "Urine sodium"}
 )
 
 // suggestionInput is what building suggestions needs from the call.
@@ -61,7 +71,7 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 			if !ok {
 				continue
 			}
-			recheck, err := recheckRequest(in, f.Order, adv.RecheckHours)
+			recheck, err := labRequest(in, f.Order, serumSodium, adv.RecheckHours)
 			if err != nil {
 				return nil, err
 			}
@@ -74,11 +84,20 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 				if h == 0 && len(actions) > 0 {
 					break // no follow-up
 				}
-				recheck, err := recheckRequest(in, f.Order, h)
+				recheck, err := labRequest(in, f.Order, serumSodium, h)
 				if err != nil {
 					return nil, err
 				}
 				actions = append(actions, Action{Type: "create", Description: recheckDescription(h), Resource: recheck})
+			}
+		case rules.AdviseUrineStudies:
+			for _, test := range []labTest{urineOsmolTest, urineSodium} {
+				req, err := labRequest(in, f.Order, test, 0)
+				if err != nil {
+					return nil, err
+				}
+				actions = append(actions, Action{Type: "create", Description: fmt.Sprintf("Order a %s (LOINC %s) now",
+					strings.ToLower(test.text), test.code), Resource: req})
 			}
 		case rules.AdviseWithdraw:
 			if _, ok := in.Drafts[f.Order]; !ok {
@@ -174,23 +193,23 @@ type annotation struct {
 	Text string `json:"text"`
 }
 
-// recheckRequest is a draft ServiceRequest for a serum sodium at at +
-// hours, for the patient in context, citing the draft order as supporting
-// information when there is one (basedOn would claim it fulfils the order).
-func recheckRequest(in suggestionInput, order string, hours float64) (json.RawMessage, error) {
+// labRequest is a draft ServiceRequest for test at at + hours, for the
+// patient in context, citing the draft order as supporting information
+// when there is one (basedOn would claim it fulfils the order).
+func labRequest(in suggestionInput, order string, test labTest, hours float64) (json.RawMessage, error) {
 	sr := serviceRequest{
 		ResourceType: "ServiceRequest", Status: "draft", Intent: "order",
-		Code:               codeableConcept{Coding: []Coding{{System: loincSystem, Code: sodiumLOINC, Display: sodiumDisplay}}, Text: "Serum sodium"},
+		Code:               codeableConcept{Coding: []Coding{{System: loincSystem, Code: test.code, Display: test.display}}, Text: test.text},
 		Subject:            reference{Reference: "Patient/" + in.PatientID},
 		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
-		Note:               []annotation{{Text: "Serum sodium check suggested by halite; timing per local protocol."}},
+		Note:               []annotation{{Text: test.text + " suggested by halite; timing per local protocol."}},
 	}
 	if _, ok := in.Drafts[order]; ok {
 		sr.SupportingInfo = []reference{{Reference: order}}
 	}
 	out, err := json.Marshal(sr)
 	if err != nil {
-		return nil, fmt.Errorf("encode sodium re-check: %w", err)
+		return nil, fmt.Errorf("encode %s request: %w", test.text, err)
 	}
 	return out, nil
 }

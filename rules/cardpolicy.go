@@ -72,14 +72,17 @@ type WaterDrugPolicy struct {
 	Drugs          []WaterDrug `json:"drugs"`
 }
 
-// infusionRules are the rule ids the card policy must cover.
-var infusionRules = [...]string{RuleLimitExceeded, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug, RuleWaterDrugNoSodium}
+// cardRules are the rule ids the card policy must cover (infusion check
+// and chart review; the drug-risk check has its own severity table).
+var cardRules = [...]string{RuleLimitExceeded, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
+	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
+	RuleSIADHPattern, RuleUrineStudiesMissing, RuleConcentratingDefect}
 
 func (c CardPolicy) validate() error {
 	if c.HypertonicNaKAtLeast <= 154 || c.Source == "" {
 		return fmt.Errorf("cards needs hypertonicNaKAtLeast above 0.9%% saline's 154 mmol/L and a source")
 	}
-	for _, id := range infusionRules {
+	for _, id := range cardRules {
 		r, ok := c.Rules[id]
 		if !ok {
 			return fmt.Errorf("cards.rules.%s is missing", id)
@@ -92,7 +95,7 @@ func (c CardPolicy) validate() error {
 		}
 	}
 	for id := range c.Rules {
-		if !slices.Contains(infusionRules[:], id) {
+		if !slices.Contains(cardRules[:], id) {
 			return fmt.Errorf("cards.rules.%s is not a rule halite has", id)
 		}
 	}
@@ -158,6 +161,68 @@ func (d DrugRiskPolicy) validate() error {
 		"elderlyFromAge": float64(d.ElderlyFromAge), "fallWindowHours": float64(d.FallWindowHours)} {
 		if v <= 0 {
 			return fmt.Errorf("drugRisk.%s must be positive", name)
+		}
+	}
+	return nil
+}
+
+// RestrictionBand is one band of the urine-to-plasma electrolyte ratio.
+type RestrictionBand struct {
+	RatioBelow   float64 `json:"ratioBelow"`
+	Text         string  `json:"text"`
+	MlPerDayUpTo float64 `json:"mlPerDayUpTo"` // the adult volume the band suggests
+}
+
+// ChartReviewPolicy holds the thresholds of the chart review.
+type ChartReviewPolicy struct {
+	SodiumMaxAgeHours  float64 `json:"sodiumMaxAgeHours"`
+	HyponatremiaBelow  float64 `json:"hyponatremiaBelow"`
+	NearLimitWithin    float64 `json:"nearLimitWithin"`
+	ProfoundBelow      float64 `json:"profoundBelow"`
+	FallIn48hAtLeast   float64 `json:"fallIn48hAtLeast"`
+	HourlyFallMinHours float64 `json:"hourlyFallMinHours"`
+	LabPairHours       float64 `json:"labPairHours"`
+	SIADH              struct {
+		EffectiveOsmolalityBelow float64 `json:"effectiveOsmolalityBelow"`
+		UrineOsmolalityAbove     float64 `json:"urineOsmolalityAbove"`
+		UrineSodiumAbove         float64 `json:"urineSodiumAbove"`
+		Source                   string  `json:"source"`
+	} `json:"siadh"`
+	ConcentratingDefect struct {
+		SerumOsmolalityAbove float64 `json:"serumOsmolalityAbove"`
+		SodiumAbove          float64 `json:"sodiumAbove"`
+		UrineOsmolalityBelow float64 `json:"urineOsmolalityBelow"`
+		Evaluation           string  `json:"evaluation"`
+		Source               string  `json:"source"`
+	} `json:"concentratingDefect"`
+	Restriction struct {
+		Scheme           string            `json:"scheme"`
+		Bands            []RestrictionBand `json:"bands"` // ascending by RatioBelow
+		AdultBSA         float64           `json:"adultBSA"`
+		PaediatricSource string            `json:"paediatricSource"`
+	} `json:"restriction"`
+	HeightMaxAgeHours float64 `json:"heightMaxAgeHours"`
+	Source            string  `json:"source"`
+}
+
+func (c ChartReviewPolicy) validate() error {
+	for name, v := range map[string]float64{"sodiumMaxAgeHours": c.SodiumMaxAgeHours, "hyponatremiaBelow": c.HyponatremiaBelow,
+		"nearLimitWithin": c.NearLimitWithin, "profoundBelow": c.ProfoundBelow, "fallIn48hAtLeast": c.FallIn48hAtLeast,
+		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
+		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
+		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
+		"restriction.adultBSA": c.Restriction.AdultBSA} {
+		if v <= 0 {
+			return fmt.Errorf("chartReview.%s must be positive", name)
+		}
+	}
+	if c.Source == "" || c.SIADH.Source == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
+		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || len(c.Restriction.Bands) == 0 {
+		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
+	}
+	for i, b := range c.Restriction.Bands {
+		if b.Text == "" || b.MlPerDayUpTo <= 0 || (i > 0 && b.RatioBelow <= c.Restriction.Bands[i-1].RatioBelow) {
+			return fmt.Errorf("chartReview.restriction.bands[%d] needs a text, a volume and a ratio above the previous band", i)
 		}
 	}
 	return nil

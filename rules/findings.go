@@ -55,6 +55,8 @@ const (
 	AdviseRecheck AdviceKind = "recheck"
 	// AdviseWithdraw: remove the draft order.
 	AdviseWithdraw AdviceKind = "withdraw"
+	// AdviseUrineStudies: a urine osmolality and a urine sodium.
+	AdviseUrineStudies AdviceKind = "urine-studies"
 )
 
 // Advice is one suggestion before it becomes FHIR resources.
@@ -83,14 +85,15 @@ const (
 
 // Evaluate runs the rule families of check c over f and returns the
 // actionable findings. No finding means nothing is actionable, which is
-// answered as an empty card list. The chart-review family is not written
-// yet.
+// answered as an empty card list.
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	switch c {
 	case InfusionCheck:
 		return append(r.infusionFindings(f), r.waterDrugFindings(f)...)
 	case DrugRisk:
 		return r.drugRiskFindings(f)
+	case ChartReview:
+		return r.chartFindings(f)
 	}
 	return nil
 }

@@ -91,6 +91,7 @@ type Policy struct {
 	Cards             CardPolicy              `json:"cards"`
 	WaterDrugs        WaterDrugPolicy         `json:"waterDrugs"`
 	DrugRisk          DrugRiskPolicy          `json:"drugRisk"`
+	ChartReview       ChartReviewPolicy       `json:"chartReview"`
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 }
@@ -164,6 +165,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.DrugRisk.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.ChartReview.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	for _, a := range Analytes() {

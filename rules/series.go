@@ -31,8 +31,9 @@ type SodiumTrend struct {
 // and fall from the peak in the trailing 24-h and 48-h windows ending at at
 // (rolling windows, as the US panel applies its limits "in any 24-h period":
 // Verbalis JG et al., Am J Med 2013;126:S1–S42), and the latest hourly rate.
-// A value before a window gives, by linear interpolation, the value at the
-// window's start, so a change that straddles the start is not missed.
+// A value before a window (by no more than the window's length) gives, by
+// linear interpolation, the value at the window's start, so a change that
+// straddles the start is not missed.
 // series must be ordered oldest first, as fhirmap builds it.
 func AnalyseSodium(series []Measurement, at time.Time) SodiumTrend {
 	var t SodiumTrend
@@ -67,10 +68,15 @@ func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	// counting its part before the window).
 	var before *Measurement
 	n := 1 // room for the interpolated start
+	// A value more than a window's length before the start says little about
+	// the start; it is not interpolated from.
+	earliest := from.Add(-time.Duration(hours) * time.Hour)
 	for i, m := range series {
-		if m.At.Before(from) {
+		switch {
+		case m.At.Before(earliest):
+		case m.At.Before(from):
 			before = &series[i]
-		} else if !m.At.After(at) {
+		case !m.At.After(at):
 			n++
 		}
 	}

@@ -1,0 +1,406 @@
+package rules
+
+import (
+	"fmt"
+	"math"
+	"strings"
+	"time"
+)
+
+// Rule ids of the chart review.
+const (
+	RuleOvercorrected       = "hyponatremia-overcorrected"
+	RuleNearingLimit        = "hyponatremia-nearing-limit"
+	RuleHyperTooFast        = "hypernatremia-corrected-too-fast"
+	RuleProfoundOrFalling   = "sodium-profound-or-falling"
+	RuleNotHypotonic        = "hyponatremia-not-hypotonic"
+	RuleSIADHPattern        = "siadh-lab-pattern"
+	RuleUrineStudiesMissing = "hyponatremia-urine-studies-missing"
+	RuleConcentratingDefect = "concentrating-defect-pattern"
+)
+
+// chart is what the chart review computes once per call.
+type chart struct {
+	f       Facts
+	latest  *Measurement
+	trend   SodiumTrend
+	risk    []RiskFactor
+	limits  InfusionAssessment // Limit24h/48h and achieved, by the infusion check's rules
+	context TonicityContext
+	urineNa *Measurement
+	urineK  *Measurement
+	urineOs *Measurement
+	serumOs *Measurement
+}
+
+// chartFindings tells a clinician opening the chart what the sodium numbers
+// mean, only when there is something to act on; one finding per rule,
+// ordered most urgent first.
+func (r *Ruleset) chartFindings(f Facts) []Finding {
+	p := r.policy
+	cp := p.ChartReview
+	l, ok := latestWithin(f.Labs[Sodium], f.At, cp.SodiumMaxAgeHours)
+	if !ok {
+		return nil
+	}
+	c := chart{f: f, latest: &l, trend: AnalyseSodium(f.Labs[Sodium], f.At), risk: DemyelinationRisk(p.DemyelinationRisk, f, f.At)}
+	c.limits = InfusionAssessment{Trend: c.trend, Risk: c.risk, Latest: &l,
+		Hypernatremia: l.Value > p.Projection.HypernatremiaAbove}
+	c.limits.setLimits(p.Limits)
+	c.context = Tonicity(f, l, cp.LabPairHours)
+	c.serumOs = nearest(f.Labs[SerumOsmolality], l, cp.LabPairHours, f)
+	c.urineOs = nearest(f.Labs[UrineOsmolality], l, cp.LabPairHours, f)
+	c.urineNa = nearest(f.Labs[UrineSodium], l, cp.LabPairHours, f)
+	c.urineK = nearest(f.Labs[UrinePotassium], l, cp.LabPairHours, f)
+	var out []Finding
+	for _, judge := range []func(chart) (Finding, bool){r.overcorrection, r.hyperTooFast, r.profoundOrFalling,
+		r.notHypotonic, r.siadhPattern, r.concentratingDefect} {
+		if fd, ok := judge(c); ok {
+			rule := r.cardRule(fd.Rule)
+			fd.Indicator = rule.Indicator
+			if fd.Figures == nil {
+				fd.Figures = map[string]float64{}
+			}
+			c.addFigures(fd.Figures)
+			if recheckNatural[fd.Rule] {
+				fd.Advice = []Advice{recheckAdvice(rule.RecheckHours)}
+			}
+			out = append(out, fd)
+		}
+	}
+	sortByIndicator(out)
+	return out
+}
+
+// recheckNatural are the chart rules whose natural suggestion is a sodium
+// re-check; the lab patterns suggest completing the work-up instead, or
+// nothing.
+var recheckNatural = map[string]bool{RuleOvercorrected: true, RuleNearingLimit: true, RuleHyperTooFast: true, RuleProfoundOrFalling: true}
+
+func sortByIndicator(fs []Finding) {
+	for i := 1; i < len(fs); i++ {
+		for j := i; j > 0 && fs[j].Indicator > fs[j-1].Indicator; j-- {
+			fs[j], fs[j-1] = fs[j-1], fs[j]
+		}
+	}
+}
+
+// addFigures adds the chart's shared figures.
+func (c chart) addFigures(fig map[string]float64) {
+	fig["sodiumLatest"] = c.latest.Value
+	if w := c.trend.Window24h; w != nil {
+		fig["riseFromNadir24h"], fig["fallFromPeak24h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
+	}
+	if w := c.trend.Window48h; w != nil {
+		fig["riseFromNadir48h"], fig["fallFromPeak48h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
+	}
+	fig["limit24h"] = c.limits.Limit24h
+	if c.limits.Limit48h > 0 {
+		fig["limit48h"] = c.limits.Limit48h
+	}
+	fig["odsHighRisk"] = 0
+	if len(c.risk) > 0 {
+		fig["odsHighRisk"] = 1
+	}
+	set := func(name string, v *float64, decimals int) {
+		if v != nil {
+			fig[name] = Round(*v, decimals)
+		}
+	}
+	set("correctedSodiumKatz", c.context.CorrectedKatz, 1)
+	set("correctedSodiumHillier", c.context.CorrectedHillier, 1)
+	set("effectiveOsmolality", c.context.EffectiveOsmolality, 0)
+	set("calculatedOsmolality", c.context.CalculatedOsmolality, 0)
+	set("osmolalGap", c.context.OsmolalGap, 0)
+}
+
+// commonLines writes the lines every chart card carries: the sodium series used
+// and the limits.
+func (r *Ruleset) commonLines(b *strings.Builder, c chart) {
+	fmt.Fprintf(b, "- Latest sodium: %g mmol/L (%s, %s)\n", c.latest.Value, stamp(c.latest.At), c.latest.Source)
+	if w := c.trend.Window48h; w != nil {
+		var vals []string
+		for _, m := range w.Used {
+			vals = append(vals, fmt.Sprintf("%.1f (%s)", m.Value, m.At.UTC().Format("01-02 15:04")))
+		}
+		fmt.Fprintf(b, "- Sodium in the last 48 h: %s\n", strings.Join(vals, ", "))
+	}
+	for _, rf := range c.risk {
+		fmt.Fprintf(b, "- Demyelination risk factor: %s (%s)\n", rf.Factor, rf.Evidence)
+	}
+}
+
+func (r *Ruleset) overcorrection(c chart) (Finding, bool) {
+	cp, l := r.policy.ChartReview, r.policy.Limits
+	a := c.limits
+	if a.Hypernatremia {
+		return Finding{}, false
+	}
+	w24, w48 := c.trend.Window24h, c.trend.Window48h
+	if w48 == nil || w48.Nadir.Value >= cp.HyponatremiaBelow {
+		return Finding{}, false // not the correction of a hyponatremia
+	}
+	limitSource := l.HyponatremiaRise24h.Source
+	if len(c.risk) > 0 {
+		limitSource = l.HyponatremiaRise24hHighRisk.Source
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	fmt.Fprintf(&b, "- Rise from the nadir: %.1f mmol/L in 24 h, %.1f in 48 h (rolling windows ending now)\n", a.Achieved24h, a.Achieved48h)
+	fmt.Fprintf(&b, "- Limits: %g mmol/L per 24 h (%s), %g per 48 h (%s)\n", a.Limit24h, limitSource, a.Limit48h, l.HyponatremiaRise48h.Source)
+	fd := Finding{Figures: map[string]float64{}}
+	switch {
+	case a.Achieved24h > a.Limit24h || a.Achieved48h > a.Limit48h:
+		fd.Rule = RuleOvercorrected
+		switch {
+		case a.Achieved48h > a.Limit48h && a.Achieved24h > a.Limit24h:
+			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 24 h and %.1f in 48 h, above the %g and %g mmol/L limits",
+				a.Achieved24h, a.Achieved48h, a.Limit24h, a.Limit48h)
+		case a.Achieved48h > a.Limit48h:
+			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 48 h, above the %g mmol/L limit", a.Achieved48h, a.Limit48h)
+		default:
+			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 24 h, above the %g mmol/L limit", a.Achieved24h, a.Limit24h)
+		}
+		b.WriteString("\nGuidelines describe re-lowering sodium after an overcorrection in patients at risk (Verbalis 2013; " +
+			"Spasovski 2014; from memory); whether and how is the treating team's decision under local protocol.")
+	case w24 != nil && a.Achieved24h >= a.Limit24h-cp.NearLimitWithin && w24.Nadir.At.Add(24*time.Hour).After(c.f.At):
+		left := w24.Nadir.At.Add(24 * time.Hour).Sub(c.f.At).Hours()
+		allowed := math.Max(0, a.Limit24h-a.Achieved24h)
+		fd.Rule = RuleNearingLimit
+		fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L since the nadir; %.1f more allowed in the next %.0f h (limit %g)",
+			a.Achieved24h, allowed, left, a.Limit24h)
+		fd.Figures["hoursLeftInWindow"], fd.Figures["riseStillAllowed"] = Round(left, 1), Round(allowed, 1)
+		fmt.Fprintf(&b, "- The 24-h window from the nadir (%s) closes in %.1f h; %.1f mmol/L more is allowed until then\n",
+			stamp(w24.Nadir.At), left, allowed)
+	default:
+		return Finding{}, false
+	}
+	fd.Detail = b.String() + "\n\n**Method**: rise = latest − lowest sodium in rolling 24-h and 48-h windows ending now (the value at a window's start interpolated from the results either side)."
+	return fd, true
+}
+
+func (r *Ruleset) hyperTooFast(c chart) (Finding, bool) {
+	cp, l, pr := r.policy.ChartReview, r.policy.Limits, r.policy.Projection
+	w := c.trend.Window24h
+	if w == nil || w.Peak.Value <= pr.HypernatremiaAbove {
+		return Finding{}, false
+	}
+	hours := c.latest.At.Sub(w.Peak.At).Hours()
+	perHour := 0.0
+	if hours > 0 {
+		perHour = w.FallFromPeak / hours
+	}
+	fast24 := w.FallFromPeak > l.HypernatremiaFall24h.Value
+	fastHourly := hours >= cp.HourlyFallMinHours && perHour > l.HypernatremiaFallPerHour.Value
+	if !fast24 && !fastHourly {
+		return Finding{}, false
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	fmt.Fprintf(&b, "- Fall from the peak of %.1f (%s): %.1f mmol/L over %.1f h, %.2f mmol/L per hour\n", w.Peak.Value, stamp(w.Peak.At),
+		w.FallFromPeak, hours, perHour)
+	fmt.Fprintf(&b, "- Limits: %g mmol/L per 24 h and %g per hour (%s); the hourly rate is judged over at least %g h\n",
+		l.HypernatremiaFall24h.Value, l.HypernatremiaFallPerHour.Value, l.HypernatremiaFall24h.Source, cp.HourlyFallMinHours)
+	summary := fmt.Sprintf("Sodium fell %.1f mmol/L in %.0f h from %.0f, faster than the limits", w.FallFromPeak, hours, w.Peak.Value)
+	return Finding{Rule: RuleHyperTooFast, Summary: summary, Detail: b.String(),
+		Figures: map[string]float64{"fallPerHour": Round(perHour, 2)}}, true
+}
+
+func (r *Ruleset) profoundOrFalling(c chart) (Finding, bool) {
+	cp := r.policy.ChartReview
+	na := c.latest.Value
+	fall := 0.0
+	if w := c.trend.Window48h; w != nil {
+		fall = w.FallFromPeak
+	}
+	if na >= cp.ProfoundBelow && fall < cp.FallIn48hAtLeast {
+		return Finding{}, false
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	summary := fmt.Sprintf("Sodium %g mmol/L, below %g", na, cp.ProfoundBelow)
+	if fall >= cp.FallIn48hAtLeast {
+		summary = fmt.Sprintf("Sodium fell %.1f mmol/L in 48 h to %g", fall, na)
+	}
+	drugs := r.activeDrugs(c.f, EffectHyponatremia)
+	if len(drugs) > 0 {
+		summary += "; on " + strings.Join(drugs, ", ")
+		fmt.Fprintf(&b, "- Active hyponatremia-risk drugs (halite knowledge base): %s\n", strings.Join(drugs, ", "))
+	} else {
+		b.WriteString("- No active hyponatremia-risk drug found in the medication list\n")
+	}
+	fmt.Fprintf(&b, "- Flagged below %g mmol/L or after a fall of %g mmol/L in 48 h (%s)\n", cp.ProfoundBelow, cp.FallIn48hAtLeast, cp.Source)
+	return Finding{Rule: RuleProfoundOrFalling, Summary: shorten(summary, 139), Detail: b.String(), Figures: map[string]float64{}}, true
+}
+
+// activeDrugs names the active medications with effect e, from the
+// knowledge base.
+func (r *Ruleset) activeDrugs(f Facts, effect string) []string {
+	var out []string
+	seen := map[string]bool{}
+	for _, o := range f.Medications {
+		if o.Status != "active" {
+			continue
+		}
+		for _, m := range r.MatchDrug(o.Medication) {
+			if _, ok := m.Ingredient.Effect(effect); ok && !m.Ingredient.IntendedToRaiseSodium && !seen[m.Ingredient.Name] {
+				seen[m.Ingredient.Name] = true
+				out = append(out, m.Ingredient.Name)
+			}
+		}
+	}
+	return out
+}
+
+func (r *Ruleset) notHypotonic(c chart) (Finding, bool) {
+	cp := r.policy.ChartReview
+	t := c.context
+	if c.latest.Value >= cp.HyponatremiaBelow || t.EffectiveOsmolality == nil || t.CalculatedOsmolality == nil || t.Class == Hypotonic {
+		return Finding{}, false
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	r.contextLines(&b, t)
+	b.WriteString("\nA hyponatremia that is not hypotonic (hyperglycaemia, or another effective osmole) is not corrected " +
+		"like a hypotonic one; a measured serum osmolality confirms it (reference notes §3; Verbalis 2013, from memory).")
+	summary := fmt.Sprintf("Sodium %g but effective osmolality %.0f mOsm/kg: not hypotonic", c.latest.Value, *t.EffectiveOsmolality)
+	if t.CorrectedKatz != nil {
+		summary += fmt.Sprintf("; glucose-corrected %.0f–%.0f", *t.CorrectedKatz, *t.CorrectedHillier)
+	}
+	return Finding{Rule: RuleNotHypotonic, Summary: shorten(summary, 139), Detail: b.String()}, true
+}
+
+func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
+	cp := r.policy.ChartReview
+	t := c.context
+	if c.latest.Value >= cp.HyponatremiaBelow || t.EffectiveOsmolality == nil || *t.EffectiveOsmolality >= cp.SIADH.EffectiveOsmolalityBelow {
+		return Finding{}, false
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	r.contextLines(&b, t)
+	if c.urineOs == nil || c.urineNa == nil {
+		fmt.Fprintf(&b, "- Urine osmolality and urine sodium within %g h of the sodium: %s\n", cp.LabPairHours,
+			missingUrine(c.urineOs, c.urineNa))
+		b.WriteString("\nUrine osmolality and sodium separate the causes of a hypotonic hyponatremia (reference notes §4.3).")
+		return Finding{Rule: RuleUrineStudiesMissing, Detail: b.String(), Figures: map[string]float64{},
+			Summary: fmt.Sprintf("Hypotonic hyponatremia (sodium %g, effective osmolality %.0f) without urine osmolality and sodium",
+				c.latest.Value, *t.EffectiveOsmolality),
+			Advice: []Advice{{Kind: AdviseUrineStudies, Label: "Order urine osmolality and urine sodium"}}}, true
+	}
+	if c.urineOs.Value <= cp.SIADH.UrineOsmolalityAbove || c.urineNa.Value <= cp.SIADH.UrineSodiumAbove {
+		return Finding{}, false
+	}
+	fig := map[string]float64{"urineOsmolality": c.urineOs.Value, "urineSodium": c.urineNa.Value}
+	fmt.Fprintf(&b, "- Urine osmolality %g mOsm/kg (%s), urine sodium %g mmol/L (%s)\n", c.urineOs.Value, stamp(c.urineOs.At),
+		c.urineNa.Value, stamp(c.urineNa.At))
+	fmt.Fprintf(&b, "- Criteria: effective osmolality < %g, urine osmolality > %g, urine sodium > %g (%s)\n",
+		cp.SIADH.EffectiveOsmolalityBelow, cp.SIADH.UrineOsmolalityAbove, cp.SIADH.UrineSodiumAbove, cp.SIADH.Source)
+	summary := fmt.Sprintf("Labs consistent with the SIADH criteria: effective osmolality %.0f, urine osmolality %g, urine sodium %g",
+		*t.EffectiveOsmolality, c.urineOs.Value, c.urineNa.Value)
+	if c.urineK != nil {
+		ratio := (c.urineNa.Value + c.urineK.Value) / c.latest.Value
+		fig["urinePlasmaElectrolyteRatio"] = Round(ratio, 2)
+		band := r.restrictionBand(ratio)
+		fmt.Fprintf(&b, "- Urine-to-plasma electrolyte ratio (%g + %g)/%g = %.2f: %s (%s)\n", c.urineNa.Value, c.urineK.Value,
+			c.latest.Value, ratio, band.Text, cp.Restriction.Scheme)
+		r.paediatricBand(&b, c, band, fig)
+	} else {
+		b.WriteString("- Urine potassium not available: the urine-to-plasma electrolyte ratio was not computed\n")
+	}
+	b.WriteString("\n**Labs cannot show**: volume status (clinical euvolaemia is a criterion), thyroid and adrenal function, " +
+		"recent diuretic use, and the differential with renal or cerebral salt wasting; these must be assessed clinically " +
+		"before the pattern is called SIADH.")
+	if drugs := r.activeDrugs(c.f, EffectHyponatremia); len(drugs) > 0 {
+		fmt.Fprintf(&b, " Active drugs that can cause it: %s.", strings.Join(drugs, ", "))
+	}
+	return Finding{Rule: RuleSIADHPattern, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
+}
+
+func missingUrine(osm, na *Measurement) string {
+	switch {
+	case osm == nil && na == nil:
+		return "neither found"
+	case osm == nil:
+		return "no urine osmolality"
+	}
+	return "no urine sodium"
+}
+
+func (r *Ruleset) restrictionBand(ratio float64) RestrictionBand {
+	bands := r.policy.ChartReview.Restriction.Bands
+	for _, b := range bands {
+		if ratio < b.RatioBelow {
+			return b
+		}
+	}
+	return bands[len(bands)-1]
+}
+
+// paediatricBand states a child's restriction per body-surface area, or
+// says which measurement is missing.
+func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBand, fig map[string]float64) {
+	p := r.policy
+	age, ok := c.f.Patient.AgeYears(c.f.At)
+	if !ok || age >= p.TBW.AdultFromAge {
+		return
+	}
+	w, okW := latestWithin(c.f.Labs[BodyWeight], c.f.At, p.Projection.WeightMaxAgeHours)
+	h, okH := latestWithin(c.f.Labs[BodyHeight], c.f.At, p.ChartReview.HeightMaxAgeHours)
+	if !okW || !okH {
+		fmt.Fprintf(b, "- Child: the band per body-surface area needs a weight from the last %g days and a height from the last %g days; "+
+			"missing: %s\n", p.Projection.WeightMaxAgeHours/24, p.ChartReview.HeightMaxAgeHours/24, missingSize(okW, okH))
+		return
+	}
+	bsa, err := MostellerBSA(h.Value, w.Value)
+	if err != nil {
+		return
+	}
+	perM2 := band.MlPerDayUpTo / p.ChartReview.Restriction.AdultBSA
+	fig["bsaM2"] = Round(bsa, 2)
+	fmt.Fprintf(b, "- Child: body-surface area %.2f m² (Mosteller; %g cm, %g kg); the band's %g mL/day for an adult is about %.0f mL/m²/day, "+
+		"%.0f mL/day for this child (%s)\n", bsa, Round(h.Value, 1), Round(w.Value, 1), band.MlPerDayUpTo, perM2, perM2*bsa,
+		p.ChartReview.Restriction.PaediatricSource)
+}
+
+func missingSize(haveWeight, haveHeight bool) string {
+	switch {
+	case !haveWeight && !haveHeight:
+		return "weight and height"
+	case !haveWeight:
+		return "weight"
+	}
+	return "height"
+}
+
+func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
+	cd := r.policy.ChartReview.ConcentratingDefect
+	high := c.latest.Value > cd.SodiumAbove || (c.serumOs != nil && c.serumOs.Value > cd.SerumOsmolalityAbove)
+	if !high || c.urineOs == nil || c.urineOs.Value >= cd.UrineOsmolalityBelow {
+		return Finding{}, false
+	}
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	r.commonLines(&b, c)
+	if c.serumOs != nil {
+		fmt.Fprintf(&b, "- Serum osmolality %g mOsm/kg (%s)\n", c.serumOs.Value, stamp(c.serumOs.At))
+	}
+	fmt.Fprintf(&b, "- Urine osmolality %g mOsm/kg (%s): dilute urine despite a high sodium or osmolality (%s)\n",
+		c.urineOs.Value, stamp(c.urineOs.At), cd.Source)
+	drugs := r.activeDrugs(c.f, EffectNephrogenicDI)
+	if len(drugs) > 0 {
+		fmt.Fprintf(&b, "- Active drugs that can cause nephrogenic DI: %s\n", strings.Join(drugs, ", "))
+	}
+	fmt.Fprintf(&b, "\n**Evaluation the policy suggests**: %s.", cd.Evaluation)
+	summary := fmt.Sprintf("Dilute urine (%g mOsm/kg) with sodium %g: pattern of a urinary concentrating defect", c.urineOs.Value, c.latest.Value)
+	if len(drugs) > 0 {
+		summary += "; on " + strings.Join(drugs, ", ")
+	}
+	return Finding{Rule: RuleConcentratingDefect, Summary: shorten(summary, 139), Detail: b.String(),
+		Figures: map[string]float64{"urineOsmolality": c.urineOs.Value}}, true
+}
