@@ -67,7 +67,7 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 	if err != nil {
 		return nil, err
 	}
-	fetch := e.fetcher(call)
+	fetch := e.fetcher(ctx, call)
 	keys, err := Resolve(ctx, svc, call, fetch, e.limits)
 	if err != nil {
 		return nil, err
@@ -94,13 +94,14 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 }
 
 // fetcher returns the outbound client for the call, or nil when the call
-// gave no server and token, or the server may not be used.
-func (e *Engine) fetcher(c *Call) Fetcher {
+// gave no server and token, or the server may not be used by this caller
+// (it is then answered as if no server were given).
+func (e *Engine) fetcher(ctx context.Context, c *Call) Fetcher {
 	r := c.Request
 	if e.newFetcher == nil || r.FHIRServer == "" || r.FHIRAuthorization == nil {
 		return nil
 	}
-	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization)
+	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization, CallerFrom(ctx))
 	if err != nil {
 		if e.log != nil {
 			e.log.Warn("fhirServer not used", "reason", err.Error(), "hookInstance", r.HookInstance)

@@ -13,6 +13,7 @@ type Kind int
 const (
 	KindInternal         Kind = iota // a fault in halite: 500
 	KindBadRequest                   // malformed or invalid request: 400
+	KindUnauthorized                 // no valid caller token: 401, no detail
 	KindForbidden                    // a browser origin that is not allowed: 403
 	KindUnknownService               // no such service or endpoint: 404
 	KindMethodNotAllowed             // wrong method on a known endpoint: 405
@@ -30,6 +31,7 @@ var statusOf = map[Kind]struct {
 }{
 	KindInternal:         {http.StatusInternalServerError, "exception"},
 	KindBadRequest:       {http.StatusBadRequest, "invalid"},
+	KindUnauthorized:     {http.StatusUnauthorized, "login"},
 	KindForbidden:        {http.StatusForbidden, "forbidden"},
 	KindUnknownService:   {http.StatusNotFound, "not-found"},
 	KindMethodNotAllowed: {http.StatusMethodNotAllowed, "not-supported"},
@@ -94,14 +96,17 @@ type OutcomeIssue struct {
 	Expression  []string `json:"expression,omitempty"`
 }
 
-// OutcomeOf renders err as an OperationOutcome. Internal errors carry no
-// detail, which could leak internals.
+// OutcomeOf renders err as an OperationOutcome. Internal and
+// authentication errors carry no detail, which could leak internals or
+// guide an attacker.
 func OutcomeOf(err error) OperationOutcome {
 	kind := KindOf(err)
 	issue := OutcomeIssue{Severity: "error", Code: statusOf[kind].issueType}
 	switch kind {
 	case KindInternal:
 		issue.Diagnostics = "internal error"
+	case KindUnauthorized:
+		issue.Diagnostics = "authentication required" // never why: that would help an attacker
 	default:
 		var e *Error
 		if errors.As(err, &e) {

@@ -22,7 +22,7 @@ type Fetcher interface {
 // FetcherFactory makes a Fetcher for the server and token of one call. It
 // fails when the server may not be used; the call then proceeds as if no
 // server had been given.
-type FetcherFactory func(server string, auth *FHIRAuthorization) (Fetcher, error)
+type FetcherFactory func(server string, auth *FHIRAuthorization, caller Caller) (Fetcher, error)
 
 // KeyState says how a prefetch key was resolved.
 type KeyState string

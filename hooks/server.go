@@ -22,6 +22,12 @@ type ServerConfig struct {
 	CallTimeout  time.Duration // time budget of one hook call, fetches included
 	// CORSOrigins are the browser origins allowed to call the service.
 	CORSOrigins []string
+	// Authenticator verifies callers; nil is development mode, where
+	// unsigned calls are accepted (the command allows it on loopback only).
+	Authenticator Authenticator
+	// PublicBaseURL is the base the EHR calls ("https://halite.example.org"),
+	// from which the audience of each call is computed.
+	PublicBaseURL string
 }
 
 // Health tracks readiness: a draining server is alive but not ready.
@@ -97,6 +103,19 @@ func (s *server) call(c *gin.Context) {
 		return
 	}
 	ctx := c.Request.Context()
+	if a := s.cfg.Authenticator; a != nil {
+		caller, err := a.Authenticate(ctx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+"/cds-services/"+id)
+		if err != nil {
+			reason := "refused"
+			if l, ok := err.(interface{ Label() string }); ok {
+				reason = l.Label()
+			}
+			c.Set(logAuth, reason)
+			s.fail(c, &Error{Kind: KindUnauthorized, Message: "authentication required"})
+			return
+		}
+		ctx = WithCaller(ctx, caller)
+	}
 	if s.cfg.CallTimeout > 0 {
 		var cancel context.CancelFunc
 		ctx, cancel = context.WithTimeout(ctx, s.cfg.CallTimeout)
@@ -117,8 +136,11 @@ func (s *server) ready(c *gin.Context) {
 		c.Data(http.StatusServiceUnavailable, "application/json", []byte(`{"status":"draining"}`))
 		return
 	}
-	c.Data(http.StatusOK, "application/json",
-		mustJSON(map[string]string{"status": "ready", "ruleset": s.engine.Ruleset().Revision()}))
+	ready := map[string]string{"status": "ready", "ruleset": s.engine.Ruleset().Revision()}
+	if s.cfg.Authenticator == nil {
+		ready["mode"] = "development: callers are not authenticated"
+	}
+	c.Data(http.StatusOK, "application/json", mustJSON(ready))
 }
 
 // fail answers err with its status and an OperationOutcome. The log gets
@@ -166,6 +188,7 @@ const (
 	logCards = "halite.cards"
 	logKeys  = "halite.prefetch"
 	logError = "halite.error"
+	logAuth  = "halite.auth" // why a token was refused
 )
 
 // accessLog writes one line per request: route, status, duration, card
@@ -188,6 +211,9 @@ func (s *server) accessLog(c *gin.Context) {
 	}
 	if v, ok := c.Get(logError); ok {
 		attrs = append(attrs, "error", v)
+	}
+	if v, ok := c.Get(logAuth); ok {
+		attrs = append(attrs, "auth_refused", v)
 	}
 	s.log.Info("request", attrs...)
 }

@@ -33,6 +33,10 @@ type Config struct {
 	// PolicyOverride is the path of a site's policy override (JSON shaped
 	// like rules/data/policy.json); empty means the embedded policy.
 	PolicyOverride string `yaml:"policy_override"`
+	// Auth bounds token verification; Issuers are the trusted EHRs. With no
+	// issuer, halite runs in development mode on loopback only.
+	Auth    AuthConfig     `yaml:"auth"`
+	Issuers []IssuerConfig `yaml:"issuers"`
 }
 
 // FHIRClientConfig bounds the outbound FHIR client.
@@ -69,8 +73,12 @@ func defaultConfig() Config {
 			MaxResponseBytes: 32 << 20,
 			MaxPages:         10,
 		},
+		Auth: defaultAuthConfig(),
 	}
 }
+
+// fileOnlyKeys are set in the YAML file only: lists of structures.
+var fileOnlyKeys = map[string]bool{"issuers": true}
 
 // envKeys lists every configuration key with its environment variable.
 var envKeys = []struct {
@@ -87,6 +95,14 @@ var envKeys = []struct {
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
+	{"auth.algorithms", func(c *Config, v string) error { c.Auth.Algorithms = splitList(v); return nil }},
+	{"auth.clock_skew", func(c *Config, v string) error { return setDuration(&c.Auth.ClockSkew, v) }},
+	{"auth.max_token_lifetime", func(c *Config, v string) error { return setDuration(&c.Auth.MaxLifetime, v) }},
+	{"auth.jwks_timeout", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSTimeout, v) }},
+	{"auth.jwks_refresh", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSRefresh, v) }},
+	{"auth.jwks_min_refresh", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSMinRefresh, v) }},
+	{"auth.jwks_max_bytes", func(c *Config, v string) (err error) { c.Auth.JWKSMaxBytes, err = strconv.ParseInt(v, 10, 64); return }},
+	{"auth.replay_cache_size", func(c *Config, v string) (err error) { c.Auth.ReplayCacheSize, err = strconv.Atoi(v); return }},
 	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},
 	{"fhir_client.max_response_bytes", func(c *Config, v string) (err error) {
 		c.FHIRClient.MaxResponseBytes, err = strconv.ParseInt(v, 10, 64)
@@ -165,12 +181,15 @@ func (c Config) validate() error {
 	if err != nil {
 		return fmt.Errorf("config: listen_addr: %q is not HOST:PORT", c.ListenAddr)
 	}
-	if !c.DevelopmentMode {
-		return fmt.Errorf("config: development_mode: must be true; this build does not yet authenticate " +
-			"callers, so it serves on loopback only")
+	if len(c.Issuers) == 0 && !fhirclient.IsLoopback(host) {
+		return fmt.Errorf("config: listen_addr: without trusted issuers halite accepts unsigned calls, so it listens "+
+			"on a loopback address only, not %q; configure issuers to serve other addresses", host)
 	}
-	if !fhirclient.IsLoopback(host) {
-		return fmt.Errorf("config: listen_addr: development mode listens on a loopback address only, not %q", host)
+	if len(c.Issuers) == 0 && !c.DevelopmentMode {
+		return fmt.Errorf("config: development_mode: false needs at least one trusted issuer (issuers)")
+	}
+	if err := c.validateTrust(); err != nil {
+		return err
 	}
 	if c.PublicBaseURL != "" {
 		u, err := url.Parse(c.PublicBaseURL)

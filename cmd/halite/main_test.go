@@ -102,6 +102,16 @@ func TestServeEndToEnd(t *testing.T) {
 	}
 	resp.Body.Close()
 
+	// Without trusted issuers, /readyz says callers are not authenticated.
+	if resp, err = http.Get(base + "/readyz"); err != nil {
+		t.Fatal(err)
+	}
+	ready, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if !strings.Contains(string(ready), "development") {
+		t.Errorf("readyz does not say development mode: %s", ready)
+	}
+
 	// The README's curl example posts this file.
 	demo, err := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
 	if err != nil {

@@ -49,7 +49,11 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	}
 	log := slog.New(slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})).
 		With("ruleset", rs.Revision())
-	if cfg.DevelopmentMode {
+	authn, err := authenticator(cfg)
+	if err != nil {
+		return err
+	}
+	if authn == nil {
 		log.Warn("DEVELOPMENT MODE: local use only. Callers are NOT authenticated, the service listens on " +
 			"loopback only, and plain-http FHIR servers on loopback are accepted. Do not use with real patient data.")
 	}
@@ -60,6 +64,9 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		MaxBodyBytes: cfg.MaxBodyBytes,
 		CallTimeout:  time.Duration(cfg.CallTimeout),
 		CORSOrigins:  cfg.CORSOrigins,
+		// An untyped nil when no issuer is trusted: development mode.
+		Authenticator: authn,
+		PublicBaseURL: cfg.PublicBaseURL,
 	}, health, log)
 
 	ln, err := net.Listen("tcp", cfg.ListenAddr)
@@ -103,18 +110,33 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	return nil
 }
 
-// newEngine wires the engine with the outbound FHIR client.
+// newEngine wires the engine with the outbound FHIR client. With trusted
+// issuers, a call's fhirServer must be on its issuer's allowlist, or it is
+// not used (the call is answered as if no server were given); without
+// issuers (development mode) any https server, or loopback, is used.
 func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger) *hooks.Engine {
 	opts := fhirclient.Options{
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
 		AllowHTTPLoopback: cfg.DevelopmentMode,
-		Transport:         fhirclient.NewTransport(cfg.DevelopmentMode), // one pool for all calls
+		Transport:         fhirclient.NewTransport(cfg.DevelopmentMode, false), // one pool for all calls
 	}
+	private := opts
+	private.Transport = fhirclient.NewTransport(cfg.DevelopmentMode, true)
 	return hooks.NewEngine(hooks.EngineConfig{
 		Registry: hooks.NewRegistry(),
 		Ruleset:  rs,
-		NewFetcher: func(server string, auth *hooks.FHIRAuthorization) (hooks.Fetcher, error) {
+		NewFetcher: func(server string, auth *hooks.FHIRAuthorization, caller hooks.Caller) (hooks.Fetcher, error) {
+			if len(cfg.Issuers) == 0 {
+				return fhirclient.New(server, auth.AccessToken, opts)
+			}
+			entry, ok := allowedServer(cfg, caller, server)
+			if !ok {
+				return nil, errors.New("fhirServer is not on the calling issuer's allowlist")
+			}
+			if entry.AllowPrivate {
+				return fhirclient.New(server, auth.AccessToken, private)
+			}
 			return fhirclient.New(server, auth.AccessToken, opts)
 		},
 		Limits: hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},

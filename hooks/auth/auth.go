@@ -59,6 +59,9 @@ type Failure struct{ Reason string }
 
 func (f *Failure) Error() string { return "token refused: " + f.Reason }
 
+// Label is the reason, for a log field or metric label.
+func (f *Failure) Label() string { return f.Reason }
+
 func fail(reason string) error { return &Failure{Reason: reason} }
 
 // Claims are the verified claims halite uses.

@@ -68,7 +68,7 @@ func New(server, token string, opt Options) (*Client, error) {
 	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes}
 	transport := opt.Transport
 	if transport == nil {
-		transport = NewTransport(opt.AllowHTTPLoopback)
+		transport = NewTransport(opt.AllowHTTPLoopback, false)
 	}
 	c.http = &http.Client{
 		Timeout:   opt.Timeout,
@@ -93,10 +93,11 @@ func New(server, token string, opt Options) (*Client, error) {
 var ErrBlockedAddress = errors.New("fhirServer resolves to a blocked address")
 
 // NewTransport is the default transport with a dial-time address check
-// (loopback allowed only with allowLoopback). Make one and share it through
-// Options.Transport: a transport per client would keep a connection pool per
-// call.
-func NewTransport(allowLoopback bool) http.RoundTripper {
+// (loopback allowed only with allowLoopback, private ranges only with
+// allowPrivate, for a FHIR server the configuration says is on a private
+// network). Make one per setting and share it through Options.Transport: a
+// transport per client would keep a connection pool per call.
+func NewTransport(allowLoopback, allowPrivate bool) http.RoundTripper {
 	d := &net.Dialer{Timeout: 5 * time.Second, Control: func(_, address string, _ syscall.RawConn) error {
 		host, _, err := net.SplitHostPort(address)
 		if err != nil {
@@ -110,6 +111,7 @@ func NewTransport(allowLoopback bool) http.RoundTripper {
 			if !allowLoopback {
 				return ErrBlockedAddress
 			}
+		case ip.IsPrivate() && allowPrivate:
 		case ip.IsPrivate(), ip.IsLinkLocalUnicast(), ip.IsLinkLocalMulticast(), ip.IsUnspecified(),
 			ip.IsMulticast(), ip.IsInterfaceLocalMulticast():
 			return ErrBlockedAddress

@@ -1,0 +1,176 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"encoding/json"
+	"io"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/go-jose/go-jose/v4"
+	"github.com/golang-jwt/jwt/v5"
+	"github.com/halite-cds/halite/fhirmap"
+	"github.com/halite-cds/halite/hooks"
+)
+
+// fhirRecorder is a FHIR server answering from a scenario bundle that
+// records every request's path and bearer token.
+type fhirRecorder struct {
+	mu     sync.Mutex
+	hits   int
+	tokens map[string]bool
+}
+
+func newFHIRRecorder(t *testing.T, scenario string) (*httptest.Server, *fhirRecorder) {
+	t.Helper()
+	data, err := os.ReadFile(scenario)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := fhirmap.ParseBundle(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	store := hooks.NewBundleStore(b)
+	rec := &fhirRecorder{tokens: map[string]bool{}}
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		rec.mu.Lock()
+		rec.hits++
+		rec.tokens[r.Header.Get("Authorization")] = true
+		rec.mu.Unlock()
+		ref := strings.TrimPrefix(r.URL.RequestURI(), "/fhir/")
+		out, err := store.Query(ref)
+		if err != nil {
+			http.Error(w, "not found", http.StatusNotFound)
+			return
+		}
+		w.Header().Set("Content-Type", "application/fhir+json")
+		w.Write(out)
+	}))
+	t.Cleanup(srv.Close)
+	return srv, rec
+}
+
+func (r *fhirRecorder) count() (int, map[string]bool) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return r.hits, r.tokens
+}
+
+// TestServeWithTrustedIssuer runs `halite serve` with one trusted issuer:
+// unsigned or forged calls get 401 without detail and fetch nothing; a
+// signed call with its fhirServer on the issuer's allowlist is answered
+// from that server, which alone sees the access token; a server off the
+// allowlist is never contacted (412: the required data cannot be had).
+func TestServeWithTrustedIssuer(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "09-rapid-correction-high-risk.json")
+	allowed, allowedRec := newFHIRRecorder(t, scenario)
+	other, otherRec := newFHIRRecorder(t, scenario)
+
+	key, err := ecdsa.GenerateKey(elliptic.P384(), rand.Reader)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	set, _ := json.Marshal(jose.JSONWebKeySet{Keys: []jose.JSONWebKey{{Key: &key.PublicKey, KeyID: "k1", Use: "sig"}}})
+	jwksPath := filepath.Join(dir, "jwks.json")
+	if err := os.WriteFile(jwksPath, set, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n" +
+		"  - iss: https://ehr.example.org\n    jwks_file: " + jwksPath + "\n" +
+		"    fhir_servers:\n      - base_url: " + allowed.URL + "/fhir\n"
+	cfgPath := filepath.Join(dir, "halite.yaml")
+	if err := os.WriteFile(cfgPath, []byte(cfg), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	base, logs, stop := startServe(t, "--config", cfgPath)
+	const aud = "http://127.0.0.1/cds-services/sodium-chart-review"
+	token := func(jti, audience string, k *ecdsa.PrivateKey) string {
+		tok := jwt.NewWithClaims(jwt.SigningMethodES384, jwt.MapClaims{"iss": "https://ehr.example.org", "aud": audience,
+			"iat": time.Now().Unix(), "exp": time.Now().Add(time.Minute).Unix(), "jti": jti, "sub": "ehr"})
+		tok.Header["kid"] = "k1"
+		s, err := tok.SignedString(k)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return "Bearer " + s
+	}
+	request := func(server string) []byte {
+		var req bytes.Buffer
+		if err := run(context.Background(), []string{"request", "--hook", "patient-view", "--service", "sodium-chart-review",
+			"--no-prefetch", "--fhir-server", server + "/fhir", "--access-token", "secret-access-token", scenario}, &req, io.Discard); err != nil {
+			t.Fatal(err)
+		}
+		return req.Bytes()
+	}
+	post := func(body []byte, authz string) (int, string) {
+		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-chart-review", bytes.NewReader(body))
+		r.Header.Set("Content-Type", "application/json")
+		if authz != "" {
+			r.Header.Set("Authorization", authz)
+		}
+		resp, err := http.DefaultClient.Do(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp.StatusCode, string(b)
+	}
+	forger, _ := ecdsa.GenerateKey(elliptic.P384(), rand.Reader)
+	for name, authz := range map[string]string{
+		"unsigned":       "",
+		"forged":         token("f1", aud, forger),
+		"other audience": token("f2", "http://127.0.0.1/cds-services/sodium-drug-risk", key),
+		"garbage":        "Bearer abc.def.ghi",
+	} {
+		status, body := post(request(allowed.URL), authz)
+		if status != http.StatusUnauthorized || !strings.Contains(body, `"diagnostics":"authentication required"`) {
+			t.Errorf("%s: %d %s", name, status, body)
+		}
+	}
+	if hits, _ := allowedRec.count(); hits != 0 {
+		t.Errorf("refused calls fetched %d times", hits)
+	}
+	if status, body := post(request(allowed.URL), token("ok-1", aud, key)); status != http.StatusOK {
+		t.Fatalf("signed call: %d %s", status, body)
+	}
+	hits, tokens := allowedRec.count()
+	if hits == 0 || len(tokens) != 1 || !tokens["Bearer secret-access-token"] {
+		t.Errorf("allowlisted server: %d hits, tokens %v", hits, tokens)
+	}
+	if status, _ := post(request(other.URL), token("ok-2", aud, key)); status != http.StatusPreconditionFailed {
+		t.Errorf("fhirServer off the allowlist: status %d, want 412", status)
+	}
+	if hits, _ := otherRec.count(); hits != 0 {
+		t.Errorf("the server off the allowlist was contacted %d times", hits)
+	}
+	resp, err := http.Get(base + "/readyz")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ready, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if strings.Contains(string(ready), "development") {
+		t.Errorf("readyz says development mode with a trusted issuer: %s", ready)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	l := logs.String()
+	if !strings.Contains(l, `"auth_refused":"signature"`) || strings.Contains(l, "secret-access-token") || strings.Contains(l, "eyJ") {
+		t.Errorf("log must give refusal reasons and never a token:\n%s", l)
+	}
+}
