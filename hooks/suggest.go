@@ -19,15 +19,27 @@ const (
 	ucumSystem  = "http://unitsofmeasure.org"
 )
 
-// labTest is a test a suggestion can order, by LOINC code.
-type labTest struct{ code, display, text string }
+// labTest is a test a suggestion can order.
+type labTest int
 
-// The tests halite suggests (LOINC displays as in the reference notes §8).
-var (
-	serumSodium    = labTest{sodiumLOINC, "Sodium [Moles/volume] in Serum or Plasma", "Serum sodium"}
-	urineOsmolTest = labTest{"2695-5", "Osmolality of Urine", "Urine osmolality"}
-	urineSodium    = labTest{"2955-3", "Sodium [Moles/volume] in Urine", "Urine sodium"}
+// The tests halite suggests.
+const (
+	serumSodium labTest = iota
+	urineOsmolTest
+	urineSodium
 )
+
+// loinc is the test's LOINC code and display (reference notes §8) and a
+// short text.
+func (t labTest) loinc() (code, display, text string) {
+	switch t {
+	case urineOsmolTest:
+		return "2695-5", "Osmolality of Urine", "Urine osmolality"
+	case urineSodium:
+		return "2955-3", "Sodium [Moles/volume] in Urine", "Urine sodium"
+	}
+	return sodiumLOINC, "Sodium [Moles/volume] in Serum or Plasma", "Serum sodium"
+}
 
 // suggestionInput is what building suggestions needs from the call.
 type suggestionInput struct {
@@ -96,8 +108,9 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 				if err != nil {
 					return nil, err
 				}
+				code, _, text := test.loinc()
 				actions = append(actions, Action{Type: "create", Description: fmt.Sprintf("Order a %s (LOINC %s) now",
-					strings.ToLower(test.text), test.code), Resource: req})
+					strings.ToLower(text), code), Resource: req})
 			}
 		case rules.AdviseWithdraw:
 			if _, ok := in.Drafts[f.Order]; !ok {
@@ -197,19 +210,20 @@ type annotation struct {
 // patient in context, citing the draft order as supporting information
 // when there is one (basedOn would claim it fulfils the order).
 func labRequest(in suggestionInput, order string, test labTest, hours float64) (json.RawMessage, error) {
+	code, display, text := test.loinc()
 	sr := serviceRequest{
 		ResourceType: "ServiceRequest", Status: "draft", Intent: "order",
-		Code:               codeableConcept{Coding: []Coding{{System: loincSystem, Code: test.code, Display: test.display}}, Text: test.text},
+		Code:               codeableConcept{Coding: []Coding{{System: loincSystem, Code: code, Display: display}}, Text: text},
 		Subject:            reference{Reference: "Patient/" + in.PatientID},
 		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
-		Note:               []annotation{{Text: test.text + " suggested by halite; timing per local protocol."}},
+		Note:               []annotation{{Text: text + " suggested by halite; timing per local protocol."}},
 	}
 	if _, ok := in.Drafts[order]; ok {
 		sr.SupportingInfo = []reference{{Reference: order}}
 	}
 	out, err := json.Marshal(sr)
 	if err != nil {
-		return nil, fmt.Errorf("encode %s request: %w", test.text, err)
+		return nil, fmt.Errorf("encode %s request: %w", text, err)
 	}
 	return out, nil
 }

@@ -200,6 +200,10 @@ type ChartReviewPolicy struct {
 		Bands            []RestrictionBand `json:"bands"` // ascending by RatioBelow
 		AdultBSA         float64           `json:"adultBSA"`
 		PaediatricSource string            `json:"paediatricSource"`
+		// PaediatricInsensibleMlPerM2: a child's band below this volume is
+		// flagged as tighter than insensible losses.
+		PaediatricInsensibleMlPerM2 float64 `json:"paediatricInsensibleMlPerM2"`
+		PaediatricInsensibleSource  string  `json:"paediatricInsensibleSource"`
 	} `json:"restriction"`
 	HeightMaxAgeHours float64 `json:"heightMaxAgeHours"`
 	Source            string  `json:"source"`
@@ -211,7 +215,7 @@ func (c ChartReviewPolicy) validate() error {
 		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
 		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
-		"restriction.adultBSA": c.Restriction.AdultBSA} {
+		"restriction.adultBSA": c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2} {
 		if v <= 0 {
 			return fmt.Errorf("chartReview.%s must be positive", name)
 		}

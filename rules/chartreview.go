@@ -44,8 +44,11 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 		return nil
 	}
 	c := chart{f: f, latest: &l, trend: AnalyseSodium(f.Labs[Sodium], f.At), risk: DemyelinationRisk(p.DemyelinationRisk, f, f.At)}
+	// A sodium that was below the hyponatremia threshold in the last 48 h is
+	// the correction of a hyponatremia, even if it has overshot above 145.
+	correcting := c.trend.Window48h != nil && c.trend.Window48h.Nadir.Value < cp.HyponatremiaBelow
 	c.limits = InfusionAssessment{Trend: c.trend, Risk: c.risk, Latest: &l,
-		Hypernatremia: l.Value > p.Projection.HypernatremiaAbove}
+		Hypernatremia: l.Value > p.Projection.HypernatremiaAbove && !correcting}
 	c.limits.setLimits(p.Limits)
 	c.context = Tonicity(f, l, cp.LabPairHours)
 	c.serumOs = nearest(f.Labs[SerumOsmolality], l, cp.LabPairHours, f)
@@ -62,7 +65,7 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 				fd.Figures = map[string]float64{}
 			}
 			c.addFigures(fd.Figures)
-			if recheckNatural[fd.Rule] {
+			if recheckNatural(fd.Rule) {
 				fd.Advice = []Advice{recheckAdvice(rule.RecheckHours)}
 			}
 			out = append(out, fd)
@@ -72,10 +75,16 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 	return out
 }
 
-// recheckNatural are the chart rules whose natural suggestion is a sodium
-// re-check; the lab patterns suggest completing the work-up instead, or
-// nothing.
-var recheckNatural = map[string]bool{RuleOvercorrected: true, RuleNearingLimit: true, RuleHyperTooFast: true, RuleProfoundOrFalling: true}
+// recheckNatural reports the chart rules whose natural suggestion is a
+// sodium re-check; the lab patterns suggest completing the work-up
+// instead, or nothing.
+func recheckNatural(rule string) bool {
+	switch rule {
+	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling:
+		return true
+	}
+	return false
+}
 
 func sortByIndicator(fs []Finding) {
 	for i := 1; i < len(fs); i++ {
@@ -164,15 +173,25 @@ func (r *Ruleset) overcorrection(c chart) (Finding, bool) {
 		}
 		b.WriteString("\nGuidelines describe re-lowering sodium after an overcorrection in patients at risk (Verbalis 2013; " +
 			"Spasovski 2014; from memory); whether and how is the treating team's decision under local protocol.")
-	case w24 != nil && a.Achieved24h >= a.Limit24h-cp.NearLimitWithin && w24.Nadir.At.Add(24*time.Hour).After(c.f.At):
-		left := w24.Nadir.At.Add(24 * time.Hour).Sub(c.f.At).Hours()
-		allowed := math.Max(0, a.Limit24h-a.Achieved24h)
+	case a.Limit48h > 0 && w24 != nil:
+		// The tighter of the 24-h and 48-h allowances, and when its window,
+		// counted from its nadir, closes.
+		allowed, limit, nadir, hours := a.Limit24h-a.Achieved24h, a.Limit24h, w24.Nadir, 24.0
+		if a48 := a.Limit48h - a.Achieved48h; a48 < allowed {
+			allowed, limit, nadir, hours = a48, a.Limit48h, w48.Nadir, 48
+		}
+		closes := nadir.At.Add(time.Duration(hours) * time.Hour)
+		if allowed > cp.NearLimitWithin || !closes.After(c.f.At) {
+			return Finding{}, false
+		}
+		left := closes.Sub(c.f.At).Hours()
+		allowed = math.Max(0, allowed)
 		fd.Rule = RuleNearingLimit
-		fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L since the nadir; %.1f more allowed in the next %.0f h (limit %g)",
-			a.Achieved24h, allowed, left, a.Limit24h)
+		fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L since the nadir; %.1f more allowed in the next %.0f h (%g-h limit %g)",
+			a.Latest.Value-nadir.Value, allowed, left, hours, limit)
 		fd.Figures["hoursLeftInWindow"], fd.Figures["riseStillAllowed"] = Round(left, 1), Round(allowed, 1)
-		fmt.Fprintf(&b, "- The 24-h window from the nadir (%s) closes in %.1f h; %.1f mmol/L more is allowed until then\n",
-			stamp(w24.Nadir.At), left, allowed)
+		fmt.Fprintf(&b, "- The %g-h window from the nadir (%s) closes in %.1f h; %.1f mmol/L more is allowed until then\n",
+			hours, stamp(nadir.At), left, allowed)
 	default:
 		return Finding{}, false
 	}
@@ -215,14 +234,17 @@ func (r *Ruleset) profoundOrFalling(c chart) (Finding, bool) {
 	if w := c.trend.Window48h; w != nil {
 		fall = w.FallFromPeak
 	}
-	if na >= cp.ProfoundBelow && fall < cp.FallIn48hAtLeast {
+	// A fall counts only into hyponatremia: a hypernatremia being brought
+	// down is judged by its own limits (hyperTooFast).
+	falling := fall >= cp.FallIn48hAtLeast && na < cp.HyponatremiaBelow
+	if na >= cp.ProfoundBelow && !falling {
 		return Finding{}, false
 	}
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
 	summary := fmt.Sprintf("Sodium %g mmol/L, below %g", na, cp.ProfoundBelow)
-	if fall >= cp.FallIn48hAtLeast {
+	if falling {
 		summary = fmt.Sprintf("Sodium fell %.1f mmol/L in 48 h to %g", fall, na)
 	}
 	drugs := r.activeDrugs(c.f, EffectHyponatremia)
@@ -359,6 +381,7 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBa
 	}
 	bsa, err := MostellerBSA(h.Value, w.Value)
 	if err != nil {
+		fmt.Fprintf(b, "- Child: body-surface area not computed: %v\n", err)
 		return
 	}
 	perM2 := band.MlPerDayUpTo / p.ChartReview.Restriction.AdultBSA
@@ -366,6 +389,11 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBa
 	fmt.Fprintf(b, "- Child: body-surface area %.2f m² (Mosteller; %g cm, %g kg); the band's %g mL/day for an adult is about %.0f mL/m²/day, "+
 		"%.0f mL/day for this child (%s)\n", bsa, Round(h.Value, 1), Round(w.Value, 1), band.MlPerDayUpTo, perM2, perM2*bsa,
 		p.ChartReview.Restriction.PaediatricSource)
+	if rs := p.ChartReview.Restriction; perM2 < rs.PaediatricInsensibleMlPerM2 {
+		fmt.Fprintf(b, "- That is below the %g mL/m²/day of insensible losses (%.0f mL/day for this child): a restriction this "+
+			"tight is not usually used in a child (%s)\n", rs.PaediatricInsensibleMlPerM2, rs.PaediatricInsensibleMlPerM2*bsa,
+			rs.PaediatricInsensibleSource)
+	}
 }
 
 func missingSize(haveWeight, haveHeight bool) string {

@@ -59,6 +59,18 @@ func TestChartReview(t *testing.T) {
 			}
 		}},
 		{"within the limit", "", chartFacts(t, adult, map[float64]float64{20: 126, 2: 130}, normalK), nil},
+		// 120 → 147 in 40 h: an overcorrection that overshot into hypernatremia.
+		{"overcorrected past 145", RuleOvercorrected, chartFacts(t, adult, map[float64]float64{40: 120, 2: 147}, normalK), nil},
+		// 108 (−40 h) → 120 (−30 h) → 125.5 now: 24-h rise 5.5 leaves 4.5, but the
+		// 48-h rise 17.5 leaves 0.5 of 18, which binds, for the 8 h until that window closes.
+		{"nearing the 48-h limit", RuleNearingLimit, chartFacts(t, adult, map[float64]float64{40: 108, 30: 120, 20: 121, 1: 125.5}, normalK),
+			func(t *testing.T, fs []Finding) {
+				if fs[0].Figures["riseStillAllowed"] != 0.5 || fs[0].Figures["hoursLeftInWindow"] != 8 || !strings.Contains(fs[0].Summary, "48-h limit") {
+					t.Errorf("%v %s", fs[0].Figures, fs[0].Summary)
+				}
+			}},
+		// 160 → 151 over 40 h, 0.23 per hour: within the hypernatremia limits and no hyponatremia.
+		{"hypernatremia corrected slowly", "", chartFacts(t, adult, map[float64]float64{40: 160, 2: 151}), nil},
 		{"hypernatremia falling 12 in 24 h", RuleHyperTooFast, chartFacts(t, adult, map[float64]float64{20: 162, 2: 150}), nil},
 		// 158 → 152 in 6 h: 1 mmol/L per hour over at least 4 h.
 		{"hypernatremia falling 1 per hour", RuleHyperTooFast, chartFacts(t, adult, map[float64]float64{8: 158, 2: 152}), nil},
@@ -73,6 +85,10 @@ func TestChartReview(t *testing.T) {
 				t.Errorf("%v", f)
 			}
 		}},
+		// Na 128 with a measured osmolality of 292 and urea 4: effective 288, not
+		// hypotonic, though 2·Na + glucose would say 261.
+		{"measured osmolality shows not hypotonic", RuleNotHypotonic, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(90),
+			lab(Urea, 4, 2), lab(SerumOsmolality, 292, 2)), nil},
 		{"hypotonic without urine studies", RuleUrineStudiesMissing, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(90), lab(Urea, 4, 2)),
 			func(t *testing.T, fs []Finding) {
 				if len(fs[0].Advice) != 1 || fs[0].Advice[0].Kind != AdviseUrineStudies {
@@ -98,6 +114,13 @@ func TestChartReview(t *testing.T) {
 			append(siadh(60, 30), lab(BodyWeight, 18, 20), lab(BodyHeight, 110, 20))...), func(t *testing.T, fs []Finding) {
 			if fs[0].Figures["bsaM2"] != 0.74 || !strings.Contains(fs[0].Detail, "about 405 mL/m²/day, 300 mL/day") {
 				t.Errorf("%v\n%s", fs[0].Figures, fs[0].Detail)
+			}
+		}},
+		// Ratio 1.09 → 500 mL/day per 1.73 m² = 289 mL/m²/day, below 400 of insensible losses.
+		{"child band below insensible losses", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128},
+			append(siadh(92, 48), lab(BodyWeight, 18, 20), lab(BodyHeight, 110, 20))...), func(t *testing.T, fs []Finding) {
+			if !strings.Contains(fs[0].Detail, "below the 400 mL/m²/day of insensible losses") {
+				t.Errorf("%s", fs[0].Detail)
 			}
 		}},
 		{"child without a height", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128}, append(siadh(60, 30), lab(BodyWeight, 18, 20))...),

@@ -159,8 +159,10 @@ func (r *Ruleset) judgeDrug(c drugContext, o MedicationOrder, m DrugMatch) (Find
 		fig["sodiumLatest"] = c.last.Value
 		fig["sodiumAgeHours"] = Round(c.lastAgeHours(), 1)
 	}
-	attrs := map[string]any{"ingredient": d.Name, "ingredientRxcui": m.Code, "effect": best.effect.Effect,
-		"evidence": best.effect.Evidence, "matchedBy": m.By}
+	attrs := map[string]any{"ingredient": d.Name, "effect": best.effect.Effect, "evidence": best.effect.Evidence, "matchedBy": m.By}
+	if m.Code != "" { // a class-level match has no ingredient code
+		attrs["ingredientRxcui"] = m.Code
+	}
 	if len(multipliers) > 0 {
 		attrs["riskMultipliers"] = multipliers
 	}
@@ -238,17 +240,26 @@ func (c drugContext) ndiVerdict(p DrugRiskPolicy, d DrugIngredient, e DrugEffect
 		if c.urineOsm != nil {
 			urine = fmt.Sprintf(", urine osmolality %g mOsm/kg", c.urineOsm.Value)
 		}
-		return drugVerdict{RuleDrugNDI, Warning, e,
+		return drugVerdict{RuleDrugNDI, ndiIndicator(e), e,
 			fmt.Sprintf("%s can cause nephrogenic DI; sodium is %g mmol/L%s", capitalise(d.Name), c.latest.Value, urine)}, true
 	case c.serumOsm != nil && c.urineOsm != nil && c.serumOsm.Value > p.SerumOsmolalityAbove && c.urineOsm.Value < p.UrineOsmolalityBelow:
-		return drugVerdict{RuleDrugNDI, Warning, e,
-			fmt.Sprintf("%s can cause nephrogenic DI; serum osmolality %g with urine osmolality %g mOsm/kg", capitalise(d.Name),
-				c.serumOsm.Value, c.urineOsm.Value)}, true
+		return drugVerdict{RuleDrugNDI, ndiIndicator(e), e,
+			fmt.Sprintf("%s can cause nephrogenic DI; sodium %g, serum osmolality %g, urine osmolality %g mOsm/kg", capitalise(d.Name),
+				c.latest.Value, c.serumOsm.Value, c.urineOsm.Value)}, true
 	case c.latest == nil && d.Class == "lithium":
 		return drugVerdict{RuleLithiumNoSodium, Info, e,
 			fmt.Sprintf("Lithium order: no serum sodium from the last %g days", p.SodiumMaxAgeHours/24)}, true
 	}
 	return drugVerdict{}, false
+}
+
+// ndiIndicator: a warning for strong or moderate evidence, information for
+// a drug known from case reports only.
+func ndiIndicator(e DrugEffect) Indicator {
+	if e.Evidence == EvidenceLimited {
+		return Info
+	}
+	return Warning
 }
 
 // multipliers are the patient's hyponatremia risk multipliers for a new

@@ -94,8 +94,11 @@ func words(text string) []string {
 	return strings.FieldsFunc(strings.ToLower(text), func(r rune) bool { return !isWordRune(r) })
 }
 
-var effects = map[string]bool{EffectHyponatremia: true, EffectNephrogenicDI: true, EffectRapidRise: true}
-var mechanisms = map[string]bool{"SIADH": true, "renal-salt-loss": true, "other": true}
+func knownEffect(e string) bool {
+	return e == EffectHyponatremia || e == EffectNephrogenicDI || e == EffectRapidRise
+}
+
+func knownMechanism(m string) bool { return m == "SIADH" || m == "renal-salt-loss" || m == "other" }
 
 func parseDrugs(data, products []byte) (*drugKB, error) {
 	kb := &drugKB{byRxNorm: map[string]int{}, byProduct: map[string][]int{}, byATC: map[string]int{}, byClassATC: map[string][]int{},
@@ -117,8 +120,8 @@ func parseDrugs(data, products []byte) (*drugKB, error) {
 			return nil, fmt.Errorf("load drugs: ingredients[%d] (%s) needs a name, codes, a known class and effects", i, d.Name)
 		}
 		for _, e := range d.Effects {
-			if !effects[e.Effect] || kb.Evidence[e.Evidence] == "" || e.Citation == "" ||
-				(e.Effect == EffectHyponatremia) != mechanisms[e.Mechanism] {
+			if !knownEffect(e.Effect) || kb.Evidence[e.Evidence] == "" || e.Citation == "" ||
+				(e.Effect == EffectHyponatremia) != knownMechanism(e.Mechanism) {
 				return nil, fmt.Errorf("load drugs: %s: effect %+v needs a known effect, evidence and citation (and a mechanism for hyponatremia only)", d.Name, e)
 			}
 		}
@@ -131,6 +134,9 @@ func parseDrugs(data, products []byte) (*drugKB, error) {
 		for _, c := range d.ATC {
 			if len(c) != 7 {
 				return nil, fmt.Errorf("load drugs: %s: ATC %q is not a level-5 code", d.Name, c)
+			}
+			if _, dup := kb.byATC[c]; dup {
+				return nil, fmt.Errorf("load drugs: ATC %s is listed twice", c)
 			}
 			kb.byATC[c] = i
 			kb.byClassATC[c[:5]] = append(kb.byClassATC[c[:5]], i)
@@ -168,20 +174,11 @@ func (kb *drugKB) readProducts(data []byte) error {
 		if !ok {
 			continue // an ingredient with no sodium effect (e.g. sodium chloride)
 		}
-		if !containsInt(kb.byProduct[f[3]], i) {
+		if !slices.Contains(kb.byProduct[f[3]], i) {
 			kb.byProduct[f[3]] = append(kb.byProduct[f[3]], i)
 		}
 	}
 	return sc.Err()
-}
-
-func containsInt(list []int, v int) bool {
-	for _, x := range list {
-		if x == v {
-			return true
-		}
-	}
-	return false
 }
 
 // DrugMatch is one ingredient an order was recognised as, and how.
@@ -215,6 +212,7 @@ func (r *Ruleset) MatchDrug(m Medication) []DrugMatch {
 		}
 		out = append(out, DrugMatch{Ingredient: d, By: by, Code: code})
 	}
+	seenClass := map[string]bool{}
 	codings := append([]Coding(nil), m.Codings...)
 	for _, ing := range m.Ingredients {
 		codings = append(codings, ing.Codings...)
@@ -231,22 +229,31 @@ func (r *Ruleset) MatchDrug(m Medication) []DrugMatch {
 		case SystemATC:
 			if i, ok := kb.byATC[c.Code]; ok {
 				add(i, "ATC "+c.Code)
-			} else if len(c.Code) == 5 {
-				for _, i := range kb.byClassATC[c.Code] {
-					add(i, "ATC class "+c.Code)
+			} else if len(c.Code) == 5 && !seenClass[c.Code] {
+				seenClass[c.Code] = true
+				if m, ok := kb.classMatch(c.Code); ok {
+					out = append(out, m)
 				}
 			}
 		}
 	}
-	if len(out) > 0 {
-		return out
+	// Names are the last resort: the medication's own text when no code
+	// matched, and the text of every ingredient that carries no code that
+	// matched (a coded product with an ingredient named only in words).
+	var texts []string
+	if len(out) == 0 {
+		texts = append(texts, m.Text)
+		for _, c := range m.Codings {
+			texts = append(texts, c.Display)
+		}
 	}
-	texts := []string{m.Text}
 	for _, ing := range m.Ingredients {
-		texts = append(texts, ing.Text)
-	}
-	for _, c := range codings {
-		texts = append(texts, c.Display)
+		if !kb.anyCodeMatches(ing.Codings) {
+			texts = append(texts, ing.Text)
+			for _, c := range ing.Codings {
+				texts = append(texts, c.Display)
+			}
+		}
 	}
 	for _, t := range texts {
 		ws := words(t)
@@ -261,8 +268,59 @@ func (r *Ruleset) MatchDrug(m Medication) []DrugMatch {
 	return out
 }
 
-// Drugs returns the knowledge base's ingredients, for listing.
-func (r *Ruleset) Drugs() []DrugIngredient { return r.drugs.Ingredients }
+// anyCodeMatches reports whether one of cs is a knowledge-base code.
+func (kb *drugKB) anyCodeMatches(cs []Coding) bool {
+	for _, c := range cs {
+		_, in := kb.byRxNorm[c.Code]
+		_, at := kb.byATC[c.Code]
+		if (c.System == SystemRxNorm && (in || len(kb.byProduct[c.Code]) > 0)) || (c.System == SystemATC && at) {
+			return true
+		}
+	}
+	return false
+}
+
+// classMatch is the match of an order coded only by an ATC level-4 class:
+// one finding for the class, when every ingredient of the class in the
+// knowledge base has the same effects and evidence (SSRIs, thiazides); a
+// mixed class (other antidepressants) is not guessed at.
+func (kb *drugKB) classMatch(code string) (DrugMatch, bool) {
+	members := kb.byClassATC[code]
+	if len(members) == 0 {
+		return DrugMatch{}, false
+	}
+	first := kb.Ingredients[members[0]]
+	for _, i := range members[1:] {
+		d := kb.Ingredients[i]
+		if d.Class != first.Class || d.IntendedToRaiseSodium != first.IntendedToRaiseSodium || !sameEffects(d.Effects, first.Effects) {
+			return DrugMatch{}, false
+		}
+	}
+	name := first.Class
+	for _, c := range kb.Classes {
+		if c.ID == first.Class {
+			name = c.Name
+		}
+	}
+	class := DrugIngredient{Name: name, ATC: []string{code}, Class: first.Class, Effects: first.Effects,
+		IntendedToRaiseSodium: first.IntendedToRaiseSodium}
+	return DrugMatch{Ingredient: class, By: "ATC class " + code}, true
+}
+
+func sameEffects(a, b []DrugEffect) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	for i := range a {
+		if a[i].Effect != b[i].Effect || a[i].Evidence != b[i].Evidence || a[i].Mechanism != b[i].Mechanism {
+			return false
+		}
+	}
+	return true
+}
+
+// Drugs returns a copy of the knowledge base's ingredients, for listing.
+func (r *Ruleset) Drugs() []DrugIngredient { return slices.Clone(r.drugs.Ingredients) }
 
 // DrugClasses returns the knowledge base's classes.
 func (r *Ruleset) DrugClasses() []DrugClass { return r.drugs.Classes }

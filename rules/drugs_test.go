@@ -125,7 +125,13 @@ func TestMatchDrug(t *testing.T) {
 		// SCD 977883 amiloride 5 MG / hydrochlorothiazide 50 MG Oral Tablet (extract, under hydrochlorothiazide).
 		{"multi-ingredient product", Medication{Codings: []Coding{rx("977883")}}, []string{"hydrochlorothiazide"}, "(product)"},
 		{"ATC level 5", Medication{Codings: []Coding{{System: SystemATC, Code: "N03AF01"}}}, []string{"carbamazepine"}, "ATC N03AF01"},
-		{"ATC class", Medication{Codings: []Coding{{System: SystemATC, Code: "N03AF"}}}, []string{"carbamazepine", "oxcarbazepine", "eslicarbazepine"}, "ATC class N03AF"},
+		// A homogeneous class is one class-level match; a mixed class none.
+		{"ATC class", Medication{Codings: []Coding{{System: SystemATC, Code: "N06AB"}}}, []string{"selective serotonin reuptake inhibitors"}, "ATC class N06AB"},
+		{"mixed ATC class is not guessed", Medication{Codings: []Coding{{System: SystemATC, Code: "N06AX"}}}, nil, ""},
+		// SCD 403972 olanzapine/fluoxetine (extract): both ingredients.
+		{"product with two knowledge-base ingredients", Medication{Codings: []Coding{rx("403972")}}, []string{"fluoxetine", "olanzapine"}, "(product)"},
+		{"coded product plus an ingredient named in words", Medication{Codings: []Coding{rx("36437")}, Ingredients: []Ingredient{{Text: "lithium carbonate"}}},
+			[]string{"sertraline", "lithium"}, ""},
 		{"ingredient of a contained Medication", Medication{Source: FromContained, Ingredients: []Ingredient{{Codings: []Coding{rx("2002")}}}},
 			[]string{"carbamazepine"}, "RxNorm 2002"},
 		{"name", Medication{Text: "Lithium carbonate 300 mg capsule"}, []string{"lithium"}, "name"},

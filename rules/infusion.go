@@ -320,7 +320,7 @@ func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
 			"(Hillier, 2.4 per 100 mg/dL; Am J Med 1999)\n", *c.CorrectedKatz, *c.CorrectedHillier)
 	}
 	if c.EffectiveOsmolality != nil {
-		fmt.Fprintf(b, "- Effective osmolality 2·Na + glucose: %.0f mOsm/kg (%s)", *c.EffectiveOsmolality, c.Class)
+		fmt.Fprintf(b, "- Effective osmolality (%s): %.0f mOsm/kg (%s)", c.EffectiveBasis, *c.EffectiveOsmolality, c.Class)
 		if c.CalculatedOsmolality != nil {
 			fmt.Fprintf(b, "; calculated osmolality 2·Na + glucose + urea: %.0f mOsm/kg", *c.CalculatedOsmolality)
 		}

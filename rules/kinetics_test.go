@@ -263,8 +263,10 @@ func TestAnalyseSodium(t *testing.T) {
 
 // TestTonicity: the context figures for Na 130 with glucose 600 mg/dL and
 // urea 5 mmol/L: Katz 138.0, Hillier 142.0 [derived, reference notes §3];
-// effective osmolality 2·130 + 33.3 = 293.3, calculated 298.3, and an
-// osmolal gap against a measured 310. A glucose two days away is not used.
+// calculated osmolality 298.3 and an osmolal gap against a measured 310;
+// with the measured value, effective osmolality is measured − urea = 305
+// (hypertonic), else 2·130 + 33.3 = 293.3 (isotonic). A glucose two days
+// away is not used.
 func TestTonicity(t *testing.T) {
 	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
 	g := 600 / glucoseMgPerDLPerMmol
@@ -278,9 +280,13 @@ func TestTonicity(t *testing.T) {
 	if c.CorrectedKatz == nil || !near(*c.CorrectedKatz, 138, 1e-9) || !near(*c.CorrectedHillier, 142, 1e-9) {
 		t.Fatalf("corrected %v %v", c.CorrectedKatz, c.CorrectedHillier)
 	}
-	if !near(*c.EffectiveOsmolality, 260+g, 1e-9) || !near(*c.CalculatedOsmolality, 265+g, 1e-9) ||
-		!near(*c.OsmolalGap, 310-265-g, 1e-9) || c.Class != Isotonic || len(c.Inputs) != 3 {
+	if *c.EffectiveOsmolality != 305 || !near(*c.CalculatedOsmolality, 265+g, 1e-9) ||
+		!near(*c.OsmolalGap, 310-265-g, 1e-9) || c.Class != Hypertonic || len(c.Inputs) != 3 {
 		t.Errorf("%+v", c)
+	}
+	delete(f.Labs, SerumOsmolality)
+	if c := Tonicity(f, na, 24); !near(*c.EffectiveOsmolality, 260+g, 1e-9) || c.Class != Isotonic || c.OsmolalGap != nil {
+		t.Errorf("without a measured value: %+v", c)
 	}
 	// Na 118, glucose 5 mmol/L: effective 241, hypotonic; no correction below 100 mg/dL.
 	f.Labs[Glucose][0].Value = 5

@@ -22,7 +22,8 @@ const (
 type TonicityContext struct {
 	CorrectedKatz, CorrectedHillier *float64 // mmol/L; only when glucose is above 100 mg/dL
 	CalculatedOsmolality            *float64 // 2·Na + glucose + urea
-	EffectiveOsmolality             *float64 // 2·Na + glucose
+	EffectiveOsmolality             *float64 // measured − urea when both exist, else 2·Na + glucose
+	EffectiveBasis                  string   // how EffectiveOsmolality was found
 	MeasuredOsmolality              *float64
 	OsmolalGap                      *float64 // measured − calculated
 	Class                           string   // by effective osmolality
@@ -59,15 +60,7 @@ func Tonicity(f Facts, na Measurement, maxApartHours float64) TonicityContext {
 			c.CorrectedKatz, c.CorrectedHillier = &katz, &hillier
 		}
 		eff := EffectiveOsmolality(na.Value, glucose.Value)
-		c.EffectiveOsmolality = &eff
-		switch {
-		case eff < hypotonicBelow:
-			c.Class = Hypotonic
-		case eff > hypertonicAbove:
-			c.Class = Hypertonic
-		default:
-			c.Class = Isotonic
-		}
+		c.EffectiveOsmolality, c.EffectiveBasis = &eff, "2·Na + glucose"
 		if urea != nil {
 			calc := CalculatedOsmolality(na.Value, glucose.Value, urea.Value)
 			c.CalculatedOsmolality = &calc
@@ -78,6 +71,22 @@ func Tonicity(f Facts, na Measurement, maxApartHours float64) TonicityContext {
 		if c.CalculatedOsmolality != nil {
 			gap := measured.Value - *c.CalculatedOsmolality
 			c.OsmolalGap = &gap
+		}
+		// A measured osmolality counts every osmole, seen or not (glucose,
+		// mannitol, alcohols); less urea, it is the better effective value.
+		if urea != nil {
+			eff := measured.Value - urea.Value
+			c.EffectiveOsmolality, c.EffectiveBasis = &eff, "measured osmolality − urea"
+		}
+	}
+	if c.EffectiveOsmolality != nil {
+		switch eff := *c.EffectiveOsmolality; {
+		case eff < hypotonicBelow:
+			c.Class = Hypotonic
+		case eff > hypertonicAbove:
+			c.Class = Hypertonic
+		default:
+			c.Class = Isotonic
 		}
 	}
 	return c

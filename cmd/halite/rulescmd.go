@@ -47,7 +47,7 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 		{"hypernatremia fall per hour", l.HypernatremiaFallPerHour}} {
 		fmt.Fprintf(tw, "%s\t%g %s\t%s\n", x.name, x.lim.Value, x.lim.Unit, x.lim.Source)
 	}
-	fmt.Fprintf(tw, "\n== infusion cards (hypertonic from Na + K %g mmol/L)\n", p.Cards.HypertonicNaKAtLeast)
+	fmt.Fprintf(tw, "\n== card policy: infusion check and chart review (hypertonic from Na + K %g mmol/L)\n", p.Cards.HypertonicNaKAtLeast)
 	ids := make([]string, 0, len(p.Cards.Rules))
 	for id := range p.Cards.Rules {
 		ids = append(ids, id)
@@ -61,6 +61,19 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 		}
 		fmt.Fprintf(tw, "%s\t%s\tre-check %g h\n", id, ind, r.RecheckHours)
 	}
+	cr := p.ChartReview
+	fmt.Fprintf(tw, "\n== chart-review thresholds\n")
+	fmt.Fprintf(tw, "sodium counts as recent for\t%g h\n", cr.SodiumMaxAgeHours)
+	fmt.Fprintf(tw, "nearing a limit\twithin %g mmol/L\n", cr.NearLimitWithin)
+	fmt.Fprintf(tw, "profound or falling\tbelow %g, or a fall of %g in 48 h\n", cr.ProfoundBelow, cr.FallIn48hAtLeast)
+	fmt.Fprintf(tw, "SIADH lab pattern\teffective osmolality < %g, urine osmolality > %g, urine sodium > %g (%s)\n",
+		cr.SIADH.EffectiveOsmolalityBelow, cr.SIADH.UrineOsmolalityAbove, cr.SIADH.UrineSodiumAbove, cr.SIADH.Source)
+	fmt.Fprintf(tw, "restriction bands\t%s\n", cr.Restriction.Scheme)
+	for _, b := range cr.Restriction.Bands {
+		fmt.Fprintf(tw, "  ratio below %g\t%s\n", b.RatioBelow, b.Text)
+	}
+	fmt.Fprintf(tw, "concentrating defect\tsodium > %g or serum osmolality > %g with urine osmolality < %g\n",
+		cr.ConcentratingDefect.SodiumAbove, cr.ConcentratingDefect.SerumOsmolalityAbove, cr.ConcentratingDefect.UrineOsmolalityBelow)
 	d := p.DrugRisk
 	fmt.Fprintf(tw, "\n== drug-risk thresholds\n")
 	for _, b := range d.Bands {
