@@ -20,6 +20,8 @@ Usage:
   halite serve   [--config FILE] [--addr HOST:PORT]
   halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE
   halite rules   [--policy-override FILE] [--json]
+  halite keys    --out DIR
+  halite token   --key FILE --iss URL --aud URL [--tenant T] [--lifetime 5m]
   halite request --hook HOOK [--service ID] BUNDLE
   halite serve-bundle [--addr HOST:PORT] [--page-size N] [--token T] BUNDLE
   halite help
@@ -39,6 +41,10 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = serve(ctx, rest, stdout, stderr)
 	case "eval":
 		err = eval(ctx, rest, stdout, stderr)
+	case "keys":
+		err = keysCmd(rest, stdout, stderr)
+	case "token":
+		err = tokenCmd(rest, stdout, stderr)
 	case "rules":
 		err = rulesCmd(rest, stdout, stderr)
 	case "request":

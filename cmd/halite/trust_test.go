@@ -174,3 +174,45 @@ func TestServeWithTrustedIssuer(t *testing.T) {
 		t.Errorf("log must give refusal reasons and never a token:\n%s", l)
 	}
 }
+
+// TestKeysAndToken: halite keys makes an issuer whose JWKS file halite
+// trusts, and halite token signs a call that serve accepts once.
+func TestKeysAndToken(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	dir := t.TempDir()
+	var out bytes.Buffer
+	if err := run(context.Background(), []string{"keys", "--out", dir}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	if st, err := os.Stat(filepath.Join(dir, "issuer-private.jwk")); err != nil || st.Mode().Perm() != 0o600 {
+		t.Fatalf("private key file: %v %v", st, err)
+	}
+	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
+		filepath.Join(dir, "issuer-jwks.json") + "\n"
+	cfgPath := filepath.Join(dir, "halite.yaml")
+	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	base, _, stop := startServe(t, "--config", cfgPath)
+	out.Reset()
+	if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
+		"--aud", "http://127.0.0.1/cds-services/sodium-infusion-check"}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	call := func() int {
+		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-infusion-check", bytes.NewReader(demo))
+		r.Header.Set("Content-Type", "application/json")
+		r.Header.Set("Authorization", "Bearer "+strings.TrimSpace(out.String()))
+		resp, err := http.DefaultClient.Do(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		return resp.StatusCode
+	}
+	if first, second := call(), call(); first != 200 || second != 401 {
+		t.Errorf("signed call %d, replay %d; want 200 then 401", first, second)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+}
