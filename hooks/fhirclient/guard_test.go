@@ -56,3 +56,22 @@ func TestPublicReasonForStatus(t *testing.T) {
 		t.Errorf("got %v", err)
 	}
 }
+
+// TestAllowPrivateKeepsOtherGuards: a transport for an allowlist entry on a
+// private network dials private ranges, but still refuses link-local
+// (cloud metadata) and, outside development, loopback.
+func TestAllowPrivateKeepsOtherGuards(t *testing.T) {
+	opts := fhirclient.Options{Timeout: 300 * time.Millisecond, MaxResponseBytes: 1 << 10, Transport: fhirclient.NewTransport(false, true)}
+	for base, blocked := range map[string]bool{
+		"https://169.254.169.254/latest": true, "https://127.0.0.1/fhir": true, "https://10.255.255.1/fhir": false,
+	} {
+		c, err := fhirclient.New(base, "t", opts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, err = c.Fetch(t.Context(), "Patient/p")
+		if got := err != nil && strings.Contains(err.Error(), fhirclient.ErrBlockedAddress.Error()); got != blocked {
+			t.Errorf("%s: blocked %v (%v), want %v", base, got, err, blocked)
+		}
+	}
+}
