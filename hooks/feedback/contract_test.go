@@ -1,0 +1,161 @@
+package feedback
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"path/filepath"
+	"sync"
+	"testing"
+	"time"
+)
+
+// backend opens a fresh store and says how to reopen the same data.
+type backend struct {
+	name string
+	open func(t *testing.T) (Store, func() Store)
+}
+
+func backends() []backend {
+	return []backend{{name: "sqlite", open: func(t *testing.T) (Store, func() Store) {
+		path := filepath.Join(t.TempDir(), "halite.db")
+		s, err := OpenSQLite(path, SQLiteOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s, func() Store {
+			r, err := OpenSQLite(path, SQLiteOptions{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			return r
+		}
+	}}}
+}
+
+var t0 = time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+
+func card(uuid string, at time.Time) CardRecord {
+	return CardRecord{UUID: uuid, Service: "sodium-infusion-check", Rule: "sodium-projected-over-limit", Indicator: "warning",
+		Ruleset: "rev", PatientHash: "h", At: at, Figures: map[string]float64{"limit24h": 10}, Suggestions: []string{uuid + "-s1", uuid + "-s2"}}
+}
+
+// TestStoreContract is the same list of cases for every back end.
+func TestStoreContract(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends() {
+		t.Run(b.name, func(t *testing.T) {
+			s, reopen := b.open(t)
+			if err := s.LogCards(ctx, []CardRecord{card("c1", t0), card("c2", t0.Add(-48*time.Hour))}); err != nil {
+				t.Fatal(err)
+			}
+			fb := FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Accepted, AcceptedSuggestions: []string{"c1-s1"}, OutcomeAt: t0}
+			for i := 0; i < 3; i++ { // repeats are stored once
+				if err := s.RecordFeedback(ctx, fb); err != nil {
+					t.Fatal(err)
+				}
+			}
+			over := FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Overridden, ReasonSystem: "sys", ReasonCode: "local-protocol", OutcomeAt: t0.Add(time.Minute)}
+			if err := s.RecordFeedback(ctx, over); err != nil {
+				t.Fatal(err)
+			}
+			for name, tc := range map[string]struct {
+				f    FeedbackRecord
+				want error
+			}{
+				"unknown card":       {FeedbackRecord{Card: "nope", Service: "sodium-infusion-check", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
+				"other service":      {FeedbackRecord{Card: "c1", Service: "sodium-drug-risk", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
+				"foreign suggestion": {FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Accepted, AcceptedSuggestions: []string{"c2-s1"}, OutcomeAt: t0}, ErrUnknownSuggestion},
+			} {
+				if err := s.RecordFeedback(ctx, tc.f); !errors.Is(err, tc.want) {
+					t.Errorf("%s: %v, want %v", name, err, tc.want)
+				}
+			}
+			if err := s.LogCards(ctx, []CardRecord{card("c1", t0)}); err == nil {
+				t.Error("a duplicate card uuid was accepted")
+			}
+			if c, f, err := s.Counts(ctx); err != nil || c != 2 || f != 2 {
+				t.Errorf("counts %d cards %d feedback %v; want 2 and 2", c, f, err)
+			}
+			if n, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil || n != 1 {
+				t.Errorf("purge removed %d (%v), want 1", n, err)
+			}
+			if err := s.Close(); err != nil {
+				t.Fatal(err)
+			}
+			r := reopen() // durable across reopening; migrations are not re-applied
+			defer r.Close()
+			if c, f, err := r.Counts(ctx); err != nil || c != 1 || f != 2 {
+				t.Errorf("after reopening: %d cards %d feedback %v; want 1 and 2", c, f, err)
+			}
+		})
+	}
+}
+
+// TestStoreConcurrent: many goroutines write cards and feedback at once
+// (group commit); every acknowledged record is there.
+func TestStoreConcurrent(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends() {
+		t.Run(b.name, func(t *testing.T) {
+			s, _ := b.open(t)
+			defer s.Close()
+			const workers, each = 32, 25
+			var wg sync.WaitGroup
+			errs := make(chan error, workers*each*2)
+			for w := 0; w < workers; w++ {
+				wg.Add(1)
+				go func() {
+					defer wg.Done()
+					for i := 0; i < each; i++ {
+						id := fmt.Sprintf("w%d-%d", w, i)
+						if err := s.LogCards(ctx, []CardRecord{card(id, t0)}); err != nil {
+							errs <- err
+							continue
+						}
+						errs <- s.RecordFeedback(ctx, FeedbackRecord{Card: id, Service: "sodium-infusion-check", Outcome: Overridden, OutcomeAt: t0})
+						if _, _, err := s.Counts(ctx); err != nil {
+							errs <- err
+						}
+					}
+				}()
+			}
+			wg.Wait()
+			close(errs)
+			for err := range errs {
+				if err != nil {
+					t.Fatal(err)
+				}
+			}
+			if c, f, err := s.Counts(ctx); err != nil || c != workers*each || f != workers*each {
+				t.Errorf("%d cards, %d feedback (%v); want %d each", c, f, err, workers*each)
+			}
+		})
+	}
+}
+
+// BenchmarkLogCards measures the card-log write of one call (two cards),
+// with calls from several goroutines sharing commits.
+func BenchmarkLogCards(b *testing.B) {
+	s, err := OpenSQLite(filepath.Join(b.TempDir(), "bench.db"), SQLiteOptions{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer s.Close()
+	var n int64
+	var mu sync.Mutex
+	b.SetParallelism(8)
+	b.ReportAllocs()
+	b.RunParallel(func(pb *testing.PB) {
+		for pb.Next() {
+			mu.Lock()
+			n++
+			id := fmt.Sprint(n)
+			mu.Unlock()
+			if err := s.LogCards(context.Background(), []CardRecord{card(id+"a", t0), card(id+"b", t0)}); err != nil {
+				b.Error(err)
+				return
+			}
+		}
+	})
+}
