@@ -20,6 +20,8 @@ type Engine struct {
 	newFetcher FetcherFactory
 	limits     Limits
 	log        *slog.Logger
+	recorder   Recorder
+	hash       func(string) string
 }
 
 // EngineConfig is what an Engine is built from.
@@ -31,6 +33,10 @@ type EngineConfig struct {
 	NewFetcher FetcherFactory
 	Limits     Limits
 	Log        *slog.Logger
+	// Recorder, when set, logs every card before the response is sent;
+	// PatientHash keys the patient reference for it (required with it).
+	Recorder    Recorder
+	PatientHash func(reference string) string
 }
 
 // NewEngine returns an Engine.
@@ -39,7 +45,7 @@ func NewEngine(cfg EngineConfig) *Engine {
 		cfg.Limits.MaxPages = 1
 	}
 	return &Engine{registry: cfg.Registry, ruleset: cfg.Ruleset, newFetcher: cfg.NewFetcher,
-		limits: cfg.Limits, log: cfg.Log}
+		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash}
 }
 
 // Registry returns the engine's services.
@@ -81,7 +87,8 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
 		}
 	}
-	cards, err := renderCards(e.ruleset.Evaluate(svc.Check, facts), e.ruleset.Revision(),
+	findings := e.ruleset.Evaluate(svc.Check, facts)
+	cards, err := renderCards(findings, e.ruleset.Revision(),
 		suggestionInput{At: at, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftOrders)})
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
@@ -90,7 +97,28 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 	if err := ValidateResponse(resp); err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}
+	if e.recorder != nil && len(cards) > 0 {
+		if err := e.recorder.LogCards(ctx, e.logged(ctx, svc.ID, call.Context.PatientID, findings, cards, at)); err != nil {
+			// No card leaves without its record: feedback must be able to join.
+			return nil, &Error{Kind: KindUnavailable, Message: "the card log could not be written", Err: err}
+		}
+	}
 	return &Outcome{Response: resp, Keys: keys, Facts: facts}, nil
+}
+
+// logged is the card-log form of the cards of one response.
+func (e *Engine) logged(ctx context.Context, service, patientID string, fs []rules.Finding, cards []Card, at time.Time) []LoggedCard {
+	out := make([]LoggedCard, len(cards))
+	hash := e.hash("Patient/" + patientID)
+	for i, c := range cards {
+		var sugg []string
+		for _, s := range c.Suggestions {
+			sugg = append(sugg, s.UUID)
+		}
+		out[i] = LoggedCard{UUID: c.UUID, Service: service, Rule: fs[i].Rule, Indicator: c.Indicator, Ruleset: e.ruleset.Revision(),
+			Tenant: CallerFrom(ctx).Tenant, PatientHash: hash, At: at, Figures: fs[i].Figures, Suggestions: sugg}
+	}
+	return out
 }
 
 // fetcher returns the outbound client for the call, or nil when the call

@@ -54,7 +54,8 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.Use(gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
 	r.GET("/cds-services", s.discover)
 	r.POST("/cds-services/:id", s.call)
-	for _, p := range []string{"/cds-services", "/cds-services/:id"} {
+	r.POST("/cds-services/:id/feedback", s.feedback)
+	for _, p := range []string{"/cds-services", "/cds-services/:id", "/cds-services/:id/feedback"} {
 		r.OPTIONS(p, func(c *gin.Context) { c.Status(http.StatusNoContent) })
 	}
 	r.GET("/healthz", func(c *gin.Context) { c.Data(http.StatusOK, "application/json", []byte(`{"status":"ok"}`)) })
@@ -102,19 +103,9 @@ func (s *server) call(c *gin.Context) {
 		s.fail(c, &Error{Kind: KindBadRequest, Message: "request body could not be read"})
 		return
 	}
-	ctx := c.Request.Context()
-	if a := s.cfg.Authenticator; a != nil {
-		caller, err := a.Authenticate(ctx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+"/cds-services/"+id)
-		if err != nil {
-			reason := "refused"
-			if l, ok := err.(interface{ Label() string }); ok {
-				reason = l.Label()
-			}
-			c.Set(logAuth, reason)
-			s.fail(c, &Error{Kind: KindUnauthorized, Message: "authentication required"})
-			return
-		}
-		ctx = WithCaller(ctx, caller)
+	ctx, ok := s.authenticate(c, "/cds-services/"+id)
+	if !ok {
+		return
 	}
 	if s.cfg.CallTimeout > 0 {
 		var cancel context.CancelFunc
@@ -129,6 +120,65 @@ func (s *server) call(c *gin.Context) {
 	c.Set(logCards, len(out.Response.Cards))
 	c.Set(logKeys, keySummary(out.Keys))
 	c.Data(http.StatusOK, "application/json", mustJSON(out.Response))
+}
+
+// authenticate verifies the caller for a call to path, answering 401 and
+// returning false if refused.
+func (s *server) authenticate(c *gin.Context, path string) (context.Context, bool) {
+	ctx := c.Request.Context()
+	a := s.cfg.Authenticator
+	if a == nil {
+		return ctx, true
+	}
+	caller, err := a.Authenticate(ctx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+path)
+	if err != nil {
+		reason := "refused"
+		if l, ok := err.(interface{ Label() string }); ok {
+			reason = l.Label()
+		}
+		c.Set(logAuth, reason)
+		s.fail(c, &Error{Kind: KindUnauthorized, Message: "authentication required"})
+		return nil, false
+	}
+	return WithCaller(ctx, caller), true
+}
+
+// feedback stores the EHR's outcomes for cards of service id. Its token's
+// audience is the feedback URL itself. Success is 200 with no body.
+func (s *server) feedback(c *gin.Context) {
+	id := c.Param("id")
+	if _, known := s.engine.Registry().Lookup(id); !known {
+		s.fail(c, &Error{Kind: KindUnknownService, Message: "no CDS service with id " + quote(id)})
+		return
+	}
+	if mt, _, err := mime.ParseMediaType(c.GetHeader("Content-Type")); err != nil || mt != "application/json" {
+		s.fail(c, &Error{Kind: KindUnsupportedMedia, Field: "Content-Type", Message: "must be application/json"})
+		return
+	}
+	body, err := io.ReadAll(http.MaxBytesReader(c.Writer, c.Request.Body, s.cfg.MaxBodyBytes))
+	if err != nil {
+		s.fail(c, &Error{Kind: KindTooLarge, Message: "request body is larger than the limit"})
+		return
+	}
+	ctx, ok := s.authenticate(c, "/cds-services/"+id+"/feedback")
+	if !ok {
+		return
+	}
+	rec := s.engine.recorder
+	if rec == nil {
+		s.fail(c, &Error{Kind: KindUnavailable, Message: "no feedback store is configured"})
+		return
+	}
+	entries, err := DecodeFeedback(id, body)
+	if err != nil {
+		s.fail(c, err)
+		return
+	}
+	if err := recordFeedback(func(o CardOutcome) error { return rec.RecordOutcome(ctx, o) }, entries); err != nil {
+		s.fail(c, err)
+		return
+	}
+	c.Status(http.StatusOK)
 }
 
 func (s *server) ready(c *gin.Context) {

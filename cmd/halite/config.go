@@ -37,6 +37,7 @@ type Config struct {
 	// issuer, halite runs in development mode on loopback only.
 	Auth    AuthConfig     `yaml:"auth"`
 	Issuers []IssuerConfig `yaml:"issuers"`
+	Store   StoreConfig    `yaml:"store"`
 }
 
 // FHIRClientConfig bounds the outbound FHIR client.
@@ -73,7 +74,8 @@ func defaultConfig() Config {
 			MaxResponseBytes: 32 << 20,
 			MaxPages:         10,
 		},
-		Auth: defaultAuthConfig(),
+		Auth:  defaultAuthConfig(),
+		Store: defaultStoreConfig(),
 	}
 }
 
@@ -95,6 +97,10 @@ var envKeys = []struct {
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
+	{"store.dsn", func(c *Config, v string) error { c.Store.DSN = v; return nil }},
+	{"store.hash_key_file", func(c *Config, v string) error { c.Store.HashKeyFile = v; return nil }},
+	{"store.retention", func(c *Config, v string) error { return setDuration(&c.Store.Retention, v) }},
+	{"store.purge_interval", func(c *Config, v string) error { return setDuration(&c.Store.PurgeEvery, v) }},
 	{"auth.algorithms", func(c *Config, v string) error { c.Auth.Algorithms = splitList(v); return nil }},
 	{"auth.clock_skew", func(c *Config, v string) error { return setDuration(&c.Auth.ClockSkew, v) }},
 	{"auth.max_token_lifetime", func(c *Config, v string) error { return setDuration(&c.Auth.MaxLifetime, v) }},
@@ -189,6 +195,9 @@ func (c Config) validate() error {
 		return fmt.Errorf("config: development_mode: false needs at least one trusted issuer (issuers)")
 	}
 	if err := c.validateTrust(); err != nil {
+		return err
+	}
+	if err := c.Store.validate(c.DevelopmentMode); err != nil {
 		return err
 	}
 	if c.PublicBaseURL != "" {

@@ -59,6 +59,9 @@ func (s *syncBuffer) String() string {
 // base URL, its log, and a stop function that returns run's error.
 func startServe(t *testing.T, args ...string) (string, *syncBuffer, func() error) {
 	t.Helper()
+	if os.Getenv("HALITE_STORE_DSN") == "" { // never the default ./halite-data inside the repository
+		t.Setenv("HALITE_STORE_DSN", "sqlite:"+filepath.Join(t.TempDir(), "halite.db"))
+	}
 	ctx, cancel := context.WithCancel(context.Background())
 	pr, pw := io.Pipe()
 	logs := &syncBuffer{}

@@ -57,8 +57,17 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		log.Warn("DEVELOPMENT MODE: local use only. Callers are NOT authenticated, the service listens on " +
 			"loopback only, and plain-http FHIR servers on loopback are accepted. Do not use with real patient data.")
 	}
+	st, hash, err := openStore(cfg.Store, log)
+	if err != nil {
+		return err
+	}
+	defer st.Close() // after the server has finished its calls: queued records are committed first
+	purgeCtx, stopPurge := context.WithCancel(context.Background())
+	purged := make(chan struct{})
+	go func() { purgeLoop(purgeCtx, st, cfg.Store, log); close(purged) }()
+	defer func() { stopPurge(); <-purged }() // runs before st.Close
 	gin.SetMode(gin.ReleaseMode)
-	engine := newEngine(rs, cfg, log)
+	engine := newEngine(rs, cfg, log, recorder{st}, hash)
 	health := &hooks.Health{}
 	handler := hooks.NewHandler(engine, hooks.ServerConfig{
 		MaxBodyBytes: cfg.MaxBodyBytes,
@@ -114,7 +123,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 // issuers, a call's fhirServer must be on its issuer's allowlist, or it is
 // not used (the call is answered as if no server were given); without
 // issuers (development mode) any https server, or loopback, is used.
-func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger) *hooks.Engine {
+func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string) *hooks.Engine {
 	opts := fhirclient.Options{
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
@@ -139,7 +148,9 @@ func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger) *hooks.Engine {
 			}
 			return fhirclient.New(server, auth.AccessToken, opts)
 		},
-		Limits: hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},
-		Log:    log,
+		Limits:      hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},
+		Log:         log,
+		Recorder:    rec,
+		PatientHash: hash,
 	})
 }

@@ -11,6 +11,7 @@ import (
 	"slices"
 	"sort"
 	"strings"
+	"sync"
 	"time"
 
 	_ "modernc.org/sqlite" // pure-Go SQLite driver, registered as "sqlite"
@@ -31,7 +32,14 @@ type SQLite struct {
 	db   *sql.DB
 	jobs chan job
 	done chan struct{}
+	// mu guards closed: senders hold it shared while queueing, Close
+	// exclusively while closing the queue.
+	mu     sync.RWMutex
+	closed bool
 }
+
+// ErrClosed is returned for a record offered after Close.
+var ErrClosed = errors.New("store is closed")
 
 type job struct {
 	ctx  context.Context
@@ -164,11 +172,18 @@ func (s *SQLite) commit(batch []job) {
 // do queues run for the writer and waits for its commit.
 func (s *SQLite) do(ctx context.Context, run func(*sql.Tx) error) error {
 	j := job{ctx: ctx, run: run, errc: make(chan error, 1)}
+	s.mu.RLock()
+	if s.closed {
+		s.mu.RUnlock()
+		return ErrClosed
+	}
 	select {
 	case s.jobs <- j:
 	case <-ctx.Done():
+		s.mu.RUnlock()
 		return ctx.Err()
 	}
+	s.mu.RUnlock()
 	return <-j.errc // the commit is waited for even if ctx ends: the record may be durable
 }
 
@@ -256,7 +271,14 @@ func (s *SQLite) Counts(ctx context.Context) (cards, feedback int64, err error) 
 
 // Close stops the writer after the queued records are committed.
 func (s *SQLite) Close() error {
+	s.mu.Lock()
+	if s.closed {
+		s.mu.Unlock()
+		return nil
+	}
+	s.closed = true
 	close(s.jobs)
+	s.mu.Unlock()
 	<-s.done
 	return s.db.Close()
 }

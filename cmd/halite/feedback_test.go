@@ -1,0 +1,101 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/feedback"
+)
+
+// TestFeedbackEndToEnd: cards returned by serve are in the card log before
+// the response; feedback on them is validated, stored once per outcome,
+// and survives the restart; bad feedback is a 400 naming the field.
+func TestFeedbackEndToEnd(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	db := filepath.Join(t.TempDir(), "halite.db")
+	t.Setenv("HALITE_STORE_DSN", "sqlite:"+db)
+	base, _, stop := startServe(t)
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
+	var req bytes.Buffer
+	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", scenario}, &req, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	// The server evaluates at the current time; the scenario's sodium is from 2026-11-20, so the
+	// card is the "cannot project" one, with a re-check suggestion — enough to give feedback on.
+	resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", &req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var r hooks.Response
+	json.NewDecoder(resp.Body).Decode(&r)
+	resp.Body.Close()
+	if len(r.Cards) == 0 || len(r.Cards[0].Suggestions) == 0 {
+		t.Fatalf("want a card with suggestions: %+v", r)
+	}
+	card, sugg := r.Cards[0].UUID, r.Cards[0].Suggestions[0].UUID
+	post := func(body string) (int, string) {
+		resp, err := http.Post(base+"/cds-services/sodium-infusion-check/feedback", "application/json", strings.NewReader(body))
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp.StatusCode, string(b)
+	}
+	accepted := fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"accepted","acceptedSuggestions":[{"id":%q}],"outcomeTimestamp":"2026-12-02T10:00:00Z"}]}`, card, sugg)
+	for i := 0; i < 2; i++ { // a repeat is idempotent
+		if status, body := post(accepted); status != http.StatusOK || body != "" {
+			t.Fatalf("accepted feedback: %d %s", status, body)
+		}
+	}
+	overridden := fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"overridden","overrideReason":{"reason":{"system":"https://halite-cds.github.io/fhir/CodeSystem/override-reason","code":"local-protocol"},"userComment":"per protocol"},"outcomeTimestamp":"2026-12-02T10:05:00Z"}]}`, card)
+	if status, body := post(overridden); status != http.StatusOK {
+		t.Fatalf("overridden feedback: %d %s", status, body)
+	}
+	for want, body := range map[string]string{
+		"feedback[0].card":                `{"feedback":[{"card":"no-such-card","outcome":"overridden","outcomeTimestamp":"2026-12-02T10:00:00Z"}]}`,
+		"feedback[0].outcome":             fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"ignored","outcomeTimestamp":"2026-12-02T10:00:00Z"}]}`, card),
+		"feedback[0].acceptedSuggestions": fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"accepted","outcomeTimestamp":"2026-12-02T10:00:00Z"}]}`, card),
+		"feedback[0].outcomeTimestamp":    fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"overridden","outcomeTimestamp":"yesterday"}]}`, card),
+		"feedback[0].overrideReason":      fmt.Sprintf(`{"feedback":[{"card":%q,"outcome":"overridden","overrideReason":{},"outcomeTimestamp":"2026-12-02T10:00:00Z"}]}`, card),
+		"feedback":                        `{"feedback":[]}`,
+	} {
+		if status, resp := post(body); status != http.StatusBadRequest || !strings.Contains(resp, want) {
+			t.Errorf("%s: %d %s", want, status, resp)
+		}
+	}
+	resp, err = http.Post(base+"/cds-services/sodium-drug-risk/feedback", "application/json", strings.NewReader(accepted))
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusBadRequest {
+		t.Errorf("feedback about another service's card: %d", resp.StatusCode)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range []string{db, db + "-wal"} {
+		if data, err := os.ReadFile(f); err == nil && bytes.Contains(data, []byte("pt-nyssa")) {
+			t.Errorf("%s holds the patient reference in clear", f)
+		}
+	}
+	st, err := feedback.OpenSQLite(db, feedback.SQLiteOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	cards, fb, err := st.Counts(context.Background())
+	if err != nil || cards != int64(len(r.Cards)) || fb != 2 {
+		t.Errorf("after restart: %d cards, %d feedback (%v); want %d and 2", cards, fb, err, len(r.Cards))
+	}
+}

@@ -1,0 +1,127 @@
+package main
+
+import (
+	"context"
+	"crypto/hmac"
+	"crypto/rand"
+	"crypto/sha256"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/feedback"
+)
+
+// StoreConfig is where the card log and feedback are kept.
+type StoreConfig struct {
+	// DSN is "sqlite:PATH" (the default, one node).
+	DSN string `yaml:"dsn"`
+	// HashKeyFile holds the secret that keys patient hashes (at least 32
+	// bytes). Without it, in development mode, a random key is made per
+	// process and hashes do not join across restarts.
+	HashKeyFile string   `yaml:"hash_key_file"`
+	Retention   Duration `yaml:"retention"`
+	PurgeEvery  Duration `yaml:"purge_interval"`
+}
+
+func defaultStoreConfig() StoreConfig {
+	return StoreConfig{DSN: "sqlite:halite-data/halite.db", Retention: Duration(400 * 24 * time.Hour), PurgeEvery: Duration(time.Hour)}
+}
+
+func (s StoreConfig) validate(dev bool) error {
+	if !strings.HasPrefix(s.DSN, "sqlite:") || strings.TrimPrefix(s.DSN, "sqlite:") == "" {
+		return fmt.Errorf("config: store.dsn: %q is not sqlite:PATH (PostgreSQL is not built yet)", s.DSN)
+	}
+	if s.Retention <= 0 || s.PurgeEvery <= 0 {
+		return errors.New("config: store.retention and store.purge_interval must be positive")
+	}
+	if s.HashKeyFile == "" && !dev {
+		return errors.New("config: store.hash_key_file: required outside development mode (it keys patient hashes)")
+	}
+	return nil
+}
+
+// openStore opens the configured store and the patient hasher.
+func openStore(c StoreConfig, log *slog.Logger) (feedback.Store, func(string) string, error) {
+	var key []byte
+	if c.HashKeyFile != "" {
+		k, err := os.ReadFile(c.HashKeyFile)
+		if err != nil {
+			return nil, nil, fmt.Errorf("config: store.hash_key_file: %w", err)
+		}
+		if len(k) < 32 {
+			return nil, nil, errors.New("config: store.hash_key_file: the key must be at least 32 bytes")
+		}
+		key = k
+	} else {
+		key = make([]byte, 32)
+		if _, err := rand.Read(key); err != nil {
+			return nil, nil, fmt.Errorf("store: %w", err)
+		}
+		log.Warn("store: no hash_key_file; patient hashes use a random per-process key and will not join across restarts")
+	}
+	path := strings.TrimPrefix(c.DSN, "sqlite:")
+	if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
+		return nil, nil, fmt.Errorf("store: %w", err)
+	}
+	st, err := feedback.OpenSQLite(path, feedback.SQLiteOptions{})
+	if err != nil {
+		return nil, nil, err
+	}
+	hash := func(ref string) string {
+		m := hmac.New(sha256.New, key)
+		m.Write([]byte(ref))
+		return hex.EncodeToString(m.Sum(nil))
+	}
+	return st, hash, nil
+}
+
+// purgeLoop deletes records older than the retention period, every
+// interval, until ctx ends.
+func purgeLoop(ctx context.Context, st feedback.Store, c StoreConfig, log *slog.Logger) {
+	t := time.NewTicker(time.Duration(c.PurgeEvery))
+	defer t.Stop()
+	for {
+		if n, err := st.Purge(ctx, time.Now().Add(-time.Duration(c.Retention))); err != nil {
+			log.Warn("store purge failed", "error", err.Error())
+		} else if n > 0 {
+			log.Info("store purged", "cards", n)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// recorder presents a feedback.Store as the hooks Recorder.
+type recorder struct{ st feedback.Store }
+
+func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error {
+	recs := make([]feedback.CardRecord, len(cards))
+	for i, c := range cards {
+		recs[i] = feedback.CardRecord{UUID: c.UUID, Service: c.Service, Rule: c.Rule, Indicator: c.Indicator, Ruleset: c.Ruleset,
+			Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions}
+	}
+	return r.st.LogCards(ctx, recs)
+}
+
+func (r recorder) RecordOutcome(ctx context.Context, o hooks.CardOutcome) error {
+	err := r.st.RecordFeedback(ctx, feedback.FeedbackRecord{Card: o.Card, Service: o.Service, Outcome: o.Outcome,
+		AcceptedSuggestions: o.AcceptedSuggestions, ReasonSystem: o.ReasonSystem, ReasonCode: o.ReasonCode,
+		UserComment: o.UserComment, OutcomeAt: o.OutcomeAt})
+	switch {
+	case errors.Is(err, feedback.ErrUnknownCard):
+		return hooks.ErrUnknownCard
+	case errors.Is(err, feedback.ErrUnknownSuggestion):
+		return hooks.ErrUnknownSuggestion
+	}
+	return err
+}
