@@ -282,3 +282,16 @@ func (s *SQLite) Close() error {
 	<-s.done
 	return s.db.Close()
 }
+
+// HasCard reports whether the card log holds card uuid (for tests and
+// audits).
+func (s *SQLite) HasCard(ctx context.Context, uuid string) bool {
+	var n int
+	return s.db.QueryRowContext(ctx, `SELECT count(*) FROM card_log WHERE card_uuid = ?`, uuid).Scan(&n) == nil && n > 0
+}
+
+// HasFeedback reports whether any feedback is held for card uuid.
+func (s *SQLite) HasFeedback(ctx context.Context, uuid string) bool {
+	var n int
+	return s.db.QueryRowContext(ctx, `SELECT count(*) FROM feedback WHERE card_uuid = ?`, uuid).Scan(&n) == nil && n > 0
+}
