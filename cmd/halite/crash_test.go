@@ -111,7 +111,7 @@ func TestCrashLosesNothing(t *testing.T) {
 	close(stopLoad)
 	wg.Wait()
 
-	st, err := feedback.OpenSQLite(db, feedback.SQLiteOptions{})
+	st, err := feedback.OpenSQLite(db, feedback.Options{})
 	if err != nil {
 		t.Fatal(err)
 	}

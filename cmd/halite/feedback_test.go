@@ -89,7 +89,7 @@ func TestFeedbackEndToEnd(t *testing.T) {
 			t.Errorf("%s holds the patient reference in clear", f)
 		}
 	}
-	st, err := feedback.OpenSQLite(db, feedback.SQLiteOptions{})
+	st, err := feedback.OpenSQLite(db, feedback.Options{})
 	if err != nil {
 		t.Fatal(err)
 	}

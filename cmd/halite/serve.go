@@ -13,6 +13,7 @@ import (
 
 	"github.com/gin-gonic/gin"
 	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/auth"
 	"github.com/halite-cds/halite/hooks/fhirclient"
 	"github.com/halite-cds/halite/rules"
 )
@@ -49,7 +50,16 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	}
 	log := slog.New(slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})).
 		With("ruleset", rs.Revision())
-	authn, err := authenticator(cfg)
+	st, hash, err := openStore(cfg.Store, log)
+	if err != nil {
+		return err
+	}
+	defer st.Close() // after the server has finished its calls: queued records are committed first
+	var shared auth.ReplayCache
+	if cfg.Store.postgres() {
+		shared = st // replicas sharing the database share the replay cache
+	}
+	authn, err := authenticator(cfg, shared)
 	if err != nil {
 		return err
 	}
@@ -57,11 +67,6 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		log.Warn("DEVELOPMENT MODE: local use only. Callers are NOT authenticated, the service listens on " +
 			"loopback only, and plain-http FHIR servers on loopback are accepted. Do not use with real patient data.")
 	}
-	st, hash, err := openStore(cfg.Store, log)
-	if err != nil {
-		return err
-	}
-	defer st.Close() // after the server has finished its calls: queued records are committed first
 	purgeCtx, stopPurge := context.WithCancel(context.Background())
 	purged := make(chan struct{})
 	go func() { purgeLoop(purgeCtx, st, cfg.Store, log); close(purged) }()

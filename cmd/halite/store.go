@@ -20,7 +20,8 @@ import (
 
 // StoreConfig is where the card log and feedback are kept.
 type StoreConfig struct {
-	// DSN is "sqlite:PATH" (the default, one node).
+	// DSN is "sqlite:PATH" (the default, one node) or a postgres:// URL
+	// (several replicas; they then share the JWT replay cache too).
 	DSN string `yaml:"dsn"`
 	// HashKeyFile holds the secret that keys patient hashes (at least 32
 	// bytes). Without it, in development mode, a random key is made per
@@ -34,9 +35,13 @@ func defaultStoreConfig() StoreConfig {
 	return StoreConfig{DSN: "sqlite:halite-data/halite.db", Retention: Duration(400 * 24 * time.Hour), PurgeEvery: Duration(time.Hour)}
 }
 
+func (s StoreConfig) postgres() bool {
+	return strings.HasPrefix(s.DSN, "postgres://") || strings.HasPrefix(s.DSN, "postgresql://")
+}
+
 func (s StoreConfig) validate(dev bool) error {
-	if !strings.HasPrefix(s.DSN, "sqlite:") || strings.TrimPrefix(s.DSN, "sqlite:") == "" {
-		return fmt.Errorf("config: store.dsn: %q is not sqlite:PATH (PostgreSQL is not built yet)", s.DSN)
+	if !s.postgres() && (!strings.HasPrefix(s.DSN, "sqlite:") || strings.TrimPrefix(s.DSN, "sqlite:") == "") {
+		return errors.New("config: store.dsn: must be sqlite:PATH or a postgres:// URL")
 	}
 	if s.Retention <= 0 || s.PurgeEvery <= 0 {
 		return errors.New("config: store.retention and store.purge_interval must be positive")
@@ -48,7 +53,7 @@ func (s StoreConfig) validate(dev bool) error {
 }
 
 // openStore opens the configured store and the patient hasher.
-func openStore(c StoreConfig, log *slog.Logger) (feedback.Store, func(string) string, error) {
+func openStore(c StoreConfig, log *slog.Logger) (*feedback.DB, func(string) string, error) {
 	var key []byte
 	if c.HashKeyFile != "" {
 		k, err := os.ReadFile(c.HashKeyFile)
@@ -66,11 +71,17 @@ func openStore(c StoreConfig, log *slog.Logger) (feedback.Store, func(string) st
 		}
 		log.Warn("store: no hash_key_file; patient hashes use a random per-process key and will not join across restarts")
 	}
-	path := strings.TrimPrefix(c.DSN, "sqlite:")
-	if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
-		return nil, nil, fmt.Errorf("store: %w", err)
+	var st *feedback.DB
+	var err error
+	if c.postgres() {
+		st, err = feedback.OpenPostgres(c.DSN, feedback.Options{})
+	} else {
+		path := strings.TrimPrefix(c.DSN, "sqlite:")
+		if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
+			return nil, nil, fmt.Errorf("store: %w", err)
+		}
+		st, err = feedback.OpenSQLite(path, feedback.Options{})
 	}
-	st, err := feedback.OpenSQLite(path, feedback.SQLiteOptions{})
 	if err != nil {
 		return nil, nil, err
 	}

@@ -114,8 +114,9 @@ func secureURL(u *url.URL, dev bool) bool {
 }
 
 // authenticator builds the caller check from the configuration; nil when no
-// issuer is trusted (development mode).
-func authenticator(c Config) (hooks.Authenticator, error) {
+// issuer is trusted (development mode). shared, when set, is the replay
+// cache replicas share (the PostgreSQL store); else one in memory is used.
+func authenticator(c Config, shared auth.ReplayCache) (hooks.Authenticator, error) {
 	if len(c.Issuers) == 0 {
 		return nil, nil
 	}
@@ -138,8 +139,12 @@ func authenticator(c Config) (hooks.Authenticator, error) {
 		}
 		issuers = append(issuers, ai)
 	}
+	replay := shared
+	if replay == nil {
+		replay = auth.NewMemoryReplay(a.ReplayCacheSize, nil)
+	}
 	v, err := auth.NewVerifier(auth.Config{Issuers: issuers, Algorithms: a.Algorithms, Skew: time.Duration(a.ClockSkew),
-		MaxLifetime: time.Duration(a.MaxLifetime), Keys: keys, Replay: auth.NewMemoryReplay(a.ReplayCacheSize, nil)})
+		MaxLifetime: time.Duration(a.MaxLifetime), Keys: keys, Replay: replay})
 	if err != nil {
 		return nil, fmt.Errorf("config: %w", err)
 	}

@@ -6,7 +6,9 @@ import (
 	"crypto/ecdsa"
 	"crypto/elliptic"
 	"crypto/rand"
+	"database/sql"
 	"encoding/json"
+	"fmt"
 	"io"
 	"net/http"
 	"net/http/httptest"
@@ -213,6 +215,74 @@ func TestKeysAndToken(t *testing.T) {
 		t.Errorf("signed call %d, replay %d; want 200 then 401", first, second)
 	}
 	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// TestReplicasShareReplayCache: two `halite serve` replicas on one
+// PostgreSQL store refuse on one a token already used on the other.
+func TestReplicasShareReplayCache(t *testing.T) {
+	dsn := os.Getenv("HALITE_TEST_POSTGRES_DSN")
+	if dsn == "" {
+		if os.Getenv("CI") == "true" {
+			t.Fatal("CI must run the PostgreSQL tests: HALITE_TEST_POSTGRES_DSN is not set")
+		}
+		t.Skip("HALITE_TEST_POSTGRES_DSN not set")
+	}
+	t.Setenv("HALITE_CONFIG", "")
+	schema := fmt.Sprintf("halite_replicas_%d", time.Now().UnixNano())
+	db, err := sql.Open("pgx", dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.Exec("CREATE SCHEMA " + schema); err != nil {
+		t.Fatal(err)
+	}
+	defer func() { db.Exec("DROP SCHEMA " + schema + " CASCADE"); db.Close() }()
+	sep := "?"
+	if strings.Contains(dsn, "?") {
+		sep = "&"
+	}
+	t.Setenv("HALITE_STORE_DSN", dsn+sep+"search_path="+schema)
+	dir := t.TempDir()
+	if err := run(context.Background(), []string{"keys", "--out", dir}, io.Discard, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
+		filepath.Join(dir, "issuer-jwks.json") + "\n"
+	cfgPath := filepath.Join(dir, "halite.yaml")
+	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	a, _, stopA := startServe(t, "--config", cfgPath)
+	b, _, stopB := startServe(t, "--config", cfgPath)
+	var tok bytes.Buffer
+	if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
+		"--aud", "http://127.0.0.1/cds-services/sodium-infusion-check"}, &tok, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	call := func(base string) int {
+		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-infusion-check", bytes.NewReader(demo))
+		r.Header.Set("Content-Type", "application/json")
+		r.Header.Set("Authorization", "Bearer "+strings.TrimSpace(tok.String()))
+		resp, err := http.DefaultClient.Do(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		return resp.StatusCode
+	}
+	if first, second := call(a), call(b); first != 200 || second != 401 {
+		t.Errorf("replica A %d, replica B with the same token %d; want 200 then 401", first, second)
+	}
+	var cards int
+	db.QueryRow("SELECT count(*) FROM " + schema + ".card_log").Scan(&cards)
+	if cards == 0 {
+		t.Error("no card was logged in PostgreSQL")
+	}
+	if err := stopA(); err != nil {
+		t.Fatal(err)
+	}
+	if err := stopB(); err != nil {
 		t.Fatal(err)
 	}
 }

@@ -2,9 +2,12 @@ package feedback
 
 import (
 	"context"
+	"database/sql"
 	"errors"
 	"fmt"
+	"os"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -13,24 +16,75 @@ import (
 // backend opens a fresh store and says how to reopen the same data.
 type backend struct {
 	name string
-	open func(t *testing.T) (Store, func() Store)
+	open func(t testing.TB) (Store, func() Store)
 }
 
-func backends() []backend {
-	return []backend{{name: "sqlite", open: func(t *testing.T) (Store, func() Store) {
+// backends are SQLite always, and PostgreSQL when HALITE_TEST_POSTGRES_DSN
+// names a server (.ci/run starts one; without it the PostgreSQL cases skip
+// locally, and fail under CI=true, so they never silently skip in CI).
+func backends(t testing.TB) []backend {
+	out := []backend{{name: "sqlite", open: func(t testing.TB) (Store, func() Store) {
 		path := filepath.Join(t.TempDir(), "halite.db")
-		s, err := OpenSQLite(path, SQLiteOptions{})
+		s, err := OpenSQLite(path, Options{})
 		if err != nil {
 			t.Fatal(err)
 		}
 		return s, func() Store {
-			r, err := OpenSQLite(path, SQLiteOptions{})
+			r, err := OpenSQLite(path, Options{})
 			if err != nil {
 				t.Fatal(err)
 			}
 			return r
 		}
 	}}}
+	dsn := os.Getenv("HALITE_TEST_POSTGRES_DSN")
+	if dsn == "" {
+		if os.Getenv("CI") == "true" {
+			t.Fatal("CI must run the PostgreSQL store tests: HALITE_TEST_POSTGRES_DSN is not set")
+		}
+		t.Log("HALITE_TEST_POSTGRES_DSN not set: PostgreSQL cases skipped")
+		return out
+	}
+	return append(out, backend{name: "postgres", open: func(t testing.TB) (Store, func() Store) {
+		schemaDSN := freshSchema(t, dsn)
+		s, err := OpenPostgres(schemaDSN, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s, func() Store {
+			r, err := OpenPostgres(schemaDSN, Options{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			return r
+		}
+	}})
+}
+
+// freshSchema creates an empty schema for one test and returns a DSN that
+// uses it.
+func freshSchema(t testing.TB, dsn string) string {
+	t.Helper()
+	db, err := sql.Open("pgx", dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	schema := fmt.Sprintf("halite_test_%d", time.Now().UnixNano())
+	if _, err := db.Exec("CREATE SCHEMA " + schema); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		if db, err := sql.Open("pgx", dsn); err == nil {
+			db.Exec("DROP SCHEMA " + schema + " CASCADE")
+			db.Close()
+		}
+	})
+	sep := "?"
+	if strings.Contains(dsn, "?") {
+		sep = "&"
+	}
+	return dsn + sep + "search_path=" + schema
 }
 
 var t0 = time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
@@ -43,7 +97,7 @@ func card(uuid string, at time.Time) CardRecord {
 // TestStoreContract is the same list of cases for every back end.
 func TestStoreContract(t *testing.T) {
 	ctx := context.Background()
-	for _, b := range backends() {
+	for _, b := range backends(t) {
 		t.Run(b.name, func(t *testing.T) {
 			s, reopen := b.open(t)
 			if err := s.LogCards(ctx, []CardRecord{card("c1", t0), card("c2", t0.Add(-48*time.Hour))}); err != nil {
@@ -80,6 +134,22 @@ func TestStoreContract(t *testing.T) {
 			if n, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil || n != 1 {
 				t.Errorf("purge removed %d (%v), want 1", n, err)
 			}
+			// The JWT replay cache shares the store (replicas share it on PostgreSQL).
+			rc := s.(interface {
+				Remember(ctx context.Context, iss, jti string, until time.Time) (bool, error)
+			})
+			if seen, err := rc.Remember(ctx, "iss", "j1", time.Now().Add(time.Minute)); err != nil || seen {
+				t.Errorf("first jti: seen %v %v", seen, err)
+			}
+			if seen, err := rc.Remember(ctx, "iss", "j1", time.Now().Add(time.Minute)); err != nil || !seen {
+				t.Errorf("replayed jti: seen %v %v", seen, err)
+			}
+			if seen, err := rc.Remember(ctx, "iss", "old", time.Now().Add(-time.Minute)); err != nil || seen {
+				t.Errorf("expired jti recorded: %v %v", seen, err)
+			}
+			if seen, err := rc.Remember(ctx, "iss", "old", time.Now().Add(time.Minute)); err != nil || seen {
+				t.Errorf("a jti whose earlier token expired is not a replay: %v %v", seen, err)
+			}
 			if err := s.Close(); err != nil {
 				t.Fatal(err)
 			}
@@ -96,7 +166,7 @@ func TestStoreContract(t *testing.T) {
 // (group commit); every acknowledged record is there.
 func TestStoreConcurrent(t *testing.T) {
 	ctx := context.Background()
-	for _, b := range backends() {
+	for _, b := range backends(t) {
 		t.Run(b.name, func(t *testing.T) {
 			s, _ := b.open(t)
 			defer s.Close()
@@ -137,11 +207,16 @@ func TestStoreConcurrent(t *testing.T) {
 // BenchmarkLogCards measures the card-log write of one call (two cards),
 // with calls from several goroutines sharing commits.
 func BenchmarkLogCards(b *testing.B) {
-	s, err := OpenSQLite(filepath.Join(b.TempDir(), "bench.db"), SQLiteOptions{})
-	if err != nil {
-		b.Fatal(err)
+	for _, be := range backends(b) {
+		b.Run(be.name, func(b *testing.B) {
+			s, _ := be.open(b)
+			defer s.Close()
+			benchLogCards(b, s)
+		})
 	}
-	defer s.Close()
+}
+
+func benchLogCards(b *testing.B, s Store) {
 	var n int64
 	var mu sync.Mutex
 	b.SetParallelism(8)
