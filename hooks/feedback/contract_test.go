@@ -131,6 +131,17 @@ func TestStoreContract(t *testing.T) {
 			if c, f, err := s.Counts(ctx); err != nil || c != 2 || f != 2 {
 				t.Errorf("counts %d cards %d feedback %v; want 2 and 2", c, f, err)
 			}
+			rep, err := s.Report(ctx, t0.Add(-72*time.Hour), t0.Add(time.Hour))
+			if err != nil || len(rep.Rules) != 1 || len(rep.Days) != 2 {
+				t.Fatalf("report %+v %v", rep, err)
+			}
+			if r := rep.Rules[0]; r.Shown != 2 || r.Accepted != 1 || r.Overridden != 0 || r.AcceptanceRate() != 1 ||
+				len(r.TopOverrideReasons) != 1 || r.TopOverrideReasons[0].Code != "local-protocol" {
+				t.Errorf("rule stats %+v", r)
+			}
+			if d := rep.Days[1]; d.Day != "2026-11-20" || d.Shown != 1 || d.Accepted != 1 {
+				t.Errorf("day %+v", d)
+			}
 			if n, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil || n != 1 {
 				t.Errorf("purge removed %d (%v), want 1", n, err)
 			}

@@ -52,6 +52,8 @@ type Store interface {
 	RecordFeedback(ctx context.Context, f FeedbackRecord) error
 	// Purge deletes cards (and their feedback) logged before t.
 	Purge(ctx context.Context, before time.Time) (int64, error)
+	// Report summarises the cards logged in [from, to) and their outcomes.
+	Report(ctx context.Context, from, to time.Time) (Report, error)
 	// Counts reports how many cards and feedback records are held.
 	Counts(ctx context.Context) (cards, feedback int64, err error)
 	Close() error
