@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -230,18 +231,32 @@ func BenchmarkLogCards(b *testing.B) {
 func benchLogCards(b *testing.B, s Store) {
 	var n int64
 	var mu sync.Mutex
+	var lat []time.Duration
 	b.SetParallelism(8)
 	b.ReportAllocs()
+	start := time.Now()
 	b.RunParallel(func(pb *testing.PB) {
 		for pb.Next() {
 			mu.Lock()
 			n++
 			id := fmt.Sprint(n)
 			mu.Unlock()
+			t := time.Now()
 			if err := s.LogCards(context.Background(), []CardRecord{card(id+"a", t0), card(id+"b", t0)}); err != nil {
 				b.Error(err)
 				return
 			}
+			d := time.Since(t)
+			mu.Lock()
+			lat = append(lat, d)
+			mu.Unlock()
 		}
 	})
+	elapsed := time.Since(start)
+	if len(lat) == 0 {
+		return
+	}
+	slices.Sort(lat)
+	b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99-us/call")
+	b.ReportMetric(float64(2*len(lat))/elapsed.Seconds(), "records/s")
 }
