@@ -9,6 +9,9 @@ import (
 
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/rules"
+	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/metric"
+	"go.opentelemetry.io/otel/trace"
 )
 
 // Engine runs hook calls: decode, resolve prefetch, map, evaluate, render.
@@ -22,6 +25,7 @@ type Engine struct {
 	log        *slog.Logger
 	recorder   Recorder
 	hash       func(string) string
+	tel        *Telemetry
 }
 
 // EngineConfig is what an Engine is built from.
@@ -37,6 +41,8 @@ type EngineConfig struct {
 	// PatientHash keys the patient reference for it (required with it).
 	Recorder    Recorder
 	PatientHash func(reference string) string
+	// Telemetry reports spans and metrics; nil is no-op.
+	Telemetry *Telemetry
 }
 
 // NewEngine returns an Engine.
@@ -44,8 +50,11 @@ func NewEngine(cfg EngineConfig) *Engine {
 	if cfg.Limits.MaxPages < 1 {
 		cfg.Limits.MaxPages = 1
 	}
+	if cfg.Telemetry == nil {
+		cfg.Telemetry, _ = NewTelemetry(nil, nil) // no-op instruments cannot fail
+	}
 	return &Engine{registry: cfg.Registry, ruleset: cfg.Ruleset, newFetcher: cfg.NewFetcher,
-		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash}
+		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash, tel: cfg.Telemetry}
 }
 
 // Registry returns the engine's services.
@@ -73,21 +82,48 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 	if err != nil {
 		return nil, err
 	}
+	if span := trace.SpanFromContext(ctx); span.IsRecording() {
+		span.SetAttributes(attribute.String("halite.hook", call.Request.Hook), attribute.String("halite.service", svc.ID))
+	}
 	fetch := e.fetcher(ctx, call)
-	keys, err := Resolve(ctx, svc, call, fetch, e.limits)
+	if fetch != nil {
+		fetch = tracedFetcher{next: fetch, t: e.tel}
+	}
+	pctx, pspan := e.tel.start(ctx, "prefetch.resolve")
+	keys, err := Resolve(pctx, svc, call, fetch, e.limits)
 	if err != nil {
+		fail(pspan, causeOf(err), err)
+		pspan.End()
 		return nil, err
 	}
 	in := mapInput(call, keys, at)
 	in.Resources = append(in.Resources,
-		fetchMedications(ctx, fetch, append(append([]json.RawMessage(nil), in.Resources...), in.DraftOrders...))...)
+		fetchMedications(pctx, fetch, append(append([]json.RawMessage(nil), in.Resources...), in.DraftOrders...))...)
+	states := map[KeyState]int{}
+	for _, k := range keys {
+		states[k.State]++
+	}
+	for st, n := range states {
+		pspan.SetAttributes(attribute.Int("halite.prefetch."+string(st), n))
+	}
+	pspan.End()
+	_, mspan := e.tel.start(ctx, "fhir.map")
 	facts := fhirmap.Map(in, e.ruleset)
+	used := 0
+	for _, s := range facts.Labs {
+		used += len(s)
+	}
+	mspan.SetAttributes(attribute.Int("halite.observations.used", used), attribute.Int("halite.observations.rejected", len(facts.Rejected)))
+	mspan.End()
 	for _, k := range keys {
 		if k.State == Failed || k.State == Unavailable || k.Partial {
 			facts.Gaps = append(facts.Gaps, rules.DataGap{Source: k.Key.Key, Reason: k.Key.What + ": " + k.Reason})
 		}
 	}
+	_, rspan := e.tel.start(ctx, "rules.evaluate", attribute.String("halite.check", string(svc.Check)))
 	findings := e.ruleset.Evaluate(svc.Check, facts)
+	rspan.SetAttributes(attribute.Int("halite.findings", len(findings)))
+	rspan.End()
 	cards, err := renderCards(findings, e.ruleset.Revision(),
 		suggestionInput{At: at, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftOrders)})
 	if err != nil {
@@ -98,12 +134,40 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}
 	if e.recorder != nil && len(cards) > 0 {
-		if err := e.recorder.LogCards(ctx, e.logged(ctx, svc.ID, call.Context.PatientID, findings, cards, at)); err != nil {
+		wctx, wspan := e.tel.start(ctx, "cardlog.write", attribute.Int("halite.cards", len(cards)))
+		err := e.recorder.LogCards(wctx, e.logged(ctx, svc.ID, call.Context.PatientID, findings, cards, at))
+		if err != nil {
+			fail(wspan, CauseHalite, err)
+		}
+		wspan.End()
+		if err != nil {
 			// No card leaves without its record: feedback must be able to join.
 			return nil, &Error{Kind: KindUnavailable, Message: "the card log could not be written", Err: err}
 		}
 	}
+	highest := rules.Indicator(0)
+	for _, f := range findings {
+		e.tel.cards.Add(ctx, 1, metric.WithAttributes(attribute.String("rule", f.Rule), attribute.String("indicator", f.Indicator.String())))
+		highest = max(highest, f.Indicator)
+	}
+	if span := trace.SpanFromContext(ctx); span.IsRecording() {
+		span.SetAttributes(attribute.Int("halite.cards", len(cards)), attribute.String("halite.indicator.highest", highest.String()))
+		if t := CallerFrom(ctx).Tenant; t != "" {
+			span.SetAttributes(attribute.String("halite.tenant", t))
+		}
+	}
 	return &Outcome{Response: resp, Keys: keys, Facts: facts}, nil
+}
+
+// causeOf is the cause category of a call's error.
+func causeOf(err error) string {
+	switch KindOf(err) {
+	case KindBadRequest, KindUnauthorized, KindForbidden, KindUnknownService, KindMethodNotAllowed, KindTooLarge, KindUnsupportedMedia:
+		return CauseCaller
+	case KindPrecondition:
+		return CauseFHIRServer
+	}
+	return CauseHalite
 }
 
 // logged is the card-log form of the cards of one response.

@@ -14,6 +14,11 @@ import (
 	"time"
 
 	"github.com/gin-gonic/gin"
+	"go.opentelemetry.io/contrib/instrumentation/github.com/gin-gonic/gin/otelgin"
+	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/metric"
+	"go.opentelemetry.io/otel/propagation"
+	"go.opentelemetry.io/otel/trace"
 )
 
 // ServerConfig holds the HTTP-level settings of the service.
@@ -28,6 +33,8 @@ type ServerConfig struct {
 	// PublicBaseURL is the base the EHR calls ("https://halite.example.org"),
 	// from which the audience of each call is computed.
 	PublicBaseURL string
+	// Metrics, when set, is served at GET /metrics (Prometheus exposition).
+	Metrics http.Handler
 }
 
 // Health tracks readiness: a draining server is alive but not ready.
@@ -51,7 +58,11 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.RedirectTrailingSlash = false
 	r.RedirectFixedPath = false
 	r.HandleMethodNotAllowed = true
-	r.Use(gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
+	// Server spans per request, continuing the EHR's W3C trace context and
+	// baggage; the span is named by route, never by the URL.
+	r.Use(otelgin.Middleware("halite", otelgin.WithTracerProvider(e.tel.provider),
+		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{}))),
+		gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
 	r.GET("/cds-services", s.discover)
 	r.POST("/cds-services/:id", s.call)
 	r.POST("/cds-services/:id/feedback", s.feedback)
@@ -60,6 +71,9 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	}
 	r.GET("/healthz", func(c *gin.Context) { c.Data(http.StatusOK, "application/json", []byte(`{"status":"ok"}`)) })
 	r.GET("/readyz", s.ready)
+	if cfg.Metrics != nil {
+		r.GET("/metrics", gin.WrapH(cfg.Metrics))
+	}
 	r.NoRoute(func(c *gin.Context) {
 		s.fail(c, &Error{Kind: KindUnknownService, Message: "no such endpoint"})
 	})
@@ -114,6 +128,7 @@ func (s *server) call(c *gin.Context) {
 	}
 	out, err := s.engine.Handle(ctx, id, body, time.Now())
 	if err != nil {
+		fail(trace.SpanFromContext(ctx), causeOf(err), err)
 		s.fail(c, err)
 		return
 	}
@@ -130,16 +145,22 @@ func (s *server) authenticate(c *gin.Context, path string) (context.Context, boo
 	if a == nil {
 		return ctx, true
 	}
-	caller, err := a.Authenticate(ctx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+path)
+	actx, span := s.engine.tel.start(ctx, "jwt.verify")
+	caller, err := a.Authenticate(actx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+path)
 	if err != nil {
 		reason := "refused"
 		if l, ok := err.(interface{ Label() string }); ok {
 			reason = l.Label()
 		}
+		span.SetAttributes(attribute.String("halite.auth.refused", reason))
+		fail(span, CauseCaller, err)
+		span.End()
+		s.engine.tel.authFailures.Add(ctx, 1, metric.WithAttributes(attribute.String("reason", reason)))
 		c.Set(logAuth, reason)
 		s.fail(c, &Error{Kind: KindUnauthorized, Message: "authentication required"})
 		return nil, false
 	}
+	span.End()
 	return WithCaller(ctx, caller), true
 }
 
@@ -177,6 +198,9 @@ func (s *server) feedback(c *gin.Context) {
 	if err := recordFeedback(func(o CardOutcome) error { return rec.RecordOutcome(ctx, o) }, entries); err != nil {
 		s.fail(c, err)
 		return
+	}
+	for _, o := range entries {
+		s.engine.tel.feedbackOutcomes.Add(ctx, 1, metric.WithAttributes(attribute.String("service", id), attribute.String("outcome", o.Outcome)))
 	}
 	c.Status(http.StatusOK)
 }
@@ -265,7 +289,14 @@ func (s *server) accessLog(c *gin.Context) {
 	if v, ok := c.Get(logAuth); ok {
 		attrs = append(attrs, "auth_refused", v)
 	}
-	s.log.Info("request", attrs...)
+	s.log.InfoContext(c.Request.Context(), "request", attrs...)
+	mattrs := []attribute.KeyValue{attribute.Int("status", c.Writer.Status()), attribute.String("route", c.FullPath())}
+	if id := c.Param("id"); id != "" {
+		if _, known := s.engine.Registry().Lookup(id); known {
+			mattrs = append(mattrs, attribute.String("service", id))
+		}
+	}
+	s.engine.tel.requestDuration.Record(c.Request.Context(), time.Since(start).Seconds(), metric.WithAttributes(mattrs...))
 }
 
 // errorSummary describes err for logs without request values: its kind and

@@ -33,6 +33,9 @@ type Config struct {
 	// PolicyOverride is the path of a site's policy override (JSON shaped
 	// like rules/data/policy.json); empty means the embedded policy.
 	PolicyOverride string `yaml:"policy_override"`
+	// AdminAddr, when set, serves /metrics on its own listener instead of
+	// the main one.
+	AdminAddr string `yaml:"admin_listen_addr"`
 	// Auth bounds token verification; Issuers are the trusted EHRs. With no
 	// issuer, halite runs in development mode on loopback only.
 	Auth    AuthConfig     `yaml:"auth"`
@@ -97,6 +100,7 @@ var envKeys = []struct {
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
+	{"admin_listen_addr", func(c *Config, v string) error { c.AdminAddr = v; return nil }},
 	{"store.dsn", func(c *Config, v string) error { c.Store.DSN = v; return nil }},
 	{"store.hash_key_file", func(c *Config, v string) error { c.Store.HashKeyFile = v; return nil }},
 	{"store.retention", func(c *Config, v string) error { return setDuration(&c.Store.Retention, v) }},

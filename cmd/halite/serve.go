@@ -48,7 +48,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	log := slog.New(slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})).
+	log := slog.New(traceLogHandler{slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})}).
 		With("ruleset", rs.Revision())
 	st, hash, err := openStore(cfg.Store, log)
 	if err != nil {
@@ -72,7 +72,22 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	go func() { purgeLoop(purgeCtx, st, cfg.Store, log); close(purged) }()
 	defer func() { stopPurge(); <-purged }() // runs before st.Close
 	gin.SetMode(gin.ReleaseMode)
-	engine := newEngine(rs, cfg, log, recorder{st}, hash)
+	tel, err := setupTelemetry(ctx, os.Getenv, rs.Revision())
+	if err != nil {
+		return err
+	}
+	defer func() {
+		sctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		defer cancel()
+		if err := tel.shutdown(sctx); err != nil { // flushes spans still queued
+			log.Warn("telemetry shutdown", "error", err.Error())
+		}
+	}()
+	ht, err := hooks.NewTelemetry(tel.tracer, tel.meter)
+	if err != nil {
+		return err
+	}
+	engine := newEngine(rs, cfg, log, recorder{st}, hash, ht)
 	health := &hooks.Health{}
 	handler := hooks.NewHandler(engine, hooks.ServerConfig{
 		MaxBodyBytes: cfg.MaxBodyBytes,
@@ -81,7 +96,15 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		// An untyped nil when no issuer is trusted: development mode.
 		Authenticator: authn,
 		PublicBaseURL: cfg.PublicBaseURL,
+		Metrics:       metricsOnMain(cfg, tel.metrics),
 	}, health, log)
+	if cfg.AdminAddr != "" && tel.metrics != nil {
+		stopAdmin, err := serveAdmin(cfg.AdminAddr, tel.metrics, log)
+		if err != nil {
+			return err
+		}
+		defer stopAdmin()
+	}
 
 	ln, err := net.Listen("tcp", cfg.ListenAddr)
 	if err != nil {
@@ -128,7 +151,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 // issuers, a call's fhirServer must be on its issuer's allowlist, or it is
 // not used (the call is answered as if no server were given); without
 // issuers (development mode) any https server, or loopback, is used.
-func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string) *hooks.Engine {
+func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string, tel *hooks.Telemetry) *hooks.Engine {
 	opts := fhirclient.Options{
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
@@ -155,6 +178,7 @@ func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Record
 		},
 		Limits:      hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},
 		Log:         log,
+		Telemetry:   tel,
 		Recorder:    rec,
 		PatientHash: hash,
 	})

@@ -99,7 +99,7 @@ func purgeLoop(ctx context.Context, st feedback.Store, c StoreConfig, log *slog.
 	t := time.NewTicker(time.Duration(c.PurgeEvery))
 	defer t.Stop()
 	for {
-		if n, err := st.Purge(ctx, time.Now().Add(-time.Duration(c.Retention))); err != nil {
+		if n, err := st.Purge(ctx, time.Now().Add(-time.Duration(c.Retention))); err != nil && ctx.Err() == nil {
 			log.Warn("store purge failed", "error", err.Error())
 		} else if n > 0 {
 			log.Info("store purged", "cards", n)

@@ -10,6 +10,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"log/slog"
 	"net/http"
 	"net/http/httptest"
 	"os"
@@ -23,6 +24,7 @@ import (
 	"github.com/golang-jwt/jwt/v5"
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
+	"go.opentelemetry.io/otel/trace"
 )
 
 // fhirRecorder is a FHIR server answering from a scenario bundle that
@@ -284,5 +286,22 @@ func TestReplicasShareReplayCache(t *testing.T) {
 	}
 	if err := stopB(); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// TestLogLinesCarryTraceIDs: a record logged inside a span gets its trace
+// and span ids.
+func TestLogLinesCarryTraceIDs(t *testing.T) {
+	var buf bytes.Buffer
+	log := slog.New(traceLogHandler{slog.NewJSONHandler(&buf, nil)}).With("ruleset", "r")
+	tid, _ := trace.TraceIDFromHex("4bf92f3577b34da6a3ce929d0e0e4736")
+	sid, _ := trace.SpanIDFromHex("00f067aa0ba902b7")
+	ctx := trace.ContextWithSpanContext(context.Background(), trace.NewSpanContext(trace.SpanContextConfig{TraceID: tid, SpanID: sid}))
+	log.InfoContext(ctx, "inside")
+	log.Info("outside")
+	lines := strings.Split(strings.TrimSpace(buf.String()), "\n")
+	if len(lines) != 2 || !strings.Contains(lines[0], `"trace_id":"4bf92f3577b34da6a3ce929d0e0e4736"`) ||
+		!strings.Contains(lines[0], `"span_id":"00f067aa0ba902b7"`) || strings.Contains(lines[1], "trace_id") {
+		t.Errorf("log lines:\n%s", buf.String())
 	}
 }

@@ -1,0 +1,108 @@
+package hooks
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+
+	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/codes"
+	"go.opentelemetry.io/otel/metric"
+	metricnoop "go.opentelemetry.io/otel/metric/noop"
+	"go.opentelemetry.io/otel/trace"
+	tracenoop "go.opentelemetry.io/otel/trace/noop"
+)
+
+// Telemetry is how hooks reports through the OpenTelemetry API (never the
+// SDK, which cmd sets up). Attributes never carry identifiers, names,
+// dates of birth or lab values: only service ids, hooks, rule ids,
+// indicators, counts, states and cause categories.
+type Telemetry struct {
+	provider         trace.TracerProvider
+	tracer           trace.Tracer
+	requestDuration  metric.Float64Histogram
+	cards            metric.Int64Counter
+	authFailures     metric.Int64Counter
+	feedbackOutcomes metric.Int64Counter
+	fetchDuration    metric.Float64Histogram
+}
+
+// Cause categories of errors on spans.
+const (
+	CauseCaller     = "caller"      // the EHR's request or token
+	CauseFHIRServer = "fhir-server" // the EHR's FHIR server
+	CauseHalite     = "halite"      // a fault here
+)
+
+// NewTelemetry makes the tracer and instruments; nil providers are no-op.
+func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry, error) {
+	if tp == nil {
+		tp = tracenoop.NewTracerProvider()
+	}
+	if mp == nil {
+		mp = metricnoop.NewMeterProvider()
+	}
+	m := mp.Meter("github.com/halite-cds/halite/hooks")
+	t := &Telemetry{provider: tp, tracer: tp.Tracer("github.com/halite-cds/halite/hooks")}
+	var err, e error
+	t.requestDuration, e = m.Float64Histogram("halite.request.duration", metric.WithUnit("s"),
+		metric.WithDescription("Duration of hook and feedback calls by service, hook and HTTP status"))
+	err = errors.Join(err, e)
+	t.cards, e = m.Int64Counter("halite.cards", metric.WithDescription("Cards returned, by rule and indicator"))
+	err = errors.Join(err, e)
+	t.authFailures, e = m.Int64Counter("halite.auth.failures", metric.WithDescription("Refused caller tokens, by reason"))
+	err = errors.Join(err, e)
+	t.feedbackOutcomes, e = m.Int64Counter("halite.feedback.outcomes", metric.WithDescription("Feedback entries stored, by service and outcome"))
+	err = errors.Join(err, e)
+	t.fetchDuration, e = m.Float64Histogram("halite.fhir.fetch.duration", metric.WithUnit("s"),
+		metric.WithDescription("FHIR fetches by outcome cause"))
+	err = errors.Join(err, e)
+	if err != nil {
+		return nil, fmt.Errorf("telemetry: %w", err)
+	}
+	return t, nil
+}
+
+func (t *Telemetry) start(ctx context.Context, name string, attrs ...attribute.KeyValue) (context.Context, trace.Span) {
+	return t.tracer.Start(ctx, name, trace.WithAttributes(attrs...))
+}
+
+// fail records err on span with its cause category.
+func fail(span trace.Span, cause string, err error) {
+	span.SetAttributes(attribute.String("halite.error.cause", cause))
+	span.SetStatus(codes.Error, cause)
+	// The error text can quote request values: record only its kind.
+	span.AddEvent("exception", trace.WithAttributes(attribute.String("exception.type", fmt.Sprintf("%T", err))))
+}
+
+// tracedFetcher wraps a Fetcher with a span and a duration per fetch. The
+// span names the resource type only: references and queries carry patient
+// ids.
+type tracedFetcher struct {
+	next Fetcher
+	t    *Telemetry
+}
+
+func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
+	typ := ref
+	if i := strings.IndexAny(typ, "/?"); i >= 0 {
+		typ = typ[:i]
+	}
+	if strings.Contains(typ, ":") { // an absolute next-page URL
+		typ = "page"
+	}
+	ctx, span := f.t.start(ctx, "fhir.fetch", attribute.String("fhir.resource_type", typ))
+	defer span.End()
+	start := time.Now()
+	body, err := f.next.Fetch(ctx, ref)
+	cause := "ok"
+	if err != nil {
+		cause = CauseFHIRServer
+		fail(span, cause, err)
+	}
+	span.SetAttributes(attribute.Int("http.response.body.size", len(body)))
+	f.t.fetchDuration.Record(ctx, time.Since(start).Seconds(), metric.WithAttributes(attribute.String("cause", cause)))
+	return body, err
+}
