@@ -21,6 +21,7 @@ Usage:
   halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
+  halite healthcheck [--url URL]
   halite keys    --out DIR
   halite token   --key FILE --iss URL --aud URL [--tenant T] [--lifetime 5m]
   halite request --hook HOOK [--service ID] BUNDLE
@@ -44,6 +45,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = eval(ctx, rest, stdout, stderr)
 	case "report":
 		err = reportCmd(ctx, rest, stdout, stderr)
+	case "healthcheck":
+		err = healthcheck(rest, stdout, stderr)
 	case "keys":
 		err = keysCmd(rest, stdout, stderr)
 	case "token":

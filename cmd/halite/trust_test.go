@@ -305,3 +305,34 @@ func TestLogLinesCarryTraceIDs(t *testing.T) {
 		t.Errorf("log lines:\n%s", buf.String())
 	}
 }
+
+// TestKubernetesConfigIsValid: the configuration the manifests mount is a
+// valid production configuration (issuers, no development mode).
+func TestKubernetesConfigIsValid(t *testing.T) {
+	cfg, err := loadConfig(filepath.Join("..", "..", "deploy", "k8s", "base", "halite.yaml"), func(string) string { return "" })
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.validate(); err != nil {
+		t.Fatal(err)
+	}
+	if cfg.DevelopmentMode || len(cfg.Issuers) == 0 {
+		t.Error("the Kubernetes configuration must trust issuers and leave development mode")
+	}
+}
+
+// TestHealthcheck: halite healthcheck succeeds against a running serve and
+// fails against nothing.
+func TestHealthcheck(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	base, _, stop := startServe(t)
+	if err := run(context.Background(), []string{"healthcheck", "--url", base + "/healthz"}, io.Discard, io.Discard); err != nil {
+		t.Errorf("healthy server: %v", err)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	if err := run(context.Background(), []string{"healthcheck", "--url", base + "/healthz"}, io.Discard, io.Discard); err == nil {
+		t.Error("a stopped server passed the health check")
+	}
+}
