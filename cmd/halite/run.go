@@ -22,6 +22,7 @@ Usage:
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
   halite healthcheck [--url URL]
+  halite load    --url URL [--rate N] [--workers N] [--duration D] [--key FILE --iss URL] [--baseline] BUNDLE
   halite keys    --out DIR
   halite token   --key FILE --iss URL --aud URL [--tenant T] [--lifetime 5m]
   halite request --hook HOOK [--service ID] BUNDLE
@@ -45,6 +46,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = eval(ctx, rest, stdout, stderr)
 	case "report":
 		err = reportCmd(ctx, rest, stdout, stderr)
+	case "load":
+		err = loadCmd(ctx, rest, stdout, stderr)
 	case "healthcheck":
 		err = healthcheck(rest, stdout, stderr)
 	case "keys":

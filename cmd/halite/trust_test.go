@@ -336,3 +336,37 @@ func TestHealthcheck(t *testing.T) {
 		t.Error("a stopped server passed the health check")
 	}
 }
+
+// TestLoadCommand: a short signed load against serve, with the baseline,
+// prints both rows with no errors.
+func TestLoadCommand(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	dir := t.TempDir()
+	if err := run(context.Background(), []string{"keys", "--out", dir}, io.Discard, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
+		filepath.Join(dir, "issuer-jwks.json") + "\n"
+	cfgPath := filepath.Join(dir, "halite.yaml")
+	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	base, _, stop := startServe(t, "--config", cfgPath)
+	var out bytes.Buffer
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
+	if err := run(context.Background(), []string{"load", "--url", base, "--duration", "1s", "--workers", "4", "--key", filepath.Join(dir, "issuer-private.jwk"),
+		"--iss", "https://ehr.example.org", "--aud-base", "http://127.0.0.1", "--baseline", scenario}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
+	if len(lines) != 3 || !strings.Contains(lines[1], "halite") || !strings.Contains(lines[2], "baseline") {
+		t.Fatalf("load output:\n%s", out.String())
+	}
+	for _, l := range lines[1:] {
+		f := strings.Fields(l)
+		if f[len(f)-1] != "0" || f[1] == "0" {
+			t.Errorf("a run with errors or no requests: %s", l)
+		}
+	}
+}
