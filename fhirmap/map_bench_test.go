@@ -43,3 +43,33 @@ func BenchmarkMap200(b *testing.B) {
 		Map(in, rs)
 	}
 }
+
+// BenchmarkMapObservations maps 60, 600 and 6,000 Observations (sodium,
+// potassium, glucose and weight in turn, one a minute back from the
+// evaluation time; invented values inside the policy bounds), to show the
+// cost curve: time per Observation should stay flat (no quadratic step).
+func BenchmarkMapObservations(b *testing.B) {
+	kinds := []struct{ code, unit, value string }{
+		{"2951-2", "mmol/L", "131"}, {"2823-3", "mmol/L", "4.1"}, {"2345-7", "mg/dL", "110"}, {"29463-7", "kg", "70"},
+	}
+	rs := ruleset(b)
+	for _, n := range []int{60, 600, 6000} {
+		in := Input{At: testAt, PatientID: testPatient,
+			Patient: json.RawMessage(`{"resourceType":"Patient","id":"p1","gender":"female","birthDate":"1980-11-20"}`)}
+		for i := 0; i < n; i++ {
+			k := kinds[i%len(kinds)]
+			at := testAt.Add(-time.Duration(i+1) * time.Minute).Format(time.RFC3339)
+			in.Resources = append(in.Resources, obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw())
+		}
+		if f := Map(in, rs); len(f.Rejected) != 0 {
+			b.Fatalf("setup: %d rejected", len(f.Rejected))
+		}
+		b.Run(fmt.Sprint(n), func(b *testing.B) {
+			b.ReportAllocs()
+			for b.Loop() {
+				Map(in, rs)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(n), "ns/observation")
+		})
+	}
+}
