@@ -10,6 +10,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 
@@ -164,7 +165,7 @@ func TestOverlays(t *testing.T) {
 			var ports []int32
 			for _, e := range np.Spec.Egress {
 				for _, p := range e.Ports {
-					if !containsPort(ports, p.Port.IntVal) {
+					if !slices.Contains(ports, p.Port.IntVal) {
 						ports = append(ports, p.Port.IntVal)
 					}
 				}
@@ -183,15 +184,6 @@ func TestOverlays(t *testing.T) {
 			}
 		})
 	}
-}
-
-func containsPort(ps []int32, p int32) bool {
-	for _, x := range ps {
-		if x == p {
-			return true
-		}
-	}
-	return false
 }
 
 // TestDockerfilePolicy is the Dockerfile's lint step (Docker cannot run

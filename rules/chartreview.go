@@ -1,8 +1,10 @@
 package rules
 
 import (
+	"cmp"
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 	"time"
 )
@@ -86,12 +88,10 @@ func recheckNatural(rule string) bool {
 	return false
 }
 
+// sortByIndicator orders findings most urgent first, keeping rule order
+// within an indicator.
 func sortByIndicator(fs []Finding) {
-	for i := 1; i < len(fs); i++ {
-		for j := i; j > 0 && fs[j].Indicator > fs[j-1].Indicator; j-- {
-			fs[j], fs[j-1] = fs[j-1], fs[j]
-		}
-	}
+	slices.SortStableFunc(fs, func(a, b Finding) int { return cmp.Compare(b.Indicator, a.Indicator) })
 }
 
 // addFigures adds the chart's shared figures.

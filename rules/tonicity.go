@@ -35,19 +35,7 @@ type TonicityContext struct {
 func Tonicity(f Facts, na Measurement, maxApartHours float64) TonicityContext {
 	var c TonicityContext
 	near := func(a Analyte) *Measurement {
-		var best *Measurement
-		for i, m := range f.Labs[a] {
-			d := m.At.Sub(na.At)
-			if d < 0 {
-				d = -d
-			}
-			if d.Hours() > maxApartHours || m.At.After(f.At) {
-				continue
-			}
-			if best == nil || d < absDuration(best.At.Sub(na.At)) {
-				best = &f.Labs[a][i]
-			}
-		}
+		best := nearest(f.Labs[a], na, maxApartHours, f)
 		if best != nil {
 			c.Inputs = append(c.Inputs, *best)
 		}

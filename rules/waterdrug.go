@@ -2,6 +2,7 @@ package rules
 
 import (
 	"fmt"
+	"slices"
 	"strings"
 	"unicode"
 	"unicode/utf8"
@@ -30,9 +31,9 @@ func (w WaterDrugPolicy) match(m Medication) (WaterDrug, string, bool) {
 	for _, c := range codings {
 		for _, d := range w.Drugs {
 			switch {
-			case c.System == SystemRxNorm && contains(d.RxNorm, c.Code):
+			case c.System == SystemRxNorm && slices.Contains(d.RxNorm, c.Code):
 				return d, "RxNorm " + c.Code, true
-			case c.System == SystemATC && contains(d.ATC, c.Code):
+			case c.System == SystemATC && slices.Contains(d.ATC, c.Code):
 				return d, "ATC " + c.Code, true
 			}
 		}
@@ -50,15 +51,6 @@ func (w WaterDrugPolicy) match(m Medication) (WaterDrug, string, bool) {
 		}
 	}
 	return WaterDrug{}, "", false
-}
-
-func contains(list []string, s string) bool {
-	for _, x := range list {
-		if x == s {
-			return true
-		}
-	}
-	return false
 }
 
 // wordIn reports whether word occurs in text on word boundaries, so that a
@@ -94,6 +86,11 @@ func isWordRune(r rune) bool { return unicode.IsLetter(r) || unicode.IsDigit(r) 
 func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 	p := r.policy
 	var out []Finding
+	// The patient's side is the same for every order: work it out once.
+	trend := AnalyseSodium(f.Labs[Sodium], f.At)
+	risk := DemyelinationRisk(p.DemyelinationRisk, f, f.At)
+	unchecked := UncheckedRisk(p.DemyelinationRisk, f, f.At)
+	latest, haveNa := latestWithin(f.Labs[Sodium], f.At, p.Projection.SodiumMaxAgeHours)
 	for _, o := range f.DraftOrders {
 		if !o.Selected {
 			continue
@@ -102,9 +99,6 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		if !ok {
 			continue
 		}
-		trend := AnalyseSodium(f.Labs[Sodium], f.At)
-		risk := DemyelinationRisk(p.DemyelinationRisk, f, f.At)
-		latest, haveNa := latestWithin(f.Labs[Sodium], f.At, p.Projection.SodiumMaxAgeHours)
 		var reasons []string
 		fig := map[string]float64{"odsHighRisk": 0}
 		if len(risk) > 0 {
@@ -152,7 +146,7 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		for _, rf := range risk {
 			fmt.Fprintf(&b, "- Demyelination risk factor: %s (%s)\n", rf.Factor, rf.Evidence)
 		}
-		for _, u := range UncheckedRisk(p.DemyelinationRisk, f, f.At) {
+		for _, u := range unchecked {
 			fmt.Fprintf(&b, "- Not checked for demyelination risk: %s\n", u)
 		}
 		if drug.RaisesSodium {

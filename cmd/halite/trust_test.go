@@ -183,18 +183,11 @@ func TestServeWithTrustedIssuer(t *testing.T) {
 // trusts, and halite token signs a call that serve accepts once.
 func TestKeysAndToken(t *testing.T) {
 	t.Setenv("HALITE_CONFIG", "")
-	dir := t.TempDir()
-	var out bytes.Buffer
-	if err := run(context.Background(), []string{"keys", "--out", dir}, &out, io.Discard); err != nil {
-		t.Fatal(err)
-	}
+	dir, cfgPath := localIssuer(t)
 	if st, err := os.Stat(filepath.Join(dir, "issuer-private.jwk")); err != nil || st.Mode().Perm() != 0o600 {
 		t.Fatalf("private key file: %v %v", st, err)
 	}
-	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
-		filepath.Join(dir, "issuer-jwks.json") + "\n"
-	cfgPath := filepath.Join(dir, "halite.yaml")
-	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	var out bytes.Buffer
 	base, _, stop := startServe(t, "--config", cfgPath)
 	out.Reset()
 	if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
@@ -246,14 +239,7 @@ func TestReplicasShareReplayCache(t *testing.T) {
 		sep = "&"
 	}
 	t.Setenv("HALITE_STORE_DSN", dsn+sep+"search_path="+schema)
-	dir := t.TempDir()
-	if err := run(context.Background(), []string{"keys", "--out", dir}, io.Discard, io.Discard); err != nil {
-		t.Fatal(err)
-	}
-	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
-		filepath.Join(dir, "issuer-jwks.json") + "\n"
-	cfgPath := filepath.Join(dir, "halite.yaml")
-	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	dir, cfgPath := localIssuer(t)
 	a, _, stopA := startServe(t, "--config", cfgPath)
 	b, _, stopB := startServe(t, "--config", cfgPath)
 	var tok bytes.Buffer
@@ -341,14 +327,7 @@ func TestHealthcheck(t *testing.T) {
 // prints both rows with no errors.
 func TestLoadCommand(t *testing.T) {
 	t.Setenv("HALITE_CONFIG", "")
-	dir := t.TempDir()
-	if err := run(context.Background(), []string{"keys", "--out", dir}, io.Discard, io.Discard); err != nil {
-		t.Fatal(err)
-	}
-	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
-		filepath.Join(dir, "issuer-jwks.json") + "\n"
-	cfgPath := filepath.Join(dir, "halite.yaml")
-	os.WriteFile(cfgPath, []byte(cfg), 0o600)
+	dir, cfgPath := localIssuer(t)
 	base, _, stop := startServe(t, "--config", cfgPath)
 	var out bytes.Buffer
 	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
@@ -369,4 +348,22 @@ func TestLoadCommand(t *testing.T) {
 			t.Errorf("a run with errors or no requests: %s", l)
 		}
 	}
+}
+
+// localIssuer makes a test issuer with halite keys and a config trusting
+// it (http on loopback, audience base http://127.0.0.1), returning the key
+// directory and the config path.
+func localIssuer(t *testing.T) (dir, cfgPath string) {
+	t.Helper()
+	dir = t.TempDir()
+	if err := run(context.Background(), []string{"keys", "--out", dir}, io.Discard, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	cfg := "public_base_url: http://127.0.0.1\ndevelopment_mode: true\nissuers:\n  - iss: https://ehr.example.org\n    jwks_file: " +
+		filepath.Join(dir, "issuer-jwks.json") + "\n"
+	cfgPath = filepath.Join(dir, "halite.yaml")
+	if err := os.WriteFile(cfgPath, []byte(cfg), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	return dir, cfgPath
 }
