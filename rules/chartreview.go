@@ -365,11 +365,17 @@ func (r *Ruleset) restrictionBand(ratio float64) RestrictionBand {
 }
 
 // paediatricBand states a child's restriction per body-surface area, or
-// says which measurement is missing.
+// says which measurement is missing; without a birth date it says the band
+// shown is an adult's, rather than assume an adult.
 func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBand, fig map[string]float64) {
 	p := r.policy
 	age, ok := c.f.Patient.AgeYears(c.f.At)
-	if !ok || age >= p.TBW.AdultFromAge {
+	if !ok {
+		b.WriteString("- Age not recorded (no birth date): the band above is for an adult; for a child it would be scaled " +
+			"to body-surface area\n")
+		return
+	}
+	if age >= p.TBW.AdultFromAge {
 		return
 	}
 	w, okW := latestWithin(c.f.Labs[BodyWeight], c.f.At, p.Projection.WeightMaxAgeHours)

@@ -123,6 +123,12 @@ func TestChartReview(t *testing.T) {
 				t.Errorf("%s", fs[0].Detail)
 			}
 		}},
+		{"no birth date: the band is said to be an adult's", RuleSIADHPattern, chartFacts(t, "", map[float64]float64{2: 128}, siadh(60, 30)...),
+			func(t *testing.T, fs []Finding) {
+				if !strings.Contains(fs[0].Detail, "Age not recorded") {
+					t.Errorf("%s", fs[0].Detail)
+				}
+			}},
 		{"child without a height", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128}, append(siadh(60, 30), lab(BodyWeight, 18, 20))...),
 			func(t *testing.T, fs []Finding) {
 				if _, ok := fs[0].Figures["bsaM2"]; ok || !strings.Contains(fs[0].Detail, "missing: height") {
