@@ -143,9 +143,12 @@ func splitList(v string) []string {
 	return out
 }
 
-// loadConfig builds the configuration from the file at path (none if
-// empty) and the environment, and validates it.
+// loadConfig builds the configuration from the file at path (else the
+// one HALITE_CONFIG names; none if both are empty) and the environment.
 func loadConfig(path string, getenv func(string) string) (Config, error) {
+	if path == "" {
+		path = getenv("HALITE_CONFIG")
+	}
 	cfg := defaultConfig()
 	if path != "" {
 		data, err := os.ReadFile(path)

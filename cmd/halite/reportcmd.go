@@ -27,9 +27,6 @@ func reportCmd(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	if _, err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	if *configPath == "" {
-		*configPath = os.Getenv("HALITE_CONFIG")
-	}
 	cfg, err := loadConfig(*configPath, os.Getenv)
 	if err != nil {
 		return err

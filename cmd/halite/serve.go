@@ -31,9 +31,6 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if _, err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	if *configPath == "" {
-		*configPath = os.Getenv("HALITE_CONFIG")
-	}
 	cfg, err := loadConfig(*configPath, os.Getenv)
 	if err != nil {
 		return err
