@@ -40,10 +40,11 @@ func TestChartReview(t *testing.T) {
 		check      func(t *testing.T, fs []Finding)
 	}{
 		{"overcorrected in 24 h", RuleOvercorrected, chartFacts(t, adult, map[float64]float64{20: 112, 2: 123}, normalK), nil},
-		// 108 at −40 h → 126: 18 in 48 h is not above 18; 127 is.
-		{"overcorrected in 48 h only", RuleOvercorrected, chartFacts(t, adult, map[float64]float64{40: 108, 30: 114, 2: 127}, normalK),
+		// 108 at −40 h → 127: 19 in 48 h, above 18. The 24-h window starts at
+		// 117 + 10 × 6/28 = 119.1 (interpolated), so 7.9 in 24 h, within 10.
+		{"overcorrected in 48 h only", RuleOvercorrected, chartFacts(t, adult, map[float64]float64{40: 108, 30: 117, 2: 127}, normalK),
 			func(t *testing.T, fs []Finding) {
-				if !strings.Contains(fs[0].Summary, "in 48 h") {
+				if !strings.Contains(fs[0].Summary, "in 48 h") || strings.Contains(fs[0].Summary, "in 24 h") {
 					t.Errorf("summary %q", fs[0].Summary)
 				}
 			}},
