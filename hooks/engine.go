@@ -174,13 +174,14 @@ func causeOf(err error) string {
 func (e *Engine) logged(ctx context.Context, service, patientID string, fs []rules.Finding, cards []Card, at time.Time) []LoggedCard {
 	out := make([]LoggedCard, len(cards))
 	hash := e.hash("Patient/" + patientID)
+	caller := CallerFrom(ctx)
 	for i, c := range cards {
 		var sugg []string
 		for _, s := range c.Suggestions {
 			sugg = append(sugg, s.UUID)
 		}
 		out[i] = LoggedCard{UUID: c.UUID, Service: service, Rule: fs[i].Rule, Indicator: c.Indicator, Ruleset: e.ruleset.Revision(),
-			Tenant: CallerFrom(ctx).Tenant, PatientHash: hash, At: at, Figures: fs[i].Figures, Suggestions: sugg}
+			Issuer: caller.Issuer, Tenant: caller.Tenant, PatientHash: hash, At: at, Figures: fs[i].Figures, Suggestions: sugg}
 	}
 	return out
 }

@@ -84,19 +84,19 @@ func DecodeFeedback(service string, body []byte) ([]CardOutcome, error) {
 	return out, nil
 }
 
-// recordFeedback stores entries, mapping unknown cards and suggestions to
-// a 400 naming the entry.
-func recordFeedback(record func(CardOutcome) error, entries []CardOutcome) error {
-	for i, o := range entries {
-		err := record(o)
-		switch {
-		case errors.Is(err, ErrUnknownCard):
-			return badRequest(fmt.Sprintf("feedback[%d].card", i), "is not a card this service returned")
-		case errors.Is(err, ErrUnknownSuggestion):
-			return badRequest(fmt.Sprintf("feedback[%d].acceptedSuggestions", i), "names a suggestion this card did not offer")
-		case err != nil:
-			return &Error{Kind: KindUnavailable, Message: "feedback could not be stored", Err: err}
-		}
+// feedbackError maps a Recorder's refusal to a 400 naming the entry, and
+// any other failure to 503.
+func feedbackError(err error) error {
+	var oe *OutcomeError
+	i := 0
+	if errors.As(err, &oe) {
+		i = oe.Index
 	}
-	return nil
+	switch {
+	case errors.Is(err, ErrUnknownCard):
+		return badRequest(fmt.Sprintf("feedback[%d].card", i), "is not a card this service returned to this caller")
+	case errors.Is(err, ErrUnknownSuggestion):
+		return badRequest(fmt.Sprintf("feedback[%d].acceptedSuggestions", i), "names a suggestion this card did not offer")
+	}
+	return &Error{Kind: KindUnavailable, Message: "feedback could not be stored", Err: err}
 }

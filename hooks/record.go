@@ -3,22 +3,27 @@ package hooks
 import (
 	"context"
 	"errors"
+	"fmt"
 	"time"
 )
 
 // LoggedCard is a card as the card log keeps it: no patient reference,
 // only its keyed hash.
 type LoggedCard struct {
-	UUID, Service, Rule, Indicator, Ruleset, Tenant string
-	PatientHash                                     string
-	At                                              time.Time
-	Figures                                         map[string]float64
-	Suggestions                                     []string // suggestion uuids
+	UUID, Service, Rule, Indicator, Ruleset string
+	// Issuer and Tenant are the authenticated caller's (empty in
+	// development mode); feedback is taken only from the same caller.
+	Issuer, Tenant string
+	PatientHash    string
+	At             time.Time
+	Figures        map[string]float64
+	Suggestions    []string // suggestion uuids
 }
 
 // CardOutcome is one feedback entry for a card.
 type CardOutcome struct {
 	Card, Service, Outcome string
+	Issuer, Tenant         string // the caller reporting it
 	AcceptedSuggestions    []string
 	ReasonSystem           string
 	ReasonCode             string
@@ -30,9 +35,11 @@ type CardOutcome struct {
 // with a hooks/feedback store. A nil error means the record is durable.
 type Recorder interface {
 	LogCards(ctx context.Context, cards []LoggedCard) error
-	// RecordOutcome returns ErrUnknownCard or ErrUnknownSuggestion for
-	// feedback that names what this service did not return.
-	RecordOutcome(ctx context.Context, o CardOutcome) error
+	// RecordOutcomes stores the entries of one feedback call, all or
+	// none. An entry naming a card this service did not return to this
+	// caller, or a suggestion the card did not offer, is returned as an
+	// *OutcomeError wrapping ErrUnknownCard or ErrUnknownSuggestion.
+	RecordOutcomes(ctx context.Context, entries []CardOutcome) error
 }
 
 // Errors a Recorder returns for feedback about unknown cards.
@@ -40,3 +47,14 @@ var (
 	ErrUnknownCard       = errors.New("no card with this uuid was returned by this service")
 	ErrUnknownSuggestion = errors.New("not a suggestion of this card")
 )
+
+// OutcomeError is a feedback entry, by index, that was refused.
+type OutcomeError struct {
+	Index int
+	Err   error
+}
+
+func (e *OutcomeError) Error() string { return fmt.Sprintf("feedback[%d]: %v", e.Index, e.Err) }
+
+// Unwrap returns the entry's error.
+func (e *OutcomeError) Unwrap() error { return e.Err }

@@ -108,13 +108,7 @@ func (s *server) call(c *gin.Context) {
 	}
 	body, err := io.ReadAll(http.MaxBytesReader(c.Writer, c.Request.Body, s.cfg.MaxBodyBytes))
 	if err != nil {
-		var tooLarge *http.MaxBytesError
-		if errors.As(err, &tooLarge) {
-			s.fail(c, &Error{Kind: KindTooLarge, Message: "request body is larger than the limit of " +
-				formatBytes(s.cfg.MaxBodyBytes)})
-			return
-		}
-		s.fail(c, &Error{Kind: KindBadRequest, Message: "request body could not be read"})
+		s.fail(c, bodyError(err, s.cfg.MaxBodyBytes))
 		return
 	}
 	ctx, ok := s.authenticate(c, "/cds-services/"+id)
@@ -168,6 +162,12 @@ func (s *server) authenticate(c *gin.Context, path string) (context.Context, boo
 // audience is the feedback URL itself. Success is 200 with no body.
 func (s *server) feedback(c *gin.Context) {
 	id := c.Param("id")
+	// The caller is verified before anything about the service or the body
+	// is answered, so an unauthenticated client learns nothing from it.
+	ctx, ok := s.authenticate(c, "/cds-services/"+id+"/feedback")
+	if !ok {
+		return
+	}
 	if _, known := s.engine.Registry().Lookup(id); !known {
 		s.fail(c, &Error{Kind: KindUnknownService, Message: "no CDS service with id " + quote(id)})
 		return
@@ -178,11 +178,7 @@ func (s *server) feedback(c *gin.Context) {
 	}
 	body, err := io.ReadAll(http.MaxBytesReader(c.Writer, c.Request.Body, s.cfg.MaxBodyBytes))
 	if err != nil {
-		s.fail(c, &Error{Kind: KindTooLarge, Message: "request body is larger than the limit"})
-		return
-	}
-	ctx, ok := s.authenticate(c, "/cds-services/"+id+"/feedback")
-	if !ok {
+		s.fail(c, bodyError(err, s.cfg.MaxBodyBytes))
 		return
 	}
 	rec := s.engine.recorder
@@ -195,14 +191,28 @@ func (s *server) feedback(c *gin.Context) {
 		s.fail(c, err)
 		return
 	}
-	if err := recordFeedback(func(o CardOutcome) error { return rec.RecordOutcome(ctx, o) }, entries); err != nil {
-		s.fail(c, err)
+	caller := CallerFrom(ctx)
+	for i := range entries {
+		entries[i].Issuer, entries[i].Tenant = caller.Issuer, caller.Tenant
+	}
+	if err := rec.RecordOutcomes(ctx, entries); err != nil {
+		s.fail(c, feedbackError(err))
 		return
 	}
 	for _, o := range entries {
 		s.engine.tel.feedbackOutcomes.Add(ctx, 1, metric.WithAttributes(attribute.String("service", id), attribute.String("outcome", o.Outcome)))
 	}
 	c.Status(http.StatusOK)
+}
+
+// bodyError is the answer to a request body that could not be read: 413
+// when it passed the limit, 400 otherwise.
+func bodyError(err error, limit int64) error {
+	var tooLarge *http.MaxBytesError
+	if errors.As(err, &tooLarge) {
+		return &Error{Kind: KindTooLarge, Message: "request body is larger than the limit of " + formatBytes(limit)}
+	}
+	return &Error{Kind: KindBadRequest, Message: "request body could not be read"}
 }
 
 func (s *server) ready(c *gin.Context) {

@@ -28,7 +28,7 @@ func (m *memRecorder) LogCards(_ context.Context, cards []LoggedCard) error {
 	m.cards += len(cards)
 	return nil
 }
-func (m *memRecorder) RecordOutcome(context.Context, CardOutcome) error { return nil }
+func (m *memRecorder) RecordOutcomes(context.Context, []CardOutcome) error { return nil }
 
 type observed struct {
 	spans   *tracetest.InMemoryExporter

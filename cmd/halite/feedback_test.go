@@ -99,3 +99,74 @@ func TestFeedbackEndToEnd(t *testing.T) {
 		t.Errorf("after restart: %d cards, %d feedback (%v); want %d and 2", cards, fb, err, len(r.Cards))
 	}
 }
+
+// TestFeedbackFromTheCallerShown: with authentication on, feedback is
+// taken only from the issuer and tenant that were shown the card; a call
+// with one bad entry stores none; an unauthenticated client is refused
+// before it learns whether a service exists.
+func TestFeedbackFromTheCallerShown(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	db := filepath.Join(t.TempDir(), "halite.db")
+	t.Setenv("HALITE_STORE_DSN", "sqlite:"+db)
+	dir, cfgPath := localIssuer(t)
+	base, _, stop := startServe(t, "--config", cfgPath)
+	token := func(path, tenant string) string {
+		var out bytes.Buffer
+		if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
+			"--aud", "http://127.0.0.1" + path, "--tenant", tenant}, &out, io.Discard); err != nil {
+			t.Fatal(err)
+		}
+		return strings.TrimSpace(out.String())
+	}
+	post := func(path, bearer, body string) (int, string) {
+		r, _ := http.NewRequest(http.MethodPost, base+path, strings.NewReader(body))
+		r.Header.Set("Content-Type", "application/json")
+		if bearer != "" {
+			r.Header.Set("Authorization", "Bearer "+bearer)
+		}
+		resp, err := http.DefaultClient.Do(r)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp.StatusCode, string(b)
+	}
+	const svc = "/cds-services/sodium-infusion-check"
+	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	status, body := post(svc, token(svc, "ward-a"), string(demo))
+	var r hooks.Response
+	if err := json.Unmarshal([]byte(body), &r); status != http.StatusOK || err != nil || len(r.Cards) == 0 {
+		t.Fatalf("service call: %d %s", status, body)
+	}
+	entry := func(card string) string {
+		return fmt.Sprintf(`{"card":%q,"outcome":"overridden","outcomeTimestamp":"2026-12-02T10:00:00Z"}`, card)
+	}
+	good := `{"feedback":[` + entry(r.Cards[0].UUID) + `]}`
+	if status, body := post(svc+"/feedback", token(svc+"/feedback", "ward-b"), good); status != http.StatusBadRequest || !strings.Contains(body, "feedback[0].card") {
+		t.Errorf("feedback from another tenant: %d %s; want 400 naming feedback[0].card", status, body)
+	}
+	mixed := `{"feedback":[` + entry(r.Cards[0].UUID) + "," + entry("no-such-card") + `]}`
+	if status, body := post(svc+"/feedback", token(svc+"/feedback", "ward-a"), mixed); status != http.StatusBadRequest || !strings.Contains(body, "feedback[1].card") {
+		t.Errorf("feedback with one unknown card: %d %s; want 400 naming feedback[1].card", status, body)
+	}
+	if status, body := post(svc+"/feedback", token(svc+"/feedback", "ward-a"), good); status != http.StatusOK {
+		t.Errorf("feedback from the tenant shown: %d %s", status, body)
+	}
+	for _, path := range []string{"/cds-services/no-such-service/feedback", svc + "/feedback"} {
+		if status, _ := post(path, "", good); status != http.StatusUnauthorized {
+			t.Errorf("unauthenticated feedback to %s: %d, want 401", path, status)
+		}
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	st, err := feedback.OpenSQLite(db, feedback.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	if _, fb, err := st.Counts(context.Background()); err != nil || fb != 1 {
+		t.Errorf("%d feedback records (%v); want 1: the refused calls stored nothing", fb, err)
+	}
+}

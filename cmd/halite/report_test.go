@@ -39,9 +39,9 @@ func TestReport(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	must(st.RecordFeedback(ctx, feedback.FeedbackRecord{Card: "card-a", Service: "sodium-infusion-check", Outcome: feedback.Accepted, AcceptedSuggestions: []string{"card-a-s"}, OutcomeAt: day}))
-	must(st.RecordFeedback(ctx, feedback.FeedbackRecord{Card: "card-b", Service: "sodium-infusion-check", Outcome: feedback.Overridden, ReasonSystem: "s", ReasonCode: "local-protocol", OutcomeAt: day}))
-	must(st.RecordFeedback(ctx, feedback.FeedbackRecord{Card: "card-c", Service: "sodium-infusion-check", Outcome: feedback.Overridden, ReasonSystem: "s", ReasonCode: "local-protocol", OutcomeAt: day}))
+	must(st.RecordFeedback(ctx, []feedback.FeedbackRecord{{Card: "card-a", Service: "sodium-infusion-check", Outcome: feedback.Accepted, AcceptedSuggestions: []string{"card-a-s"}, OutcomeAt: day}}))
+	must(st.RecordFeedback(ctx, []feedback.FeedbackRecord{{Card: "card-b", Service: "sodium-infusion-check", Outcome: feedback.Overridden, ReasonSystem: "s", ReasonCode: "local-protocol", OutcomeAt: day}}))
+	must(st.RecordFeedback(ctx, []feedback.FeedbackRecord{{Card: "card-c", Service: "sodium-infusion-check", Outcome: feedback.Overridden, ReasonSystem: "s", ReasonCode: "local-protocol", OutcomeAt: day}}))
 	must(st.Close())
 
 	page := filepath.Join(t.TempDir(), "report.html")

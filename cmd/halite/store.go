@@ -119,20 +119,28 @@ func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error 
 	recs := make([]feedback.CardRecord, len(cards))
 	for i, c := range cards {
 		recs[i] = feedback.CardRecord{UUID: c.UUID, Service: c.Service, Rule: c.Rule, Indicator: c.Indicator, Ruleset: c.Ruleset,
-			Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions}
+			Issuer: c.Issuer, Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions}
 	}
 	return r.st.LogCards(ctx, recs)
 }
 
-func (r recorder) RecordOutcome(ctx context.Context, o hooks.CardOutcome) error {
-	err := r.st.RecordFeedback(ctx, feedback.FeedbackRecord{Card: o.Card, Service: o.Service, Outcome: o.Outcome,
-		AcceptedSuggestions: o.AcceptedSuggestions, ReasonSystem: o.ReasonSystem, ReasonCode: o.ReasonCode,
-		UserComment: o.UserComment, OutcomeAt: o.OutcomeAt})
+func (r recorder) RecordOutcomes(ctx context.Context, entries []hooks.CardOutcome) error {
+	recs := make([]feedback.FeedbackRecord, len(entries))
+	for i, o := range entries {
+		recs[i] = feedback.FeedbackRecord{Card: o.Card, Service: o.Service, Outcome: o.Outcome, Issuer: o.Issuer, Tenant: o.Tenant,
+			AcceptedSuggestions: o.AcceptedSuggestions, ReasonSystem: o.ReasonSystem, ReasonCode: o.ReasonCode,
+			UserComment: o.UserComment, OutcomeAt: o.OutcomeAt}
+	}
+	err := r.st.RecordFeedback(ctx, recs)
+	var ee *feedback.EntryError
+	if !errors.As(err, &ee) {
+		return err
+	}
 	switch {
 	case errors.Is(err, feedback.ErrUnknownCard):
-		return hooks.ErrUnknownCard
+		return &hooks.OutcomeError{Index: ee.Index, Err: hooks.ErrUnknownCard}
 	case errors.Is(err, feedback.ErrUnknownSuggestion):
-		return hooks.ErrUnknownSuggestion
+		return &hooks.OutcomeError{Index: ee.Index, Err: hooks.ErrUnknownSuggestion}
 	}
 	return err
 }

@@ -18,6 +18,9 @@ import (
 type backend struct {
 	name string
 	open func(t testing.TB) (Store, func() Store)
+	// stalled opens a store with opt whose database another session holds
+	// locked until release is called.
+	stalled func(t testing.TB, opt Options) (s Store, release func())
 }
 
 // backends are SQLite always, and PostgreSQL when HALITE_TEST_POSTGRES_DSN
@@ -37,6 +40,13 @@ func backends(t testing.TB) []backend {
 			}
 			return r
 		}
+	}, stalled: func(t testing.TB, opt Options) (Store, func()) {
+		path := filepath.Join(t.TempDir(), "halite.db")
+		s, err := OpenSQLite(path, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s, holdLock(t, "sqlite", "file:"+path, "BEGIN IMMEDIATE")
 	}}}
 	dsn := os.Getenv("HALITE_TEST_POSTGRES_DSN")
 	if dsn == "" {
@@ -59,7 +69,38 @@ func backends(t testing.TB) []backend {
 			}
 			return r
 		}
+	}, stalled: func(t testing.TB, opt Options) (Store, func()) {
+		schemaDSN := freshSchema(t, dsn)
+		s, err := OpenPostgres(schemaDSN, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s, holdLock(t, "pgx", schemaDSN, "BEGIN", "LOCK TABLE card_log IN ACCESS EXCLUSIVE MODE")
 	}})
+}
+
+// holdLock runs stmts on one connection of a second session and keeps
+// it open (holding what they lock) until the returned release is called.
+func holdLock(t testing.TB, driver, dsn string, stmts ...string) func() {
+	t.Helper()
+	db, err := sql.Open(driver, dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	conn, err := db.Conn(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, q := range stmts {
+		if _, err := conn.ExecContext(context.Background(), q); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return func() {
+		conn.ExecContext(context.Background(), "ROLLBACK")
+		conn.Close()
+		db.Close()
+	}
 }
 
 // freshSchema creates an empty schema for one test and returns a DSN that
@@ -106,13 +147,16 @@ func TestStoreContract(t *testing.T) {
 			}
 			fb := FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Accepted, AcceptedSuggestions: []string{"c1-s1"}, OutcomeAt: t0}
 			for i := 0; i < 3; i++ { // repeats are stored once
-				if err := s.RecordFeedback(ctx, fb); err != nil {
+				if err := s.RecordFeedback(ctx, []FeedbackRecord{fb}); err != nil {
 					t.Fatal(err)
 				}
 			}
 			over := FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Overridden, ReasonSystem: "sys", ReasonCode: "local-protocol", OutcomeAt: t0.Add(time.Minute)}
-			if err := s.RecordFeedback(ctx, over); err != nil {
+			if err := s.RecordFeedback(ctx, []FeedbackRecord{over}); err != nil {
 				t.Fatal(err)
+			}
+			c2 := func(outcome string) FeedbackRecord {
+				return FeedbackRecord{Card: "c2", Service: "sodium-infusion-check", Outcome: outcome, OutcomeAt: t0.Add(2 * time.Minute)}
 			}
 			for name, tc := range map[string]struct {
 				f    FeedbackRecord
@@ -120,17 +164,26 @@ func TestStoreContract(t *testing.T) {
 			}{
 				"unknown card":       {FeedbackRecord{Card: "nope", Service: "sodium-infusion-check", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
 				"other service":      {FeedbackRecord{Card: "c1", Service: "sodium-drug-risk", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
+				"other issuer":       {FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Issuer: "https://other.example", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
+				"other tenant":       {FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Tenant: "t2", Outcome: Overridden, OutcomeAt: t0}, ErrUnknownCard},
 				"foreign suggestion": {FeedbackRecord{Card: "c1", Service: "sodium-infusion-check", Outcome: Accepted, AcceptedSuggestions: []string{"c2-s1"}, OutcomeAt: t0}, ErrUnknownSuggestion},
 			} {
-				if err := s.RecordFeedback(ctx, tc.f); !errors.Is(err, tc.want) {
-					t.Errorf("%s: %v, want %v", name, err, tc.want)
+				// A bad entry after a good one: neither is stored.
+				err := s.RecordFeedback(ctx, []FeedbackRecord{c2(Overridden), tc.f})
+				var ee *EntryError
+				if !errors.Is(err, tc.want) || !errors.As(err, &ee) || ee.Index != 1 {
+					t.Errorf("%s: %v, want %v at entry 1", name, err, tc.want)
 				}
+			}
+			// A value the schema forbids is an error, not silently ignored.
+			if err := s.RecordFeedback(ctx, []FeedbackRecord{c2("dismissed")}); err == nil {
+				t.Error("an outcome outside the schema's CHECK was accepted")
 			}
 			if err := s.LogCards(ctx, []CardRecord{card("c1", t0)}); err == nil {
 				t.Error("a duplicate card uuid was accepted")
 			}
 			if c, f, err := s.Counts(ctx); err != nil || c != 2 || f != 2 {
-				t.Errorf("counts %d cards %d feedback %v; want 2 and 2", c, f, err)
+				t.Errorf("counts %d cards %d feedback %v; want 2 and 2 (no entry of a refused call stored)", c, f, err)
 			}
 			rep, err := s.Report(ctx, t0.Add(-72*time.Hour), t0.Add(time.Hour))
 			if err != nil || len(rep.Rules) != 1 || len(rep.Days) != 2 {
@@ -162,6 +215,18 @@ func TestStoreContract(t *testing.T) {
 			if seen, err := rc.Remember(ctx, "iss", "old", time.Now().Add(time.Minute)); err != nil || seen {
 				t.Errorf("a jti whose earlier token expired is not a replay: %v %v", seen, err)
 			}
+			if seen, err := rc.Remember(ctx, "iss", "gone", time.Now().Add(-time.Minute)); err != nil || seen {
+				t.Errorf("expired jti: %v %v", seen, err)
+			}
+			if n := replayRows(t, s); n != 3 {
+				t.Errorf("%d replay entries before the sweep, want 3", n)
+			}
+			if _, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil {
+				t.Fatal(err)
+			}
+			if n := replayRows(t, s); n != 2 { // j1 and old are live; gone is swept
+				t.Errorf("%d replay entries after the purge, want the 2 live ones", n)
+			}
 			if err := s.Close(); err != nil {
 				t.Fatal(err)
 			}
@@ -169,6 +234,40 @@ func TestStoreContract(t *testing.T) {
 			defer r.Close()
 			if c, f, err := r.Counts(ctx); err != nil || c != 1 || f != 2 {
 				t.Errorf("after reopening: %d cards %d feedback %v; want 1 and 2", c, f, err)
+			}
+		})
+	}
+}
+
+func replayRows(t *testing.T, s Store) int {
+	t.Helper()
+	var n int
+	if err := s.(*DB).db.QueryRow(`SELECT count(*) FROM jwt_replay`).Scan(&n); err != nil {
+		t.Fatal(err)
+	}
+	return n
+}
+
+// TestStoreStalled: while another session holds the database locked, a
+// write fails within the store's bound instead of hanging the call, and
+// the store works again once the lock is gone.
+func TestStoreStalled(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends(t) {
+		t.Run(b.name, func(t *testing.T) {
+			const bound = 300 * time.Millisecond
+			s, release := b.stalled(t, Options{CommitTimeout: bound})
+			start := time.Now()
+			err := s.LogCards(ctx, []CardRecord{card("stalled", t0)})
+			if took := time.Since(start); !errors.Is(err, ErrStalled) || took > 10*bound {
+				t.Errorf("write under a held lock: %v after %v; want ErrStalled within %v", err, took, 2*bound)
+			}
+			release()
+			if err := s.LogCards(ctx, []CardRecord{card("after", t0)}); err != nil {
+				t.Errorf("write after the lock was released: %v", err)
+			}
+			if err := s.Close(); err != nil {
+				t.Fatal(err)
 			}
 		})
 	}
@@ -195,7 +294,7 @@ func TestStoreConcurrent(t *testing.T) {
 							errs <- err
 							continue
 						}
-						errs <- s.RecordFeedback(ctx, FeedbackRecord{Card: id, Service: "sodium-infusion-check", Outcome: Overridden, OutcomeAt: t0})
+						errs <- s.RecordFeedback(ctx, []FeedbackRecord{{Card: id, Service: "sodium-infusion-check", Outcome: Overridden, OutcomeAt: t0}})
 						if _, _, err := s.Counts(ctx); err != nil {
 							errs <- err
 						}

@@ -10,12 +10,14 @@ import (
 	"io/fs"
 	"slices"
 	"sort"
+	"strconv"
 	"strings"
 	"sync"
 	"time"
 
-	_ "github.com/jackc/pgx/v5/stdlib" // PostgreSQL through pgx, registered as "pgx"
-	_ "modernc.org/sqlite"             // pure-Go SQLite driver, registered as "sqlite"
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/stdlib" // PostgreSQL through pgx; also registers "pgx"
+	_ "modernc.org/sqlite"           // pure-Go SQLite driver, registered as "sqlite"
 )
 
 //go:embed migrations/sqlite/*.sql migrations/postgres/*.sql
@@ -32,6 +34,7 @@ const tsFormat = "2006-01-02T15:04:05.000000000Z"
 type DB struct {
 	db      *sql.DB
 	dialect dialect
+	opt     Options
 	jobs    chan job
 	done    chan struct{}
 	// mu guards closed: senders hold it shared while queueing, Close
@@ -40,12 +43,18 @@ type DB struct {
 	closed bool
 }
 
-// ErrClosed is returned for a record offered after Close.
-var ErrClosed = errors.New("store is closed")
+// Errors of the write path.
+var (
+	// ErrClosed is returned for a record offered after Close.
+	ErrClosed = errors.New("store is closed")
+	// ErrStalled is returned when the database did not commit within the
+	// store's bound; the record may still become durable later.
+	ErrStalled = errors.New("store did not commit in time")
+)
 
 type job struct {
 	ctx  context.Context
-	run  func(*sql.Tx) error
+	run  func(context.Context, *sql.Tx) error
 	errc chan error
 }
 
@@ -53,14 +62,12 @@ type job struct {
 type dialect struct {
 	name string // migrations directory
 	// bind rewrites "?" placeholders for the driver.
-	bind         func(string) string
-	insertIgnore string // "INSERT OR IGNORE INTO" or "INSERT INTO"
-	onConflict   string // "" or " ON CONFLICT DO NOTHING"
+	bind func(string) string
 }
 
 var (
-	sqliteDialect   = dialect{name: "sqlite", bind: func(q string) string { return q }, insertIgnore: "INSERT OR IGNORE INTO"}
-	postgresDialect = dialect{name: "postgres", bind: dollarPlaceholders, insertIgnore: "INSERT INTO", onConflict: " ON CONFLICT DO NOTHING"}
+	sqliteDialect   = dialect{name: "sqlite", bind: func(q string) string { return q }}
+	postgresDialect = dialect{name: "postgres", bind: dollarPlaceholders}
 )
 
 // dollarPlaceholders turns ? into $1, $2, … (no ? appears in halite's SQL
@@ -83,6 +90,10 @@ func dollarPlaceholders(q string) string {
 type Options struct {
 	MaxBatch int           // records per transaction at most (default 256)
 	MaxWait  time.Duration // how long a batch waits for company (default 2 ms)
+	// CommitTimeout bounds one batch's transaction (default 5 s); a caller
+	// waits at most twice this (its turn, then its batch) and then gets
+	// ErrStalled, so a stalled database cannot hang calls or Close.
+	CommitTimeout time.Duration
 }
 
 // OpenSQLite opens (creating if needed) the database at path, applies the
@@ -99,33 +110,50 @@ func OpenSQLite(path string, opt Options) (*DB, error) {
 // OpenPostgres connects to PostgreSQL at dsn (a postgres:// URL) through a
 // pooled pgx connection, applies the embedded migrations and starts the
 // writer.
+// Unless the DSN sets its own, the server's statement_timeout is the
+// commit bound too, so a stuck statement is ended on the server as well.
 func OpenPostgres(dsn string, opt Options) (*DB, error) {
-	db, err := sql.Open("pgx", dsn)
+	opt = opt.withDefaults()
+	cfg, err := pgx.ParseConfig(dsn)
 	if err != nil {
 		return nil, fmt.Errorf("open store: %w", err)
 	}
+	if _, set := cfg.RuntimeParams["statement_timeout"]; !set {
+		cfg.RuntimeParams["statement_timeout"] = strconv.FormatInt(opt.CommitTimeout.Milliseconds(), 10)
+	}
+	db := stdlib.OpenDB(*cfg)
 	db.SetMaxOpenConns(8)
 	return start(db, postgresDialect, opt, "postgres")
 }
 
+func (o Options) withDefaults() Options {
+	if o.MaxBatch <= 0 {
+		o.MaxBatch = 256
+	}
+	if o.MaxWait <= 0 {
+		o.MaxWait = 2 * time.Millisecond
+	}
+	if o.CommitTimeout <= 0 {
+		o.CommitTimeout = 5 * time.Second
+	}
+	return o
+}
+
 func start(db *sql.DB, d dialect, opt Options, name string) (*DB, error) {
-	if opt.MaxBatch <= 0 {
-		opt.MaxBatch = 256
-	}
-	if opt.MaxWait <= 0 {
-		opt.MaxWait = 2 * time.Millisecond
-	}
-	if err := migrate(db, d); err != nil {
+	opt = opt.withDefaults()
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	if err := migrate(ctx, db, d); err != nil {
 		db.Close()
 		return nil, fmt.Errorf("open store %s: %w", name, err)
 	}
-	s := &DB{db: db, dialect: d, jobs: make(chan job), done: make(chan struct{})}
-	go s.writer(opt)
+	s := &DB{db: db, dialect: d, opt: opt, jobs: make(chan job), done: make(chan struct{})}
+	go s.writer()
 	return s, nil
 }
 
-func migrate(db *sql.DB, d dialect) error {
-	if _, err := db.Exec(`CREATE TABLE IF NOT EXISTS schema_migrations (version TEXT PRIMARY KEY, applied_at TEXT NOT NULL)`); err != nil {
+func migrate(ctx context.Context, db *sql.DB, d dialect) error {
+	if _, err := db.ExecContext(ctx, `CREATE TABLE IF NOT EXISTS schema_migrations (version TEXT PRIMARY KEY, applied_at TEXT NOT NULL)`); err != nil {
 		return fmt.Errorf("migrate: %w", err)
 	}
 	names, err := fs.Glob(migrations, "migrations/"+d.name+"/*.sql")
@@ -136,7 +164,7 @@ func migrate(db *sql.DB, d dialect) error {
 	for _, name := range names {
 		version := strings.TrimSuffix(name[strings.LastIndex(name, "/")+1:], ".sql")
 		var n int
-		if err := db.QueryRow(d.bind(`SELECT count(*) FROM schema_migrations WHERE version = ?`), version).Scan(&n); err != nil {
+		if err := db.QueryRowContext(ctx, d.bind(`SELECT count(*) FROM schema_migrations WHERE version = ?`), version).Scan(&n); err != nil {
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
 		if n > 0 {
@@ -146,15 +174,15 @@ func migrate(db *sql.DB, d dialect) error {
 		if err != nil {
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
-		tx, err := db.Begin()
+		tx, err := db.BeginTx(ctx, nil)
 		if err != nil {
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
-		if _, err := tx.Exec(string(ddl)); err != nil {
+		if _, err := tx.ExecContext(ctx, string(ddl)); err != nil {
 			tx.Rollback()
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
-		if _, err := tx.Exec(d.bind(`INSERT INTO schema_migrations VALUES (?, ?)`), version, time.Now().UTC().Format(time.RFC3339)); err != nil {
+		if _, err := tx.ExecContext(ctx, d.bind(`INSERT INTO schema_migrations VALUES (?, ?)`), version, time.Now().UTC().Format(time.RFC3339)); err != nil {
 			tx.Rollback()
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
@@ -166,13 +194,13 @@ func migrate(db *sql.DB, d dialect) error {
 }
 
 // writer runs batches until Close.
-func (s *DB) writer(opt Options) {
+func (s *DB) writer() {
 	defer close(s.done)
 	for first := range s.jobs {
 		batch := []job{first}
-		timer := time.NewTimer(opt.MaxWait)
+		timer := time.NewTimer(s.opt.MaxWait)
 	collect:
-		for len(batch) < opt.MaxBatch {
+		for len(batch) < s.opt.MaxBatch {
 			select {
 			case j, ok := <-s.jobs:
 				if !ok {
@@ -188,26 +216,35 @@ func (s *DB) writer(opt Options) {
 	}
 }
 
-// commit runs a batch in one transaction, each job in a savepoint.
+// commit runs a batch in one transaction, bounded by CommitTimeout, each
+// job in a savepoint.
 func (s *DB) commit(batch []job) {
+	ctx, cancel := context.WithTimeout(context.Background(), s.opt.CommitTimeout)
+	defer cancel()
 	errs := make([]error, len(batch))
-	tx, err := s.db.Begin()
+	tx, err := s.db.BeginTx(ctx, nil)
 	if err == nil {
 		for i, j := range batch {
 			if err := j.ctx.Err(); err != nil {
 				errs[i] = err
 				continue
 			}
-			if _, err := tx.Exec(`SAVEPOINT job`); err != nil {
+			if _, err := tx.ExecContext(ctx, `SAVEPOINT job`); err != nil {
 				errs[i] = err
 				continue
 			}
-			if errs[i] = j.run(tx); errs[i] != nil {
-				tx.Exec(`ROLLBACK TO SAVEPOINT job`)
+			if errs[i] = j.run(ctx, tx); errs[i] != nil {
+				tx.ExecContext(ctx, `ROLLBACK TO SAVEPOINT job`)
 			}
-			tx.Exec(`RELEASE SAVEPOINT job`)
+			tx.ExecContext(ctx, `RELEASE SAVEPOINT job`)
 		}
 		err = tx.Commit()
+		if err != nil {
+			tx.Rollback()
+		}
+	}
+	if err != nil && ctx.Err() != nil {
+		err = fmt.Errorf("%w: %v", ErrStalled, err)
 	}
 	for i, j := range batch {
 		if err != nil {
@@ -217,9 +254,13 @@ func (s *DB) commit(batch []job) {
 	}
 }
 
-// do queues run for the writer and waits for its commit.
-func (s *DB) do(ctx context.Context, run func(*sql.Tx) error) error {
+// do queues run for the writer and waits for its commit. The commit is
+// waited for even if ctx ends, since the record may be durable, but never
+// longer than two commit bounds.
+func (s *DB) do(ctx context.Context, run func(context.Context, *sql.Tx) error) error {
 	j := job{ctx: ctx, run: run, errc: make(chan error, 1)}
+	bound := time.NewTimer(2 * s.opt.CommitTimeout)
+	defer bound.Stop()
 	s.mu.RLock()
 	if s.closed {
 		s.mu.RUnlock()
@@ -230,9 +271,17 @@ func (s *DB) do(ctx context.Context, run func(*sql.Tx) error) error {
 	case <-ctx.Done():
 		s.mu.RUnlock()
 		return ctx.Err()
+	case <-bound.C:
+		s.mu.RUnlock()
+		return ErrStalled
 	}
 	s.mu.RUnlock()
-	return <-j.errc // the commit is waited for even if ctx ends: the record may be durable
+	select {
+	case err := <-j.errc:
+		return err
+	case <-bound.C:
+		return ErrStalled
+	}
 }
 
 // LogCards implements Store.
@@ -240,15 +289,15 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 	if len(cards) == 0 {
 		return nil
 	}
-	return s.do(ctx, func(tx *sql.Tx) error {
+	return s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
 		for _, c := range cards {
 			fig, err := json.Marshal(c.Figures)
 			if err != nil {
 				return fmt.Errorf("log card %s: %w", c.UUID, err)
 			}
 			sugg, _ := json.Marshal(nonNil(c.Suggestions))
-			if _, err := tx.Exec(s.dialect.bind(`INSERT INTO card_log (card_uuid, service, rule, indicator, ruleset, tenant, patient_hash, created_at, figures, suggestions)
-				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`), c.UUID, c.Service, c.Rule, c.Indicator, c.Ruleset, c.Tenant, c.PatientHash,
+			if _, err := tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_log (card_uuid, service, rule, indicator, ruleset, issuer, tenant, patient_hash, created_at, figures, suggestions)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`), c.UUID, c.Service, c.Rule, c.Indicator, c.Ruleset, c.Issuer, c.Tenant, c.PatientHash,
 				c.At.UTC().Format(tsFormat), string(fig), string(sugg)); err != nil {
 				return fmt.Errorf("log card %s: %w", c.UUID, err)
 			}
@@ -264,47 +313,69 @@ func nonNil(s []string) []string {
 	return s
 }
 
-// RecordFeedback implements Store.
-func (s *DB) RecordFeedback(ctx context.Context, f FeedbackRecord) error {
-	return s.do(ctx, func(tx *sql.Tx) error {
-		var raw string
-		err := tx.QueryRow(s.dialect.bind(`SELECT suggestions FROM card_log WHERE card_uuid = ? AND service = ?`), f.Card, f.Service).Scan(&raw)
-		if errors.Is(err, sql.ErrNoRows) {
-			return ErrUnknownCard
-		}
-		if err != nil {
-			return fmt.Errorf("record feedback: %w", err)
-		}
-		var known []string
-		if err := json.Unmarshal([]byte(raw), &known); err != nil {
-			return fmt.Errorf("record feedback: %w", err)
-		}
-		for _, a := range f.AcceptedSuggestions {
-			if !slices.Contains(known, a) {
-				return ErrUnknownSuggestion
+// RecordFeedback implements Store: the entries are stored together or,
+// if any names a card or suggestion the caller was not given, not at all.
+func (s *DB) RecordFeedback(ctx context.Context, entries []FeedbackRecord) error {
+	if len(entries) == 0 {
+		return nil
+	}
+	return s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
+		for i, f := range entries {
+			if err := s.recordOne(ctx, tx, f); err != nil {
+				return &EntryError{Index: i, Err: err}
 			}
-		}
-		acc, _ := json.Marshal(nonNil(f.AcceptedSuggestions))
-		_, err = tx.Exec(s.dialect.bind(s.dialect.insertIgnore+` feedback (card_uuid, outcome, outcome_at, accepted, reason_system, reason_code, user_comment, received_at)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?)`+s.dialect.onConflict), f.Card, f.Outcome, f.OutcomeAt.UTC().Format(tsFormat), string(acc),
-			f.ReasonSystem, f.ReasonCode, f.UserComment, time.Now().UTC().Format(tsFormat))
-		if err != nil {
-			return fmt.Errorf("record feedback: %w", err)
 		}
 		return nil
 	})
 }
 
-// Purge implements Store.
+func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error {
+	var raw string
+	err := tx.QueryRowContext(ctx, s.dialect.bind(`SELECT suggestions FROM card_log WHERE card_uuid = ? AND service = ? AND issuer = ? AND tenant = ?`),
+		f.Card, f.Service, f.Issuer, f.Tenant).Scan(&raw)
+	if errors.Is(err, sql.ErrNoRows) {
+		return ErrUnknownCard
+	}
+	if err != nil {
+		return fmt.Errorf("record feedback: %w", err)
+	}
+	var known []string
+	if err := json.Unmarshal([]byte(raw), &known); err != nil {
+		return fmt.Errorf("record feedback: %w", err)
+	}
+	for _, a := range f.AcceptedSuggestions {
+		if !slices.Contains(known, a) {
+			return ErrUnknownSuggestion
+		}
+	}
+	acc, _ := json.Marshal(nonNil(f.AcceptedSuggestions))
+	// ON CONFLICT DO NOTHING (not SQLite's INSERT OR IGNORE, which would
+	// also swallow a CHECK violation): only an exact repeat is ignored.
+	_, err = tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO feedback (card_uuid, outcome, outcome_at, accepted, reason_system, reason_code, user_comment, received_at)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT DO NOTHING`), f.Card, f.Outcome, f.OutcomeAt.UTC().Format(tsFormat), string(acc),
+		f.ReasonSystem, f.ReasonCode, f.UserComment, time.Now().UTC().Format(tsFormat))
+	if err != nil {
+		return fmt.Errorf("record feedback: %w", err)
+	}
+	return nil
+}
+
+// Purge implements Store. It also sweeps JWT replay entries whose token
+// has expired, so the replay table stays the size of the live tokens.
 func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
 	var n int64
-	err := s.do(ctx, func(tx *sql.Tx) error {
-		res, err := tx.Exec(s.dialect.bind(`DELETE FROM card_log WHERE created_at < ?`), before.UTC().Format(tsFormat))
+	err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
+		res, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM card_log WHERE created_at < ?`), before.UTC().Format(tsFormat))
 		if err != nil {
 			return fmt.Errorf("purge: %w", err)
 		}
-		n, err = res.RowsAffected()
-		return err
+		if n, err = res.RowsAffected(); err != nil {
+			return fmt.Errorf("purge: %w", err)
+		}
+		if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM jwt_replay WHERE until <= ?`), time.Now().UTC().Format(tsFormat)); err != nil {
+			return fmt.Errorf("purge replay cache: %w", err)
+		}
+		return nil
 	})
 	return n, err
 }
@@ -349,12 +420,12 @@ func (s *DB) HasFeedback(ctx context.Context, uuid string) bool {
 // was seen and is still live, recording it until until if not.
 func (s *DB) Remember(ctx context.Context, iss, jti string, until time.Time) (bool, error) {
 	seen := false
-	err := s.do(ctx, func(tx *sql.Tx) error {
+	err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
 		now := time.Now().UTC().Format(tsFormat)
-		if _, err := tx.Exec(s.dialect.bind(`DELETE FROM jwt_replay WHERE iss = ? AND jti = ? AND until <= ?`), iss, jti, now); err != nil {
+		if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM jwt_replay WHERE iss = ? AND jti = ? AND until <= ?`), iss, jti, now); err != nil {
 			return fmt.Errorf("replay cache: %w", err)
 		}
-		res, err := tx.Exec(s.dialect.bind(s.dialect.insertIgnore+` jwt_replay (iss, jti, until) VALUES (?, ?, ?)`+s.dialect.onConflict),
+		res, err := tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO jwt_replay (iss, jti, until) VALUES (?, ?, ?) ON CONFLICT DO NOTHING`),
 			iss, jti, until.UTC().Format(tsFormat))
 		if err != nil {
 			return fmt.Errorf("replay cache: %w", err)

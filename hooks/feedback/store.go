@@ -6,12 +6,16 @@ package feedback
 import (
 	"context"
 	"errors"
+	"fmt"
 	"time"
 )
 
 // CardRecord is one card returned to an EHR.
 type CardRecord struct {
-	UUID, Service, Rule, Indicator, Ruleset, Tenant string
+	UUID, Service, Rule, Indicator, Ruleset string
+	// Issuer and Tenant are the authenticated caller's; feedback on the
+	// card is taken only from the same caller.
+	Issuer, Tenant string
 	// PatientHash is the keyed hash of the patient reference, never the
 	// reference itself.
 	PatientHash string
@@ -29,28 +33,44 @@ const (
 // FeedbackRecord is one outcome the EHR reported for a card.
 type FeedbackRecord struct {
 	Card, Service, Outcome string
-	AcceptedSuggestions    []string
-	ReasonSystem           string
-	ReasonCode             string
-	UserComment            string
-	OutcomeAt              time.Time
+	// Issuer and Tenant are the caller's, matched against the card's.
+	Issuer, Tenant      string
+	AcceptedSuggestions []string
+	ReasonSystem        string
+	ReasonCode          string
+	UserComment         string
+	OutcomeAt           time.Time
 }
 
-// Errors of RecordFeedback.
+// Errors of RecordFeedback, wrapped in an EntryError.
 var (
-	ErrUnknownCard       = errors.New("no card with this uuid was returned by this service")
+	ErrUnknownCard       = errors.New("no card with this uuid was returned by this service to this caller")
 	ErrUnknownSuggestion = errors.New("an accepted suggestion is not one of the card's")
 )
+
+// EntryError is a feedback entry that could not be stored, by its index
+// in the call; none of the call's entries were stored.
+type EntryError struct {
+	Index int
+	Err   error
+}
+
+func (e *EntryError) Error() string { return fmt.Sprintf("feedback entry %d: %v", e.Index, e.Err) }
+
+// Unwrap returns the entry's error.
+func (e *EntryError) Unwrap() error { return e.Err }
 
 // Store is the card log and feedback record. Implementations write
 // durably before returning: a nil error means the record survives a crash.
 type Store interface {
 	// LogCards records the cards of one response.
 	LogCards(ctx context.Context, cards []CardRecord) error
-	// RecordFeedback records one outcome; a repeat of the same card,
-	// outcome and time is accepted and stored once.
-	RecordFeedback(ctx context.Context, f FeedbackRecord) error
-	// Purge deletes cards (and their feedback) logged before t.
+	// RecordFeedback records the outcomes of one feedback call, all or
+	// none; a repeat of the same card, outcome and time is accepted and
+	// stored once.
+	RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
+	// Purge deletes cards (and their feedback) logged before t, and
+	// expired JWT replay entries.
 	Purge(ctx context.Context, before time.Time) (int64, error)
 	// Report summarises the cards logged in [from, to) and their outcomes.
 	Report(ctx context.Context, from, to time.Time) (Report, error)
