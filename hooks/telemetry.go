@@ -90,8 +90,11 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	if i := strings.IndexAny(typ, "/?"); i >= 0 {
 		typ = typ[:i]
 	}
-	if strings.Contains(typ, ":") { // an absolute next-page URL
+	switch {
+	case strings.Contains(typ, ":"): // an absolute next-page URL
 		typ = "page"
+	case !isResourceTypeName(typ): // whatever else a server's link holds stays out of traces
+		typ = "other"
 	}
 	ctx, span := f.t.start(ctx, "fhir.fetch", attribute.String("fhir.resource_type", typ))
 	defer span.End()
@@ -105,4 +108,18 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	span.SetAttributes(attribute.Int("http.response.body.size", len(body)))
 	f.t.fetchDuration.Record(ctx, time.Since(start).Seconds(), metric.WithAttributes(attribute.String("cause", cause)))
 	return body, err
+}
+
+// isResourceTypeName reports whether s has the form of a FHIR resource
+// type name (FHIR R4 §2.1.0.1 names: an upper-case letter, then letters).
+func isResourceTypeName(s string) bool {
+	if len(s) < 2 || len(s) > 64 || s[0] < 'A' || s[0] > 'Z' {
+		return false
+	}
+	for i := 1; i < len(s); i++ {
+		if c := s[i]; !('a' <= c && c <= 'z' || 'A' <= c && c <= 'Z') {
+			return false
+		}
+	}
+	return true
 }

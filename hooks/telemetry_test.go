@@ -279,3 +279,40 @@ func BenchmarkHookCallTracing(b *testing.B) {
 		})
 	}
 }
+
+type noFetch struct{}
+
+func (noFetch) Fetch(context.Context, string) ([]byte, error) { return []byte("{}"), nil }
+
+// TestFetchSpanResourceType: the fetch span names the resource type of a
+// query or read, "page" for an absolute next link, and "other" for
+// anything else a server's link may hold (which could be an identifier).
+func TestFetchSpanResourceType(t *testing.T) {
+	spans := tracetest.NewInMemoryExporter()
+	tel, err := NewTelemetry(sdktrace.NewTracerProvider(sdktrace.WithSyncer(spans)), sdkmetric.NewMeterProvider())
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := tracedFetcher{next: noFetch{}, t: tel}
+	for ref, want := range map[string]string{
+		"Observation?patient=pt-1&code=2951-2":               "Observation",
+		"MedicationRequest/mr-1":                             "MedicationRequest",
+		"https://fhir.example.org/r4?_getpages=abc&offset=2": "page",
+		"pt-12345":              "other",
+		"observation?patient=x": "other",
+		"Obs3rvation?x":         "other",
+		"":                      "other",
+	} {
+		spans.Reset()
+		f.Fetch(context.Background(), ref)
+		got := ""
+		for _, a := range spans.GetSpans()[0].Attributes {
+			if a.Key == "fhir.resource_type" {
+				got = a.Value.AsString()
+			}
+		}
+		if got != want {
+			t.Errorf("%q: fhir.resource_type %q, want %q", ref, got, want)
+		}
+	}
+}

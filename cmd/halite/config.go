@@ -111,6 +111,7 @@ var envKeys = []struct {
 	{"auth.jwks_timeout", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSTimeout, v) }},
 	{"auth.jwks_refresh", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSRefresh, v) }},
 	{"auth.jwks_min_refresh", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSMinRefresh, v) }},
+	{"auth.jwks_stale_grace", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSStaleGrace, v) }},
 	{"auth.jwks_max_bytes", func(c *Config, v string) (err error) { c.Auth.JWKSMaxBytes, err = strconv.ParseInt(v, 10, 64); return }},
 	{"auth.replay_cache_size", func(c *Config, v string) (err error) { c.Auth.ReplayCacheSize, err = strconv.Atoi(v); return }},
 	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},

@@ -23,6 +23,7 @@ type AuthConfig struct {
 	JWKSTimeout     Duration `yaml:"jwks_timeout"`
 	JWKSRefresh     Duration `yaml:"jwks_refresh"`
 	JWKSMinRefresh  Duration `yaml:"jwks_min_refresh"`
+	JWKSStaleGrace  Duration `yaml:"jwks_stale_grace"`
 	JWKSMaxBytes    int64    `yaml:"jwks_max_bytes"`
 	ReplayCacheSize int      `yaml:"replay_cache_size"`
 }
@@ -53,6 +54,7 @@ func defaultAuthConfig() AuthConfig {
 		JWKSTimeout:     Duration(3 * time.Second),
 		JWKSRefresh:     Duration(time.Hour),
 		JWKSMinRefresh:  Duration(time.Minute),
+		JWKSStaleGrace:  Duration(6 * time.Hour),
 		JWKSMaxBytes:    64 << 10,
 		ReplayCacheSize: 200000,
 	}
@@ -69,6 +71,9 @@ func (c Config) validateTrust() error {
 	}
 	if a.JWKSTimeout <= 0 || a.JWKSRefresh <= 0 || a.JWKSMinRefresh <= 0 || a.JWKSMaxBytes <= 0 || a.ReplayCacheSize <= 0 {
 		return errors.New("config: auth: jwks_timeout, jwks_refresh, jwks_min_refresh, jwks_max_bytes and replay_cache_size must be positive")
+	}
+	if a.JWKSStaleGrace < 0 {
+		return errors.New("config: auth.jwks_stale_grace: must not be negative")
 	}
 	for i, alg := range a.Algorithms {
 		if strings.HasPrefix(alg, "HS") || strings.EqualFold(alg, "none") {
@@ -126,6 +131,7 @@ func authenticator(c Config, shared auth.ReplayCache) (hooks.Authenticator, erro
 		MaxBytes:   a.JWKSMaxBytes,
 		Refresh:    time.Duration(a.JWKSRefresh),
 		MinRefresh: time.Duration(a.JWKSMinRefresh),
+		StaleGrace: time.Duration(a.JWKSStaleGrace),
 	})
 	var issuers []auth.Issuer
 	for i, is := range c.Issuers {
@@ -163,10 +169,14 @@ func (a verifierAdapter) Authenticate(ctx context.Context, authorization, audien
 }
 
 // allowedServer finds the caller's allowlist entry that fhirServer falls
-// under (same scheme, host and port, path at or below the entry's).
+// under (same scheme, host and port, path at or below the entry's). A URL
+// whose meaning could differ between halite and the server is refused:
+// user info, a query or fragment, escaped path bytes, "." or ".."
+// segments, or ";" parameters.
 func allowedServer(c Config, caller hooks.Caller, fhirServer string) (FHIRServerCf, bool) {
 	u, err := url.Parse(strings.TrimRight(fhirServer, "/"))
-	if err != nil || u.RawQuery != "" || u.Fragment != "" || strings.Contains(u.Path, "..") {
+	if err != nil || u.User != nil || u.Opaque != "" || u.RawQuery != "" || u.ForceQuery || u.Fragment != "" ||
+		u.RawPath != "" || strings.Contains(u.Path, ";") || hasDotSegment(u.Path) {
 		return FHIRServerCf{}, false
 	}
 	for _, is := range c.Issuers {
@@ -185,4 +195,14 @@ func allowedServer(c Config, caller hooks.Caller, fhirServer string) (FHIRServer
 		}
 	}
 	return FHIRServerCf{}, false
+}
+
+// hasDotSegment reports whether path has a "." or ".." segment.
+func hasDotSegment(path string) bool {
+	for _, seg := range strings.Split(path, "/") {
+		if seg == "." || seg == ".." {
+			return true
+		}
+	}
+	return false
 }

@@ -367,3 +367,42 @@ func localIssuer(t *testing.T) (dir, cfgPath string) {
 	}
 	return dir, cfgPath
 }
+
+// TestAllowedServer: a FHIR server is used only at or below an entry of
+// the caller's own issuer, and a URL that could mean something else to
+// the server (RFC 3986 §3.2.1 user info, §3.3 dot segments and
+// parameters, percent-encoded path bytes) is refused.
+func TestAllowedServer(t *testing.T) {
+	cfg := Config{Auth: defaultAuthConfig()}
+	cfg.Issuers = []IssuerConfig{
+		{Issuer: "https://ehr.example.org", FHIRServers: []FHIRServerCf{{BaseURL: "https://fhir.example.org/r4/"}}},
+		{Issuer: "https://other.example.org", FHIRServers: []FHIRServerCf{{BaseURL: "https://fhir.other.example/"}}},
+	}
+	caller := hooks.Caller{Issuer: "https://ehr.example.org"}
+	for server, want := range map[string]bool{
+		"https://fhir.example.org/r4":                   true,
+		"https://fhir.example.org/r4/":                  true,
+		"https://FHIR.example.org/r4/tenant-a":          true,
+		"https://fhir.example.org/r4x":                  false, // not below /r4
+		"http://fhir.example.org/r4":                    false, // scheme
+		"https://fhir.example.org:8443/r4":              false, // port
+		"https://fhir.other.example":                    false, // another issuer's server
+		"https://fhir.example.org@evil.example/r4":      false, // user info
+		"https://user:pw@fhir.example.org/r4":           false,
+		"https://fhir.example.org/r4/../admin":          false,
+		"https://fhir.example.org/r4/./x":               false,
+		"https://fhir.example.org/r4/%2e%2e/admin":      false,
+		"https://fhir.example.org/r4%2Fadmin":           false, // escaped slash
+		"https://fhir.example.org/r4;jsessionid=1":      false,
+		"https://fhir.example.org/r4?x=1":               false,
+		"https://fhir.example.org/r4?":                  false,
+		"https://fhir.example.org/r4#f":                 false,
+		"https:fhir.example.org/r4":                     false, // opaque
+		"https://fhir.example.org/r4/Patient/%41":       false, // needless escape
+		"https://fhir.example.org/r4/..hidden-but-fine": true,
+	} {
+		if _, got := allowedServer(cfg, caller, server); got != want {
+			t.Errorf("%s: allowed %v, want %v", server, got, want)
+		}
+	}
+}

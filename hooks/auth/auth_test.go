@@ -277,3 +277,113 @@ func BenchmarkVerifyES384(b *testing.B) {
 		i++
 	}
 }
+
+// TestJWKSFailures: a failing JWKS URL is fetched at most once per
+// MinRefresh; while refetching fails the last good set is used for
+// StaleGrace past Refresh, then refused; a fetch shared by waiting
+// callers is not ended by the first caller giving up.
+func TestJWKSFailures(t *testing.T) {
+	k := newTestKeys(t)
+	var hits atomic.Int64
+	var down atomic.Bool
+	release := make(chan struct{})
+	var slow atomic.Bool
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		hits.Add(1)
+		if slow.Load() {
+			<-release
+		}
+		if down.Load() {
+			http.Error(w, "down", http.StatusServiceUnavailable)
+			return
+		}
+		w.Write(jwks(t, map[string]any{"k1": &k.ec.PublicKey}))
+	}))
+	defer srv.Close()
+	now := testNow
+	ks := NewKeySource(KeySourceConfig{Client: srv.Client(), MaxBytes: 1 << 16, Refresh: time.Hour, MinRefresh: time.Minute,
+		StaleGrace: 2 * time.Hour, Now: func() time.Time { return now }})
+	key := func(ctx context.Context) error { _, err := ks.Key(ctx, testIss, srv.URL, "k1"); return err }
+	ctx := context.Background()
+
+	down.Store(true)
+	for i := 0; i < 5; i++ {
+		if err := key(ctx); err == nil {
+			t.Fatal("a key was returned from a failing JWKS URL")
+		}
+	}
+	if hits.Load() != 1 {
+		t.Errorf("failing URL fetched %d times within MinRefresh; want 1", hits.Load())
+	}
+	now = now.Add(2 * time.Minute)
+	down.Store(false)
+	if err := key(ctx); err != nil || hits.Load() != 2 {
+		t.Fatalf("after MinRefresh the URL is tried again: %v, %d fetches", err, hits.Load())
+	}
+
+	down.Store(true)
+	now = now.Add(90 * time.Minute) // stale; refetch fails; within grace
+	if err := key(ctx); err != nil || hits.Load() != 3 {
+		t.Errorf("stale set within grace while the URL fails: %v, %d fetches", err, hits.Load())
+	}
+	now = now.Add(30 * time.Second)
+	if err := key(ctx); err != nil || hits.Load() != 3 {
+		t.Errorf("within MinRefresh of the failed refetch: %v, %d fetches; want the stale set and no fetch", err, hits.Load())
+	}
+	now = now.Add(2 * time.Hour) // past Refresh + StaleGrace
+	if err := key(ctx); err == nil {
+		t.Error("a set past Refresh+StaleGrace was used while the URL fails")
+	}
+
+	// Shared fetch: the first caller's context ends; the second still gets the key.
+	down.Store(false)
+	slow.Store(true)
+	now = now.Add(time.Hour)
+	first, cancel := context.WithCancel(ctx)
+	errs := make(chan error, 2)
+	go func() { errs <- key(first) }()
+	for hits.Load() < 5 {
+		time.Sleep(time.Millisecond)
+	}
+	go func() { errs <- key(ctx) }()
+	time.Sleep(20 * time.Millisecond)
+	cancel()
+	time.Sleep(20 * time.Millisecond)
+	close(release)
+	e1, e2 := <-errs, <-errs
+	if e1 != nil || e2 != nil {
+		t.Errorf("shared fetch after the first caller gave up: %v, %v; want both keys", e1, e2)
+	}
+}
+
+// TestMemoryReplay: a live jti is a replay; once its token expires it is
+// forgotten, which frees room; a full cache of live entries refuses new
+// tokens rather than forget one.
+func TestMemoryReplay(t *testing.T) {
+	now := testNow
+	m := NewMemoryReplay(2, func() time.Time { return now })
+	ctx := context.Background()
+	steps := []struct {
+		advance  time.Duration
+		jti      string
+		life     time.Duration
+		seen     bool
+		refusing bool
+	}{
+		{0, "a", time.Minute, false, false},
+		{0, "a", time.Minute, true, false},
+		{0, "b", 2 * time.Minute, false, false},
+		{0, "c", time.Minute, false, true},                 // full: a and b are live
+		{61 * time.Second, "c", time.Minute, false, false}, // a expired and was dropped
+		{0, "a", time.Minute, false, true},                 // b and c live again: full
+		{0, "b", time.Minute, true, false},
+		{2 * time.Minute, "b", time.Minute, false, false}, // everything expired
+	}
+	for i, s := range steps {
+		now = now.Add(s.advance)
+		seen, err := m.Remember(ctx, testIss, s.jti, now.Add(s.life))
+		if seen != s.seen || (err != nil) != s.refusing {
+			t.Errorf("step %d (%s): seen %v err %v; want seen %v refusing %v", i, s.jti, seen, err, s.seen, s.refusing)
+		}
+	}
+}

@@ -15,24 +15,31 @@ import (
 )
 
 // KeySource holds the issuers' public keys: inline sets, and sets fetched
-// from JWKS URLs, cached for Refresh and fetched again at most every
-// MinRefresh when a kid is unknown (one fetch at a time per URL).
+// from JWKS URLs. A fetched set is used for Refresh; a URL is fetched at
+// most once every MinRefresh, whether the last attempt succeeded or not
+// (an unknown kid or a failing server cannot make halite hammer it); when
+// a refetch fails, the last good set is still used for StaleGrace past its
+// Refresh. One fetch at a time per URL, not tied to any one caller.
 type KeySource struct {
 	client     *http.Client
 	maxBytes   int64
 	refresh    time.Duration
 	minRefresh time.Duration
+	staleGrace time.Duration
 	now        func() time.Time
 
 	mu      sync.Mutex
 	inline  map[string]map[string]publicKey // issuer → kid → key
-	fetched map[string]*fetchedSet          // URL → set
+	fetched map[string]*urlState            // URL → what was fetched from it
 	group   singleflight.Group
 }
 
-type fetchedSet struct {
-	keys map[string]publicKey
-	at   time.Time
+// urlState is the last good set of a URL and the last attempt to fetch it.
+type urlState struct {
+	keys      map[string]publicKey // nil until a fetch succeeds
+	at        time.Time            // when keys were fetched
+	attempted time.Time            // last fetch attempt
+	err       error                // the last attempt's error, nil if it succeeded
 }
 
 // KeySourceConfig bounds the JWKS fetches.
@@ -40,7 +47,10 @@ type KeySourceConfig struct {
 	Client     *http.Client  // with its timeout; never follows redirects off the URL's origin
 	MaxBytes   int64         // largest JWKS document read
 	Refresh    time.Duration // how long a fetched set is used
-	MinRefresh time.Duration // least time between fetches on an unknown kid
+	MinRefresh time.Duration // least time between fetches of one URL
+	// StaleGrace is how long past Refresh the last good set is used while
+	// refetching fails (0: not at all).
+	StaleGrace time.Duration
 	Now        func() time.Time
 }
 
@@ -49,8 +59,8 @@ func NewKeySource(cfg KeySourceConfig) *KeySource {
 	if cfg.Now == nil {
 		cfg.Now = time.Now
 	}
-	return &KeySource{client: cfg.Client, maxBytes: cfg.MaxBytes, refresh: cfg.Refresh, minRefresh: cfg.MinRefresh, now: cfg.Now,
-		inline: map[string]map[string]publicKey{}, fetched: map[string]*fetchedSet{}}
+	return &KeySource{client: cfg.Client, maxBytes: cfg.MaxBytes, refresh: cfg.Refresh, minRefresh: cfg.MinRefresh,
+		staleGrace: cfg.StaleGrace, now: cfg.Now, inline: map[string]map[string]publicKey{}, fetched: map[string]*urlState{}}
 }
 
 // AddInline adds an issuer's inline JWKS.
@@ -65,6 +75,8 @@ func (s *KeySource) AddInline(issuer string, jwks []byte) error {
 	return nil
 }
 
+var errUnknownKid = errors.New("unknown kid")
+
 // Key returns the key kid of issuer: from the URL when one is given
 // (the issuer's JWKS URL or an allowlisted jku), else from its inline set.
 func (s *KeySource) Key(ctx context.Context, issuer, url, kid string) (publicKey, error) {
@@ -73,34 +85,68 @@ func (s *KeySource) Key(ctx context.Context, issuer, url, kid string) (publicKey
 		k, ok := s.inline[issuer][kid]
 		s.mu.Unlock()
 		if !ok {
-			return nil, errors.New("unknown kid")
+			return nil, errUnknownKid
 		}
 		return k, nil
 	}
-	s.mu.Lock()
-	set := s.fetched[url]
-	s.mu.Unlock()
 	now := s.now()
-	if set != nil && now.Sub(set.at) < s.refresh {
-		if k, ok := set.keys[kid]; ok {
+	s.mu.Lock()
+	st := s.fetched[url]
+	var cur urlState
+	if st != nil {
+		cur = *st
+	}
+	s.mu.Unlock()
+	fresh := cur.keys != nil && now.Sub(cur.at) < s.refresh
+	if fresh {
+		if k, ok := cur.keys[kid]; ok {
 			return k, nil
 		}
-		if now.Sub(set.at) < s.minRefresh {
-			return nil, errors.New("unknown kid")
-		}
 	}
-	v, err, _ := s.group.Do(url, func() (any, error) { return s.fetch(ctx, url) })
-	if err != nil {
-		return nil, err
+	if st != nil && now.Sub(cur.attempted) < s.minRefresh {
+		return s.fromLast(cur, now, kid)
 	}
-	k, ok := v.(*fetchedSet).keys[kid]
-	if !ok {
-		return nil, errors.New("unknown kid")
-	}
-	return k, nil
+	// The fetch is shared by every caller waiting on this URL, so it must
+	// not end when the first of them gives up; the client's timeout bounds it.
+	v, _, _ := s.group.Do(url, func() (any, error) { return s.fetch(context.WithoutCancel(ctx), url), nil })
+	return s.fromLast(v.(urlState), now, kid)
 }
 
-func (s *KeySource) fetch(ctx context.Context, url string) (*fetchedSet, error) {
+// fromLast answers kid from a URL's state without fetching: the set while
+// it is fresh, or within StaleGrace if the last refetch failed.
+func (s *KeySource) fromLast(st urlState, now time.Time, kid string) (publicKey, error) {
+	usable := st.keys != nil && (now.Sub(st.at) < s.refresh || (st.err != nil && now.Sub(st.at) < s.refresh+s.staleGrace))
+	if !usable {
+		if st.err != nil {
+			return nil, st.err
+		}
+		return nil, errUnknownKid
+	}
+	if k, ok := st.keys[kid]; ok {
+		return k, nil
+	}
+	return nil, errUnknownKid
+}
+
+// fetch gets url's JWKS and records the attempt, keeping the last good set
+// when it fails; it returns the URL's new state.
+func (s *KeySource) fetch(ctx context.Context, url string) urlState {
+	keys, err := s.get(ctx, url)
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	st := s.fetched[url]
+	if st == nil {
+		st = &urlState{}
+		s.fetched[url] = st
+	}
+	st.attempted, st.err = s.now(), err
+	if err == nil {
+		st.keys, st.at = keys, st.attempted
+	}
+	return *st
+}
+
+func (s *KeySource) get(ctx context.Context, url string) (map[string]publicKey, error) {
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
 	if err != nil {
 		return nil, fmt.Errorf("jwks %s: %w", url, err)
@@ -125,11 +171,7 @@ func (s *KeySource) fetch(ctx context.Context, url string) (*fetchedSet, error) 
 	if err != nil {
 		return nil, fmt.Errorf("jwks %s: %w", url, err)
 	}
-	set := &fetchedSet{keys: keys, at: s.now()}
-	s.mu.Lock()
-	s.fetched[url] = set
-	s.mu.Unlock()
-	return set, nil
+	return keys, nil
 }
 
 // parseJWKS reads the public signing keys of a JWKS by kid; private or

@@ -1,19 +1,22 @@
 package auth
 
 import (
+	"container/heap"
 	"context"
 	"errors"
 	"sync"
 	"time"
 )
 
-// MemoryReplay is a ReplayCache for one node, bounded in size; expired
-// entries are dropped as new ones arrive.
+// MemoryReplay is a ReplayCache for one node, bounded in size. Entries
+// are also kept in expiry order, so each call drops the expired ones in
+// time proportional to their number, never scanning the live ones.
 type MemoryReplay struct {
-	mu   sync.Mutex
-	seen map[string]time.Time
-	max  int
-	now  func() time.Time
+	mu      sync.Mutex
+	seen    map[string]time.Time
+	byUntil expiryHeap
+	max     int
+	now     func() time.Time
 }
 
 // NewMemoryReplay returns a cache holding at most max live jti values.
@@ -31,19 +34,41 @@ func (m *MemoryReplay) Remember(_ context.Context, iss, jti string, until time.T
 	now := m.now()
 	m.mu.Lock()
 	defer m.mu.Unlock()
-	if exp, ok := m.seen[key]; ok && now.Before(exp) {
+	for len(m.byUntil) > 0 && !now.Before(m.byUntil[0].until) {
+		// Each live key has exactly one heap entry: a key is added again
+		// only after its entry was popped here.
+		delete(m.seen, heap.Pop(&m.byUntil).(expiry).key)
+	}
+	if _, ok := m.seen[key]; ok {
 		return true, nil
 	}
+	if !now.Before(until) {
+		return false, nil // already expired: nothing to remember
+	}
 	if len(m.seen) >= m.max {
-		for k, exp := range m.seen {
-			if !now.Before(exp) {
-				delete(m.seen, k)
-			}
-		}
-		if len(m.seen) >= m.max {
-			return false, errors.New("replay cache full")
-		}
+		return false, errors.New("replay cache full")
 	}
 	m.seen[key] = until
+	heap.Push(&m.byUntil, expiry{key: key, until: until})
 	return false, nil
+}
+
+// expiry is one remembered jti and when it may be forgotten.
+type expiry struct {
+	key   string
+	until time.Time
+}
+
+// expiryHeap is a min-heap of expiries (container/heap).
+type expiryHeap []expiry
+
+func (h expiryHeap) Len() int           { return len(h) }
+func (h expiryHeap) Less(i, j int) bool { return h[i].until.Before(h[j].until) }
+func (h expiryHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
+func (h *expiryHeap) Push(x any)        { *h = append(*h, x.(expiry)) }
+func (h *expiryHeap) Pop() any {
+	old := *h
+	e := old[len(old)-1]
+	*h = old[:len(old)-1]
+	return e
 }
