@@ -7,7 +7,8 @@ import (
 
 // condition reads one Condition; only clinically active ones become facts.
 func (m *mapper) condition(r Resource) {
-	c, err := fhir.UnmarshalCondition(r.Raw)
+	var c fhir.Condition
+	err := DecodeJSON(r.Raw, &c)
 	if err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return

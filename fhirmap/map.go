@@ -134,7 +134,7 @@ func (m *mapper) patient() {
 		Gender       *string `json:"gender"`
 		BirthDate    *string `json:"birthDate"`
 	}
-	if err := json.Unmarshal(m.in.Patient, &p); err != nil || p.ResourceType != "Patient" {
+	if err := DecodeJSON(m.in.Patient, &p); err != nil || p.ResourceType != "Patient" {
 		m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{
 			Source: m.facts.Patient.Reference, Reason: "not a readable Patient resource"})
 		return

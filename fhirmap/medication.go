@@ -12,7 +12,8 @@ import (
 // medicationRequest reads one MedicationRequest. fhir-models drops
 // `contained`, so contained Medications are read from the raw JSON.
 func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
-	mr, err := fhir.UnmarshalMedicationRequest(r.Raw)
+	var mr fhir.MedicationRequest
+	err := DecodeJSON(r.Raw, &mr)
 	if err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return rules.MedicationOrder{}, false
@@ -94,7 +95,8 @@ func (m *mapper) referencedMedication(ref string) (rules.Medication, bool) {
 		return rules.Medication{}, false
 	}
 	var got readMedication
-	if med, err := fhir.UnmarshalMedication(res.Raw); err != nil {
+	var med fhir.Medication
+	if err := DecodeJSON(res.Raw, &med); err != nil {
 		m.reject(res, "", "invalid resource: "+err.Error())
 	} else {
 		got.med, got.ok = medication(med), true
@@ -117,7 +119,7 @@ func containedMedication(raw json.RawMessage, id string) (rules.Medication, bool
 	var c struct {
 		Contained []json.RawMessage `json:"contained"`
 	}
-	if json.Unmarshal(raw, &c) != nil {
+	if DecodeJSON(raw, &c) != nil {
 		return rules.Medication{}, false
 	}
 	for _, cr := range c.Contained {
@@ -125,8 +127,8 @@ func containedMedication(raw json.RawMessage, id string) (rules.Medication, bool
 		if err != nil || res.Type != "Medication" || res.ID != id {
 			continue
 		}
-		med, err := fhir.UnmarshalMedication(cr)
-		if err != nil {
+		var med fhir.Medication
+		if err := DecodeJSON(cr, &med); err != nil {
 			return rules.Medication{}, false
 		}
 		return medication(med), true

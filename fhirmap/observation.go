@@ -1,7 +1,6 @@
 package fhirmap
 
 import (
-	"encoding/json"
 	"fmt"
 	"time"
 
@@ -24,7 +23,7 @@ func (m *mapper) observation(r Resource) {
 		Status *string              `json:"status"`
 		Code   fhir.CodeableConcept `json:"code"`
 	}
-	if err := json.Unmarshal(r.Raw, &head); err != nil {
+	if err := DecodeJSON(r.Raw, &head); err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return
 	}
@@ -37,7 +36,8 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, "status is missing")
 		return
 	}
-	obs, err := fhir.UnmarshalObservation(r.Raw)
+	var obs fhir.Observation
+	err := DecodeJSON(r.Raw, &obs)
 	if err != nil {
 		m.reject(r, a, "invalid resource: "+err.Error())
 		return

@@ -29,7 +29,7 @@ func ReadResource(raw json.RawMessage) (Resource, error) {
 		ResourceType string `json:"resourceType"`
 		ID           string `json:"id"`
 	}
-	if err := json.Unmarshal(raw, &h); err != nil {
+	if err := DecodeJSON(raw, &h); err != nil {
 		return Resource{}, fmt.Errorf("%w: %v", ErrNotResource, err)
 	}
 	if h.ResourceType == "" {
@@ -66,7 +66,7 @@ func ParseBundle(raw []byte) (*Bundle, error) {
 			Resource json.RawMessage `json:"resource"`
 		} `json:"entry"`
 	}
-	if err := json.Unmarshal(raw, &b); err != nil {
+	if err := DecodeJSON(raw, &b); err != nil {
 		return nil, fmt.Errorf("read bundle: %w", err)
 	}
 	if b.ResourceType != "Bundle" {

@@ -71,7 +71,7 @@ func NewBundleStore(b *fhirmap.Bundle) *BundleStore {
 			continue
 		}
 		var f searchFields
-		_ = json.Unmarshal(e.Resource, &f) // a resource with odd fields still matches by type and id
+		_ = fhirmap.DecodeJSON(e.Resource, &f) // a resource with odd fields still matches by type and id
 		s.resources = append(s.resources, stored{res: r, fields: f})
 	}
 	return s

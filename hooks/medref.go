@@ -4,6 +4,8 @@ import (
 	"context"
 	"encoding/json"
 	"strings"
+
+	"github.com/halite-cds/halite/fhirmap"
 )
 
 // maxMedicationFetches bounds the Medication reads one call may make.
@@ -22,7 +24,7 @@ func medicationRefs(raws []json.RawMessage) []string {
 				Reference string `json:"reference"`
 			} `json:"medicationReference"`
 		}
-		if json.Unmarshal(raw, &mr) != nil || mr.ResourceType != "MedicationRequest" || mr.MedicationReference == nil {
+		if fhirmap.DecodeJSON(raw, &mr) != nil || mr.ResourceType != "MedicationRequest" || mr.MedicationReference == nil {
 			continue
 		}
 		parts := strings.Split(mr.MedicationReference.Reference, "/")
@@ -46,7 +48,7 @@ func resourceIDs(typ string, raws []json.RawMessage) map[string]bool {
 			ResourceType string `json:"resourceType"`
 			ID           string `json:"id"`
 		}
-		if json.Unmarshal(raw, &h) == nil && h.ResourceType == typ {
+		if fhirmap.DecodeJSON(raw, &h) == nil && h.ResourceType == typ {
 			out[h.ID] = true
 		}
 	}

@@ -7,6 +7,8 @@ import (
 	"net/url"
 	"regexp"
 	"strings"
+
+	"github.com/halite-cds/halite/fhirmap"
 )
 
 // fhirID is the FHIR R4 id datatype: 1–64 of [A-Za-z0-9-.].
@@ -42,7 +44,7 @@ func DecodeCall(svc Service, body []byte) (*Call, error) {
 	if len(bytes.TrimSpace(body)) == 0 {
 		return nil, badRequest("", "request body is empty")
 	}
-	if err := json.Unmarshal(body, &c.Request); err != nil {
+	if err := fhirmap.DecodeJSON(body, &c.Request); err != nil {
 		return nil, badRequest(jsonField(err), "request is not a valid CDS Hooks JSON object: %s", jsonProblem(err))
 	}
 	r := &c.Request
@@ -106,7 +108,7 @@ func (c *Call) decodeContext() error {
 		return badRequest("context", "is required")
 	}
 	var fields map[string]json.RawMessage
-	if err := json.Unmarshal(raw, &fields); err != nil {
+	if err := fhirmap.DecodeJSON(raw, &fields); err != nil {
 		return badRequest("context", "must be an object")
 	}
 	// encoding/json matches keys case-insensitively; a case variant of a
@@ -119,7 +121,7 @@ func (c *Call) decodeContext() error {
 			}
 		}
 	}
-	if err := json.Unmarshal(raw, &c.Context); err != nil {
+	if err := fhirmap.DecodeJSON(raw, &c.Context); err != nil {
 		return badRequest("context."+jsonField(err), "has the wrong type: %s", jsonProblem(err))
 	}
 	ctx := &c.Context
@@ -166,7 +168,7 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 			Resource json.RawMessage `json:"resource"`
 		} `json:"entry"`
 	}
-	if err := json.Unmarshal(ctx.DraftOrders, &b); err != nil || b.ResourceType != "Bundle" {
+	if err := fhirmap.DecodeJSON(ctx.DraftOrders, &b); err != nil || b.ResourceType != "Bundle" {
 		return badRequest("context.draftOrders", "must be a FHIR Bundle")
 	}
 	refs := map[string]bool{}
@@ -175,7 +177,7 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 			ResourceType string `json:"resourceType"`
 			ID           string `json:"id"`
 		}
-		if json.Unmarshal(e.Resource, &h) != nil || h.ResourceType == "" {
+		if fhirmap.DecodeJSON(e.Resource, &h) != nil || h.ResourceType == "" {
 			return badRequest(fmt.Sprintf("context.draftOrders.entry[%d].resource", i), "must be a FHIR resource")
 		}
 		refs[h.ResourceType+"/"+h.ID] = true

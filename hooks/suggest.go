@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"github.com/google/uuid"
+	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/rules"
 )
 
@@ -57,7 +58,7 @@ func draftIndex(raws []json.RawMessage) map[string]json.RawMessage {
 			ResourceType string `json:"resourceType"`
 			ID           string `json:"id"`
 		}
-		if json.Unmarshal(raw, &head) == nil && head.ResourceType != "" && head.ID != "" {
+		if fhirmap.DecodeJSON(raw, &head) == nil && head.ResourceType != "" && head.ID != "" {
 			out[head.ResourceType+"/"+head.ID] = raw
 		}
 	}

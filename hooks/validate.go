@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"sort"
 	"unicode/utf8"
+
+	"github.com/halite-cds/halite/fhirmap"
 )
 
 // ValidateResponse checks a response against the CDS Hooks 2.0 card rules
@@ -105,7 +107,7 @@ func validateAction(a Action) error {
 // top-level keys named in allowed, such as "cards".
 func CheckNoEmpty(raw []byte, allowed ...string) error {
 	var v any
-	if err := json.Unmarshal(raw, &v); err != nil {
+	if err := fhirmap.DecodeJSON(raw, &v); err != nil {
 		return fmt.Errorf("check JSON: %w", err)
 	}
 	ok := map[string]bool{}
