@@ -88,8 +88,11 @@ func dollarPlaceholders(q string) string {
 
 // Options tune the group commit.
 type Options struct {
-	MaxBatch int           // records per transaction at most (default 256)
-	MaxWait  time.Duration // how long a batch waits for company (default 2 ms)
+	MaxBatch int // records per transaction at most (default 256)
+	// MaxWait is how long a batch waits for company. The default, 0, waits
+	// for none: a batch is whatever queued while the last one committed,
+	// which groups concurrent calls without delaying a lone one.
+	MaxWait time.Duration
 	// CommitTimeout bounds one batch's transaction (default 5 s); a caller
 	// waits at most twice this (its turn, then its batch) and then gets
 	// ErrStalled, so a stalled database cannot hang calls or Close.
@@ -129,9 +132,6 @@ func OpenPostgres(dsn string, opt Options) (*DB, error) {
 func (o Options) withDefaults() Options {
 	if o.MaxBatch <= 0 {
 		o.MaxBatch = 256
-	}
-	if o.MaxWait <= 0 {
-		o.MaxWait = 2 * time.Millisecond
 	}
 	if o.CommitTimeout <= 0 {
 		o.CommitTimeout = 5 * time.Second
@@ -198,20 +198,39 @@ func (s *DB) writer() {
 	defer close(s.done)
 	for first := range s.jobs {
 		batch := []job{first}
-		timer := time.NewTimer(s.opt.MaxWait)
+		var wait <-chan time.Time // nil: take only the jobs already queued
+		var timer *time.Timer
+		if s.opt.MaxWait > 0 {
+			timer = time.NewTimer(s.opt.MaxWait)
+			wait = timer.C
+		}
 	collect:
 		for len(batch) < s.opt.MaxBatch {
+			if wait == nil {
+				select {
+				case j, ok := <-s.jobs:
+					if !ok {
+						break collect
+					}
+					batch = append(batch, j)
+					continue
+				default:
+					break collect
+				}
+			}
 			select {
 			case j, ok := <-s.jobs:
 				if !ok {
 					break collect
 				}
 				batch = append(batch, j)
-			case <-timer.C:
+			case <-wait:
 				break collect
 			}
 		}
-		timer.Stop()
+		if timer != nil {
+			timer.Stop()
+		}
 		s.commit(batch)
 	}
 }
