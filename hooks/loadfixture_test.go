@@ -197,3 +197,43 @@ func BenchmarkHandleObservations(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkRenderCards measures turning the load patient's drug-risk
+// findings into CDS Hooks cards (with suggestions), checking them and
+// encoding the response.
+func BenchmarkRenderCards(b *testing.B) {
+	e := testEngine(b, nil)
+	svc := mustService(b, "sodium-drug-risk")
+	bundle, err := fhirmap.ParseBundle(loadBundle(60, scenarioAt))
+	if err != nil {
+		b.Fatal(err)
+	}
+	req, err := BuildRequest(bundle, svc, RequestOptions{Hook: "order-sign", UserID: "Practitioner/load"})
+	if err != nil {
+		b.Fatal(err)
+	}
+	call, err := DecodeCall(svc, mustMarshal(b, req))
+	if err != nil {
+		b.Fatal(err)
+	}
+	keys, err := Resolve(context.Background(), svc, call, nil, e.limits)
+	if err != nil {
+		b.Fatal(err)
+	}
+	findings := e.ruleset.Evaluate(svc.Check, fhirmap.Map(mapInput(call, keys, scenarioAt), e.ruleset))
+	if len(findings) == 0 {
+		b.Fatal("setup: no findings")
+	}
+	in := suggestionInput{At: scenarioAt, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftOrders)}
+	b.ReportAllocs()
+	for b.Loop() {
+		cards, err := renderCards(findings, e.ruleset.Revision(), in)
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := ValidateResponse(Response{Cards: cards}); err != nil {
+			b.Fatal(err)
+		}
+		mustJSON(Response{Cards: cards})
+	}
+}
