@@ -36,6 +36,9 @@ type Config struct {
 	// AdminAddr, when set, serves /metrics on its own listener instead of
 	// the main one.
 	AdminAddr string `yaml:"admin_listen_addr"`
+	// AdminPprof adds Go's /debug/pprof/ profiles to the admin listener
+	// (for performance work; keep that listener private).
+	AdminPprof bool `yaml:"admin_pprof"`
 	// Auth bounds token verification; Issuers are the trusted EHRs. With no
 	// issuer, halite runs in development mode on loopback only.
 	Auth    AuthConfig     `yaml:"auth"`
@@ -101,6 +104,7 @@ var envKeys = []struct {
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
 	{"admin_listen_addr", func(c *Config, v string) error { c.AdminAddr = v; return nil }},
+	{"admin_pprof", func(c *Config, v string) (err error) { c.AdminPprof, err = strconv.ParseBool(v); return }},
 	{"store.dsn", func(c *Config, v string) error { c.Store.DSN = v; return nil }},
 	{"store.hash_key_file", func(c *Config, v string) error { c.Store.HashKeyFile = v; return nil }},
 	{"store.retention", func(c *Config, v string) error { return setDuration(&c.Store.Retention, v) }},
@@ -191,6 +195,9 @@ func loadRuleset(path string) (*rules.Ruleset, error) {
 
 // validate checks every key, naming the first that is wrong.
 func (c Config) validate() error {
+	if c.AdminPprof && c.AdminAddr == "" {
+		return errors.New("config: admin_pprof: needs admin_listen_addr (profiles are never served on the main listener)")
+	}
 	host, _, err := net.SplitHostPort(c.ListenAddr)
 	if err != nil {
 		return fmt.Errorf("config: listen_addr: %q is not HOST:PORT", c.ListenAddr)

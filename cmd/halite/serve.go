@@ -96,7 +96,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		Metrics:       metricsOnMain(cfg, tel.metrics),
 	}, health, log)
 	if cfg.AdminAddr != "" && tel.metrics != nil {
-		stopAdmin, err := serveAdmin(cfg.AdminAddr, tel.metrics, log)
+		_, stopAdmin, err := serveAdmin(cfg.AdminAddr, tel.metrics, cfg.AdminPprof, log)
 		if err != nil {
 			return err
 		}

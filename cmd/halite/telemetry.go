@@ -7,6 +7,7 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"net/http/pprof"
 	"runtime/debug"
 	"strings"
 	"time"
@@ -107,16 +108,27 @@ func metricsOnMain(c Config, h http.Handler) http.Handler {
 	return h
 }
 
-// serveAdmin serves /metrics on the admin listener.
-func serveAdmin(addr string, metrics http.Handler, log *slog.Logger) (func(), error) {
+// serveAdmin serves /metrics on the admin listener, and Go's profiles
+// under /debug/pprof/ when withPprof is set. It returns the address
+// listened on and a function that stops the listener.
+func serveAdmin(addr string, metrics http.Handler, withPprof bool, log *slog.Logger) (string, func(), error) {
 	ln, err := net.Listen("tcp", addr)
 	if err != nil {
-		return nil, fmt.Errorf("admin listener: %w", err)
+		return "", nil, fmt.Errorf("admin listener: %w", err)
 	}
 	mux := http.NewServeMux()
 	mux.Handle("GET /metrics", metrics)
+	if withPprof {
+		mux.HandleFunc("GET /debug/pprof/", pprof.Index)
+		mux.HandleFunc("GET /debug/pprof/cmdline", pprof.Cmdline)
+		mux.HandleFunc("GET /debug/pprof/profile", pprof.Profile)
+		mux.HandleFunc("GET /debug/pprof/symbol", pprof.Symbol)
+		mux.HandleFunc("GET /debug/pprof/trace", pprof.Trace)
+	}
+	// WriteTimeout is left unset: a CPU profile or trace streams for as
+	// long as its ?seconds= asks.
 	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
 	go func() { _ = srv.Serve(ln) }()
-	log.Info("admin listener", "addr", ln.Addr().String())
-	return func() { srv.Close() }, nil
+	log.Info("admin listener", "addr", ln.Addr().String(), "pprof", withPprof)
+	return ln.Addr().String(), func() { srv.Close() }, nil
 }
