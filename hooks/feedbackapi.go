@@ -23,6 +23,10 @@ type feedbackBody struct {
 	} `json:"feedback"`
 }
 
+// MaxFeedbackEntries bounds one feedback call, whose entries are stored
+// in one transaction: an EHR reports the outcomes of one response's cards.
+const MaxFeedbackEntries = 256
+
 // DecodeFeedback validates a feedback body for service and returns its
 // entries; a bad entry is a 400 naming the field (feedback[i].outcome).
 func DecodeFeedback(service string, body []byte) ([]CardOutcome, error) {
@@ -36,6 +40,9 @@ func DecodeFeedback(service string, body []byte) ([]CardOutcome, error) {
 	}
 	if len(b.Feedback) == 0 {
 		return nil, badRequest("feedback", "must be a non-empty array")
+	}
+	if len(b.Feedback) > MaxFeedbackEntries {
+		return nil, badRequest("feedback", "has %d entries; at most %d are taken in one call", len(b.Feedback), MaxFeedbackEntries)
 	}
 	out := make([]CardOutcome, 0, len(b.Feedback))
 	for i, f := range b.Feedback {

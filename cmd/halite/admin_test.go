@@ -33,11 +33,19 @@ func TestAdminListener(t *testing.T) {
 		if m, p := get("/metrics"), get("/debug/pprof/"); m != http.StatusOK || p != want {
 			t.Errorf("pprof %v: /metrics %d, /debug/pprof/ %d (want %d)", withPprof, m, p, want)
 		}
+		if withPprof {
+			if got := get("/debug/pprof/profile?seconds=86400"); got != http.StatusBadRequest {
+				t.Errorf("a day-long CPU profile: %d, want 400", got)
+			}
+		}
 		stop()
 	}
-	cfg := defaultConfig()
-	cfg.AdminPprof = true
-	if err := cfg.validate(); err == nil {
-		t.Error("admin_pprof without admin_listen_addr was accepted")
+	for addr, ok := range map[string]bool{"": false, ":9090": false, "0.0.0.0:9090": false, "203.0.113.7:9090": false,
+		"127.0.0.1:9090": true, "10.1.2.3:9090": true} {
+		cfg := defaultConfig()
+		cfg.AdminPprof, cfg.AdminAddr = true, addr
+		if err := cfg.validate(); (err == nil) != ok {
+			t.Errorf("admin_pprof on %q: %v; want accepted %v", addr, err, ok)
+		}
 	}
 }

@@ -195,8 +195,13 @@ func loadRuleset(path string) (*rules.Ruleset, error) {
 
 // validate checks every key, naming the first that is wrong.
 func (c Config) validate() error {
-	if c.AdminPprof && c.AdminAddr == "" {
-		return errors.New("config: admin_pprof: needs admin_listen_addr (profiles are never served on the main listener)")
+	if c.AdminPprof {
+		if c.AdminAddr == "" {
+			return errors.New("config: admin_pprof: needs admin_listen_addr (profiles are never served on the main listener)")
+		}
+		if h, _, err := net.SplitHostPort(c.AdminAddr); err != nil || !privateHost(h) {
+			return errors.New("config: admin_pprof: admin_listen_addr must be a loopback or private IP address, not a wildcard or public one")
+		}
 	}
 	host, _, err := net.SplitHostPort(c.ListenAddr)
 	if err != nil {
@@ -252,4 +257,10 @@ func (c Config) validate() error {
 		return fmt.Errorf("config: fhir_client.max_pages: must be between 1 and 100")
 	}
 	return nil
+}
+
+// privateHost reports whether h is a loopback or private-range IP address.
+func privateHost(h string) bool {
+	ip := net.ParseIP(h)
+	return ip != nil && (ip.IsLoopback() || ip.IsPrivate())
 }

@@ -9,6 +9,7 @@ import (
 	"net/http"
 	"net/http/pprof"
 	"runtime/debug"
+	"strconv"
 	"strings"
 	"time"
 
@@ -108,6 +109,22 @@ func metricsOnMain(c Config, h http.Handler) http.Handler {
 	return h
 }
 
+// maxProfileSeconds bounds a CPU profile or execution trace request.
+const maxProfileSeconds = 60
+
+// boundedSeconds refuses a profile longer than maxProfileSeconds.
+func boundedSeconds(h http.HandlerFunc) http.HandlerFunc {
+	return func(w http.ResponseWriter, r *http.Request) {
+		if v := r.URL.Query().Get("seconds"); v != "" {
+			if n, err := strconv.Atoi(v); err != nil || n < 1 || n > maxProfileSeconds {
+				http.Error(w, fmt.Sprintf("seconds must be 1 to %d", maxProfileSeconds), http.StatusBadRequest)
+				return
+			}
+		}
+		h(w, r)
+	}
+}
+
 // serveAdmin serves /metrics on the admin listener, and Go's profiles
 // under /debug/pprof/ when withPprof is set. It returns the address
 // listened on and a function that stops the listener.
@@ -121,9 +138,9 @@ func serveAdmin(addr string, metrics http.Handler, withPprof bool, log *slog.Log
 	if withPprof {
 		mux.HandleFunc("GET /debug/pprof/", pprof.Index)
 		mux.HandleFunc("GET /debug/pprof/cmdline", pprof.Cmdline)
-		mux.HandleFunc("GET /debug/pprof/profile", pprof.Profile)
+		mux.HandleFunc("GET /debug/pprof/profile", boundedSeconds(pprof.Profile))
 		mux.HandleFunc("GET /debug/pprof/symbol", pprof.Symbol)
-		mux.HandleFunc("GET /debug/pprof/trace", pprof.Trace)
+		mux.HandleFunc("GET /debug/pprof/trace", boundedSeconds(pprof.Trace))
 	}
 	// WriteTimeout is left unset: a CPU profile or trace streams for as
 	// long as its ?seconds= asks.

@@ -72,6 +72,9 @@ func (c Config) validateTrust() error {
 	if a.JWKSTimeout <= 0 || a.JWKSRefresh <= 0 || a.JWKSMinRefresh <= 0 || a.JWKSMaxBytes <= 0 || a.ReplayCacheSize <= 0 {
 		return errors.New("config: auth: jwks_timeout, jwks_refresh, jwks_min_refresh, jwks_max_bytes and replay_cache_size must be positive")
 	}
+	if a.JWKSMinRefresh > a.JWKSRefresh {
+		return errors.New("config: auth.jwks_min_refresh: must not exceed jwks_refresh (an expired set could not be refetched)")
+	}
 	if a.JWKSStaleGrace < 0 {
 		return errors.New("config: auth.jwks_stale_grace: must not be negative")
 	}

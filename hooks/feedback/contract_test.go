@@ -239,6 +239,37 @@ func TestStoreContract(t *testing.T) {
 	}
 }
 
+// TestPurgeInChunks: a backlog larger than one purge chunk is deleted in
+// full, in several commits.
+func TestPurgeInChunks(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends(t) {
+		t.Run(b.name, func(t *testing.T) {
+			s, _ := b.open(t)
+			defer s.Close()
+			const n = 2*purgeChunk + 7
+			cards := make([]CardRecord, n)
+			for i := range cards {
+				cards[i] = card(fmt.Sprint("old-", i), t0.Add(-48*time.Hour))
+			}
+			cards = append(cards, card("recent", t0))
+			for len(cards) > 0 { // in responses' worth, as calls log them
+				k := min(len(cards), 500)
+				if err := s.LogCards(ctx, cards[:k]); err != nil {
+					t.Fatal(err)
+				}
+				cards = cards[k:]
+			}
+			if got, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil || got != n {
+				t.Errorf("purged %d (%v), want %d", got, err, n)
+			}
+			if c, _, err := s.Counts(ctx); err != nil || c != 1 {
+				t.Errorf("%d cards left (%v), want the recent one", c, err)
+			}
+		})
+	}
+}
+
 func replayRows(t *testing.T, s Store) int {
 	t.Helper()
 	var n int
@@ -260,7 +291,7 @@ func TestStoreStalled(t *testing.T) {
 			start := time.Now()
 			err := s.LogCards(ctx, []CardRecord{card("stalled", t0)})
 			if took := time.Since(start); !errors.Is(err, ErrStalled) || took > 10*bound {
-				t.Errorf("write under a held lock: %v after %v; want ErrStalled within %v", err, took, 2*bound)
+				t.Errorf("write under a held lock: %v after %v; want ErrStalled (the bound is %v; allowed up to %v on a slow machine)", err, took, 2*bound, 10*bound)
 			}
 			release()
 			if err := s.LogCards(ctx, []CardRecord{card("after", t0)}); err != nil {

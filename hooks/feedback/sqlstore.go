@@ -15,9 +15,8 @@ import (
 	"sync"
 	"time"
 
-	"github.com/jackc/pgx/v5"
-	"github.com/jackc/pgx/v5/stdlib" // PostgreSQL through pgx; also registers "pgx"
-	_ "modernc.org/sqlite"           // pure-Go SQLite driver, registered as "sqlite"
+	_ "github.com/jackc/pgx/v5/stdlib" // PostgreSQL through pgx, registered as "pgx"
+	_ "modernc.org/sqlite"             // pure-Go SQLite driver, registered as "sqlite"
 )
 
 //go:embed migrations/sqlite/*.sql migrations/postgres/*.sql
@@ -113,18 +112,14 @@ func OpenSQLite(path string, opt Options) (*DB, error) {
 // OpenPostgres connects to PostgreSQL at dsn (a postgres:// URL) through a
 // pooled pgx connection, applies the embedded migrations and starts the
 // writer.
-// Unless the DSN sets its own, the server's statement_timeout is the
-// commit bound too, so a stuck statement is ended on the server as well.
+// Each write transaction sets its own statement_timeout (SET LOCAL) to
+// the commit bound, so a stuck statement is ended on the server as well;
+// migrations and reads keep the server's setting.
 func OpenPostgres(dsn string, opt Options) (*DB, error) {
-	opt = opt.withDefaults()
-	cfg, err := pgx.ParseConfig(dsn)
+	db, err := sql.Open("pgx", dsn)
 	if err != nil {
 		return nil, fmt.Errorf("open store: %w", err)
 	}
-	if _, set := cfg.RuntimeParams["statement_timeout"]; !set {
-		cfg.RuntimeParams["statement_timeout"] = strconv.FormatInt(opt.CommitTimeout.Milliseconds(), 10)
-	}
-	db := stdlib.OpenDB(*cfg)
 	db.SetMaxOpenConns(8)
 	return start(db, postgresDialect, opt, "postgres")
 }
@@ -242,22 +237,31 @@ func (s *DB) commit(batch []job) {
 	defer cancel()
 	errs := make([]error, len(batch))
 	tx, err := s.db.BeginTx(ctx, nil)
+	if err == nil && s.dialect.name == "postgres" {
+		_, err = tx.ExecContext(ctx, `SET LOCAL statement_timeout = `+strconv.FormatInt(s.opt.CommitTimeout.Milliseconds(), 10))
+	}
 	if err == nil {
+		// A failed SAVEPOINT, ROLLBACK TO or RELEASE leaves the transaction
+		// in an unknown state: the whole batch then fails and is rolled back.
 		for i, j := range batch {
-			if err := j.ctx.Err(); err != nil {
-				errs[i] = err
+			if errs[i] = j.ctx.Err(); errs[i] != nil {
 				continue
 			}
-			if _, err := tx.ExecContext(ctx, `SAVEPOINT job`); err != nil {
-				errs[i] = err
-				continue
+			if _, err = tx.ExecContext(ctx, `SAVEPOINT job`); err != nil {
+				break
 			}
 			if errs[i] = j.run(ctx, tx); errs[i] != nil {
-				tx.ExecContext(ctx, `ROLLBACK TO SAVEPOINT job`)
+				if _, err = tx.ExecContext(ctx, `ROLLBACK TO SAVEPOINT job`); err != nil {
+					break
+				}
 			}
-			tx.ExecContext(ctx, `RELEASE SAVEPOINT job`)
+			if _, err = tx.ExecContext(ctx, `RELEASE SAVEPOINT job`); err != nil {
+				break
+			}
 		}
-		err = tx.Commit()
+		if err == nil {
+			err = tx.Commit()
+		}
 		if err != nil {
 			tx.Rollback()
 		}
@@ -379,24 +383,45 @@ func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error 
 	return nil
 }
 
+// purgeChunk is how many rows one purge transaction deletes at most, so a
+// large backlog is cleared in short transactions that share the writer.
+const purgeChunk = 5000
+
 // Purge implements Store. It also sweeps JWT replay entries whose token
 // has expired, so the replay table stays the size of the live tokens.
+// Both are deleted in chunks of purgeChunk rows, each its own commit.
 func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
-	var n int64
-	err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
-		res, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM card_log WHERE created_at < ?`), before.UTC().Format(tsFormat))
-		if err != nil {
-			return fmt.Errorf("purge: %w", err)
+	cards, err := s.deleteChunks(ctx, `DELETE FROM card_log WHERE card_uuid IN
+		(SELECT card_uuid FROM card_log WHERE created_at < ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(tsFormat))
+	if err != nil {
+		return cards, fmt.Errorf("purge: %w", err)
+	}
+	if _, err := s.deleteChunks(ctx, `DELETE FROM jwt_replay WHERE (iss, jti) IN
+		(SELECT iss, jti FROM jwt_replay WHERE until <= ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, time.Now().UTC().Format(tsFormat)); err != nil {
+		return cards, fmt.Errorf("purge replay cache: %w", err)
+	}
+	return cards, nil
+}
+
+// deleteChunks runs a chunked DELETE until a chunk deletes fewer than
+// purgeChunk rows, returning the total deleted.
+func (s *DB) deleteChunks(ctx context.Context, query string, arg string) (int64, error) {
+	var total int64
+	for {
+		var n int64
+		err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
+			res, err := tx.ExecContext(ctx, s.dialect.bind(query), arg)
+			if err != nil {
+				return err
+			}
+			n, err = res.RowsAffected()
+			return err
+		})
+		total += n
+		if err != nil || n < purgeChunk {
+			return total, err
 		}
-		if n, err = res.RowsAffected(); err != nil {
-			return fmt.Errorf("purge: %w", err)
-		}
-		if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM jwt_replay WHERE until <= ?`), time.Now().UTC().Format(tsFormat)); err != nil {
-			return fmt.Errorf("purge replay cache: %w", err)
-		}
-		return nil
-	})
-	return n, err
+	}
 }
 
 // Counts implements Store.
