@@ -16,34 +16,30 @@ var usableStatus = map[fhir.ObservationStatus]bool{
 }
 
 // observation maps one Observation. One whose code halite does not read is
-// skipped without a rejection, before the full decode, so that an error in a
-// resource halite does not use is not reported against it.
+// skipped without a rejection, so that an error in a resource halite does
+// not use is not reported against it. The resource is decoded once; only
+// when that fails, or its status may be missing, is the status and code
+// head read again to tell which.
 func (m *mapper) observation(r Resource) {
-	var head struct {
-		Status *string              `json:"status"`
-		Code   fhir.CodeableConcept `json:"code"`
-	}
-	if err := DecodeJSON(r.Raw, &head); err != nil {
-		m.reject(r, "", "invalid resource: "+err.Error())
+	var obs fhir.Observation
+	if err := DecodeJSON(r.Raw, &obs); err != nil {
+		m.unreadableObservation(r, err)
 		return
 	}
-	code, meas, known := recognise(head.Code)
+	code, meas, known := recognise(obs.Code)
 	if !known {
 		return
 	}
 	a := meas.analyte
-	if head.Status == nil {
-		m.reject(r, a, "status is missing")
-		return
-	}
-	var obs fhir.Observation
-	err := DecodeJSON(r.Raw, &obs)
-	if err != nil {
-		m.reject(r, a, "invalid resource: "+err.Error())
-		return
+	// fhir-models turns a missing status into its zero value, registered.
+	if obs.Status == fhir.ObservationStatusRegistered {
+		if head, err := observationHead(r); err == nil && head.Status == nil {
+			m.reject(r, a, "status is missing")
+			return
+		}
 	}
 	if !usableStatus[obs.Status] {
-		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", *head.Status))
+		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", obs.Status.Code()))
 		return
 	}
 	if obs.Subject == nil || !RefersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
@@ -98,6 +94,39 @@ func (m *mapper) observation(r Resource) {
 		Specimen: meas.specimen,
 		Original: q.Value.String() + " " + unit,
 	})
+}
+
+// observationStatusAndCode is the part of an Observation read before the
+// rest: whether halite reads its code, and whether it has a status.
+type observationStatusAndCode struct {
+	Status *string              `json:"status"`
+	Code   fhir.CodeableConcept `json:"code"`
+}
+
+func observationHead(r Resource) (observationStatusAndCode, error) {
+	var head observationStatusAndCode
+	err := DecodeJSON(r.Raw, &head)
+	return head, err
+}
+
+// unreadableObservation reports an Observation that did not decode
+// (decodeErr), if halite reads its code: a missing status first, as for a
+// readable one, else the decoding error.
+func (m *mapper) unreadableObservation(r Resource, decodeErr error) {
+	head, err := observationHead(r)
+	if err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return
+	}
+	_, meas, known := recognise(head.Code)
+	if !known {
+		return
+	}
+	if head.Status == nil {
+		m.reject(r, meas.analyte, "status is missing")
+		return
+	}
+	m.reject(r, meas.analyte, "invalid resource: "+decodeErr.Error())
 }
 
 // seriesKey identifies a result for de-duplication: the same analyte, time
