@@ -111,7 +111,8 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 }
 
 // isResourceTypeName reports whether s has the form of a FHIR resource
-// type name (FHIR R4 §2.1.0.1 names: an upper-case letter, then letters).
+// type name: an upper-case letter, then letters (every R4 resource type
+// has that form; from memory, not a quoted rule of the specification).
 func isResourceTypeName(s string) bool {
 	if len(s) < 2 || len(s) > 64 || s[0] < 'A' || s[0] > 'Z' {
 		return false

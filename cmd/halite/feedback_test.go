@@ -119,18 +119,11 @@ func TestFeedbackFromTheCallerShown(t *testing.T) {
 		return strings.TrimSpace(out.String())
 	}
 	post := func(path, bearer, body string) (int, string) {
-		r, _ := http.NewRequest(http.MethodPost, base+path, strings.NewReader(body))
-		r.Header.Set("Content-Type", "application/json")
+		authz := ""
 		if bearer != "" {
-			r.Header.Set("Authorization", "Bearer "+bearer)
+			authz = "Bearer " + bearer
 		}
-		resp, err := http.DefaultClient.Do(r)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer resp.Body.Close()
-		b, _ := io.ReadAll(resp.Body)
-		return resp.StatusCode, string(b)
+		return postJSON(t, base+path, authz, []byte(body))
 	}
 	const svc = "/cds-services/sodium-infusion-check"
 	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))

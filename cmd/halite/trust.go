@@ -179,7 +179,7 @@ func (a verifierAdapter) Authenticate(ctx context.Context, authorization, audien
 func allowedServer(c Config, caller hooks.Caller, fhirServer string) (FHIRServerCf, bool) {
 	u, err := url.Parse(strings.TrimRight(fhirServer, "/"))
 	if err != nil || u.User != nil || u.Opaque != "" || u.RawQuery != "" || u.ForceQuery || u.Fragment != "" ||
-		u.RawPath != "" || strings.Contains(u.Path, ";") || hasDotSegment(u.Path) {
+		u.RawPath != "" || strings.Contains(u.Path, ";") || fhirclient.HasDotSegment(u.Path) {
 		return FHIRServerCf{}, false
 	}
 	for _, is := range c.Issuers {
@@ -198,14 +198,4 @@ func allowedServer(c Config, caller hooks.Caller, fhirServer string) (FHIRServer
 		}
 	}
 	return FHIRServerCf{}, false
-}
-
-// hasDotSegment reports whether path has a "." or ".." segment.
-func hasDotSegment(path string) bool {
-	for _, seg := range strings.Split(path, "/") {
-		if seg == "." || seg == ".." {
-			return true
-		}
-	}
-	return false
 }

@@ -120,18 +120,7 @@ func TestServeWithTrustedIssuer(t *testing.T) {
 		return req.Bytes()
 	}
 	post := func(body []byte, authz string) (int, string) {
-		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-chart-review", bytes.NewReader(body))
-		r.Header.Set("Content-Type", "application/json")
-		if authz != "" {
-			r.Header.Set("Authorization", authz)
-		}
-		resp, err := http.DefaultClient.Do(r)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer resp.Body.Close()
-		b, _ := io.ReadAll(resp.Body)
-		return resp.StatusCode, string(b)
+		return postJSON(t, base+"/cds-services/sodium-chart-review", authz, body)
 	}
 	forger, _ := ecdsa.GenerateKey(elliptic.P384(), rand.Reader)
 	for name, authz := range map[string]string{
@@ -196,15 +185,8 @@ func TestKeysAndToken(t *testing.T) {
 	}
 	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
 	call := func() int {
-		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-infusion-check", bytes.NewReader(demo))
-		r.Header.Set("Content-Type", "application/json")
-		r.Header.Set("Authorization", "Bearer "+strings.TrimSpace(out.String()))
-		resp, err := http.DefaultClient.Do(r)
-		if err != nil {
-			t.Fatal(err)
-		}
-		resp.Body.Close()
-		return resp.StatusCode
+		status, _ := postJSON(t, base+"/cds-services/sodium-infusion-check", "Bearer "+strings.TrimSpace(out.String()), demo)
+		return status
 	}
 	if first, second := call(), call(); first != 200 || second != 401 {
 		t.Errorf("signed call %d, replay %d; want 200 then 401", first, second)
@@ -249,15 +231,8 @@ func TestReplicasShareReplayCache(t *testing.T) {
 	}
 	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
 	call := func(base string) int {
-		r, _ := http.NewRequest(http.MethodPost, base+"/cds-services/sodium-infusion-check", bytes.NewReader(demo))
-		r.Header.Set("Content-Type", "application/json")
-		r.Header.Set("Authorization", "Bearer "+strings.TrimSpace(tok.String()))
-		resp, err := http.DefaultClient.Do(r)
-		if err != nil {
-			t.Fatal(err)
-		}
-		resp.Body.Close()
-		return resp.StatusCode
+		status, _ := postJSON(t, base+"/cds-services/sodium-infusion-check", "Bearer "+strings.TrimSpace(tok.String()), demo)
+		return status
 	}
 	if first, second := call(a), call(b); first != 200 || second != 401 {
 		t.Errorf("replica A %d, replica B with the same token %d; want 200 then 401", first, second)
@@ -370,8 +345,8 @@ func localIssuer(t *testing.T) (dir, cfgPath string) {
 
 // TestAllowedServer: a FHIR server is used only at or below an entry of
 // the caller's own issuer, and a URL that could mean something else to
-// the server (RFC 3986 §3.2.1 user info, §3.3 dot segments and
-// parameters, percent-encoded path bytes) is refused.
+// the server (RFC 3986 §3.2.1 user info, §3.3 path parameters, §5.2.4
+// dot segments, percent-encoded path bytes) is refused.
 func TestAllowedServer(t *testing.T) {
 	cfg := Config{Auth: defaultAuthConfig()}
 	cfg.Issuers = []IssuerConfig{
@@ -405,4 +380,25 @@ func TestAllowedServer(t *testing.T) {
 			t.Errorf("%s: allowed %v, want %v", server, got, want)
 		}
 	}
+}
+
+// postJSON posts body as application/json to url, with an Authorization
+// header when authz is not empty, and returns the status and the body.
+func postJSON(t *testing.T, url, authz string, body []byte) (int, string) {
+	t.Helper()
+	r, err := http.NewRequest(http.MethodPost, url, bytes.NewReader(body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r.Header.Set("Content-Type", "application/json")
+	if authz != "" {
+		r.Header.Set("Authorization", authz)
+	}
+	resp, err := http.DefaultClient.Do(r)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	return resp.StatusCode, string(b)
 }

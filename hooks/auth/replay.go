@@ -13,7 +13,7 @@ import (
 // time proportional to their number, never scanning the live ones.
 type MemoryReplay struct {
 	mu      sync.Mutex
-	seen    map[string]time.Time
+	seen    map[string]struct{} // live keys; their expiries are in byUntil
 	byUntil expiryHeap
 	max     int
 	now     func() time.Time
@@ -24,7 +24,7 @@ func NewMemoryReplay(max int, now func() time.Time) *MemoryReplay {
 	if now == nil {
 		now = time.Now
 	}
-	return &MemoryReplay{seen: map[string]time.Time{}, max: max, now: now}
+	return &MemoryReplay{seen: map[string]struct{}{}, max: max, now: now}
 }
 
 // Remember implements ReplayCache. A full cache refuses new tokens rather
@@ -48,7 +48,7 @@ func (m *MemoryReplay) Remember(_ context.Context, iss, jti string, until time.T
 	if len(m.seen) >= m.max {
 		return false, errors.New("replay cache full")
 	}
-	m.seen[key] = until
+	m.seen[key] = struct{}{}
 	heap.Push(&m.byUntil, expiry{key: key, until: until})
 	return false, nil
 }

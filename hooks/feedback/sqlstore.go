@@ -88,10 +88,6 @@ func dollarPlaceholders(q string) string {
 // Options tune the group commit.
 type Options struct {
 	MaxBatch int // records per transaction at most (default 256)
-	// MaxWait is how long a batch waits for company. The default, 0, waits
-	// for none: a batch is whatever queued while the last one committed,
-	// which groups concurrent calls without delaying a lone one.
-	MaxWait time.Duration
 	// CommitTimeout bounds one batch's transaction (default 5 s); a caller
 	// waits at most twice this (its turn, then its batch) and then gets
 	// ErrStalled, so a stalled database cannot hang calls or Close.
@@ -188,43 +184,24 @@ func migrate(ctx context.Context, db *sql.DB, d dialect) error {
 	return nil
 }
 
-// writer runs batches until Close.
+// writer runs batches until Close. A batch is whatever queued while the
+// previous one committed: concurrent calls share a transaction, and a
+// lone call is not kept waiting for company.
 func (s *DB) writer() {
 	defer close(s.done)
 	for first := range s.jobs {
 		batch := []job{first}
-		var wait <-chan time.Time // nil: take only the jobs already queued
-		var timer *time.Timer
-		if s.opt.MaxWait > 0 {
-			timer = time.NewTimer(s.opt.MaxWait)
-			wait = timer.C
-		}
 	collect:
 		for len(batch) < s.opt.MaxBatch {
-			if wait == nil {
-				select {
-				case j, ok := <-s.jobs:
-					if !ok {
-						break collect
-					}
-					batch = append(batch, j)
-					continue
-				default:
-					break collect
-				}
-			}
 			select {
 			case j, ok := <-s.jobs:
 				if !ok {
 					break collect
 				}
 				batch = append(batch, j)
-			case <-wait:
+			default:
 				break collect
 			}
-		}
-		if timer != nil {
-			timer.Stop()
 		}
 		s.commit(batch)
 	}

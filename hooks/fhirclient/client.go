@@ -137,14 +137,15 @@ func IsLoopback(host string) bool {
 // under its path. Paths with dot segments are refused outright, so "../"
 // can never climb out of the base.
 func (c *Client) sameOrigin(u *url.URL) bool {
-	if hasDotSegment(u.Path) {
+	if HasDotSegment(u.Path) {
 		return false
 	}
 	return u.Scheme == c.base.Scheme && u.Host == c.base.Host &&
 		(u.Path == c.base.Path || strings.HasPrefix(u.Path, c.base.Path+"/"))
 }
 
-func hasDotSegment(p string) bool {
+// HasDotSegment reports whether path p has a "." or ".." segment.
+func HasDotSegment(p string) bool {
 	for _, seg := range strings.Split(p, "/") {
 		if seg == "." || seg == ".." {
 			return true
