@@ -406,6 +406,25 @@ func TestMapInvalidResourceRejected(t *testing.T) {
 	}
 }
 
+// TestMapObservationDefectOutsideReadElements: a sodium result whose
+// interpretation is malformed (an object where FHIR R4 §Observation has an
+// array of CodeableConcept) is still read, since halite reads only status,
+// code, subject, effective[x] and valueQuantity; the same defect in code
+// refuses it.
+func TestMapObservationDefectOutsideReadElements(t *testing.T) {
+	head := `{"resourceType":"Observation","id":"o1","status":"final","subject":{"reference":"Patient/` + testPatient + `"},` +
+		`"effectiveDateTime":"2026-11-19T08:00:00Z","valueQuantity":{"value":131,"unit":"mmol/L","system":"http://unitsofmeasure.org","code":"mmol/L"},`
+	sodium := `"code":{"coding":[{"system":"http://loinc.org","code":"2951-2"}]}`
+	f := mapResources(t, json.RawMessage(head+sodium+`,"interpretation":{"text":"low"}}`))
+	if s := f.Labs[rules.Sodium]; len(s) != 1 || s[0].Value != 131 || len(f.Rejected) != 0 {
+		t.Errorf("labs %+v, rejected %+v; want the 131 mmol/L result read", f.Labs, f.Rejected)
+	}
+	f = mapResources(t, json.RawMessage(head+`"code":{"coding":{"system":"http://loinc.org","code":"2951-2"}}}`))
+	if len(f.Rejected) != 1 || !strings.HasPrefix(f.Rejected[0].Reason, "invalid resource: ") {
+		t.Errorf("rejected %+v, want one invalid resource", f.Rejected)
+	}
+}
+
 func TestMapOtherResourceTypesIgnored(t *testing.T) {
 	// A Device (as in scenario 07) and a Patient among the search results are
 	// neither read nor rejected.

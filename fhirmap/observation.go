@@ -15,13 +15,30 @@ var usableStatus = map[fhir.ObservationStatus]bool{
 	fhir.ObservationStatusCorrected: true,
 }
 
+// observationFields are the Observation elements halite reads, in
+// fhir-models' types so that each is validated as fhir.Observation would
+// validate it. Decoding only these is the point: the other elements of a
+// result (interpretation, referenceRange, notes…) are skipped rather than
+// built and thrown away, and a defect in one of them does not cost a value
+// halite can read. Status is a pointer so that a missing status is seen as
+// missing, not as the enum's zero value.
+type observationFields struct {
+	Status            *fhir.ObservationStatus `json:"status"`
+	Code              fhir.CodeableConcept    `json:"code"`
+	Subject           *fhir.Reference         `json:"subject"`
+	EffectiveDateTime *string                 `json:"effectiveDateTime"`
+	EffectivePeriod   *fhir.Period            `json:"effectivePeriod"`
+	EffectiveInstant  *string                 `json:"effectiveInstant"`
+	ValueQuantity     *fhir.Quantity          `json:"valueQuantity"`
+}
+
 // observation maps one Observation. One whose code halite does not read is
 // skipped without a rejection, so that an error in a resource halite does
 // not use is not reported against it. The resource is decoded once; only
-// when that fails, or its status may be missing, is the status and code
-// head read again to tell which.
+// when that fails is its status and code head read again to tell whether
+// halite reads it and why it is refused.
 func (m *mapper) observation(r Resource) {
-	var obs fhir.Observation
+	var obs observationFields
 	if err := DecodeJSON(r.Raw, &obs); err != nil {
 		m.unreadableObservation(r, err)
 		return
@@ -31,14 +48,11 @@ func (m *mapper) observation(r Resource) {
 		return
 	}
 	a := meas.analyte
-	// fhir-models turns a missing status into its zero value, registered.
-	if obs.Status == fhir.ObservationStatusRegistered {
-		if head, err := observationHead(r); err == nil && head.Status == nil {
-			m.reject(r, a, "status is missing")
-			return
-		}
+	if obs.Status == nil {
+		m.reject(r, a, "status is missing")
+		return
 	}
-	if !usableStatus[obs.Status] {
+	if !usableStatus[*obs.Status] {
 		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", obs.Status.Code()))
 		return
 	}
@@ -96,8 +110,9 @@ func (m *mapper) observation(r Resource) {
 	})
 }
 
-// observationStatusAndCode is the part of an Observation read before the
-// rest: whether halite reads its code, and whether it has a status.
+// observationStatusAndCode is the part of an Observation read again when
+// the whole did not decode: whether halite reads its code, and whether it
+// has a status.
 type observationStatusAndCode struct {
 	Status *string              `json:"status"`
 	Code   fhir.CodeableConcept `json:"code"`
@@ -153,7 +168,7 @@ func recognise(cc fhir.CodeableConcept) (string, measure, bool) {
 // effectiveTime is the clinically relevant time: effectiveDateTime,
 // effectiveInstant, or the start (else the end) of effectivePeriod. It must
 // carry a time of day, since rates of change are computed from it.
-func effectiveTime(o fhir.Observation) (time.Time, error) {
+func effectiveTime(o observationFields) (time.Time, error) {
 	var s string
 	switch {
 	case o.EffectiveDateTime != nil:

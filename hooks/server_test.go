@@ -1,11 +1,14 @@
 package hooks
 
 import (
+	"bufio"
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"io"
 	"log/slog"
+	"net"
 	"net/http"
 	"net/http/httptest"
 	"strings"
@@ -169,6 +172,72 @@ func TestServiceCallStatus(t *testing.T) {
 			}
 		})
 	}
+}
+
+// TestRequestBodyFraming: a body is read whole whether its length is
+// declared (Content-Length) or not (chunked), refused with 413 over the
+// limit either way, and refused with 400 when it ends before its declared
+// length.
+func TestRequestBodyFraming(t *testing.T) {
+	cfg := defaultServerConfig()
+	srv, _ := testServer(t, cfg)
+	url := srv.URL + "/cds-services/sodium-infusion-check"
+	valid := mustMarshal(t, requestMap(t, "01-chronic-hypona-3pct-infusion.json", "sodium-infusion-check", HookOrderSign))
+	big := bytes.Repeat([]byte(" "), int(cfg.MaxBodyBytes)+1)
+	for _, tc := range []struct {
+		name    string
+		body    []byte
+		chunked bool
+		status  int
+	}{
+		{"declared length", valid, false, 200},
+		{"chunked", valid, true, 200},
+		{"declared length over the limit", big, false, 413},
+		{"chunked over the limit", big, true, 413},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			var body io.Reader = bytes.NewReader(tc.body)
+			if tc.chunked {
+				body = io.MultiReader(body) // no length known: sent chunked
+			}
+			req, err := http.NewRequest(http.MethodPost, url, body)
+			if err != nil {
+				t.Fatal(err)
+			}
+			req.Header.Set("Content-Type", "application/json")
+			resp, err := http.DefaultClient.Do(req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer resp.Body.Close()
+			got, _ := io.ReadAll(resp.Body)
+			if resp.StatusCode != tc.status {
+				t.Errorf("status %d, want %d: %s", resp.StatusCode, tc.status, got)
+			}
+			if (req.ContentLength > 0) == tc.chunked {
+				t.Errorf("request content length %d, chunked %v: the case does not test what it says", req.ContentLength, tc.chunked)
+			}
+		})
+	}
+	t.Run("shorter than declared", func(t *testing.T) {
+		conn, err := net.Dial("tcp", srv.Listener.Addr().String())
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer conn.Close()
+		fmt.Fprintf(conn, "POST /cds-services/sodium-infusion-check HTTP/1.1\r\nHost: x\r\n"+
+			"Content-Type: application/json\r\nContent-Length: %d\r\n\r\n", len(valid))
+		conn.Write(valid[:len(valid)/2])
+		conn.(*net.TCPConn).CloseWrite()
+		resp, err := http.ReadResponse(bufio.NewReader(conn), nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		if resp.StatusCode != 400 {
+			t.Errorf("status %d, want 400", resp.StatusCode)
+		}
+	})
 }
 
 func TestCORS(t *testing.T) {
