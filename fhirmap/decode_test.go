@@ -12,13 +12,14 @@ import (
 // decodeTargets are the shapes halite decodes from outside input.
 func decodeTargets() map[string]func() any {
 	return map[string]func() any{
-		"Observation":        func() any { return new(fhir.Observation) },
-		"Observation fields": func() any { return new(observationFields) },
-		"MedicationRequest":  func() any { return new(fhir.MedicationRequest) },
-		"Medication":         func() any { return new(fhir.Medication) },
-		"Condition":          func() any { return new(fhir.Condition) },
-		"raw map":            func() any { return new(map[string]json.RawMessage) },
-		"generic":            func() any { return new(any) },
+		"Observation":              func() any { return new(fhir.Observation) },
+		"Observation fields":       func() any { return new(observationFields) },
+		"MedicationRequest":        func() any { return new(fhir.MedicationRequest) },
+		"MedicationRequest fields": func() any { return new(medicationRequestFields) },
+		"Medication":               func() any { return new(fhir.Medication) },
+		"Condition":                func() any { return new(fhir.Condition) },
+		"raw map":                  func() any { return new(map[string]json.RawMessage) },
+		"generic":                  func() any { return new(any) },
 	}
 }
 

@@ -406,12 +406,13 @@ func TestMapInvalidResourceRejected(t *testing.T) {
 	}
 }
 
-// TestMapObservationDefectOutsideReadElements: a sodium result whose
-// interpretation is malformed (an object where FHIR R4 §Observation has an
-// array of CodeableConcept) is still read, since halite reads only status,
-// code, subject, effective[x] and valueQuantity; the same defect in code
-// refuses it.
-func TestMapObservationDefectOutsideReadElements(t *testing.T) {
+// TestMapDefectOutsideReadElements: a sodium result whose interpretation
+// is malformed (an object where FHIR R4 §Observation has an array of
+// CodeableConcept) is still read, since halite reads only status, code,
+// subject, effective[x] and valueQuantity; the same defect in code refuses
+// it. Likewise a MedicationRequest with a malformed note (an object where
+// §MedicationRequest has an array of Annotation) is read.
+func TestMapDefectOutsideReadElements(t *testing.T) {
 	head := `{"resourceType":"Observation","id":"o1","status":"final","subject":{"reference":"Patient/` + testPatient + `"},` +
 		`"effectiveDateTime":"2026-11-19T08:00:00Z","valueQuantity":{"value":131,"unit":"mmol/L","system":"http://unitsofmeasure.org","code":"mmol/L"},`
 	sodium := `"code":{"coding":[{"system":"http://loinc.org","code":"2951-2"}]}`
@@ -422,6 +423,10 @@ func TestMapObservationDefectOutsideReadElements(t *testing.T) {
 	f = mapResources(t, json.RawMessage(head+`"code":{"coding":{"system":"http://loinc.org","code":"2951-2"}}}`))
 	if len(f.Rejected) != 1 || !strings.HasPrefix(f.Rejected[0].Reason, "invalid resource: ") {
 		t.Errorf("rejected %+v, want one invalid resource", f.Rejected)
+	}
+	f = mapResources(t, mr("m1", "active", nsConcept+`,"note":{"text":"given with food"}`))
+	if len(f.Medications) != 1 || len(f.Rejected) != 0 {
+		t.Errorf("medications %+v, rejected %+v; want the active order read", f.Medications, f.Rejected)
 	}
 }
 

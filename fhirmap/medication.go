@@ -9,10 +9,23 @@ import (
 	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
 )
 
+// medicationRequestFields are the MedicationRequest elements halite reads,
+// in fhir-models' types (see observationFields for why only these).
+type medicationRequestFields struct {
+	Status                    string                                 `json:"status"`
+	Intent                    string                                 `json:"intent"`
+	MedicationCodeableConcept fhir.CodeableConcept                   `json:"medicationCodeableConcept"`
+	MedicationReference       fhir.Reference                         `json:"medicationReference"`
+	Subject                   fhir.Reference                         `json:"subject"`
+	AuthoredOn                *string                                `json:"authoredOn"`
+	DosageInstruction         []fhir.Dosage                          `json:"dosageInstruction"`
+	DispenseRequest           *fhir.MedicationRequestDispenseRequest `json:"dispenseRequest"`
+}
+
 // medicationRequest reads one MedicationRequest. fhir-models drops
 // `contained`, so contained Medications are read from the raw JSON.
 func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
-	var mr fhir.MedicationRequest
+	var mr medicationRequestFields
 	err := DecodeJSON(r.Raw, &mr)
 	if err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
@@ -49,7 +62,7 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 	return o, true
 }
 
-func (m *mapper) medicationOf(r Resource, mr fhir.MedicationRequest) rules.Medication {
+func (m *mapper) medicationOf(r Resource, mr medicationRequestFields) rules.Medication {
 	if cs, text := codings(&mr.MedicationCodeableConcept); len(cs) > 0 || text != "" {
 		return rules.Medication{Source: rules.FromCodeableConcept, Codings: cs, Text: text}
 	}

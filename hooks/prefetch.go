@@ -172,21 +172,21 @@ var errOutcome = errors.New("the FHIR server reported an error (OperationOutcome
 // following next links while a fetcher is available.
 func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limits) error {
 	for page := 1; ; page++ {
-		res, err := fhirmap.ReadResource(raw)
-		if err != nil {
-			return fmt.Errorf("page %d: %w", page, err)
-		}
-		switch res.Type {
-		case "OperationOutcome":
-			return errOutcome
-		case "Bundle":
-		default:
-			r.Resources = append(r.Resources, raw)
-			return nil
-		}
+		// Most values are Bundles: read one as such in one pass, and only
+		// when that fails read the head to tell what the value is.
 		b, err := fhirmap.ParseBundle(raw)
 		if err != nil {
-			return fmt.Errorf("page %d: %w", page, err)
+			res, headErr := fhirmap.ReadResource(raw)
+			switch {
+			case headErr != nil:
+				return fmt.Errorf("page %d: %w", page, headErr)
+			case res.Type == "OperationOutcome":
+				return errOutcome
+			case res.Type == "Bundle":
+				return fmt.Errorf("page %d: %w", page, err)
+			}
+			r.Resources = append(r.Resources, raw)
+			return nil
 		}
 		for _, e := range b.Entries {
 			er, err := fhirmap.ReadResource(e.Resource)

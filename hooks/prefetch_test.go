@@ -90,6 +90,12 @@ func TestResolveStates(t *testing.T) {
 		{name: "fetch error fails", fetcher: &mapFetcher{}, state: Failed, wantAsked: 1},
 		{name: "single resource", prefetch: map[string]json.RawMessage{"k": json.RawMessage(obsA)},
 			state: Prefetched, ids: "a"},
+		{name: "single resource whose elements do not fit a Bundle's",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"Encounter","id":"e","status":"finished","type":[{"text":"ward stay"}],"link":{}}`)},
+			state:    Prefetched, ids: "e"},
+		{name: "malformed Bundle fails",
+			prefetch: map[string]json.RawMessage{"k": json.RawMessage(`{"resourceType":"Bundle","type":"searchset","entry":{"resource":` + obsA + `}}`)},
+			state:    Failed},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			var f Fetcher
