@@ -11,7 +11,9 @@ import (
 	"net"
 	"net/http"
 	"os"
+	"runtime"
 	"strings"
+	"sync/atomic"
 	"text/tabwriter"
 	"time"
 
@@ -19,16 +21,18 @@ import (
 	"github.com/golang-jwt/jwt/v5"
 	"github.com/google/uuid"
 	vegeta "github.com/tsenart/vegeta/v12/lib"
+	"golang.org/x/sync/errgroup"
 )
 
 // loadCmd replays one hook call against a URL at a fixed rate, or as fast
 // as the workers can (--rate 0), for a duration, signing each call with a
-// fresh jti when a key is given; with --baseline it runs the same attack
+// fresh jti when a key is given (before the run with --presign); with
+// --baseline it runs the same attack
 // against an in-process server that only decodes the JSON body with the
 // standard library and answers {"cards":[]}, so the two can be compared.
 func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("load", "load --url URL [--service ID] [--hook HOOK] [--rate N] [--workers N] [--duration D] "+
-		"[--key FILE --iss URL --aud-base URL] [--baseline] BUNDLE|REQUEST.json", stderr)
+		"[--key FILE --iss URL --aud-base URL] [--presign] [--baseline] BUNDLE|REQUEST.json", stderr)
 	target := fs.String("url", "", "halite's base `URL`, e.g. http://127.0.0.1:8080 (required)")
 	service := fs.String("service", "sodium-infusion-check", "service `id` to call")
 	hook := fs.String("hook", "order-sign", "the `hook` of the request built from a bundle")
@@ -39,6 +43,8 @@ func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	iss := fs.String("iss", "", "issuer for the tokens")
 	audBase := fs.String("aud-base", "", "public_base_url of the server (the tokens' audience base; default --url)")
 	baseline := fs.Bool("baseline", false, "also attack the in-process standard-library baseline with the same body")
+	presign := fs.Bool("presign", false, "with --rate and --key, sign every run's tokens (one fresh jti per call) before it starts, "+
+		"so that signing does not compete with the server for CPU while latency is measured")
 	rest, err := parseFlags(fs, args)
 	if err != nil {
 		return err
@@ -46,11 +52,17 @@ func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if *target == "" || len(rest) != 1 {
 		return errors.New("load: --url and one BUNDLE or request file are required")
 	}
+	if *presign && (*rate <= 0 || *keyPath == "") {
+		return errors.New("load: --presign needs --rate and --key (at saturation the number of calls is not known beforehand)")
+	}
+	if *presign && *duration+presignMargin > maxPresignedLifetime {
+		return fmt.Errorf("load: --presign is limited to runs of %s (tokens live at most %s)", maxPresignedLifetime-presignMargin, maxPresignedLifetime)
+	}
 	body, err := loadBody(rest[0], *service, *hook)
 	if err != nil {
 		return err
 	}
-	var sign func() (string, error)
+	var sign func(lifetime time.Duration) (string, error)
 	if *keyPath != "" {
 		if sign, err = signer(*keyPath, *iss, strings.TrimRight(firstNonEmpty(*audBase, *target), "/")+"/cds-services/"+*service); err != nil {
 			return err
@@ -69,7 +81,11 @@ func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintf(tw, "target\trequests\tthroughput/s\tp50\tp90\tp99\tmax\terrors\t\n")
 	for _, r := range runs {
-		m, err := attack(ctx, r.url, body, sign, *rate, *workers, *duration)
+		tokens, err := tokensFor(sign, *presign, *rate, *duration)
+		if err != nil {
+			return err
+		}
+		m, err := attack(ctx, r.url, body, tokens, *rate, *workers, *duration)
 		if err != nil {
 			return err
 		}
@@ -107,8 +123,50 @@ func loadBody(path, service, hook string) ([]byte, error) {
 	return out.Bytes(), nil
 }
 
-// signer makes a fresh ES384 token per call.
-func signer(keyPath, iss, aud string) (func() (string, error), error) {
+// Pre-signed tokens must outlive the run by presignMargin (for the time
+// the signing itself takes) and live no longer than servers accept by
+// default (auth.max_token_lifetime).
+const (
+	presignMargin        = time.Minute
+	maxPresignedLifetime = 5 * time.Minute
+)
+
+// tokensFor returns what hands each call its token: nil without a key;
+// with presign, rate×duration tokens (each with its own jti) signed now,
+// on every core, and handed out in turn, then signed on demand should the
+// run need more; otherwise one token signed per call.
+func tokensFor(sign func(time.Duration) (string, error), presign bool, rate int, d time.Duration) (func() (string, error), error) {
+	if sign == nil {
+		return nil, nil
+	}
+	onDemand := func() (string, error) { return sign(time.Minute) }
+	if !presign {
+		return onDemand, nil
+	}
+	lifetime := d + presignMargin
+	toks := make([]string, int(float64(rate)*d.Seconds())+rate) // one second spare
+	var g errgroup.Group
+	g.SetLimit(runtime.GOMAXPROCS(0))
+	for i := range toks {
+		g.Go(func() (err error) {
+			toks[i], err = sign(lifetime)
+			return err
+		})
+	}
+	if err := g.Wait(); err != nil {
+		return nil, fmt.Errorf("load: presign: %w", err)
+	}
+	var next atomic.Int64
+	return func() (string, error) {
+		if i := next.Add(1) - 1; i < int64(len(toks)) {
+			return toks[i], nil
+		}
+		return onDemand()
+	}, nil
+}
+
+// signer makes a fresh ES384 token, with its own jti, valid for lifetime.
+func signer(keyPath, iss, aud string) (func(lifetime time.Duration) (string, error), error) {
 	data, err := os.ReadFile(keyPath)
 	if err != nil {
 		return nil, fmt.Errorf("load: %w", err)
@@ -121,10 +179,10 @@ func signer(keyPath, iss, aud string) (func() (string, error), error) {
 	if !ok || iss == "" {
 		return nil, errors.New("load: --key must be an EC private JWK and --iss is required with it")
 	}
-	return func() (string, error) {
+	return func(lifetime time.Duration) (string, error) {
 		now := time.Now()
 		tok := jwt.NewWithClaims(jwt.SigningMethodES384, jwt.MapClaims{"iss": iss, "sub": iss, "aud": aud,
-			"iat": now.Unix(), "exp": now.Add(time.Minute).Unix(), "jti": uuid.NewString()})
+			"iat": now.Unix(), "exp": now.Add(lifetime).Unix(), "jti": uuid.NewString()})
 		tok.Header["kid"] = jwk.KeyID
 		return tok.SignedString(key)
 	}, nil

@@ -310,8 +310,19 @@ func TestLoadCommand(t *testing.T) {
 		"--iss", "https://ehr.example.org", "--aud-base", "http://127.0.0.1", "--baseline", scenario}, &out, io.Discard); err != nil {
 		t.Fatal(err)
 	}
+	// At a fixed rate with tokens signed beforehand: 40 calls, each
+	// accepted, so each token was valid and its jti unused.
+	var presigned bytes.Buffer
+	if err := run(context.Background(), []string{"load", "--url", base, "--rate", "40", "--duration", "1s", "--workers", "4", "--presign",
+		"--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org", "--aud-base", "http://127.0.0.1", scenario},
+		&presigned, io.Discard); err != nil {
+		t.Fatal(err)
+	}
 	if err := stop(); err != nil {
 		t.Fatal(err)
+	}
+	if f := strings.Fields(strings.Split(strings.TrimSpace(presigned.String()), "\n")[1]); f[1] != "40" || f[len(f)-1] != "0" {
+		t.Errorf("presigned run: %s, want 40 requests and no errors", presigned.String())
 	}
 	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
 	if len(lines) != 3 || !strings.Contains(lines[1], "halite") || !strings.Contains(lines[2], "baseline") {
@@ -321,6 +332,22 @@ func TestLoadCommand(t *testing.T) {
 		f := strings.Fields(l)
 		if f[len(f)-1] != "0" || f[1] == "0" {
 			t.Errorf("a run with errors or no requests: %s", l)
+		}
+	}
+}
+
+// TestLoadCommandRefusesPresignWithoutRate: at saturation the number of
+// calls is unknown, so pre-signing is refused, as is a run longer than a
+// pre-signed token may live.
+func TestLoadCommandRefusesPresignWithoutRate(t *testing.T) {
+	for _, args := range [][]string{
+		{"--presign", "--key", "k.jwk", "--iss", "https://ehr.example.org"},
+		{"--presign", "--rate", "10"},
+		{"--presign", "--rate", "10", "--duration", "10m", "--key", "k.jwk", "--iss", "https://ehr.example.org"},
+	} {
+		err := run(context.Background(), append(append([]string{"load", "--url", "http://127.0.0.1:1"}, args...), "body.json"), io.Discard, io.Discard)
+		if err == nil || !strings.Contains(err.Error(), "--presign") {
+			t.Errorf("%v: error %v, want one about --presign", args, err)
 		}
 	}
 }
