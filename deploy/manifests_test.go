@@ -19,6 +19,7 @@ import (
 	corev1 "k8s.io/api/core/v1"
 	networkingv1 "k8s.io/api/networking/v1"
 	policyv1 "k8s.io/api/policy/v1"
+	"k8s.io/apimachinery/pkg/api/resource"
 	"k8s.io/apimachinery/pkg/labels"
 	"sigs.k8s.io/kustomize/api/krusty"
 	"sigs.k8s.io/kustomize/kyaml/filesys"
@@ -146,11 +147,21 @@ func TestOverlays(t *testing.T) {
 			if c.Resources.Limits.Memory().IsZero() || c.Resources.Requests.Cpu().IsZero() {
 				t.Error("resource requests and limits are needed")
 			}
-			var dsn *corev1.EnvVar
+			var dsn, memLimit *corev1.EnvVar
 			for i := range c.Env {
-				if c.Env[i].Name == "HALITE_STORE_DSN" {
+				switch c.Env[i].Name {
+				case "HALITE_STORE_DSN":
 					dsn = &c.Env[i]
+				case "GOMEMLIMIT":
+					memLimit = &c.Env[i]
 				}
+			}
+			// The Go runtime's soft limit must sit below the container's
+			// hard one, or the kernel kills the pod before the GC tightens.
+			if memLimit == nil {
+				t.Error("GOMEMLIMIT is not set")
+			} else if q, err := resource.ParseQuantity(strings.TrimSuffix(memLimit.Value, "B")); err != nil || q.Cmp(*c.Resources.Limits.Memory()) >= 0 {
+				t.Errorf("GOMEMLIMIT %q (%v) is not below the memory limit %s", memLimit.Value, err, c.Resources.Limits.Memory())
 			}
 			if dsn == nil || (dsn.ValueFrom != nil) != tc.dsnFromEnv || (!tc.dsnFromEnv && !strings.HasPrefix(dsn.Value, "sqlite:")) {
 				t.Errorf("store DSN %+v", dsn)
