@@ -65,8 +65,12 @@ func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Car
 		if len(sugg) > 0 {
 			selection = "at-most-one"
 		}
+		id, err := newRecordID()
+		if err != nil {
+			return nil, fmt.Errorf("render %s: %w", f.Rule, err)
+		}
 		cards = append(cards, Card{
-			UUID:              uuid.NewString(),
+			UUID:              id,
 			Summary:           f.Summary,
 			Detail:            detail,
 			Indicator:         f.Indicator.String(),
@@ -78,4 +82,16 @@ func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Car
 		})
 	}
 	return cards, nil
+}
+
+// newRecordID returns a UUIDv7 (RFC 9562 §5.7) for a card or suggestion:
+// as unique as a random UUID, but ordered by time, so the card log's key
+// index grows at its end instead of having a random page rewritten on
+// every insert as it grows. The time it carries is the response's own.
+func newRecordID() (string, error) {
+	id, err := uuid.NewV7()
+	if err != nil {
+		return "", fmt.Errorf("new uuid: %w", err)
+	}
+	return id.String(), nil
 }

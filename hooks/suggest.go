@@ -8,7 +8,6 @@ import (
 	"strings"
 	"time"
 
-	"github.com/google/uuid"
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/rules"
 )
@@ -121,7 +120,11 @@ func suggestions(f rules.Finding, in suggestionInput) ([]Suggestion, error) {
 		default:
 			return nil, fmt.Errorf("suggest: unknown advice kind %q", adv.Kind)
 		}
-		out = append(out, Suggestion{Label: adv.Label, UUID: uuid.NewString(), IsRecommended: adv.Recommended, Actions: actions})
+		id, err := newRecordID()
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, Suggestion{Label: adv.Label, UUID: id, IsRecommended: adv.Recommended, Actions: actions})
 	}
 	return out, nil
 }
