@@ -109,6 +109,7 @@ var envKeys = []struct {
 	{"store.hash_key_file", func(c *Config, v string) error { c.Store.HashKeyFile = v; return nil }},
 	{"store.retention", func(c *Config, v string) error { return setDuration(&c.Store.Retention, v) }},
 	{"store.purge_interval", func(c *Config, v string) error { return setDuration(&c.Store.PurgeEvery, v) }},
+	{"store.sqlite_synchronous", func(c *Config, v string) error { c.Store.SQLiteSynchronous = v; return nil }},
 	{"auth.algorithms", func(c *Config, v string) error { c.Auth.Algorithms = splitList(v); return nil }},
 	{"auth.clock_skew", func(c *Config, v string) error { return setDuration(&c.Auth.ClockSkew, v) }},
 	{"auth.max_token_lifetime", func(c *Config, v string) error { return setDuration(&c.Auth.MaxLifetime, v) }},

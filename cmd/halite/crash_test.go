@@ -33,14 +33,23 @@ func TestCrashChildServe(t *testing.T) {
 
 // TestCrashLosesNothing kills a serving child with SIGKILL in the middle of
 // a load of service calls and feedback; every card and feedback whose HTTP
-// response was 200 must be in the store after the restart.
+// response was 200 must be in the store after the restart, with commits
+// synced (full) or only written to the WAL (normal): a crash of halite
+// alone loses nothing either way.
 func TestCrashLosesNothing(t *testing.T) {
 	if testing.Short() {
 		t.Skip("crash test")
 	}
+	for _, setting := range []string{feedback.SyncFull, feedback.SyncNormal} {
+		t.Run(setting, func(t *testing.T) { crashLosesNothing(t, setting) })
+	}
+}
+
+func crashLosesNothing(t *testing.T, synchronous string) {
 	db := filepath.Join(t.TempDir(), "halite.db")
 	cmd := exec.Command(os.Args[0], "-test.run=^TestCrashChildServe$")
-	cmd.Env = append(os.Environ(), "HALITE_TEST_CRASH_CHILD=1", "HALITE_STORE_DSN=sqlite:"+db, "HALITE_CONFIG=")
+	cmd.Env = append(os.Environ(), "HALITE_TEST_CRASH_CHILD=1", "HALITE_STORE_DSN=sqlite:"+db, "HALITE_CONFIG=",
+		"HALITE_STORE_SQLITE_SYNCHRONOUS="+synchronous)
 	out, err := cmd.StdoutPipe()
 	if err != nil {
 		t.Fatal(err)

@@ -29,10 +29,15 @@ type StoreConfig struct {
 	HashKeyFile string   `yaml:"hash_key_file"`
 	Retention   Duration `yaml:"retention"`
 	PurgeEvery  Duration `yaml:"purge_interval"`
+	// SQLiteSynchronous is "full" (every commit synced before the card
+	// leaves) or "normal" (commits survive a crash of halite, not of the
+	// machine); see feedback.Options.
+	SQLiteSynchronous string `yaml:"sqlite_synchronous"`
 }
 
 func defaultStoreConfig() StoreConfig {
-	return StoreConfig{DSN: "sqlite:halite-data/halite.db", Retention: Duration(400 * 24 * time.Hour), PurgeEvery: Duration(time.Hour)}
+	return StoreConfig{DSN: "sqlite:halite-data/halite.db", Retention: Duration(400 * 24 * time.Hour), PurgeEvery: Duration(time.Hour),
+		SQLiteSynchronous: feedback.SyncFull}
 }
 
 func (s StoreConfig) postgres() bool {
@@ -42,6 +47,12 @@ func (s StoreConfig) postgres() bool {
 func (s StoreConfig) validate(dev bool) error {
 	if !s.postgres() && (!strings.HasPrefix(s.DSN, "sqlite:") || strings.TrimPrefix(s.DSN, "sqlite:") == "") {
 		return errors.New("config: store.dsn: must be sqlite:PATH or a postgres:// URL")
+	}
+	switch {
+	case s.SQLiteSynchronous != feedback.SyncFull && s.SQLiteSynchronous != feedback.SyncNormal:
+		return fmt.Errorf("config: store.sqlite_synchronous: %q is not %q or %q", s.SQLiteSynchronous, feedback.SyncFull, feedback.SyncNormal)
+	case s.postgres() && s.SQLiteSynchronous != feedback.SyncFull:
+		return errors.New("config: store.sqlite_synchronous: applies to a sqlite: store only; PostgreSQL commits are synced by the server")
 	}
 	if s.Retention <= 0 || s.PurgeEvery <= 0 {
 		return errors.New("config: store.retention and store.purge_interval must be positive")
@@ -80,7 +91,7 @@ func openStore(c StoreConfig, log *slog.Logger) (*feedback.DB, func(string) stri
 		if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
 			return nil, nil, fmt.Errorf("store: %w", err)
 		}
-		st, err = feedback.OpenSQLite(path, feedback.Options{})
+		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous})
 	}
 	if err != nil {
 		return nil, nil, err

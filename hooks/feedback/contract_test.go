@@ -390,3 +390,26 @@ func benchLogCards(b *testing.B, s Store) {
 	b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99-us/call")
 	b.ReportMetric(float64(2*len(lat))/elapsed.Seconds(), "records/s")
 }
+
+// TestSQLiteSynchronous: the store's synchronous setting reaches SQLite
+// (PRAGMA synchronous reads 2 for FULL, 1 for NORMAL; sqlite.org/pragma.html)
+// and an unknown one is refused.
+func TestSQLiteSynchronous(t *testing.T) {
+	for _, tc := range []struct {
+		setting string
+		want    int
+	}{{"", 2}, {SyncFull, 2}, {SyncNormal, 1}} {
+		s, err := OpenSQLite(filepath.Join(t.TempDir(), "s.db"), Options{SQLiteSynchronous: tc.setting})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var got int
+		if err := s.db.QueryRow(`PRAGMA synchronous`).Scan(&got); err != nil || got != tc.want {
+			t.Errorf("%q: synchronous %d (%v), want %d", tc.setting, got, err, tc.want)
+		}
+		s.Close()
+	}
+	if _, err := OpenSQLite(filepath.Join(t.TempDir(), "s.db"), Options{SQLiteSynchronous: "off"}); err == nil {
+		t.Error("synchronous off was accepted")
+	}
+}

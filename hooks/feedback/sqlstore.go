@@ -92,12 +92,33 @@ type Options struct {
 	// waits at most twice this (its turn, then its batch) and then gets
 	// ErrStalled, so a stalled database cannot hang calls or Close.
 	CommitTimeout time.Duration
+	// SQLiteSynchronous is SQLite's synchronous setting for the WAL:
+	// SyncFull (the default) syncs every commit to disk before a card
+	// leaves; SyncNormal writes each commit to the WAL without syncing it,
+	// so a commit survives a crash of halite but not of the machine (or a
+	// power loss), and the disk's sync stalls stay off the call's path
+	// except at checkpoints. Ignored for PostgreSQL.
+	SQLiteSynchronous string
 }
+
+// SQLite synchronous settings (https://sqlite.org/pragma.html#pragma_synchronous).
+const (
+	SyncFull   = "full"
+	SyncNormal = "normal"
+)
 
 // OpenSQLite opens (creating if needed) the database at path, applies the
 // embedded migrations and starts the writer.
 func OpenSQLite(path string, opt Options) (*DB, error) {
-	dsn := "file:" + path + "?_pragma=journal_mode(WAL)&_pragma=synchronous(FULL)&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)"
+	sync := "FULL"
+	switch opt.SQLiteSynchronous {
+	case "", SyncFull:
+	case SyncNormal:
+		sync = "NORMAL"
+	default:
+		return nil, fmt.Errorf("open store %s: synchronous %q is not %q or %q", path, opt.SQLiteSynchronous, SyncFull, SyncNormal)
+	}
+	dsn := "file:" + path + "?_pragma=journal_mode(WAL)&_pragma=synchronous(" + sync + ")&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)"
 	db, err := sql.Open("sqlite", dsn)
 	if err != nil {
 		return nil, fmt.Errorf("open store %s: %w", path, err)
