@@ -91,7 +91,7 @@ func openStore(c StoreConfig, log *slog.Logger) (*feedback.DB, func(string) stri
 		if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
 			return nil, nil, fmt.Errorf("store: %w", err)
 		}
-		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous})
+		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous, Log: log})
 	}
 	if err != nil {
 		return nil, nil, err

@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"io/fs"
+	"log/slog"
 	"slices"
 	"sort"
 	"strconv"
@@ -36,6 +37,10 @@ type DB struct {
 	opt     Options
 	jobs    chan job
 	done    chan struct{}
+	// stopCheckpoints ends the SQLite checkpointer; checkpointsDone is
+	// closed when it has (both nil for PostgreSQL).
+	stopCheckpoints chan struct{}
+	checkpointsDone chan struct{}
 	// mu guards closed: senders hold it shared while queueing, Close
 	// exclusively while closing the queue.
 	mu     sync.RWMutex
@@ -99,6 +104,14 @@ type Options struct {
 	// power loss), and the disk's sync stalls stay off the call's path
 	// except at checkpoints. Ignored for PostgreSQL.
 	SQLiteSynchronous string
+	// CheckpointEvery is how often the SQLite WAL is copied into the
+	// database file, off the writer's path (default 1 s); WALRestartFrames
+	// is the WAL size, in pages, past which the copy also restarts the WAL,
+	// holding the writer once (default 8,192, 32 MiB).
+	CheckpointEvery  time.Duration
+	WALRestartFrames int
+	// Log receives checkpoint failures; nil discards them.
+	Log *slog.Logger
 }
 
 // SQLite synchronous settings (https://sqlite.org/pragma.html#pragma_synchronous).
@@ -118,12 +131,63 @@ func OpenSQLite(path string, opt Options) (*DB, error) {
 	default:
 		return nil, fmt.Errorf("open store %s: synchronous %q is not %q or %q", path, opt.SQLiteSynchronous, SyncFull, SyncNormal)
 	}
-	dsn := "file:" + path + "?_pragma=journal_mode(WAL)&_pragma=synchronous(" + sync + ")&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)"
+	// wal_autocheckpoint(0): SQLite's own checkpoint would run inside
+	// whichever commit crossed its threshold, and every call waiting on
+	// that commit would wait for the copy and its sync; checkpointer does
+	// it beside the writer instead.
+	dsn := "file:" + path + "?_pragma=journal_mode(WAL)&_pragma=synchronous(" + sync + ")&_pragma=wal_autocheckpoint(0)" +
+		"&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)"
 	db, err := sql.Open("sqlite", dsn)
 	if err != nil {
 		return nil, fmt.Errorf("open store %s: %w", path, err)
 	}
-	return start(db, sqliteDialect, opt, path)
+	s, err := start(db, sqliteDialect, opt, path)
+	if err != nil {
+		return nil, err
+	}
+	s.stopCheckpoints, s.checkpointsDone = make(chan struct{}), make(chan struct{})
+	go s.checkpointer()
+	return s, nil
+}
+
+// checkpointer copies the WAL into the database file every
+// CheckpointEvery with a PASSIVE checkpoint, which never holds up the
+// writer. A steady load can keep such copies from ever catching up with
+// the writer, and the WAL is only started over once one has; so when the
+// WAL has grown past WALRestartFrames, a RESTART checkpoint holds the
+// writer once (most of the WAL already copied) and starts it over.
+func (s *DB) checkpointer() {
+	defer close(s.checkpointsDone)
+	t := time.NewTicker(s.opt.CheckpointEvery)
+	defer t.Stop()
+	for {
+		select {
+		case <-s.stopCheckpoints:
+			return
+		case <-t.C:
+		}
+		if err := s.checkpoint(); err != nil && s.opt.Log != nil {
+			s.opt.Log.Warn("store checkpoint failed", "error", err.Error())
+		}
+	}
+}
+
+// checkpoint runs one PASSIVE checkpoint, and a RESTART one if the WAL is
+// still over its bound.
+func (s *DB) checkpoint() error {
+	ctx, cancel := context.WithTimeout(context.Background(), s.opt.CommitTimeout)
+	defer cancel()
+	var busy, frames, copied int
+	if err := s.db.QueryRowContext(ctx, `PRAGMA wal_checkpoint(PASSIVE)`).Scan(&busy, &frames, &copied); err != nil {
+		return fmt.Errorf("checkpoint: %w", err)
+	}
+	if frames <= s.opt.WALRestartFrames {
+		return nil
+	}
+	if err := s.db.QueryRowContext(ctx, `PRAGMA wal_checkpoint(RESTART)`).Scan(&busy, &frames, &copied); err != nil {
+		return fmt.Errorf("checkpoint restart: %w", err)
+	}
+	return nil
 }
 
 // OpenPostgres connects to PostgreSQL at dsn (a postgres:// URL) through a
@@ -147,6 +211,12 @@ func (o Options) withDefaults() Options {
 	}
 	if o.CommitTimeout <= 0 {
 		o.CommitTimeout = 5 * time.Second
+	}
+	if o.CheckpointEvery <= 0 {
+		o.CheckpointEvery = time.Second
+	}
+	if o.WALRestartFrames <= 0 {
+		o.WALRestartFrames = 8192
 	}
 	return o
 }
@@ -441,6 +511,10 @@ func (s *DB) Close() error {
 	close(s.jobs)
 	s.mu.Unlock()
 	<-s.done
+	if s.stopCheckpoints != nil {
+		close(s.stopCheckpoints)
+		<-s.checkpointsDone
+	}
 	return s.db.Close()
 }
 
