@@ -1,6 +1,7 @@
 package hooks
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -106,13 +107,15 @@ func (s *server) call(c *gin.Context) {
 			Message: "must be application/json"})
 		return
 	}
+	// The caller is known before its body is read, so an unauthenticated
+	// client cannot make halite hold buffers for it.
+	ctx, ok := s.authenticate(c, "/cds-services/"+id)
+	if !ok {
+		return
+	}
 	body, err := readBody(c, s.cfg.MaxBodyBytes)
 	if err != nil {
 		s.fail(c, bodyError(err, s.cfg.MaxBodyBytes))
-		return
-	}
-	ctx, ok := s.authenticate(c, "/cds-services/"+id)
-	if !ok {
 		return
 	}
 	if s.cfg.CallTimeout > 0 {
@@ -206,21 +209,29 @@ func (s *server) feedback(c *gin.Context) {
 }
 
 // readBody reads the request body, at most limit bytes. A body whose
-// Content-Length is declared and within the limit is read into one buffer
-// of that size rather than a growing one, which for a large prefetch is
-// most of a call's garbage.
+// Content-Length is declared and within the limit is read into a buffer
+// sized for it rather than a growing one (for a large prefetch, growth was
+// most of a call's garbage); what is set aside before any byte arrives is
+// capped at maxPrealloc, so a declared length alone cannot claim memory.
 func readBody(c *gin.Context, limit int64) ([]byte, error) {
 	r := http.MaxBytesReader(c.Writer, c.Request.Body, limit)
 	n := c.Request.ContentLength
 	if n <= 0 || n > limit {
 		return io.ReadAll(r)
 	}
-	body := make([]byte, n)
-	if _, err := io.ReadFull(r, body); err != nil {
+	// bytes.MinRead spare, so that reading the end of the body does not grow it.
+	buf := bytes.NewBuffer(make([]byte, 0, min(n, maxPrealloc)+bytes.MinRead))
+	if _, err := buf.ReadFrom(r); err != nil {
 		return nil, err
 	}
-	return body, nil
+	if int64(buf.Len()) != n {
+		return nil, io.ErrUnexpectedEOF // net/http ends a body at its declared length
+	}
+	return buf.Bytes(), nil
 }
+
+// maxPrealloc bounds the buffer readBody sets aside for a declared length.
+const maxPrealloc = 1 << 20
 
 // bodyError is the answer to a request body that could not be read: 413
 // when it passed the limit, 400 otherwise.

@@ -5,6 +5,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"log/slog"
@@ -192,6 +193,8 @@ func TestRequestBodyFraming(t *testing.T) {
 	}{
 		{"declared length", valid, false, 200},
 		{"chunked", valid, true, 200},
+		{"declared length at the limit", big[1:], false, 400}, // read whole: all white space is an empty body
+		{"chunked at the limit", big[1:], true, 400},
 		{"declared length over the limit", big, false, 413},
 		{"chunked over the limit", big, true, 413},
 	} {
@@ -238,6 +241,39 @@ func TestRequestBodyFraming(t *testing.T) {
 			t.Errorf("status %d, want 400", resp.StatusCode)
 		}
 	})
+}
+
+// refuseAll is an Authenticator that trusts nobody.
+type refuseAll struct{}
+
+func (refuseAll) Authenticate(context.Context, string, string) (Caller, error) {
+	return Caller{}, errors.New("no trusted issuer")
+}
+
+// TestUnauthenticatedBodyNotRead: a caller that fails authentication is
+// answered 401 before its body is read, however large it says it is.
+func TestUnauthenticatedBodyNotRead(t *testing.T) {
+	cfg := defaultServerConfig()
+	cfg.Authenticator = refuseAll{}
+	srv, _ := testServer(t, cfg)
+	conn, err := net.Dial("tcp", srv.Listener.Addr().String())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	// Headers only: the declared body never comes, so only an answer given
+	// without reading it can arrive.
+	fmt.Fprintf(conn, "POST /cds-services/sodium-infusion-check HTTP/1.1\r\nHost: x\r\n"+
+		"Content-Type: application/json\r\nContent-Length: %d\r\n\r\n", cfg.MaxBodyBytes)
+	conn.SetReadDeadline(time.Now().Add(5 * time.Second))
+	resp, err := http.ReadResponse(bufio.NewReader(conn), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusUnauthorized {
+		t.Errorf("status %d, want 401", resp.StatusCode)
+	}
 }
 
 func TestCORS(t *testing.T) {
