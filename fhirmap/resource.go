@@ -56,8 +56,11 @@ type BundleEntry struct {
 func ParseBundle(raw []byte) (*Bundle, error) {
 	var b struct {
 		ResourceType string `json:"resourceType"`
-		Type         string `json:"type"`
-		Link         []struct {
+		// ID is read, not kept, so that a Bundle is refused when its head is
+		// (a non-string id), as ReadResource would refuse it.
+		ID   string `json:"id"`
+		Type string `json:"type"`
+		Link []struct {
 			Relation string `json:"relation"`
 			URL      string `json:"url"`
 		} `json:"link"`
