@@ -49,7 +49,7 @@ func reportCmd(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	if from.After(to) {
 		return errors.New("report: --from is after --to")
 	}
-	st, _, err := openStore(cfg.Store, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	st, _, err := openStore(cfg.Store, slog.New(slog.NewTextHandler(io.Discard, nil)), true)
 	if err != nil {
 		return err
 	}

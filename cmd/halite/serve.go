@@ -47,7 +47,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	}
 	log := slog.New(traceLogHandler{slog.NewJSONHandler(stderr, &slog.HandlerOptions{Level: logLevels[cfg.LogLevel]})}).
 		With("ruleset", rs.Revision())
-	st, hash, err := openStore(cfg.Store, log)
+	st, hash, err := openStore(cfg.Store, log, false)
 	if err != nil {
 		return err
 	}

@@ -63,8 +63,10 @@ func (s StoreConfig) validate(dev bool) error {
 	return nil
 }
 
-// openStore opens the configured store and the patient hasher.
-func openStore(c StoreConfig, log *slog.Logger) (*feedback.DB, func(string) string, error) {
+// openStore opens the configured store and the patient hasher. A reader
+// (halite report, beside a serving process) leaves WAL checkpoints to the
+// server.
+func openStore(c StoreConfig, log *slog.Logger, reader bool) (*feedback.DB, func(string) string, error) {
 	var key []byte
 	if c.HashKeyFile != "" {
 		k, err := os.ReadFile(c.HashKeyFile)
@@ -91,7 +93,7 @@ func openStore(c StoreConfig, log *slog.Logger) (*feedback.DB, func(string) stri
 		if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
 			return nil, nil, fmt.Errorf("store: %w", err)
 		}
-		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous, Log: log})
+		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous, Log: log, NoCheckpointer: reader})
 	}
 	if err != nil {
 		return nil, nil, err

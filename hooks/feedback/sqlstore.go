@@ -106,10 +106,13 @@ type Options struct {
 	SQLiteSynchronous string
 	// CheckpointEvery is how often the SQLite WAL is copied into the
 	// database file, off the writer's path (default 1 s); WALRestartFrames
-	// is the WAL size, in pages, past which the copy also restarts the WAL,
-	// holding the writer once (default 8,192, 32 MiB).
+	// is the WAL size, in pages, past which the copy also starts the WAL
+	// over, holding new commits for at most restartWait (default 8,192
+	// pages, 32 MiB). NoCheckpointer leaves checkpoints to the serving
+	// process, for a short-lived reader of its database (halite report).
 	CheckpointEvery  time.Duration
 	WALRestartFrames int
+	NoCheckpointer   bool
 	// Log receives checkpoint failures; nil discards them.
 	Log *slog.Logger
 }
@@ -145,49 +148,90 @@ func OpenSQLite(path string, opt Options) (*DB, error) {
 	if err != nil {
 		return nil, err
 	}
+	if opt.NoCheckpointer {
+		return s, nil
+	}
+	conn, err := db.Conn(context.Background())
+	if err != nil {
+		s.Close()
+		return nil, fmt.Errorf("open store %s: %w", path, err)
+	}
+	// The restart waits for readers through the busy handler, and holds
+	// new commits while it waits: on its own connection the wait is short.
+	if _, err := conn.ExecContext(context.Background(), `PRAGMA busy_timeout = `+strconv.FormatInt(restartWait.Milliseconds(), 10)); err != nil {
+		conn.Close()
+		s.Close()
+		return nil, fmt.Errorf("open store %s: %w", path, err)
+	}
 	s.stopCheckpoints, s.checkpointsDone = make(chan struct{}), make(chan struct{})
-	go s.checkpointer()
+	go s.checkpointer(conn)
 	return s, nil
 }
 
+// restartWait bounds how long a WAL restart may hold new commits waiting
+// for a reader; a restart a reader kept from finishing is not tried again
+// for restartBackoff, so that a long reader (halite report) cannot make
+// the writer wait again and again.
+const (
+	restartWait    = 100 * time.Millisecond
+	restartBackoff = 5 * time.Second
+)
+
 // checkpointer copies the WAL into the database file every
-// CheckpointEvery with a PASSIVE checkpoint, which never holds up the
-// writer. A steady load can keep such copies from ever catching up with
-// the writer, and the WAL is only started over once one has; so when the
-// WAL has grown past WALRestartFrames, a RESTART checkpoint holds the
-// writer once (most of the WAL already copied) and starts it over.
-func (s *DB) checkpointer() {
+// CheckpointEvery with a PASSIVE checkpoint on its own connection, which
+// never holds up the writer. A steady load can keep such copies from ever
+// catching up with the writer, and the WAL is only started over once one
+// has; so when the WAL has grown past WALRestartFrames, a RESTART
+// checkpoint (most of the WAL already copied) starts it over, holding new
+// commits for at most restartWait, and not again for restartBackoff if a
+// reader kept it from finishing. A failure is logged when it starts and
+// when it ends, not every second.
+func (s *DB) checkpointer(conn *sql.Conn) {
 	defer close(s.checkpointsDone)
+	defer conn.Close()
 	t := time.NewTicker(s.opt.CheckpointEvery)
 	defer t.Stop()
+	failing := false
+	var restartAfter time.Time
 	for {
 		select {
 		case <-s.stopCheckpoints:
 			return
 		case <-t.C:
 		}
-		if err := s.checkpoint(); err != nil && s.opt.Log != nil {
-			s.opt.Log.Warn("store checkpoint failed", "error", err.Error())
+		blocked, err := s.checkpoint(conn, time.Now().After(restartAfter))
+		if blocked {
+			restartAfter = time.Now().Add(restartBackoff)
 		}
+		if s.opt.Log != nil && (err != nil) != failing {
+			if err != nil {
+				s.opt.Log.Warn("store checkpoint failed; retried every interval", "error", err.Error())
+			} else {
+				s.opt.Log.Info("store checkpoint recovered")
+			}
+		}
+		failing = err != nil
 	}
 }
 
-// checkpoint runs one PASSIVE checkpoint, and a RESTART one if the WAL is
-// still over its bound.
-func (s *DB) checkpoint() error {
+// checkpoint runs one PASSIVE checkpoint and, when restart is allowed and
+// the WAL is still over its bound, a RESTART one; blocked reports a
+// RESTART that a reader kept from finishing (not an error: it is tried
+// again later).
+func (s *DB) checkpoint(conn *sql.Conn, restart bool) (blocked bool, err error) {
 	ctx, cancel := context.WithTimeout(context.Background(), s.opt.CommitTimeout)
 	defer cancel()
 	var busy, frames, copied int
-	if err := s.db.QueryRowContext(ctx, `PRAGMA wal_checkpoint(PASSIVE)`).Scan(&busy, &frames, &copied); err != nil {
-		return fmt.Errorf("checkpoint: %w", err)
+	if err := conn.QueryRowContext(ctx, `PRAGMA wal_checkpoint(PASSIVE)`).Scan(&busy, &frames, &copied); err != nil {
+		return false, fmt.Errorf("checkpoint: %w", err)
 	}
-	if frames <= s.opt.WALRestartFrames {
-		return nil
+	if !restart || frames <= s.opt.WALRestartFrames {
+		return false, nil
 	}
-	if err := s.db.QueryRowContext(ctx, `PRAGMA wal_checkpoint(RESTART)`).Scan(&busy, &frames, &copied); err != nil {
-		return fmt.Errorf("checkpoint restart: %w", err)
+	if err := conn.QueryRowContext(ctx, `PRAGMA wal_checkpoint(RESTART)`).Scan(&busy, &frames, &copied); err != nil {
+		return false, fmt.Errorf("checkpoint restart: %w", err)
 	}
-	return nil
+	return busy == 1, nil
 }
 
 // OpenPostgres connects to PostgreSQL at dsn (a postgres:// URL) through a
