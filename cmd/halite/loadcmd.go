@@ -44,7 +44,8 @@ func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	audBase := fs.String("aud-base", "", "public_base_url of the server (the tokens' audience base; default --url)")
 	baseline := fs.Bool("baseline", false, "also attack the in-process standard-library baseline with the same body")
 	presign := fs.Bool("presign", false, "with --rate and --key, sign every run's tokens (one fresh jti per call) before it starts, "+
-		"so that signing does not compete with the server for CPU while latency is measured")
+		"so that signing does not compete with the server for CPU while latency is measured; each token lives for the run plus "+
+		"a minute (the server's auth.max_token_lifetime must allow it) and its jti stays in the server's replay cache as long")
 	rest, err := parseFlags(fs, args)
 	if err != nil {
 		return err

@@ -336,10 +336,10 @@ func TestLoadCommand(t *testing.T) {
 	}
 }
 
-// TestLoadCommandRefusesPresignWithoutRate: at saturation the number of
-// calls is unknown, so pre-signing is refused, as is a run longer than a
-// pre-signed token may live.
-func TestLoadCommandRefusesPresignWithoutRate(t *testing.T) {
+// TestLoadCommandRefusesUnusablePresign: pre-signing is refused at
+// saturation (the number of calls is unknown), without a key, and for a
+// run longer than a pre-signed token may live.
+func TestLoadCommandRefusesUnusablePresign(t *testing.T) {
 	for _, args := range [][]string{
 		{"--presign", "--key", "k.jwk", "--iss", "https://ehr.example.org"},
 		{"--presign", "--rate", "10"},
@@ -349,6 +349,46 @@ func TestLoadCommandRefusesPresignWithoutRate(t *testing.T) {
 		if err == nil || !strings.Contains(err.Error(), "--presign") {
 			t.Errorf("%v: error %v, want one about --presign", args, err)
 		}
+	}
+}
+
+// TestTokensFor: with presign, rate×duration tokens plus a second's worth
+// are signed before the run, each to live for the run and a minute, and
+// handed out in order before any is signed on demand (for a minute).
+func TestTokensFor(t *testing.T) {
+	var mu sync.Mutex // tokensFor signs on every core
+	var lifetimes []time.Duration
+	sign := func(lifetime time.Duration) (string, error) {
+		mu.Lock()
+		defer mu.Unlock()
+		lifetimes = append(lifetimes, lifetime)
+		return fmt.Sprintf("t%d", len(lifetimes)), nil
+	}
+	next, err := tokensFor(sign, true, 5, 2*time.Second)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(lifetimes) != 15 {
+		t.Fatalf("%d tokens signed before the run, want 15", len(lifetimes))
+	}
+	for _, l := range lifetimes {
+		if l != 2*time.Second+time.Minute {
+			t.Errorf("pre-signed lifetime %s, want 1m2s", l)
+		}
+	}
+	seen := map[string]bool{}
+	for range 15 {
+		tok, _ := next()
+		if seen[tok] {
+			t.Errorf("token %s handed out twice", tok)
+		}
+		seen[tok] = true
+	}
+	if len(lifetimes) != 15 {
+		t.Errorf("%d tokens signed after handing out the pre-signed ones, want none", len(lifetimes)-15)
+	}
+	if tok, _ := next(); seen[tok] || len(lifetimes) != 16 || lifetimes[15] != time.Minute {
+		t.Errorf("the 16th call got %s; want a fresh token signed on demand for a minute", tok)
 	}
 }
 
