@@ -5,7 +5,6 @@ import (
 	"testing"
 
 	"github.com/google/uuid"
-	"github.com/halite-cds/halite/fhirmap"
 )
 
 // TestRecordIDsAreTimeOrdered: card and suggestion uuids are RFC 9562
@@ -15,14 +14,7 @@ import (
 func TestRecordIDsAreTimeOrdered(t *testing.T) {
 	e := testEngine(t, nil)
 	svc := mustService(t, "sodium-drug-risk")
-	bundle, err := fhirmap.ParseBundle(loadBundle(60, scenarioAt))
-	if err != nil {
-		t.Fatal(err)
-	}
-	req, err := BuildRequest(bundle, svc, RequestOptions{Hook: "order-sign", UserID: "Practitioner/load"})
-	if err != nil {
-		t.Fatal(err)
-	}
+	req, _ := loadRequest(t, svc, 60)
 	body := mustMarshal(t, req)
 	seen := map[string]bool{}
 	var last string

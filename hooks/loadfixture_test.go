@@ -162,6 +162,21 @@ func uncapped(b *testing.B, req *Request, bundle *fhirmap.Bundle) *Request {
 	return req
 }
 
+// loadRequest is the order-sign request to svc for the load patient with n
+// Observations, with the bundle it was built from.
+func loadRequest(tb testing.TB, svc Service, n int) (*Request, *fhirmap.Bundle) {
+	tb.Helper()
+	bundle, err := fhirmap.ParseBundle(loadBundle(n, scenarioAt))
+	if err != nil {
+		tb.Fatal(err)
+	}
+	req, err := BuildRequest(bundle, svc, RequestOptions{Hook: "order-sign", UserID: "Practitioner/load"})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return req, bundle
+}
+
 // BenchmarkHandleObservations measures one whole order-sign call —
 // decode, prefetch resolution, mapping, rules, cards — through
 // Engine.Handle for the load patient with 60, 600 and 6,000 Observations,
@@ -171,14 +186,7 @@ func BenchmarkHandleObservations(b *testing.B) {
 	for _, id := range []string{"sodium-infusion-check", "sodium-drug-risk"} {
 		svc := mustService(b, id)
 		for _, n := range []int{60, 600, 6000} {
-			bundle, err := fhirmap.ParseBundle(loadBundle(n, scenarioAt))
-			if err != nil {
-				b.Fatal(err)
-			}
-			req, err := BuildRequest(bundle, svc, RequestOptions{Hook: "order-sign", UserID: "Practitioner/load"})
-			if err != nil {
-				b.Fatal(err)
-			}
+			req, bundle := loadRequest(b, svc, n)
 			body := mustMarshal(b, uncapped(b, req, bundle))
 			out, err := e.Handle(context.Background(), svc.ID, body, scenarioAt)
 			if err != nil || len(out.Response.Cards) == 0 {
@@ -204,14 +212,7 @@ func BenchmarkHandleObservations(b *testing.B) {
 func BenchmarkRenderCards(b *testing.B) {
 	e := testEngine(b, nil)
 	svc := mustService(b, "sodium-drug-risk")
-	bundle, err := fhirmap.ParseBundle(loadBundle(60, scenarioAt))
-	if err != nil {
-		b.Fatal(err)
-	}
-	req, err := BuildRequest(bundle, svc, RequestOptions{Hook: "order-sign", UserID: "Practitioner/load"})
-	if err != nil {
-		b.Fatal(err)
-	}
+	req, _ := loadRequest(b, svc, 60)
 	call, err := DecodeCall(svc, mustMarshal(b, req))
 	if err != nil {
 		b.Fatal(err)
