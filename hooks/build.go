@@ -18,6 +18,8 @@ var orderTypes = map[string]bool{
 type RequestOptions struct {
 	Hook   string
 	UserID string // context.userId, "Practitioner/…"
+	// EncounterID is context.encounterId; empty leaves it out.
+	EncounterID string
 	// Selections for order-select; empty selects every draft order.
 	Selections []string
 	// OmitPrefetch leaves prefetch out, so the service must fetch.
@@ -55,7 +57,7 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 	if patientID == "" {
 		return nil, fmt.Errorf("build request: the bundle holds no Patient with an id")
 	}
-	ctx := HookContext{UserID: opt.UserID, PatientID: patientID}
+	ctx := HookContext{UserID: opt.UserID, PatientID: patientID, EncounterID: opt.EncounterID}
 	if opt.Hook != HookPatientView {
 		if len(drafts) == 0 {
 			return nil, fmt.Errorf("build request: %s needs draft orders, and the bundle holds no order with status \"draft\"", opt.Hook)

@@ -86,8 +86,9 @@ func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 		for _, call := range [][2]string{{"sodium-infusion-check", HookOrderSelect}, {"sodium-infusion-check", HookOrderSign},
 			{"sodium-drug-risk", HookOrderSelect}, {"sodium-drug-risk", HookOrderSign}, {"sodium-chart-review", HookPatientView}} {
 			svc, hook := call[0], call[1]
+			// In an encounter, so that suggested requests carry one too.
 			req, err := BuildRequest(loadScenario(t, name), mustService(t, svc),
-				RequestOptions{Hook: hook, UserID: "Practitioner/test-user"})
+				RequestOptions{Hook: hook, UserID: "Practitioner/test-user", EncounterID: "enc-test"})
 			if err != nil {
 				continue // a scenario without draft orders cannot make an order-hook call
 			}
@@ -104,6 +105,9 @@ func suggestedResourcesValidate(t *testing.T, v *fhirValidator) {
 								t.Errorf("%s %s: delete %+v", name, hook, a)
 							}
 							continue
+						}
+						if a.Type == "create" && !strings.Contains(string(a.Resource), `"encounter":{"reference":"Encounter/enc-test"}`) {
+							t.Errorf("%s %s: %s carries no encounter: %s", name, hook, s.Label, a.Resource)
 						}
 						if err := v.validate(t, a.Resource); err != nil {
 							t.Errorf("%s %s: %s %s does not validate: %v\n%s", name, hook, a.Type, s.Label, err, a.Resource)

@@ -45,6 +45,9 @@ func (t labTest) loinc() (code, display, text string) {
 type suggestionInput struct {
 	At        time.Time
 	PatientID string
+	// EncounterID is context.encounterId, if the call gave one; suggested
+	// requests then belong to that encounter.
+	EncounterID string
 	// Drafts are the draft orders by reference ("MedicationRequest/id").
 	Drafts map[string]json.RawMessage
 }
@@ -192,6 +195,7 @@ type serviceRequest struct {
 	Intent             string          `json:"intent"`
 	Code               codeableConcept `json:"code"`
 	Subject            reference       `json:"subject"`
+	Encounter          *reference      `json:"encounter,omitempty"`
 	SupportingInfo     []reference     `json:"supportingInfo,omitempty"`
 	OccurrenceDateTime string          `json:"occurrenceDateTime"`
 	Note               []annotation    `json:"note"`
@@ -221,6 +225,9 @@ func labRequest(in suggestionInput, order string, test labTest, hours float64) (
 		Subject:            reference{Reference: "Patient/" + in.PatientID},
 		OccurrenceDateTime: in.At.Add(time.Duration(hours * float64(time.Hour))).UTC().Format(time.RFC3339),
 		Note:               []annotation{{Text: text + " suggested by halite; timing per local protocol."}},
+	}
+	if in.EncounterID != "" {
+		sr.Encounter = &reference{Reference: "Encounter/" + in.EncounterID}
 	}
 	if _, ok := in.Drafts[order]; ok {
 		sr.SupportingInfo = []reference{{Reference: order}}

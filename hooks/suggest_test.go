@@ -64,7 +64,16 @@ func TestSuggestionsSkipWhatCannotBeBuilt(t *testing.T) {
 	}
 	res := string(got[0].Actions[0].Resource)
 	if !strings.Contains(res, `"occurrenceDateTime":"2026-11-20T12:00:00Z"`) || !strings.Contains(res, `"reference":"Patient/p1"`) ||
-		strings.Contains(res, "supportingInfo") || !strings.Contains(res, `"code":"2951-2"`) {
+		strings.Contains(res, "supportingInfo") || !strings.Contains(res, `"code":"2951-2"`) || strings.Contains(res, "encounter") {
 		t.Errorf("re-check request %s", res)
+	}
+	// With context.encounterId the request belongs to that encounter
+	// (FHIR R4 ServiceRequest.encounter, Reference(Encounter)).
+	got, err = suggestions(f, suggestionInput{At: at, PatientID: "p1", EncounterID: "enc-7", Drafts: map[string]json.RawMessage{}})
+	if err != nil || len(got) != 1 {
+		t.Fatalf("%+v %v", got, err)
+	}
+	if res := string(got[0].Actions[0].Resource); !strings.Contains(res, `"encounter":{"reference":"Encounter/enc-7"}`) {
+		t.Errorf("re-check request in an encounter %s", res)
 	}
 }

@@ -21,14 +21,15 @@ func (s *stringList) Set(v string) error { *s = append(*s, v); return nil }
 
 // bundleFlags are the flags eval and request share.
 type bundleFlags struct {
-	hook, service, user string
-	selections          stringList
+	hook, service, user, encounter string
+	selections                     stringList
 }
 
 func (b *bundleFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&b.hook, "hook", "", "the `hook` to simulate: order-sign, order-select or patient-view (required)")
 	fs.StringVar(&b.service, "service", "", "run only the service with this `id` (default: every service on the hook)")
 	fs.StringVar(&b.user, "user", "Practitioner/cli-user", "context.userId `reference`")
+	fs.StringVar(&b.encounter, "encounter", "", "context.encounterId: the `id` of the encounter the call is made in (default: none)")
 	fs.Var(&b.selections, "select", "order-select: a draft order `reference` to select, repeatable (default: all drafts)")
 }
 
@@ -55,7 +56,7 @@ func (b *bundleFlags) services(reg *hooks.Registry) ([]hooks.Service, error) {
 }
 
 func (b *bundleFlags) options() hooks.RequestOptions {
-	return hooks.RequestOptions{Hook: b.hook, UserID: b.user, Selections: b.selections}
+	return hooks.RequestOptions{Hook: b.hook, UserID: b.user, EncounterID: b.encounter, Selections: b.selections}
 }
 
 // readBundle reads a FHIR Bundle from path ("-" for standard input).

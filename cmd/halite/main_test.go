@@ -386,6 +386,15 @@ func TestRequestCommand(t *testing.T) {
 	if req.Prefetch != nil || req.FHIRServer != "https://ehr.example.org/fhir" || req.FHIRAuthorization == nil {
 		t.Errorf("--no-prefetch --fhir-server: %s", out.String())
 	}
+	out.Reset()
+	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-drug-risk",
+		"--encounter", "enc-12", file}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	if c, err := hooks.DecodeCall(mustLookup(t, "sodium-drug-risk"), out.Bytes()); err != nil || c.Context.EncounterID != "enc-12" ||
+		c.ContextTokens["encounterId"] != "enc-12" {
+		t.Errorf("--encounter: %v, context %+v", err, c)
+	}
 }
 
 // TestDemoRequestCurrent keeps the README's demo request equal to what
