@@ -101,9 +101,19 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	start := time.Now()
 	body, err := f.next.Fetch(ctx, ref)
 	cause := "ok"
+	// A Fetcher reads, and succeeds only on 200 (OpenTelemetry HTTP
+	// semantic conventions name the attributes); a failure reports the
+	// status it got, if it got one.
+	span.SetAttributes(attribute.String("http.request.method", "GET"))
 	if err != nil {
 		cause = CauseFHIRServer
 		fail(span, cause, err)
+		var st interface{ HTTPStatus() int }
+		if errors.As(err, &st) {
+			span.SetAttributes(attribute.Int("http.response.status_code", st.HTTPStatus()))
+		}
+	} else {
+		span.SetAttributes(attribute.Int("http.response.status_code", 200))
 	}
 	span.SetAttributes(attribute.Int("http.response.body.size", len(body)))
 	f.t.fetchDuration.Record(ctx, time.Since(start).Seconds(), metric.WithAttributes(attribute.String("cause", cause)))

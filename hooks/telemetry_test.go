@@ -282,6 +282,48 @@ func BenchmarkHookCallTracing(b *testing.B) {
 
 type noFetch struct{}
 
+// statusFetch fails as a FHIR server answering status would.
+type statusFetch int
+
+func (s statusFetch) Fetch(context.Context, string) ([]byte, error) { return nil, s }
+func (s statusFetch) Error() string                                 { return fmt.Sprintf("status %d", int(s)) }
+func (s statusFetch) HTTPStatus() int                               { return int(s) }
+
+// TestFetchSpanHTTPAttributes: a fetch span carries the method and the
+// status (200 on success, the server's on a status failure, none when no
+// answer came), per the OpenTelemetry HTTP semantic conventions.
+func TestFetchSpanHTTPAttributes(t *testing.T) {
+	spans := tracetest.NewInMemoryExporter()
+	tel, err := NewTelemetry(sdktrace.NewTracerProvider(sdktrace.WithSyncer(spans)), sdkmetric.NewMeterProvider())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, tc := range []struct {
+		name   string
+		next   Fetcher
+		status int64 // 0: no status attribute
+	}{
+		{"ok", noFetch{}, 200},
+		{"404", statusFetch(404), 404},
+		{"no answer", blockingFetcher{}, 0},
+	} {
+		spans.Reset()
+		ctx, cancel := context.WithCancel(context.Background())
+		cancel() // the blocking fetcher then ends at once
+		tracedFetcher{next: tc.next, t: tel}.Fetch(ctx, "Observation?patient=p")
+		attrs := map[string]attribute.Value{}
+		for _, a := range spans.GetSpans()[0].Attributes {
+			attrs[string(a.Key)] = a.Value
+		}
+		if m := attrs["http.request.method"]; m.AsString() != "GET" {
+			t.Errorf("%s: method %q", tc.name, m.AsString())
+		}
+		if st, ok := attrs["http.response.status_code"]; ok != (tc.status != 0) || st.AsInt64() != tc.status {
+			t.Errorf("%s: status %v (present %v), want %d", tc.name, st.AsInt64(), ok, tc.status)
+		}
+	}
+}
+
 func (noFetch) Fetch(context.Context, string) ([]byte, error) { return []byte("{}"), nil }
 
 // TestFetchSpanResourceType: the fetch span names the resource type of a

@@ -177,6 +177,9 @@ type statusError struct{ code int }
 func (e *statusError) Error() string        { return fmt.Sprintf("%v %d", ErrHTTPStatus, e.code) }
 func (e *statusError) Is(target error) bool { return target == ErrHTTPStatus }
 
+// HTTPStatus is the status the server answered with, for traces.
+func (e *statusError) HTTPStatus() int { return e.code }
+
 // Fetch GETs ref, a FHIR URL relative to the base ("Patient/1",
 // "Observation?…") or an absolute URL on the same origin (a next link).
 // Its errors are *Error.

@@ -55,6 +55,11 @@ func TestPublicReasonForStatus(t *testing.T) {
 	if !errors.As(err, &fe) || fe.Public() != "the FHIR server answered HTTP 404" || !errors.Is(err, fhirclient.ErrHTTPStatus) {
 		t.Errorf("got %v", err)
 	}
+	// The status reaches the fetch span through this method.
+	var st interface{ HTTPStatus() int }
+	if !errors.As(err, &st) || st.HTTPStatus() != 404 {
+		t.Errorf("no HTTPStatus 404 in %v", err)
+	}
 }
 
 // TestAllowPrivateKeepsOtherGuards: a transport for an allowlist entry on a
