@@ -27,9 +27,9 @@ import (
 // loadCmd replays one hook call against a URL at a fixed rate, or as fast
 // as the workers can (--rate 0), for a duration, signing each call with a
 // fresh jti when a key is given (before the run with --presign); with
-// --baseline it runs the same attack
-// against an in-process server that only decodes the JSON body with the
-// standard library and answers {"cards":[]}, so the two can be compared.
+// --baseline it runs the same attack against an in-process server that
+// only decodes the JSON body with the standard library and answers
+// {"cards":[]}, so the two can be compared.
 func loadCmd(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("load", "load --url URL [--service ID] [--hook HOOK] [--rate N] [--workers N] [--duration D] "+
 		"[--key FILE --iss URL --aud-base URL] [--presign] [--baseline] BUNDLE|REQUEST.json", stderr)

@@ -102,7 +102,8 @@ type Options struct {
 	// leaves; SyncNormal writes each commit to the WAL without syncing it,
 	// so a commit survives a crash of halite but not of the machine (or a
 	// power loss), and the disk's sync stalls stay off the call's path
-	// except at checkpoints. Ignored for PostgreSQL.
+	// (checkpoints sync beside the writer; see checkpointer). Ignored for
+	// PostgreSQL.
 	SQLiteSynchronous string
 	// CheckpointEvery is how often the SQLite WAL is copied into the
 	// database file, off the writer's path (default 1 s); WALRestartFrames
