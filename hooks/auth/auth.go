@@ -5,8 +5,10 @@
 package auth
 
 import (
+	"bytes"
 	"context"
 	"crypto"
+	"encoding/base64"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -64,6 +66,13 @@ func (f *Failure) Label() string { return f.Reason }
 
 func fail(reason string) error { return &Failure{Reason: reason} }
 
+// Errors of a token that could not be checked, not a refused one: callers
+// answer them as unavailable (503), not 401. Each wraps its cause.
+var (
+	ErrReplayUnavailable = errors.New("replay cache unavailable")
+	ErrKeysUnavailable   = errors.New("issuer keys unavailable")
+)
+
 // Claims are the verified claims halite uses.
 type Claims struct {
 	Issuer, Subject, Tenant, JTI string
@@ -119,18 +128,25 @@ func (v *Verifier) Issuer(iss string) (Issuer, bool) {
 }
 
 // Verify checks the Authorization header value of a call made to
-// audience (the exact URL called) and returns the verified claims, or a
-// *Failure.
+// audience (the exact URL called) and returns the verified claims, a
+// *Failure for a refused token, or an error wrapping ErrReplayUnavailable
+// or ErrKeysUnavailable (ctx ended while keys were fetched) when the token
+// could not be checked.
 func (v *Verifier) Verify(ctx context.Context, authorization, audience string) (*Claims, error) {
-	raw, ok := strings.CutPrefix(authorization, "Bearer ")
-	if !ok || raw == "" {
+	scheme, raw, _ := strings.Cut(authorization, " ")
+	if !strings.EqualFold(scheme, "Bearer") || raw == "" {
 		return nil, fail("no-bearer-token")
 	}
 	// Read the header and iss without trusting them, to find the issuer
 	// and its key; nothing is fetched before the issuer is known.
-	unverified, _, err := jwt.NewParser().ParseUnverified(raw, jwt.MapClaims{})
+	unverified, parts, err := jwt.NewParser().ParseUnverified(raw, jwt.MapClaims{})
 	if err != nil {
 		return nil, fail("malformed")
+	}
+	// A repeated member would be read last-wins here and perhaps
+	// first-wins elsewhere: refuse it rather than pick.
+	if !distinctMembers(parts[0]) || !distinctMembers(parts[1]) {
+		return nil, fail("duplicate-member")
 	}
 	h := unverified.Header
 	iss, _ := unverified.Claims.(jwt.MapClaims)["iss"].(string)
@@ -142,8 +158,14 @@ func (v *Verifier) Verify(ctx context.Context, authorization, audience string) (
 	if !slices.Contains(v.cfg.Algorithms, alg) {
 		return nil, fail("algorithm")
 	}
-	if typ, _ := h["typ"].(string); typ != "JWT" {
+	if typ, _ := h["typ"].(string); !strings.EqualFold(typ, "JWT") {
 		return nil, fail("typ")
+	}
+	// RFC 7515 §4.1.11: crit lists extensions the recipient must
+	// understand; halite understands none, so any crit is refused, well
+	// formed (a non-empty array of names) or not.
+	if _, present := h["crit"]; present {
+		return nil, fail("crit")
 	}
 	kid, _ := h["kid"].(string)
 	if kid == "" {
@@ -159,6 +181,9 @@ func (v *Verifier) Verify(ctx context.Context, authorization, audience string) (
 	}
 	key, err := v.cfg.Keys.Key(ctx, is.ID, source, kid)
 	if err != nil {
+		if ctx.Err() != nil && errors.Is(err, ctx.Err()) {
+			return nil, fmt.Errorf("%w: %w", ErrKeysUnavailable, err)
+		}
 		return nil, fail("unknown-kid")
 	}
 	tok, err := jwt.NewParser(jwt.WithValidMethods(v.cfg.Algorithms), jwt.WithExpirationRequired(), jwt.WithIssuedAt(),
@@ -192,12 +217,41 @@ func (v *Verifier) Verify(ctx context.Context, authorization, audience string) (
 	}
 	seen, err := v.cfg.Replay.Remember(ctx, is.ID, c.ID, c.ExpiresAt.Add(v.cfg.Skew))
 	if err != nil {
-		return nil, fail("replay-cache-unavailable")
+		return nil, fmt.Errorf("%w: %w", ErrReplayUnavailable, err)
 	}
 	if seen {
 		return nil, fail("replayed")
 	}
 	return &Claims{Issuer: is.ID, Subject: c.Subject, Tenant: c.Tenant, JTI: c.ID, ExpiresAt: c.ExpiresAt.Time}, nil
+}
+
+// distinctMembers reports whether base64url segment seg is a JSON object
+// whose top-level member names (unescaped) are all distinct. The parser
+// has already read seg, so only a repeated name makes it false in practice.
+func distinctMembers(seg string) bool {
+	data, err := base64.RawURLEncoding.DecodeString(seg)
+	if err != nil {
+		return false
+	}
+	dec := json.NewDecoder(bytes.NewReader(data))
+	if t, err := dec.Token(); err != nil || t != json.Delim('{') {
+		return false
+	}
+	seen := map[string]bool{}
+	var value json.RawMessage
+	for dec.More() {
+		t, err := dec.Token()
+		name, ok := t.(string) // inside an object, Token returns names as strings
+		if err != nil || !ok || seen[name] {
+			return false
+		}
+		seen[name] = true
+		// Decoding the value whole skips nested objects and arrays.
+		if err := dec.Decode(&value); err != nil {
+			return false
+		}
+	}
+	return true
 }
 
 // tokenClaims are the registered claims plus CDS Hooks' tenant.

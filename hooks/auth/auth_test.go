@@ -1,17 +1,22 @@
 package auth
 
 import (
+	"bytes"
 	"context"
 	"crypto/ecdsa"
 	"crypto/elliptic"
 	"crypto/rand"
 	"crypto/rsa"
 	"crypto/x509"
+	"encoding/base64"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"strings"
+	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -80,6 +85,30 @@ func sign(t testing.TB, method jwt.SigningMethod, key any, header map[string]any
 	return s
 }
 
+// rawHeader is a valid JOSE header as literal JSON, for signRaw.
+const rawHeader = `{"alg":"ES384","typ":"JWT","kid":"k1"}`
+
+// rawClaims is goodClaims as literal JSON, with members first put before
+// them (each ending in a comma), for signRaw.
+func rawClaims(first string) string {
+	return fmt.Sprintf(`{%s"iss":%q,"sub":"ehr-client","aud":%q,"iat":%d,"exp":%d,"jti":"jti-1","tenant":"north"}`,
+		first, testIss, testAud, testNow.Unix(), testNow.Add(5*time.Minute).Unix())
+}
+
+// signRaw makes an ES384 Authorization header from literal header and
+// claims JSON, which may say what encoding/json never writes (a member
+// twice).
+func signRaw(t testing.TB, key *ecdsa.PrivateKey, header, claims string) string {
+	t.Helper()
+	enc := base64.RawURLEncoding
+	signed := enc.EncodeToString([]byte(header)) + "." + enc.EncodeToString([]byte(claims))
+	sig, err := jwt.SigningMethodES384.Sign(signed, key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return "Bearer " + signed + "." + enc.EncodeToString(sig)
+}
+
 func goodClaims() jwt.MapClaims {
 	return jwt.MapClaims{"iss": testIss, "sub": "ehr-client", "aud": testAud, "iat": testNow.Unix(),
 		"exp": testNow.Add(5 * time.Minute).Unix(), "jti": "jti-1", "tenant": "north"}
@@ -138,6 +167,18 @@ func TestAttacks(t *testing.T) {
 		{"typ not JWT", es(map[string]any{"kid": "k1", "typ": "at+jwt"}, goodClaims()), testAud, "typ"},
 		{"jku off the allowlist", es(map[string]any{"kid": "k1", "typ": "JWT", "jku": offList.URL}, goodClaims()), testAud, "jku-not-allowed"},
 		{"signed by another key with the same kid", "Bearer " + sign(t, jwt.SigningMethodES384, k.other, hdr, goodClaims()), testAud, "signature"},
+		{"crit naming an extension", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": []string{"exp"}}, goodClaims()), testAud, "crit"},
+		{"crit naming b64", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": []string{"b64"}, "b64": true}, goodClaims()), testAud, "crit"},
+		{"crit empty", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": []string{}}, goodClaims()), testAud, "crit"},
+		{"crit a string", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": "exp"}, goodClaims()), testAud, "crit"},
+		{"crit with a number", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": []any{1}}, goodClaims()), testAud, "crit"},
+		{"crit null", es(map[string]any{"kid": "k1", "typ": "JWT", "crit": json.RawMessage("null")}, goodClaims()), testAud, "crit"},
+		{"header repeats kid", signRaw(t, k.ec, `{"alg":"ES384","typ":"JWT","kid":"nope","kid":"k1"}`, rawClaims("")), testAud, "duplicate-member"},
+		{"header repeats alg", signRaw(t, k.ec, `{"alg":"none","typ":"JWT","alg":"ES384","kid":"k1"}`, rawClaims("")), testAud, "duplicate-member"},
+		{"claims repeat aud", signRaw(t, k.ec, rawHeader, rawClaims(`"aud":"https://elsewhere.example.org",`)), testAud, "duplicate-member"},
+		{"claims repeat aud through an escape", signRaw(t, k.ec, rawHeader, rawClaims(`"\u0061ud":"https://elsewhere.example.org",`)), testAud, "duplicate-member"},
+		{"claims repeat jti with the same value", signRaw(t, k.ec, rawHeader, rawClaims(`"jti":"jti-1",`)), testAud, "duplicate-member"},
+		{"scheme only starting with Bearer", "Bearerx " + sign(t, jwt.SigningMethodES384, k.ec, hdr, goodClaims()), testAud, "no-bearer-token"},
 		{"wrong tenant", es(hdr, with(goodClaims(), "tenant", "south")), testAud, "tenant"},
 		{"no tenant when the issuer has tenants", es(hdr, with(goodClaims(), "tenant", nil)), testAud, "tenant"},
 	} {
@@ -340,19 +381,26 @@ func TestJWKSFailures(t *testing.T) {
 	slow.Store(true)
 	now = now.Add(time.Hour)
 	first, cancel := context.WithCancel(ctx)
-	errs := make(chan error, 2)
-	go func() { errs <- key(first) }()
+	firstErr, secondErr := make(chan error, 1), make(chan error, 1)
+	go func() { firstErr <- key(first) }()
 	for hits.Load() < 5 {
 		time.Sleep(time.Millisecond)
 	}
-	go func() { errs <- key(ctx) }()
+	go func() { secondErr <- key(ctx) }()
 	time.Sleep(20 * time.Millisecond)
 	cancel()
-	time.Sleep(20 * time.Millisecond)
+	// The first caller stops waiting at once, though the fetch goes on.
+	select {
+	case err := <-firstErr:
+		if !errors.Is(err, context.Canceled) {
+			t.Errorf("first caller after its context ended: %v; want context.Canceled", err)
+		}
+	case <-time.After(10 * time.Second): // a hang guard, not a timing assertion
+		t.Error("first caller still waiting on the shared fetch after its context ended")
+	}
 	close(release)
-	e1, e2 := <-errs, <-errs
-	if e1 != nil || e2 != nil {
-		t.Errorf("shared fetch after the first caller gave up: %v, %v; want both keys", e1, e2)
+	if err := <-secondErr; err != nil {
+		t.Errorf("second caller of the shared fetch after the first gave up: %v; want the key", err)
 	}
 }
 
@@ -385,5 +433,225 @@ func TestMemoryReplay(t *testing.T) {
 		if seen != s.seen || (err != nil) != s.refusing {
 			t.Errorf("step %d (%s): seen %v err %v; want seen %v refusing %v", i, s.jti, seen, err, s.seen, s.refusing)
 		}
+	}
+}
+
+// TestRFCTolerance: what the RFCs allow is accepted: the auth scheme in
+// any case (RFC 7235 §2.1), typ in any case (RFC 7515 §4.1.9), and nested
+// values that reuse top-level member names (only top-level names must be
+// distinct).
+func TestRFCTolerance(t *testing.T) {
+	k := newTestKeys(t)
+	v := newTestVerifier(t, k, nil)
+	hdr := map[string]any{"kid": "k1", "typ": "JWT"}
+	tok := func(h map[string]any, jti string) string {
+		return sign(t, jwt.SigningMethodES384, k.ec, h, with(goodClaims(), "jti", jti))
+	}
+	for _, tc := range []struct{ name, header string }{
+		{"scheme lower case", "bearer " + tok(hdr, "a")},
+		{"scheme upper case", "BEARER " + tok(hdr, "b")},
+		{"scheme mixed case", "bEaReR " + tok(hdr, "c")},
+		{"typ lower case", "Bearer " + tok(map[string]any{"kid": "k1", "typ": "jwt"}, "d")},
+		{"typ mixed case", "Bearer " + tok(map[string]any{"kid": "k1", "typ": "Jwt"}, "e")},
+		{"nested claims reusing top-level names", signRaw(t, k.ec, rawHeader,
+			strings.Replace(rawClaims(`"cnf":{"jti":"x","aud":{"aud":1}},"list":[{"iss":1},{"iss":2}],"s":"\"jti\":",`), "jti-1", "f", 1))},
+		{"nested header value reusing kid", signRaw(t, k.ec, `{"alg":"ES384","x":{"kid":"a","typ":[]},"typ":"JWT","kid":"k1"}`,
+			strings.Replace(rawClaims(""), "jti-1", "g", 1))},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if _, err := v.Verify(context.Background(), tc.header, testAud); err != nil {
+				t.Errorf("refused: %v", err)
+			}
+		})
+	}
+}
+
+// failingReplay is a replay cache whose store is down.
+type failingReplay struct{ err error }
+
+func (f failingReplay) Remember(context.Context, string, string, time.Time) (bool, error) {
+	return false, f.err
+}
+
+// TestReplayUnavailable: a replay cache that cannot answer is not a refused
+// token: the error is ErrReplayUnavailable wrapping the cause, never a
+// *Failure (which callers answer 401).
+func TestReplayUnavailable(t *testing.T) {
+	k := newTestKeys(t)
+	storeDown := errors.New("store down")
+	for _, tc := range []struct {
+		name   string
+		replay ReplayCache
+		cause  string
+		wraps  error // the cause itself, when it is a value the test holds
+	}{
+		{"store error", failingReplay{storeDown}, storeDown.Error(), storeDown},
+		{"memory cache full", NewMemoryReplay(0, func() time.Time { return testNow }), "replay cache full", nil},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			ks := NewKeySource(KeySourceConfig{MaxBytes: 1 << 16, Refresh: time.Hour})
+			v, err := NewVerifier(Config{Issuers: []Issuer{{ID: testIss, JWKS: jwks(t, map[string]any{"k1": &k.ec.PublicKey})}},
+				MaxLifetime: 10 * time.Minute, Keys: ks, Replay: tc.replay, Now: func() time.Time { return testNow }})
+			if err != nil {
+				t.Fatal(err)
+			}
+			tok := "Bearer " + sign(t, jwt.SigningMethodES384, k.ec, map[string]any{"kid": "k1", "typ": "JWT"}, goodClaims())
+			_, err = v.Verify(context.Background(), tok, testAud)
+			var f *Failure
+			if !errors.Is(err, ErrReplayUnavailable) || errors.As(err, &f) || !strings.Contains(fmt.Sprint(err), tc.cause) {
+				t.Errorf("got %v; want ErrReplayUnavailable wrapping %q, not a Failure", err, tc.cause)
+			}
+			if tc.wraps != nil && !errors.Is(err, tc.wraps) {
+				t.Errorf("%v does not wrap %v", err, tc.wraps)
+			}
+		})
+	}
+}
+
+// lockedBuffer is a log sink a test may read while a fetch writes to it.
+type lockedBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *lockedBuffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedBuffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
+}
+
+// TestJWKSRedirectNotFollowed: a key URL that redirects to another
+// server's key set does not make tokens signed by that set verify, even
+// with a caller's client that follows redirects; the failed fetch is
+// logged once per attempt, and once the URL serves its own set again the
+// genuine key works and the forged token stays refused.
+func TestJWKSRedirectNotFollowed(t *testing.T) {
+	k := newTestKeys(t)
+	var attackerHits atomic.Int64
+	attacker := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		attackerHits.Add(1)
+		w.Write(jwks(t, map[string]any{"k1": &k.other.PublicKey}))
+	}))
+	defer attacker.Close()
+	hdr := map[string]any{"kid": "k1", "typ": "JWT"}
+	claims := with(goodClaims(), "tenant", nil)
+	for _, code := range []int{http.StatusMovedPermanently, http.StatusFound, http.StatusSeeOther,
+		http.StatusTemporaryRedirect, http.StatusPermanentRedirect} {
+		t.Run(fmt.Sprint(code), func(t *testing.T) {
+			var redirecting atomic.Bool
+			redirecting.Store(true)
+			var hits atomic.Int64
+			keys := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+				hits.Add(1)
+				if redirecting.Load() {
+					http.Redirect(w, r, attacker.URL+"/jwks", code)
+					return
+				}
+				w.Write(jwks(t, map[string]any{"k1": &k.ec.PublicKey}))
+			}))
+			defer keys.Close()
+			var logs lockedBuffer
+			now := testNow
+			ks := NewKeySource(KeySourceConfig{Client: http.DefaultClient, MaxBytes: 1 << 16, Refresh: time.Hour,
+				MinRefresh: time.Minute, Now: func() time.Time { return now }, Log: slog.New(slog.NewTextHandler(&logs, nil))})
+			v, err := NewVerifier(Config{Issuers: []Issuer{{ID: testIss, JWKSURL: keys.URL}}, MaxLifetime: 10 * time.Minute,
+				Keys: ks, Replay: NewMemoryReplay(100, func() time.Time { return testNow }), Now: func() time.Time { return testNow }})
+			if err != nil {
+				t.Fatal(err)
+			}
+			forged := sign(t, jwt.SigningMethodES384, k.other, hdr, with(claims, "jti", "forged"))
+			for i := 0; i < 2; i++ { // the second within MinRefresh: no new attempt
+				var f *Failure
+				if _, err := v.Verify(context.Background(), "Bearer "+forged, testAud); !errors.As(err, &f) || f.Reason != "unknown-kid" {
+					t.Fatalf("token signed by the redirect target's key: %v; want refusal unknown-kid", err)
+				}
+			}
+			if attackerHits.Load() != 0 || hits.Load() != 1 {
+				t.Errorf("redirect target fetched %d times, key URL %d; want 0 and 1", attackerHits.Load(), hits.Load())
+			}
+			logged := logs.String()
+			if strings.Count(logged, "level=WARN") != 1 || !strings.Contains(logged, keys.URL) ||
+				!strings.Contains(logged, fmt.Sprintf("redirected (status %d); redirects are not followed", code)) {
+				t.Errorf("log %q; want one WARN naming the URL and the redirect", logged)
+			}
+			if strings.Contains(logged, forged) {
+				t.Error("the token was logged")
+			}
+
+			redirecting.Store(false)
+			now = now.Add(2 * time.Minute)
+			genuine := "Bearer " + sign(t, jwt.SigningMethodES384, k.ec, hdr, with(claims, "jti", "genuine"))
+			if _, err := v.Verify(context.Background(), genuine, testAud); err != nil {
+				t.Fatalf("genuine token after the URL recovered: %v", err)
+			}
+			var f *Failure
+			if _, err := v.Verify(context.Background(), "Bearer "+forged, testAud); !errors.As(err, &f) || f.Reason != "signature" {
+				t.Errorf("forged token after the URL recovered: %v; want refusal signature", err)
+			}
+			if attackerHits.Load() != 0 {
+				t.Errorf("redirect target fetched %d times", attackerHits.Load())
+			}
+		})
+	}
+}
+
+// TestKeyGivesUpAtDeadline: a caller waiting on a JWKS fetch that hangs
+// returns when its own context ends, with an error wrapping ctx.Err();
+// Verify reports that as ErrKeysUnavailable, not a refused token. The
+// shared fetch goes on and its result serves later callers.
+func TestKeyGivesUpAtDeadline(t *testing.T) {
+	k := newTestKeys(t)
+	var hits atomic.Int64
+	release := make(chan struct{})
+	var releaseOnce sync.Once
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		hits.Add(1)
+		<-release
+		w.Write(jwks(t, map[string]any{"k1": &k.ec.PublicKey}))
+	}))
+	t.Cleanup(srv.Close)
+	t.Cleanup(func() { releaseOnce.Do(func() { close(release) }) }) // before srv.Close, which waits for handlers
+	ks := NewKeySource(KeySourceConfig{Client: srv.Client(), MaxBytes: 1 << 16, Refresh: time.Hour, MinRefresh: time.Minute,
+		Now: func() time.Time { return testNow }})
+	v, err := NewVerifier(Config{Issuers: []Issuer{{ID: testIss, JWKSURL: srv.URL}}, MaxLifetime: 10 * time.Minute,
+		Keys: ks, Replay: NewMemoryReplay(100, func() time.Time { return testNow }), Now: func() time.Time { return testNow }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tok := "Bearer " + sign(t, jwt.SigningMethodES384, k.ec, map[string]any{"kid": "k1", "typ": "JWT"}, with(goodClaims(), "tenant", nil))
+	for _, tc := range []struct {
+		name  string
+		call  func(context.Context) error
+		other error // besides context.DeadlineExceeded, the error wraps this
+	}{
+		{"Key", func(ctx context.Context) error { _, err := ks.Key(ctx, testIss, srv.URL, "k1"); return err }, nil},
+		{"Verify", func(ctx context.Context) error { _, err := v.Verify(ctx, tok, testAud); return err }, ErrKeysUnavailable},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			ctx, cancel := context.WithTimeout(context.Background(), 50*time.Millisecond)
+			defer cancel()
+			done := make(chan error, 1)
+			go func() { done <- tc.call(ctx) }()
+			var err error
+			select {
+			case err = <-done:
+			case <-time.After(10 * time.Second): // a hang guard, not a timing assertion
+				t.Fatal("still waiting on the fetch after its context ended")
+			}
+			var f *Failure
+			if !errors.Is(err, context.DeadlineExceeded) || errors.As(err, &f) || (tc.other != nil && !errors.Is(err, tc.other)) {
+				t.Errorf("got %v; want an error wrapping context.DeadlineExceeded and %v, not a Failure", err, tc.other)
+			}
+		})
+	}
+	releaseOnce.Do(func() { close(release) })
+	if _, err := v.Verify(context.Background(), tok, testAud); err != nil || hits.Load() != 1 {
+		t.Errorf("after the shared fetch ended: %v, %d fetches; want the token verified from that one fetch", err, hits.Load())
 	}
 }

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"log/slog"
 	"net/http"
 	"sync"
 	"time"
@@ -19,9 +20,11 @@ import (
 // most once every MinRefresh, whether the last attempt succeeded or not
 // (an unknown kid or a failing server cannot make halite hammer it); when
 // a refetch fails, the last good set is still used for StaleGrace past its
-// Refresh. One fetch at a time per URL, not tied to any one caller.
+// Refresh. One fetch at a time per URL, not tied to any one caller. No
+// redirect is followed: a 3xx answer is a failed fetch.
 type KeySource struct {
 	client     *http.Client
+	log        *slog.Logger
 	maxBytes   int64
 	refresh    time.Duration
 	minRefresh time.Duration
@@ -44,7 +47,7 @@ type urlState struct {
 
 // KeySourceConfig bounds the JWKS fetches.
 type KeySourceConfig struct {
-	Client     *http.Client  // with its timeout; never follows redirects off the URL's origin
+	Client     *http.Client  // with its timeout; NewKeySource turns its redirects off
 	MaxBytes   int64         // largest JWKS document read
 	Refresh    time.Duration // how long a fetched set is used
 	MinRefresh time.Duration // least time between fetches of one URL
@@ -52,14 +55,27 @@ type KeySourceConfig struct {
 	// refetching fails (0: not at all).
 	StaleGrace time.Duration
 	Now        func() time.Time
+	// Log receives a WARN per failed fetch, naming the URL (configuration,
+	// never a token); nil logs nothing.
+	Log *slog.Logger
 }
 
-// NewKeySource returns an empty KeySource.
+// NewKeySource returns an empty KeySource. It uses a copy of cfg.Client
+// that follows no redirect, so a key URL cannot hand halite another
+// origin's key set.
 func NewKeySource(cfg KeySourceConfig) *KeySource {
 	if cfg.Now == nil {
 		cfg.Now = time.Now
 	}
-	return &KeySource{client: cfg.Client, maxBytes: cfg.MaxBytes, refresh: cfg.Refresh, minRefresh: cfg.MinRefresh,
+	if cfg.Log == nil {
+		cfg.Log = slog.New(slog.DiscardHandler)
+	}
+	var client http.Client
+	if cfg.Client != nil {
+		client = *cfg.Client
+	}
+	client.CheckRedirect = func(*http.Request, []*http.Request) error { return http.ErrUseLastResponse }
+	return &KeySource{client: &client, log: cfg.Log, maxBytes: cfg.MaxBytes, refresh: cfg.Refresh, minRefresh: cfg.MinRefresh,
 		staleGrace: cfg.StaleGrace, now: cfg.Now, inline: map[string]map[string]publicKey{}, fetched: map[string]*urlState{}}
 }
 
@@ -107,9 +123,16 @@ func (s *KeySource) Key(ctx context.Context, issuer, url, kid string) (publicKey
 		return s.fromLast(cur, now, kid)
 	}
 	// The fetch is shared by every caller waiting on this URL, so it must
-	// not end when the first of them gives up; the client's timeout bounds it.
-	v, _, _ := s.group.Do(url, func() (any, error) { return s.fetch(context.WithoutCancel(ctx), url), nil })
-	return s.fromLast(v.(urlState), now, kid)
+	// not end when the first of them gives up; the client's timeout bounds
+	// it, and its result is recorded for later callers. Each caller waits
+	// only until its own ctx ends.
+	ch := s.group.DoChan(url, func() (any, error) { return s.fetch(context.WithoutCancel(ctx), url), nil })
+	select {
+	case r := <-ch:
+		return s.fromLast(r.Val.(urlState), now, kid)
+	case <-ctx.Done():
+		return nil, fmt.Errorf("jwks %s: %w", url, ctx.Err())
+	}
 }
 
 // fromLast answers kid from a URL's state without fetching: the set while
@@ -140,7 +163,9 @@ func (s *KeySource) fetch(ctx context.Context, url string) urlState {
 		s.fetched[url] = st
 	}
 	st.attempted, st.err = s.now(), err
-	if err == nil {
+	if err != nil {
+		s.log.Warn("jwks fetch failed", "url", url, "error", err.Error())
+	} else {
 		st.keys, st.at = keys, st.attempted
 	}
 	return *st
@@ -157,6 +182,9 @@ func (s *KeySource) get(ctx context.Context, url string) (map[string]publicKey, 
 		return nil, fmt.Errorf("jwks %s: %w", url, err)
 	}
 	defer resp.Body.Close()
+	if resp.StatusCode/100 == 3 && resp.Header.Get("Location") != "" {
+		return nil, fmt.Errorf("jwks %s: redirected (status %d); redirects are not followed", url, resp.StatusCode)
+	}
 	if resp.StatusCode != http.StatusOK {
 		return nil, fmt.Errorf("jwks %s: status %d", url, resp.StatusCode)
 	}

@@ -1,8 +1,9 @@
 // Package fhirclient is halite's outbound FHIR client: it reads from the
 // fhirServer a CDS client names, with that client's bearer token, under the
 // call's deadline, with bounded response size, and never leaves the server's
-// origin. Errors never contain the token or the query string (which carries
-// patient identifiers).
+// origin; it follows no redirect (a 3xx answer is a failed fetch). Errors
+// never contain the token or the query string (which carries patient
+// identifiers).
 package fhirclient
 
 import (
@@ -13,6 +14,7 @@ import (
 	"net"
 	"net/http"
 	"net/url"
+	"slices"
 	"strings"
 	"syscall"
 	"time"
@@ -28,6 +30,15 @@ type Options struct {
 	// Transport is the transport to use, normally one NewTransport shared by
 	// all clients; nil makes a new guarded one.
 	Transport http.RoundTripper
+	// Budget, when set, is where the client takes every byte of an answer
+	// before reading it; when it refuses, the fetch fails wrapping its error
+	// (and ErrBudget), having read no more. Typically one call's budget.
+	Budget Budget
+}
+
+// Budget gives bytes or refuses at once; it never waits.
+type Budget interface {
+	Take(n int64) error
 }
 
 // Client reads from one FHIR server with one token.
@@ -36,18 +47,18 @@ type Client struct {
 	token    string
 	http     *http.Client
 	maxBytes int64
+	budget   Budget
 }
 
 // Errors a caller may test for.
 var (
-	ErrInsecure     = errors.New("fhirServer must use https")
-	ErrOffOrigin    = errors.New("URL is not on the fhirServer's origin")
-	ErrTooLarge     = errors.New("response is larger than the limit")
-	ErrHTTPStatus   = errors.New("unexpected HTTP status")
-	ErrRedirectAway = errors.New("redirect leaves the fhirServer's origin")
-	ErrBadRef       = errors.New("not a valid FHIR URL")
-
-	errTooManyRedirects = errors.New("too many redirects")
+	ErrInsecure   = errors.New("fhirServer must use https")
+	ErrOffOrigin  = errors.New("URL is not on the fhirServer's origin")
+	ErrTooLarge   = errors.New("response is larger than the limit")
+	ErrHTTPStatus = errors.New("unexpected HTTP status")
+	ErrRedirect   = errors.New("redirect not followed") // also an ErrHTTPStatus
+	ErrBadRef     = errors.New("not a valid FHIR URL")
+	ErrBudget     = errors.New("the byte budget for answers is spent")
 )
 
 // New returns a client for server (the base URL) and token.
@@ -65,7 +76,7 @@ func New(server, token string, opt Options) (*Client, error) {
 	if opt.MaxResponseBytes <= 0 {
 		return nil, fmt.Errorf("fhir client: MaxResponseBytes must be positive")
 	}
-	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes}
+	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes, budget: opt.Budget}
 	transport := opt.Transport
 	if transport == nil {
 		transport = NewTransport(opt.AllowHTTPLoopback, false)
@@ -73,15 +84,9 @@ func New(server, token string, opt Options) (*Client, error) {
 	c.http = &http.Client{
 		Timeout:   opt.Timeout,
 		Transport: transport,
-		CheckRedirect: func(req *http.Request, via []*http.Request) error {
-			if len(via) >= 3 {
-				return errTooManyRedirects
-			}
-			if !c.sameOrigin(req.URL) {
-				return ErrRedirectAway
-			}
-			return nil
-		},
+		// No redirect is followed, so the token goes to no other URL; the
+		// 3xx itself is returned and refused in fetch.
+		CheckRedirect: func(*http.Request, []*http.Request) error { return http.ErrUseLastResponse },
 	}
 	return c, nil
 }
@@ -171,11 +176,22 @@ func (e *Error) Unwrap() error { return e.Err }
 // Public returns the reason to show the caller.
 func (e *Error) Public() string { return e.Reason }
 
-// statusError is a non-200 answer.
-type statusError struct{ code int }
+// statusError is a non-200 answer; redirect marks a 3xx with a Location.
+type statusError struct {
+	code     int
+	redirect bool
+}
 
-func (e *statusError) Error() string        { return fmt.Sprintf("%v %d", ErrHTTPStatus, e.code) }
-func (e *statusError) Is(target error) bool { return target == ErrHTTPStatus }
+func (e *statusError) Error() string {
+	if e.redirect {
+		return fmt.Sprintf("%v (HTTP %d)", ErrRedirect, e.code)
+	}
+	return fmt.Sprintf("%v %d", ErrHTTPStatus, e.code)
+}
+
+func (e *statusError) Is(target error) bool {
+	return target == ErrHTTPStatus || (e.redirect && target == ErrRedirect)
+}
 
 // HTTPStatus is the status the server answered with, for traces.
 func (e *statusError) HTTPStatus() int { return e.code }
@@ -194,14 +210,18 @@ func (c *Client) Fetch(ctx context.Context, ref string) ([]byte, error) {
 func publicReason(err error) string {
 	var se *statusError
 	switch {
+	case errors.Is(err, ErrRedirect):
+		return "the FHIR server answered with a redirect, which halite does not follow"
 	case errors.As(err, &se):
 		return fmt.Sprintf("the FHIR server answered HTTP %d", se.code)
 	case errors.Is(err, ErrTooLarge):
 		return "the FHIR server's answer was larger than the limit"
+	case errors.Is(err, ErrBudget):
+		return "the answer did not fit halite's byte budget"
 	case errors.Is(err, context.DeadlineExceeded):
 		return "the FHIR server did not answer in time"
-	case errors.Is(err, ErrOffOrigin), errors.Is(err, ErrRedirectAway), errors.Is(err, ErrBadRef):
-		return "a link or redirect pointed away from fhirServer"
+	case errors.Is(err, ErrOffOrigin), errors.Is(err, ErrBadRef):
+		return "a link pointed away from fhirServer"
 	}
 	return "the FHIR server could not be reached"
 }
@@ -226,16 +246,65 @@ func (c *Client) fetch(ctx context.Context, ref string) ([]byte, error) {
 	defer resp.Body.Close()
 	if resp.StatusCode != http.StatusOK {
 		_, _ = io.Copy(io.Discard, io.LimitReader(resp.Body, 64<<10))
-		return nil, fmt.Errorf("fetch %s: %w", op, &statusError{resp.StatusCode})
+		redirect := resp.StatusCode/100 == 3 && resp.Header.Get("Location") != ""
+		return nil, fmt.Errorf("fetch %s: %w", op, &statusError{code: resp.StatusCode, redirect: redirect})
 	}
-	body, err := io.ReadAll(io.LimitReader(resp.Body, c.maxBytes+1))
-	if err != nil {
-		return nil, fmt.Errorf("fetch %s: reading body: %w", op, cause(err))
-	}
-	if int64(len(body)) > c.maxBytes {
+	if resp.ContentLength > c.maxBytes {
 		return nil, fmt.Errorf("fetch %s: %w of %d bytes", op, ErrTooLarge, c.maxBytes)
 	}
+	body, err := c.readBody(resp)
+	if err != nil {
+		return nil, fmt.Errorf("fetch %s: %w", op, err)
+	}
 	return body, nil
+}
+
+// readChunk is how much of an answer of undeclared length is taken from
+// the budget at a time.
+const readChunk = 64 << 10
+
+// readBody reads an answer of at most maxBytes, taking each part from the
+// budget before reading it: a declared length at once, into a buffer of
+// that size; an undeclared one a chunk at a time.
+func (c *Client) readBody(resp *http.Response) ([]byte, error) {
+	take := func(n int64) error {
+		if c.budget == nil {
+			return nil
+		}
+		if err := c.budget.Take(n); err != nil {
+			return fmt.Errorf("%w: %w", ErrBudget, err)
+		}
+		return nil
+	}
+	if n := resp.ContentLength; n >= 0 {
+		if err := take(n); err != nil {
+			return nil, err
+		}
+		body := make([]byte, n)
+		if _, err := io.ReadFull(resp.Body, body); err != nil {
+			return nil, fmt.Errorf("reading body: %w", cause(err))
+		}
+		return body, nil
+	}
+	var body []byte
+	for {
+		if int64(len(body)) > c.maxBytes {
+			return nil, fmt.Errorf("%w of %d bytes", ErrTooLarge, c.maxBytes)
+		}
+		step := min(readChunk, c.maxBytes+1-int64(len(body)))
+		if err := take(step); err != nil {
+			return nil, err
+		}
+		body = slices.Grow(body, int(step))
+		n, err := io.ReadFull(resp.Body, body[len(body):len(body)+int(step)])
+		body = body[:len(body)+n]
+		switch {
+		case errors.Is(err, io.ErrUnexpectedEOF), errors.Is(err, io.EOF):
+			return body, nil
+		case err != nil:
+			return nil, fmt.Errorf("reading body: %w", cause(err))
+		}
+	}
 }
 
 // resolve makes ref absolute and names the operation for errors by its
@@ -276,10 +345,6 @@ func operation(p string) string {
 // query holds patient identifiers) and keeps context errors testable.
 func cause(err error) error {
 	switch {
-	case errors.Is(err, ErrRedirectAway):
-		return ErrRedirectAway
-	case errors.Is(err, errTooManyRedirects):
-		return errTooManyRedirects
 	case errors.Is(err, context.Canceled):
 		return fmt.Errorf("cancelled: %w", context.Canceled)
 	case errors.Is(err, context.DeadlineExceeded):

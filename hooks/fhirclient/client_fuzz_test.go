@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"net/http"
+	"net/url"
 	"strings"
 	"sync"
 	"testing"
@@ -22,8 +23,10 @@ func (failingReader) Read([]byte) (int, error) { return 0, errors.New("connectio
 
 // FuzzFetch checks, for any ref and any redirect target, that every request
 // that leaves the client goes to the fhirServer's scheme and host, under its
-// base path (textually), with the token; and that no error carries the token,
-// the query string or (unless the ref spells it) the patient id.
+// base path (textually), with the token; that no redirect is followed (one
+// request at most, and a redirect with a usable Location is ErrRedirect);
+// and that no error carries the token, the query string or (unless the ref
+// spells it) the patient id.
 func FuzzFetch(f *testing.F) {
 	for _, seed := range []struct {
 		ref, loc string
@@ -76,8 +79,8 @@ func FuzzFetch(f *testing.F) {
 				if got := r.Header.Get("Authorization"); got != "Bearer "+secretToken {
 					t.Errorf("ref %q loc %q: Authorization %q", ref, loc, got)
 				}
-				if n > 10 {
-					t.Errorf("ref %q loc %q: %d requests", ref, loc, n)
+				if n > 1 {
+					t.Errorf("ref %q loc %q: %d requests; a redirect was followed", ref, loc, n)
 				}
 				resp := &http.Response{
 					StatusCode: http.StatusOK,
@@ -106,6 +109,16 @@ func FuzzFetch(f *testing.F) {
 				t.Fatal(err)
 			}
 			_, err = c.Fetch(t.Context(), ref+"?"+secretQuery)
+			mu.Lock()
+			sent := calls
+			mu.Unlock()
+			if mode%5 == 4 && loc != "" && sent == 1 {
+				// The client reads Location before it asks whether to follow
+				// it; one it cannot parse fails as a transport error.
+				if _, perr := url.Parse(loc); err == nil || (perr == nil && !errors.Is(err, fhirclient.ErrRedirect)) {
+					t.Errorf("ref %q loc %q: redirect answered %v; want ErrRedirect", ref, loc, err)
+				}
+			}
 			if err == nil {
 				continue
 			}

@@ -439,56 +439,24 @@ func TestFetchAbsoluteNextPageWithoutBasePath(t *testing.T) {
 	}
 }
 
-func TestFetchFollowsSameOriginRedirect(t *testing.T) {
-	tests := []struct {
-		name     string
-		code     int
-		location func(s *server) string
-	}{
-		{"302 relative", http.StatusFound, func(*server) string { return "/fhir/r4/Patient/p2?_format=json" }},
-		{"301 absolute", http.StatusMovedPermanently, func(s *server) string { return s.URL + "/fhir/r4/Patient/p2?_format=json" }},
-		{"307 relative", http.StatusTemporaryRedirect, func(*server) string { return "p2?_format=json" }},
-		{"308 relative", http.StatusPermanentRedirect, func(*server) string { return "/fhir/r4/Patient/p2?_format=json" }},
-	}
-	for _, tt := range tests {
-		t.Run(tt.name, func(t *testing.T) {
-			var s *server
-			s = startServer(t, false, func(w http.ResponseWriter, r *http.Request) {
-				if r.URL.Path == "/fhir/r4/Patient/p1" {
-					w.Header().Set("Location", tt.location(s))
-					w.WriteHeader(tt.code)
-					return
-				}
-				_, _ = w.Write([]byte("moved body"))
-			})
-			c := newClient(t, s, "/fhir/r4", "tok-123", fhirclient.Options{})
-			body, err := c.Fetch(t.Context(), "Patient/p1")
-			if err != nil {
-				t.Fatalf("Fetch: %v", err)
-			}
-			if string(body) != "moved body" {
-				t.Errorf("body = %q; want %q", body, "moved body")
-			}
-			want := []seen{
-				{Method: "GET", Path: "/fhir/r4/Patient/p1", Auth: "Bearer tok-123", Accept: "application/fhir+json"},
-				{Method: "GET", Path: "/fhir/r4/Patient/p2", RawQuery: "_format=json", Auth: "Bearer tok-123", Accept: "application/fhir+json"},
-			}
-			if got := s.requests(); !equalSeen(got, want) {
-				t.Errorf("server saw %+v; want %+v", got, want)
-			}
-		})
-	}
-}
-
-func TestFetchRefusesRedirectAway(t *testing.T) {
+// TestFetchFollowsNoRedirect: a 3xx with a Location is a failed fetch,
+// wherever it points (the same path, under the base, another origin):
+// only the first request is made, so the token reaches no redirect target.
+func TestFetchFollowsNoRedirect(t *testing.T) {
 	tests := []struct {
 		name     string
 		code     int
 		location func(s, other *server) string
 	}{
-		{"other server", http.StatusFound, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
-		{"other server 307", http.StatusTemporaryRedirect, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
-		{"other server 308", http.StatusPermanentRedirect, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
+		{"302 same origin relative", http.StatusFound, func(_, _ *server) string { return "/fhir/r4/Patient/p2?_format=json" }},
+		{"301 same origin absolute", http.StatusMovedPermanently, func(s, _ *server) string { return s.URL + "/fhir/r4/Patient/p2" }},
+		{"303 same origin", http.StatusSeeOther, func(_, _ *server) string { return "/fhir/r4/Patient/p2" }},
+		{"307 relative to the path", http.StatusTemporaryRedirect, func(_, _ *server) string { return "p2?_format=json" }},
+		{"308 same origin", http.StatusPermanentRedirect, func(_, _ *server) string { return "/fhir/r4/Patient/p2" }},
+		{"302 to itself", http.StatusFound, func(_, _ *server) string { return "/fhir/r4/Patient?" + secretQuery }},
+		{"302 other server", http.StatusFound, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
+		{"307 other server", http.StatusTemporaryRedirect, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
+		{"308 other server", http.StatusPermanentRedirect, func(_, o *server) string { return o.URL + "/fhir/r4/Patient/p1?" + secretQuery }},
 		{"other host name same port", http.StatusFound, func(s, _ *server) string {
 			return "http://localhost:" + s.port(t) + "/fhir/r4/Patient/p1?" + secretQuery
 		}},
@@ -505,11 +473,18 @@ func TestFetchRefusesRedirectAway(t *testing.T) {
 			s = startServer(t, false, func(w http.ResponseWriter, r *http.Request) {
 				w.Header().Set("Location", tt.location(s, other))
 				w.WriteHeader(tt.code)
+				_, _ = w.Write([]byte(okBody))
 			})
 			c := newClient(t, s, "/fhir/r4", secretToken, fhirclient.Options{})
 			body, err := c.Fetch(t.Context(), "Patient?"+secretQuery)
-			if !errors.Is(err, fhirclient.ErrRedirectAway) {
-				t.Fatalf("Fetch error = %v; want ErrRedirectAway", err)
+			var fe *fhirclient.Error
+			if !errors.Is(err, fhirclient.ErrRedirect) || !errors.As(err, &fe) ||
+				fe.Public() != "the FHIR server answered with a redirect, which halite does not follow" {
+				t.Fatalf("Fetch error = %v; want ErrRedirect with its public reason", err)
+			}
+			var st interface{ HTTPStatus() int }
+			if !errors.As(err, &st) || st.HTTPStatus() != tt.code {
+				t.Errorf("no HTTPStatus %d in %v", tt.code, err)
 			}
 			if body != nil {
 				t.Errorf("Fetch returned a body with its error")
@@ -525,28 +500,10 @@ func TestFetchRefusesRedirectAway(t *testing.T) {
 	}
 }
 
-func TestFetchRedirectLoopFails(t *testing.T) {
-	s := startServer(t, false, func(w http.ResponseWriter, r *http.Request) {
-		http.Redirect(w, r, "/fhir/r4/Patient?"+secretQuery+"&n="+strconv.Itoa(len(r.URL.RawQuery)), http.StatusFound)
-	})
-	c := newClient(t, s, "/fhir/r4", secretToken, fhirclient.Options{})
-	body, err := c.Fetch(t.Context(), "Patient?"+secretQuery)
-	if err == nil {
-		t.Fatalf("Fetch followed an endless redirect loop and returned %q", body)
-	}
-	if errors.Is(err, fhirclient.ErrRedirectAway) {
-		t.Errorf("Fetch error = %v; the loop never leaves the origin", err)
-	}
-	assertNoSecrets(t, err)
-	if n := len(s.requests()); n > 10 {
-		t.Errorf("server received %d requests; want a small bound", n)
-	}
-}
-
 func TestFetchHTTPStatus(t *testing.T) {
 	codes := []int{
 		http.StatusCreated, http.StatusNoContent, http.StatusMultipleChoices,
-		http.StatusMovedPermanently, // without Location: not followed
+		http.StatusMovedPermanently, // without Location: a status, not a redirect
 		http.StatusNotModified,
 		http.StatusBadRequest, http.StatusUnauthorized, http.StatusForbidden,
 		http.StatusNotFound, http.StatusGone, http.StatusTooManyRequests,
@@ -570,6 +527,9 @@ func TestFetchHTTPStatus(t *testing.T) {
 				}
 				if !strings.Contains(err.Error(), strconv.Itoa(code)) {
 					t.Errorf("error %q does not contain the status %d", err, code)
+				}
+				if errors.Is(err, fhirclient.ErrRedirect) {
+					t.Errorf("Fetch error = %v; a %d without Location is no redirect", err, code)
 				}
 				assertNoSecrets(t, err)
 			})
@@ -623,6 +583,75 @@ func TestFetchResponseSize(t *testing.T) {
 			}
 			if string(body) != payload {
 				t.Errorf("body has %d bytes; want %d", len(body), tt.size)
+			}
+		})
+	}
+}
+
+// countingBudget gives up to left bytes and records what was asked.
+type countingBudget struct {
+	mu         sync.Mutex
+	left, took int64
+}
+
+var errSpent = errors.New("spent")
+
+func (b *countingBudget) Take(n int64) error {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	if n > b.left {
+		return errSpent
+	}
+	b.left -= n
+	b.took += n
+	return nil
+}
+
+// TestFetchTakesFromBudget: every byte of an answer is taken from the
+// budget before it is read — a declared length at once, an undeclared one
+// a chunk at a time — and a budget that refuses ends the read with its
+// error; an endless answer is never read past the budget.
+func TestFetchTakesFromBudget(t *testing.T) {
+	const size = 200 << 10
+	for _, tt := range []struct {
+		name     string
+		chunked  bool
+		endless  bool
+		budget   int64
+		wantErr  bool
+		maxTaken int64
+	}{
+		{"declared, within", false, false, size, false, size},
+		{"declared, over the budget: nothing read", false, false, size - 1, true, 0},
+		{"chunked, within", true, false, size + 128<<10, false, size + 128<<10},
+		{"chunked, over the budget", true, false, 100 << 10, true, 100 << 10},
+		{"endless, stopped by the budget", true, true, 1 << 20, true, 1 << 20},
+	} {
+		t.Run(tt.name, func(t *testing.T) {
+			payload := []byte(strings.Repeat("a", size))
+			s := startServer(t, false, func(w http.ResponseWriter, r *http.Request) {
+				if !tt.chunked {
+					w.Header().Set("Content-Length", strconv.Itoa(size))
+				}
+				for {
+					if _, err := w.Write(payload); err != nil || !tt.endless {
+						return
+					}
+				}
+			})
+			b := &countingBudget{left: tt.budget}
+			c := newClient(t, s, "/fhir/r4", secretToken, fhirclient.Options{MaxResponseBytes: 64 << 20, Budget: b})
+			body, err := c.Fetch(t.Context(), "Observation?"+secretQuery)
+			if tt.wantErr {
+				if !errors.Is(err, fhirclient.ErrBudget) || !errors.Is(err, errSpent) {
+					t.Fatalf("error %v; want ErrBudget wrapping the budget's error", err)
+				}
+				assertNoSecrets(t, err)
+			} else if err != nil || len(body) != size {
+				t.Fatalf("read %d bytes, error %v", len(body), err)
+			}
+			if b.took > tt.maxTaken {
+				t.Errorf("took %d bytes from the budget; at most %d expected", b.took, tt.maxTaken)
 			}
 		})
 	}

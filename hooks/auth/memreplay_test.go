@@ -8,7 +8,8 @@ import (
 	"time"
 )
 
-// MemoryReplay is a ReplayCache for one node, bounded in size. Entries
+// MemoryReplay is a ReplayCache in memory, bounded in size, for the tests
+// (halite keeps its replay cache in the store). Entries
 // are also kept in expiry order, so each call drops the expired ones in
 // time proportional to their number, never scanning the live ones.
 type MemoryReplay struct {
