@@ -3,21 +3,27 @@ package feedback
 import (
 	"context"
 	"database/sql"
+	"database/sql/driver"
 	"embed"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"log/slog"
+	"net"
 	"slices"
 	"sort"
 	"strconv"
 	"strings"
 	"sync"
+	"syscall"
 	"time"
 
+	"github.com/jackc/pgx/v5/pgconn"
 	_ "github.com/jackc/pgx/v5/stdlib" // PostgreSQL through pgx, registered as "pgx"
-	_ "modernc.org/sqlite"             // pure-Go SQLite driver, registered as "sqlite"
+	"modernc.org/sqlite"               // pure-Go SQLite driver, registered as "sqlite"
+	sqlite3 "modernc.org/sqlite/lib"
 )
 
 //go:embed migrations/sqlite/*.sql migrations/postgres/*.sql
@@ -31,12 +37,24 @@ const tsFormat = "2006-01-02T15:04:05.000000000Z"
 // PostgreSQL for several replicas. One goroutine commits concurrent calls'
 // records together (group commit), each record in its own savepoint so one
 // failure does not undo the others.
+//
+// Records wait for the writer in a queue of Options.QueueSize: a record
+// offered while it is full is refused at once with ErrQueueFull, so a
+// stalled database sheds load instead of piling up calls. A caller waits
+// for its commit until its ctx ends or two commit bounds pass, whichever
+// is first, and then gets ErrStalled; the writer skips a record whose
+// caller stopped waiting before its batch began, but one already in a
+// batch may still commit.
 type DB struct {
 	db      *sql.DB
 	dialect dialect
 	opt     Options
 	jobs    chan job
 	done    chan struct{}
+	// gate is held by the writer for each commit and by the SQLite
+	// checkpointer for a WAL restart, so a restart never races the writer
+	// for SQLite's write lock.
+	gate sync.Mutex
 	// stopCheckpoints ends the SQLite checkpointer; checkpointsDone is
 	// closed when it has (both nil for PostgreSQL).
 	stopCheckpoints chan struct{}
@@ -52,12 +70,78 @@ var (
 	// ErrClosed is returned for a record offered after Close.
 	ErrClosed = errors.New("store is closed")
 	// ErrStalled is returned when the database did not commit within the
-	// store's bound; the record may still become durable later.
+	// store's bound or before the caller's ctx ended (the error then also
+	// wraps ctx.Err()); the record may still become durable later.
 	ErrStalled = errors.New("store did not commit in time")
+	// ErrQueueFull is returned at once, without waiting, for a record
+	// offered while Options.QueueSize records wait for the writer; the
+	// record is not stored.
+	ErrQueueFull = errors.New("store queue is full")
 )
 
+// UnavailableKind reports whether err means the store could not take a
+// record for now (a retry later may succeed) and why: "store-queue-full"
+// (ErrQueueFull), "store-closed" (ErrClosed), "store-timeout" (ErrStalled,
+// a deadline, a PostgreSQL statement timeout or a network timeout) or
+// "store-busy" (SQLite's database is locked; PostgreSQL lock,
+// serialization, deadlock, connection and shutdown errors; a refused or
+// cut connection). Any other error, a constraint violation included,
+// gives ok false.
+func UnavailableKind(err error) (kind string, ok bool) {
+	var pg *pgconn.PgError
+	var netErr net.Error
+	var connErr *pgconn.ConnectError
+	switch {
+	case err == nil:
+		return "", false
+	case errors.Is(err, ErrQueueFull):
+		return "store-queue-full", true
+	case errors.Is(err, ErrClosed):
+		return "store-closed", true
+	case errors.Is(err, ErrStalled), errors.Is(err, context.DeadlineExceeded):
+		return "store-timeout", true
+	case errors.As(err, &pg):
+		return pgUnavailable(pg.Code)
+	case sqliteBusy(err):
+		return "store-busy", true
+	case errors.As(err, &netErr) && netErr.Timeout():
+		return "store-timeout", true
+	case errors.As(err, &connErr), errors.Is(err, driver.ErrBadConn), errors.Is(err, io.ErrUnexpectedEOF),
+		errors.Is(err, syscall.ECONNREFUSED), errors.Is(err, syscall.ECONNRESET):
+		return "store-busy", true
+	}
+	return "", false
+}
+
+// sqliteBusy reports whether err is SQLite's "database is locked"
+// (SQLITE_BUSY or SQLITE_LOCKED, with any extended code).
+func sqliteBusy(err error) bool {
+	var lite *sqlite.Error
+	if !errors.As(err, &lite) {
+		return false
+	}
+	code := lite.Code() & 0xff
+	return code == sqlite3.SQLITE_BUSY || code == sqlite3.SQLITE_LOCKED
+}
+
+// pgUnavailable classifies a PostgreSQL error code
+// (https://www.postgresql.org/docs/current/errcodes-appendix.html).
+func pgUnavailable(code string) (string, bool) {
+	switch {
+	case code == "57014": // query_canceled: the statement timeout
+		return "store-timeout", true
+	case strings.HasPrefix(code, "08"), // connection exception
+		strings.HasPrefix(code, "40"),  // serialization failure, deadlock
+		strings.HasPrefix(code, "57P"), // admin, crash shutdown, cannot connect now
+		code == "55P03",                // lock_not_available
+		code == "53300":                // too_many_connections
+		return "store-busy", true
+	}
+	return "", false
+}
+
 type job struct {
-	ctx  context.Context
+	ctx  context.Context // ends when the caller stops waiting
 	run  func(context.Context, *sql.Tx) error
 	errc chan error
 }
@@ -93,9 +177,13 @@ func dollarPlaceholders(q string) string {
 // Options tune the group commit.
 type Options struct {
 	MaxBatch int // records per transaction at most (default 256)
+	// QueueSize is how many records may wait for the writer (default
+	// 1024); past it a record is refused at once with ErrQueueFull.
+	QueueSize int
 	// CommitTimeout bounds one batch's transaction (default 5 s); a caller
-	// waits at most twice this (its turn, then its batch) and then gets
-	// ErrStalled, so a stalled database cannot hang calls or Close.
+	// waits at most twice this (its turn, then its batch), or less if its
+	// ctx ends first, and then gets ErrStalled, so a stalled database
+	// cannot hang calls or Close.
 	CommitTimeout time.Duration
 	// SQLiteSynchronous is SQLite's synchronous setting for the WAL:
 	// SyncFull (the default) syncs every commit to disk before a card
@@ -139,8 +227,13 @@ func OpenSQLite(path string, opt Options) (*DB, error) {
 	// whichever commit crossed its threshold, and every call waiting on
 	// that commit would wait for the copy and its sync; checkpointer does
 	// it beside the writer instead.
+	// _txlock=immediate: every read-write transaction begins with BEGIN
+	// IMMEDIATE, taking the write lock under the busy timeout. A deferred
+	// one that read first (feedback reads card_log, then writes) would get
+	// "database is locked" at once, without the busy handler, if another
+	// connection held the write lock when it came to write.
 	dsn := "file:" + path + "?_pragma=journal_mode(WAL)&_pragma=synchronous(" + sync + ")&_pragma=wal_autocheckpoint(0)" +
-		"&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)"
+		"&_pragma=foreign_keys(1)&_pragma=busy_timeout(5000)&_txlock=immediate"
 	db, err := sql.Open("sqlite", dsn)
 	if err != nil {
 		return nil, fmt.Errorf("open store %s: %w", path, err)
@@ -183,10 +276,14 @@ const (
 // never holds up the writer. A steady load can keep such copies from ever
 // catching up with the writer, and the WAL is only started over once one
 // has; so when the WAL has grown past WALRestartFrames, a RESTART
-// checkpoint (most of the WAL already copied) starts it over, holding new
-// commits for at most restartWait, and not again for restartBackoff if a
-// reader kept it from finishing. A failure is logged when it starts and
-// when it ends, not every second.
+// checkpoint (most of the WAL already copied) starts it over. It takes
+// the gate first, between two commits, so it never competes with the
+// writer for the write lock (it used to, under a steady load it lost, and
+// the 5-second backoff meant for readers let the WAL grow by seconds of
+// writes); it then holds new commits while it waits, at most restartWait,
+// for readers, and is not tried again for restartBackoff if a reader kept
+// it from finishing. A failure is logged when it starts and when it ends,
+// not every second.
 func (s *DB) checkpointer(conn *sql.Conn) {
 	defer close(s.checkpointsDone)
 	defer conn.Close()
@@ -229,6 +326,8 @@ func (s *DB) checkpoint(conn *sql.Conn, restart bool) (blocked bool, err error) 
 	if !restart || frames <= s.opt.WALRestartFrames {
 		return false, nil
 	}
+	s.gate.Lock()
+	defer s.gate.Unlock()
 	if err := conn.QueryRowContext(ctx, `PRAGMA wal_checkpoint(RESTART)`).Scan(&busy, &frames, &copied); err != nil {
 		return false, fmt.Errorf("checkpoint restart: %w", err)
 	}
@@ -254,6 +353,9 @@ func (o Options) withDefaults() Options {
 	if o.MaxBatch <= 0 {
 		o.MaxBatch = 256
 	}
+	if o.QueueSize <= 0 {
+		o.QueueSize = 1024
+	}
 	if o.CommitTimeout <= 0 {
 		o.CommitTimeout = 5 * time.Second
 	}
@@ -274,14 +376,39 @@ func start(db *sql.DB, d dialect, opt Options, name string) (*DB, error) {
 		db.Close()
 		return nil, fmt.Errorf("open store %s: %w", name, err)
 	}
-	s := &DB{db: db, dialect: d, opt: opt, jobs: make(chan job), done: make(chan struct{})}
+	s := &DB{db: db, dialect: d, opt: opt, jobs: make(chan job, opt.QueueSize), done: make(chan struct{})}
 	go s.writer()
 	return s, nil
 }
 
-func migrate(ctx context.Context, db *sql.DB, d dialect) error {
-	if _, err := db.ExecContext(ctx, `CREATE TABLE IF NOT EXISTS schema_migrations (version TEXT PRIMARY KEY, applied_at TEXT NOT NULL)`); err != nil {
-		return fmt.Errorf("migrate: %w", err)
+// migrationLock is the key of the PostgreSQL advisory lock that
+// serialises migrations of replicas starting together.
+const migrationLock int64 = 0x68616c6974650001 // "halite", 1
+
+// migrate applies the embedded migrations not yet recorded, each in its
+// own transaction that checks and records its version. Concurrent
+// openers are serialised: on PostgreSQL by an advisory lock held on one
+// connection for the whole run, on SQLite by BEGIN IMMEDIATE (_txlock).
+func migrate(ctx context.Context, db *sql.DB, d dialect) (err error) {
+	conn, err := connect(ctx, db)
+	if err != nil {
+		return fmt.Errorf("migrate: connect: %w", err)
+	}
+	defer conn.Close()
+	if d.name == "postgres" {
+		if _, err := conn.ExecContext(ctx, `SELECT pg_advisory_lock($1)`, migrationLock); err != nil {
+			return fmt.Errorf("migrate: lock: %w", err)
+		}
+		defer func() {
+			if _, uerr := conn.ExecContext(ctx, `SELECT pg_advisory_unlock($1)`, migrationLock); uerr != nil {
+				// The session would keep the lock in the pool: drop it.
+				conn.Raw(func(any) error { return driver.ErrBadConn })
+				err = errors.Join(err, fmt.Errorf("migrate: unlock: %w", uerr))
+			}
+		}()
+	}
+	if _, err := conn.ExecContext(ctx, `CREATE TABLE IF NOT EXISTS schema_migrations (version TEXT PRIMARY KEY, applied_at TEXT NOT NULL)`); err != nil {
+		return fmt.Errorf("migrate: schema_migrations: %w", err)
 	}
 	names, err := fs.Glob(migrations, "migrations/"+d.name+"/*.sql")
 	if err != nil {
@@ -290,34 +417,62 @@ func migrate(ctx context.Context, db *sql.DB, d dialect) error {
 	sort.Strings(names)
 	for _, name := range names {
 		version := strings.TrimSuffix(name[strings.LastIndex(name, "/")+1:], ".sql")
-		var n int
-		if err := db.QueryRowContext(ctx, d.bind(`SELECT count(*) FROM schema_migrations WHERE version = ?`), version).Scan(&n); err != nil {
-			return fmt.Errorf("migrate %s: %w", version, err)
-		}
-		if n > 0 {
-			continue
-		}
-		ddl, err := migrations.ReadFile(name)
-		if err != nil {
-			return fmt.Errorf("migrate %s: %w", version, err)
-		}
-		tx, err := db.BeginTx(ctx, nil)
-		if err != nil {
-			return fmt.Errorf("migrate %s: %w", version, err)
-		}
-		if _, err := tx.ExecContext(ctx, string(ddl)); err != nil {
-			tx.Rollback()
-			return fmt.Errorf("migrate %s: %w", version, err)
-		}
-		if _, err := tx.ExecContext(ctx, d.bind(`INSERT INTO schema_migrations VALUES (?, ?)`), version, time.Now().UTC().Format(time.RFC3339)); err != nil {
-			tx.Rollback()
-			return fmt.Errorf("migrate %s: %w", version, err)
-		}
-		if err := tx.Commit(); err != nil {
+		if err := migrateOne(ctx, conn, d, name, version); err != nil {
 			return fmt.Errorf("migrate %s: %w", version, err)
 		}
 	}
 	return nil
+}
+
+// connect takes a connection, retrying while SQLite is busy until ctx
+// ends: a new SQLite file is switched to WAL by its first connection, and
+// another process connecting meanwhile is told "database is locked" at
+// once, without the busy timeout (rollback-journal locking does not wait
+// where waiting could deadlock).
+func connect(ctx context.Context, db *sql.DB) (*sql.Conn, error) {
+	for {
+		conn, err := db.Conn(ctx)
+		if !sqliteBusy(err) {
+			return conn, err
+		}
+		select {
+		case <-ctx.Done():
+			return nil, fmt.Errorf("%w (%w)", err, ctx.Err())
+		case <-time.After(10 * time.Millisecond):
+		}
+	}
+}
+
+// migrateOne applies migration file name unless version is recorded. It
+// reads the record first outside a transaction, so opening a migrated
+// database (halite report beside the server) takes no write lock, then
+// again inside the one that applies it, which another opener may have
+// done meanwhile.
+func migrateOne(ctx context.Context, conn *sql.Conn, d dialect, name, version string) error {
+	recorded := d.bind(`SELECT count(*) FROM schema_migrations WHERE version = ?`)
+	var n int
+	if err := conn.QueryRowContext(ctx, recorded, version).Scan(&n); err != nil || n > 0 {
+		return err
+	}
+	tx, err := conn.BeginTx(ctx, nil)
+	if err != nil {
+		return err
+	}
+	defer tx.Rollback()
+	if err := tx.QueryRowContext(ctx, recorded, version).Scan(&n); err != nil || n > 0 {
+		return err
+	}
+	ddl, err := migrations.ReadFile(name)
+	if err != nil {
+		return err
+	}
+	if _, err := tx.ExecContext(ctx, string(ddl)); err != nil {
+		return err
+	}
+	if _, err := tx.ExecContext(ctx, d.bind(`INSERT INTO schema_migrations VALUES (?, ?)`), version, time.Now().UTC().Format(time.RFC3339)); err != nil {
+		return err
+	}
+	return tx.Commit()
 }
 
 // writer runs batches until Close. A batch is whatever queued while the
@@ -344,8 +499,21 @@ func (s *DB) writer() {
 }
 
 // commit runs a batch in one transaction, bounded by CommitTimeout, each
-// job in a savepoint.
+// job in a savepoint; jobs whose caller stopped waiting are skipped.
 func (s *DB) commit(batch []job) {
+	live := batch[:0]
+	for _, j := range batch {
+		if err := j.ctx.Err(); err != nil {
+			j.errc <- err
+			continue
+		}
+		live = append(live, j)
+	}
+	if batch = live; len(batch) == 0 {
+		return
+	}
+	s.gate.Lock()
+	defer s.gate.Unlock()
 	ctx, cancel := context.WithTimeout(context.Background(), s.opt.CommitTimeout)
 	defer cancel()
 	errs := make([]error, len(batch))
@@ -363,7 +531,7 @@ func (s *DB) commit(batch []job) {
 			if _, err = tx.ExecContext(ctx, `SAVEPOINT job`); err != nil {
 				break
 			}
-			if errs[i] = j.run(ctx, tx); errs[i] != nil {
+			if errs[i] = stalled(ctx, j.run(ctx, tx)); errs[i] != nil {
 				if _, err = tx.ExecContext(ctx, `ROLLBACK TO SAVEPOINT job`); err != nil {
 					break
 				}
@@ -379,9 +547,7 @@ func (s *DB) commit(batch []job) {
 			tx.Rollback()
 		}
 	}
-	if err != nil && ctx.Err() != nil {
-		err = fmt.Errorf("%w: %v", ErrStalled, err)
-	}
+	err = stalled(ctx, err)
 	for i, j := range batch {
 		if err != nil {
 			errs[i] = fmt.Errorf("store commit: %w", err)
@@ -390,13 +556,31 @@ func (s *DB) commit(batch []job) {
 	}
 }
 
-// do queues run for the writer and waits for its commit. The commit is
-// waited for even if ctx ends, since the record may be durable, but never
-// longer than two commit bounds.
+// stalled marks err as ErrStalled when the commit bound ended it: ctx,
+// the batch's, ran out, or PostgreSQL's statement timeout (the same
+// bound) fired first.
+func stalled(ctx context.Context, err error) error {
+	var pg *pgconn.PgError
+	if err == nil || ctx.Err() == nil && !(errors.As(err, &pg) && pg.Code == "57014") {
+		return err
+	}
+	return fmt.Errorf("%w: %w", ErrStalled, err)
+}
+
+// do queues run for the writer and waits for its commit until ctx ends
+// or two commit bounds pass (ErrStalled; the record may still commit).
+// A full queue refuses the record at once with ErrQueueFull. run may
+// still be running after do returns an error: read what it sets only
+// after a nil error.
 func (s *DB) do(ctx context.Context, run func(context.Context, *sql.Tx) error) error {
+	if err := ctx.Err(); err != nil {
+		return fmt.Errorf("store: %w", err)
+	}
+	// The job's ctx ends when do returns, so the writer skips a job whose
+	// caller has stopped waiting.
+	ctx, cancel := context.WithTimeout(ctx, 2*s.opt.CommitTimeout)
+	defer cancel()
 	j := job{ctx: ctx, run: run, errc: make(chan error, 1)}
-	bound := time.NewTimer(2 * s.opt.CommitTimeout)
-	defer bound.Stop()
 	s.mu.RLock()
 	if s.closed {
 		s.mu.RUnlock()
@@ -404,19 +588,21 @@ func (s *DB) do(ctx context.Context, run func(context.Context, *sql.Tx) error) e
 	}
 	select {
 	case s.jobs <- j:
-	case <-ctx.Done():
 		s.mu.RUnlock()
-		return ctx.Err()
-	case <-bound.C:
+	default:
 		s.mu.RUnlock()
-		return ErrStalled
+		return ErrQueueFull
 	}
-	s.mu.RUnlock()
 	select {
 	case err := <-j.errc:
 		return err
-	case <-bound.C:
-		return ErrStalled
+	case <-ctx.Done():
+		select {
+		case err := <-j.errc: // committed as ctx ended
+			return err
+		default:
+			return fmt.Errorf("%w: %w", ErrStalled, ctx.Err())
+		}
 	}
 }
 
@@ -530,11 +716,29 @@ func (s *DB) deleteChunks(ctx context.Context, query string, arg string) (int64,
 			n, err = res.RowsAffected()
 			return err
 		})
-		total += n
-		if err != nil || n < purgeChunk {
+		if err != nil {
 			return total, err
 		}
+		if total += n; n < purgeChunk {
+			return total, nil
+		}
 	}
+}
+
+// Ping checks that the database answers a query within ctx (readiness);
+// after Close it returns ErrClosed.
+func (s *DB) Ping(ctx context.Context) error {
+	s.mu.RLock()
+	closed := s.closed
+	s.mu.RUnlock()
+	if closed {
+		return ErrClosed
+	}
+	var one int
+	if err := s.db.QueryRowContext(ctx, `SELECT 1`).Scan(&one); err != nil {
+		return fmt.Errorf("store ping: %w", err)
+	}
+	return nil
 }
 
 // Counts implements Store.
@@ -595,5 +799,8 @@ func (s *DB) Remember(ctx context.Context, iss, jti string, until time.Time) (bo
 		seen = n == 0
 		return err
 	})
-	return seen, err
+	if err != nil {
+		return false, err
+	}
+	return seen, nil
 }
