@@ -3,6 +3,7 @@ package hooks
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"log/slog"
 	"time"
@@ -26,6 +27,8 @@ type Engine struct {
 	recorder   Recorder
 	hash       func(string) string
 	tel        *Telemetry
+	budget     *ProcessBudget
+	callBytes  int64
 }
 
 // EngineConfig is what an Engine is built from.
@@ -43,6 +46,11 @@ type EngineConfig struct {
 	PatientHash func(reference string) string
 	// Telemetry reports spans and metrics; nil is no-op.
 	Telemetry *Telemetry
+	// Budget bounds the outside data all calls in flight hold (nil:
+	// unbounded); CallBytes bounds what one call reads from FHIR servers
+	// (0: only the process budget).
+	Budget    *ProcessBudget
+	CallBytes int64
 }
 
 // NewEngine returns an Engine.
@@ -54,7 +62,8 @@ func NewEngine(cfg EngineConfig) *Engine {
 		cfg.Telemetry, _ = NewTelemetry(nil, nil) // no-op instruments cannot fail
 	}
 	return &Engine{registry: cfg.Registry, ruleset: cfg.Ruleset, newFetcher: cfg.NewFetcher,
-		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash, tel: cfg.Telemetry}
+		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash, tel: cfg.Telemetry,
+		budget: cfg.Budget, callBytes: cfg.CallBytes}
 }
 
 // Registry returns the engine's services.
@@ -70,10 +79,24 @@ type Outcome struct {
 	Response Response
 	Keys     []Resolved
 	Facts    rules.Facts
+	// UnknownPrefetchKeys counts prefetch keys sent that the service did not
+	// ask for (ignored).
+	UnknownPrefetchKeys int
 }
 
 // Handle answers one call to service id with body, evaluated at time at.
 func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Time) (*Outcome, error) {
+	b := e.newCallBudget()
+	defer b.Release()
+	return e.handle(ctx, id, body, at, b)
+}
+
+// newCallBudget is a call's byte budget, drawn from the engine's process
+// budget; the caller releases it once the call has answered.
+func (e *Engine) newCallBudget() *CallBudget { return NewCallBudget(e.budget, e.callBytes) }
+
+// handle answers a call whose FHIR reads are taken from budget.
+func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Time, budget *CallBudget) (*Outcome, error) {
 	svc, ok := e.registry.Lookup(id)
 	if !ok {
 		return nil, &Error{Kind: KindUnknownService, Message: "no CDS service with id " + quote(id)}
@@ -85,7 +108,7 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 	if span := trace.SpanFromContext(ctx); span.IsRecording() {
 		span.SetAttributes(attribute.String("halite.hook", call.Request.Hook), attribute.String("halite.service", svc.ID))
 	}
-	fetch := e.fetcher(ctx, call)
+	fetch := e.fetcher(ctx, call, budget)
 	if fetch != nil {
 		fetch = tracedFetcher{next: fetch, t: e.tel}
 	}
@@ -142,7 +165,7 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 		wspan.End()
 		if err != nil {
 			// No card leaves without its record: feedback must be able to join.
-			return nil, &Error{Kind: KindUnavailable, Message: "the card log could not be written", Err: err}
+			return nil, storeError(err, "the card log could not be written")
 		}
 	}
 	highest := rules.Indicator(0)
@@ -156,7 +179,17 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 			span.SetAttributes(attribute.String("halite.tenant", t))
 		}
 	}
-	return &Outcome{Response: resp, Keys: keys, Facts: facts}, nil
+	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys}, nil
+}
+
+// storeError is the answer to a store failure: the store adapter's own
+// *Error (it knows the reason) or a 503 for a fault it did not classify.
+func storeError(err error, message string) error {
+	var e *Error
+	if errors.As(err, &e) {
+		return err
+	}
+	return &Error{Kind: KindUnavailable, Reason: ReasonStoreFault, Message: message, Err: err}
 }
 
 // causeOf is the cause category of a call's error.
@@ -189,12 +222,12 @@ func (e *Engine) logged(ctx context.Context, service, patientID string, fs []rul
 // fetcher returns the outbound client for the call, or nil when the call
 // gave no server and token, or the server may not be used by this caller
 // (it is then answered as if no server were given).
-func (e *Engine) fetcher(ctx context.Context, c *Call) Fetcher {
+func (e *Engine) fetcher(ctx context.Context, c *Call, budget *CallBudget) Fetcher {
 	r := c.Request
 	if e.newFetcher == nil || r.FHIRServer == "" || r.FHIRAuthorization == nil {
 		return nil
 	}
-	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization, CallerFrom(ctx))
+	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization, CallerFrom(ctx), budget)
 	if err != nil {
 		if e.log != nil {
 			e.log.Warn("fhirServer not used", "reason", err.Error(), "hookInstance", r.HookInstance)

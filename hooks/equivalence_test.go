@@ -28,7 +28,7 @@ func TestPrefetchFetchEquivalence(t *testing.T) {
 		t.Fatalf("no scenarios: %v", err)
 	}
 	const token = "test-access-token"
-	newFetcher := func(server string, auth *FHIRAuthorization, _ Caller) (Fetcher, error) {
+	newFetcher := func(server string, auth *FHIRAuthorization, _ Caller, _ *CallBudget) (Fetcher, error) {
 		return fhirclient.New(server, auth.AccessToken, fhirclient.Options{
 			Timeout: 5 * time.Second, MaxResponseBytes: 1 << 20, AllowHTTPLoopback: true})
 	}

@@ -20,7 +20,8 @@ const (
 	KindPrecondition                 // required FHIR data neither prefetched nor fetchable: 412
 	KindTooLarge                     // request body over the limit: 413
 	KindUnsupportedMedia             // a body that is not declared as JSON: 415
-	KindUnavailable                  // the call's time budget ran out: 503
+	KindUnavailable                  // halite cannot answer now (store, budget, deadline): 503 with Retry-After
+	KindTimeout                      // the request body did not arrive within the call's deadline: 408
 )
 
 // statusOf is the single table from error kind to HTTP status and FHIR
@@ -39,7 +40,26 @@ var statusOf = map[Kind]struct {
 	KindTooLarge:         {http.StatusRequestEntityTooLarge, "too-long"},
 	KindUnsupportedMedia: {http.StatusUnsupportedMediaType, "not-supported"},
 	KindUnavailable:      {http.StatusServiceUnavailable, "transient"},
+	KindTimeout:          {http.StatusRequestTimeout, "timeout"},
 }
+
+// Reasons a call is answered 503 (Error.Reason with KindUnavailable), for
+// logs and the halite.unavailable metric. None carries request values.
+const (
+	ReasonStoreBusy      = "store-busy"       // the database refused for contention (locked, busy)
+	ReasonStoreTimeout   = "store-timeout"    // the database did not answer within the call's deadline
+	ReasonStoreQueueFull = "store-queue-full" // the store writer's queue is full: shed at once
+	ReasonStoreFault     = "store-fault"      // the database failed otherwise (down, closed)
+	ReasonFHIRTimeout    = "fhir-timeout"     // the call's deadline ran out while reading FHIR data
+	ReasonCallTimeout    = "call-timeout"     // the call's deadline ran out in halite (none of the above)
+	ReasonBudget         = "budget-exhausted" // the process's byte budget for data in flight is spent
+	ReasonKeysTimeout    = "keys-unavailable" // the caller's key set could not be had within the deadline
+)
+
+// RetryAfterSeconds is the Retry-After every 503 carries: long enough for
+// a queue to drain or a database to fail over, short enough for a
+// clinician's next action.
+const RetryAfterSeconds = 2
 
 // Error is an error with a kind and, for bad requests, the field at fault
 // (a path such as "context.patientId").
@@ -47,7 +67,9 @@ type Error struct {
 	Kind    Kind
 	Field   string
 	Message string
-	Err     error
+	// Reason names why a KindUnavailable error happened (Reason* constants).
+	Reason string
+	Err    error
 }
 
 // Error returns the field, the message and the wrapped cause.

@@ -105,5 +105,5 @@ func feedbackError(err error) error {
 	case errors.Is(err, ErrUnknownSuggestion):
 		return badRequest(fmt.Sprintf("feedback[%d].acceptedSuggestions", i), "names a suggestion this card did not offer")
 	}
-	return &Error{Kind: KindUnavailable, Message: "feedback could not be stored", Err: err}
+	return storeError(err, "feedback could not be stored")
 }

@@ -36,7 +36,7 @@ func TestEngineFetchesReferencedMedication(t *testing.T) {
 		{"server fails", &mapFetcher{}, rules.FromUnresolved},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			e := testEngine(t, func(string, *FHIRAuthorization, Caller) (Fetcher, error) { return tc.fetcher, nil })
+			e := testEngine(t, func(string, *FHIRAuthorization, Caller, *CallBudget) (Fetcher, error) { return tc.fetcher, nil })
 			out, err := e.Handle(context.Background(), "sodium-infusion-check", mustMarshal(t, req), scenarioAt)
 			if err != nil {
 				t.Fatal(err)

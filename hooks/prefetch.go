@@ -19,10 +19,12 @@ type Fetcher interface {
 	Fetch(ctx context.Context, ref string) ([]byte, error)
 }
 
-// FetcherFactory makes a Fetcher for the server and token of one call. It
-// fails when the server may not be used; the call then proceeds as if no
-// server had been given.
-type FetcherFactory func(server string, auth *FHIRAuthorization, caller Caller) (Fetcher, error)
+// FetcherFactory makes a Fetcher for the server and token of one call,
+// which takes every byte it reads from budget before reading it (and
+// fails the fetch, wrapping the budget's error, when it cannot). It fails
+// when the server may not be used; the call then proceeds as if no server
+// had been given.
+type FetcherFactory func(server string, auth *FHIRAuthorization, caller Caller, budget *CallBudget) (Fetcher, error)
 
 // KeyState says how a prefetch key was resolved.
 type KeyState string
@@ -54,6 +56,12 @@ type Resolved struct {
 // public reason if it has one, else a generic one (the detail could map the
 // network behind halite).
 func publicReason(err error) string {
+	switch {
+	case errors.Is(err, ErrCallBudget):
+		return "the data is larger than one call may read"
+	case errors.Is(err, ErrProcessBudget):
+		return "halite is reading too much data for other calls just now"
+	}
 	var p interface{ Public() string }
 	if errors.As(err, &p) {
 		return p.Public()
@@ -114,12 +122,21 @@ func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limit
 	}
 	wg.Wait()
 	if ctx.Err() != nil {
-		return out, &Error{Kind: KindUnavailable, Message: "the call's time budget ran out while fetching FHIR data",
-			Err: ctx.Err()}
+		if fetch == nil {
+			return out, &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,
+				Message: "the call's time budget ran out", Err: ctx.Err()}
+		}
+		return out, &Error{Kind: KindUnavailable, Reason: ReasonFHIRTimeout,
+			Message: "the call's time budget ran out while fetching FHIR data", Err: ctx.Err()}
 	}
 	var missing []string
 	for _, r := range out {
 		if r.Key.Required && (r.State == Failed || r.State == Unavailable) {
+			if errors.Is(r.Err, ErrProcessBudget) {
+				// Other calls hold the data budget: this call can succeed later.
+				return out, &Error{Kind: KindUnavailable, Reason: ReasonBudget,
+					Message: "halite is reading too much data for other calls just now", Err: r.Err}
+			}
 			missing = append(missing, r.Key.Key+" ("+r.Reason+")")
 		}
 	}

@@ -24,6 +24,9 @@ type Call struct {
 	ContextTokens map[string]string
 	// DraftOrders are the raw resources of context.draftOrders.
 	DraftOrders []json.RawMessage
+	// UnknownPrefetchKeys counts the prefetch keys the service did not ask
+	// for; they are ignored, and their names (the EHR's text) never logged.
+	UnknownPrefetchKeys int
 }
 
 // contextFields are the context fields halite reads.
@@ -64,6 +67,10 @@ func DecodeCall(svc Service, body []byte) (*Call, error) {
 		return nil, err
 	}
 	for key, v := range r.Prefetch {
+		if !svc.asks(key) {
+			c.UnknownPrefetchKeys++
+			continue
+		}
 		if !isNullOrObject(v) {
 			return nil, badRequest("prefetch."+key, "must be a FHIR resource or null")
 		}

@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"mime"
 	"net/http"
+	"os"
 	"strconv"
 	"strings"
 	"sync/atomic"
@@ -36,6 +37,9 @@ type ServerConfig struct {
 	PublicBaseURL string
 	// Metrics, when set, is served at GET /metrics (Prometheus exposition).
 	Metrics http.Handler
+	// StoreReady, when set, checks that the store answers; /readyz fails
+	// while it does not, so the platform routes calls to other replicas.
+	StoreReady func(context.Context) error
 }
 
 // Health tracks readiness: a draining server is alive but not ready.
@@ -107,23 +111,24 @@ func (s *server) call(c *gin.Context) {
 			Message: "must be application/json"})
 		return
 	}
+	// One deadline covers the whole call: authentication (the replay
+	// check), the body, prefetch, rules and the card log.
+	ctx, cancel := s.deadline(c)
+	defer cancel()
 	// The caller is known before its body is read, so an unauthenticated
 	// client cannot make halite hold buffers for it.
-	ctx, ok := s.authenticate(c, "/cds-services/"+id)
+	ctx, ok := s.authenticate(c, ctx, "/cds-services/"+id)
 	if !ok {
 		return
 	}
-	body, err := readBody(c, s.cfg.MaxBodyBytes)
+	budget := s.engine.newCallBudget()
+	defer budget.Release()
+	body, err := s.readBody(c, ctx, budget)
 	if err != nil {
-		s.fail(c, bodyError(err, s.cfg.MaxBodyBytes))
+		s.fail(c, err)
 		return
 	}
-	if s.cfg.CallTimeout > 0 {
-		var cancel context.CancelFunc
-		ctx, cancel = context.WithTimeout(ctx, s.cfg.CallTimeout)
-		defer cancel()
-	}
-	out, err := s.engine.Handle(ctx, id, body, time.Now())
+	out, err := s.engine.handle(ctx, id, body, time.Now(), budget)
 	if err != nil {
 		fail(trace.SpanFromContext(ctx), causeOf(err), err)
 		s.fail(c, err)
@@ -131,19 +136,75 @@ func (s *server) call(c *gin.Context) {
 	}
 	c.Set(logCards, len(out.Response.Cards))
 	c.Set(logKeys, keySummary(out.Keys))
+	if n := out.UnknownPrefetchKeys; n > 0 {
+		c.Set(logUnknownKeys, n)
+	}
 	c.Data(http.StatusOK, "application/json", mustJSON(out.Response))
 }
 
+// deadline is the call's context, ending call_timeout after it started.
+func (s *server) deadline(c *gin.Context) (context.Context, context.CancelFunc) {
+	if s.cfg.CallTimeout <= 0 {
+		return context.WithCancel(c.Request.Context())
+	}
+	return context.WithTimeout(c.Request.Context(), s.cfg.CallTimeout)
+}
+
+// readBody reads the request body within the call's deadline, holding its
+// size in the process budget first: a declared length as declared, an
+// undeclared one (chunked) at the limit. A body still arriving at the
+// deadline is answered 408; a deadline already past (spent authenticating)
+// is halite's 503.
+func (s *server) readBody(c *gin.Context, ctx context.Context, budget *CallBudget) ([]byte, error) {
+	limit := s.cfg.MaxBodyBytes
+	hold := c.Request.ContentLength
+	if hold < 0 || hold > limit {
+		hold = limit
+	}
+	if err := budget.Hold(hold); err != nil {
+		return nil, &Error{Kind: KindUnavailable, Reason: ReasonBudget,
+			Message: "halite is holding too much data for other calls just now", Err: err}
+	}
+	if ctx.Err() != nil {
+		// The time went before the body was read (authentication waited):
+		// halite's delay, not a slow upload.
+		return nil, &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,
+			Message: "the call's time budget ran out before its body was read", Err: ctx.Err()}
+	}
+	if d, ok := ctx.Deadline(); ok {
+		// Past the deadline the connection's read fails; the 408 is still
+		// written. A body already sent takes microseconds to read, but Go
+		// refuses a read whose deadline has passed without trying it, so the
+		// body always gets minBodyWindow: a 408 means it really did not come.
+		_ = http.NewResponseController(c.Writer).SetReadDeadline(later(d, time.Now().Add(minBodyWindow)))
+	}
+	body, err := readBody(c, limit)
+	if err != nil {
+		if errors.Is(err, os.ErrDeadlineExceeded) {
+			return nil, &Error{Kind: KindTimeout, Message: "the request body did not arrive within the call's time budget"}
+		}
+		return nil, bodyError(err, limit)
+	}
+	return body, nil
+}
+
 // authenticate verifies the caller for a call to path, answering 401 and
-// returning false if refused.
-func (s *server) authenticate(c *gin.Context, path string) (context.Context, bool) {
-	ctx := c.Request.Context()
+// returning false if refused, or 503 when the check could not be made (the
+// replay cache's store or the caller's key set unavailable in time): that
+// is never the caller's fault.
+func (s *server) authenticate(c *gin.Context, ctx context.Context, path string) (context.Context, bool) {
 	a := s.cfg.Authenticator
 	if a == nil {
 		return ctx, true
 	}
 	actx, span := s.engine.tel.start(ctx, "jwt.verify")
 	caller, err := a.Authenticate(actx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+path)
+	if KindOf(err) == KindUnavailable {
+		fail(span, CauseHalite, err)
+		span.End()
+		s.fail(c, err)
+		return nil, false
+	}
 	if err != nil {
 		reason := "refused"
 		if l, ok := err.(interface{ Label() string }); ok {
@@ -165,9 +226,11 @@ func (s *server) authenticate(c *gin.Context, path string) (context.Context, boo
 // audience is the feedback URL itself. Success is 200 with no body.
 func (s *server) feedback(c *gin.Context) {
 	id := c.Param("id")
+	ctx, cancel := s.deadline(c)
+	defer cancel()
 	// The caller is verified before anything about the service or the body
 	// is answered, so an unauthenticated client learns nothing from it.
-	ctx, ok := s.authenticate(c, "/cds-services/"+id+"/feedback")
+	ctx, ok := s.authenticate(c, ctx, "/cds-services/"+id+"/feedback")
 	if !ok {
 		return
 	}
@@ -179,9 +242,11 @@ func (s *server) feedback(c *gin.Context) {
 		s.fail(c, &Error{Kind: KindUnsupportedMedia, Field: "Content-Type", Message: "must be application/json"})
 		return
 	}
-	body, err := readBody(c, s.cfg.MaxBodyBytes)
+	budget := s.engine.newCallBudget()
+	defer budget.Release()
+	body, err := s.readBody(c, ctx, budget)
 	if err != nil {
-		s.fail(c, bodyError(err, s.cfg.MaxBodyBytes))
+		s.fail(c, err)
 		return
 	}
 	rec := s.engine.recorder
@@ -230,6 +295,17 @@ func readBody(c *gin.Context, limit int64) ([]byte, error) {
 	return buf.Bytes(), nil
 }
 
+// minBodyWindow is the least time a request body is given to arrive, even
+// when the call's deadline is nearer.
+const minBodyWindow = 250 * time.Millisecond
+
+func later(a, b time.Time) time.Time {
+	if a.After(b) {
+		return a
+	}
+	return b
+}
+
 // maxPrealloc bounds the buffer readBody sets aside for a declared length.
 const maxPrealloc = 1 << 20
 
@@ -248,6 +324,15 @@ func (s *server) ready(c *gin.Context) {
 		c.Data(http.StatusServiceUnavailable, "application/json", []byte(`{"status":"draining"}`))
 		return
 	}
+	if s.cfg.StoreReady != nil {
+		ctx, cancel := context.WithTimeout(c.Request.Context(), readyTimeout)
+		defer cancel()
+		if err := s.cfg.StoreReady(ctx); err != nil {
+			c.Set(logError, "store unreachable")
+			c.Data(http.StatusServiceUnavailable, "application/json", []byte(`{"status":"store-unreachable"}`))
+			return
+		}
+	}
 	ready := map[string]string{"status": "ready", "ruleset": s.engine.Ruleset().Revision()}
 	if s.cfg.Authenticator == nil {
 		ready["mode"] = "development: callers are not authenticated"
@@ -255,10 +340,22 @@ func (s *server) ready(c *gin.Context) {
 	c.Data(http.StatusOK, "application/json", mustJSON(ready))
 }
 
+// readyTimeout bounds the store check of one /readyz probe.
+const readyTimeout = time.Second
+
 // fail answers err with its status and an OperationOutcome. The log gets
 // the error's kind and field only: messages can quote request values.
 func (s *server) fail(c *gin.Context, err error) {
 	c.Set(logError, errorSummary(err))
+	if KindOf(err) == KindUnavailable {
+		reason := ReasonStoreFault
+		var e *Error
+		if errors.As(err, &e) && e.Reason != "" {
+			reason = e.Reason
+		}
+		c.Header("Retry-After", strconv.Itoa(RetryAfterSeconds))
+		s.engine.tel.unavailable.Add(c.Request.Context(), 1, metric.WithAttributes(attribute.String("reason", reason)))
+	}
 	c.Data(StatusOf(err), "application/json", mustJSON(OutcomeOf(err)))
 	c.Abort()
 }
@@ -301,6 +398,9 @@ const (
 	logKeys  = "halite.prefetch"
 	logError = "halite.error"
 	logAuth  = "halite.auth" // why a token was refused
+	// logUnknownKeys counts prefetch keys the service did not ask for; their
+	// names are the EHR's text and are never logged.
+	logUnknownKeys = "halite.prefetch.unknown"
 )
 
 // accessLog writes one line per request: route, status, duration, card
@@ -327,7 +427,14 @@ func (s *server) accessLog(c *gin.Context) {
 	if v, ok := c.Get(logAuth); ok {
 		attrs = append(attrs, "auth_refused", v)
 	}
-	s.log.InfoContext(c.Request.Context(), "request", attrs...)
+	if v, ok := c.Get(logUnknownKeys); ok {
+		attrs = append(attrs, "prefetch_unknown_keys", v)
+	}
+	level := slog.LevelInfo
+	if c.Writer.Status() >= http.StatusInternalServerError {
+		level = slog.LevelWarn // a failed call is found by filtering WARN and above
+	}
+	s.log.Log(c.Request.Context(), level, "request", attrs...)
 	mattrs := []attribute.KeyValue{attribute.Int("status", c.Writer.Status()), attribute.String("route", c.FullPath())}
 	if id := c.Param("id"); id != "" {
 		if _, known := s.engine.Registry().Lookup(id); known {
@@ -348,6 +455,8 @@ func errorSummary(err error) string {
 		return "internal: " + e.Error()
 	case e.Field != "":
 		return statusOf[e.Kind].issueType + " " + e.Field
+	case e.Reason != "":
+		return statusOf[e.Kind].issueType + " " + e.Reason
 	}
 	return statusOf[e.Kind].issueType
 }

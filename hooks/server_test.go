@@ -362,11 +362,11 @@ func TestServiceCallFailures(t *testing.T) {
 		header  map[string]string
 		status  int
 	}{
-		{"FHIR server fails", func(string, *FHIRAuthorization, Caller) (Fetcher, error) { return &mapFetcher{}, nil },
+		{"FHIR server fails", func(string, *FHIRAuthorization, Caller, *CallBudget) (Fetcher, error) { return &mapFetcher{}, nil },
 			http.MethodPost, nil, 412},
-		{"time budget runs out", func(string, *FHIRAuthorization, Caller) (Fetcher, error) { return blockingFetcher{}, nil },
+		{"time budget runs out", func(string, *FHIRAuthorization, Caller, *CallBudget) (Fetcher, error) { return blockingFetcher{}, nil },
 			http.MethodPost, nil, 503},
-		{"panic is a 500", func(string, *FHIRAuthorization, Caller) (Fetcher, error) { panic("test fault") },
+		{"panic is a 500", func(string, *FHIRAuthorization, Caller, *CallBudget) (Fetcher, error) { panic("test fault") },
 			http.MethodPost, nil, 500},
 		{"text/plain is refused", nil, http.MethodPost, map[string]string{"Content-Type": "text/plain"}, 415},
 		{"POST from a foreign origin", nil, http.MethodPost, map[string]string{"Origin": "https://evil.example.net"}, 403},

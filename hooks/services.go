@@ -37,6 +37,16 @@ type Service struct {
 	Prefetch          []PrefetchKey
 }
 
+// asks reports whether key is one of the service's prefetch keys.
+func (s Service) asks(key string) bool {
+	for _, k := range s.Prefetch {
+		if k.Key == key {
+			return true
+		}
+	}
+	return false
+}
+
 // Serves reports whether s is registered for hook.
 func (s Service) Serves(hook string) bool {
 	for _, h := range s.Hooks {

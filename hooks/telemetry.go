@@ -27,6 +27,7 @@ type Telemetry struct {
 	authFailures     metric.Int64Counter
 	feedbackOutcomes metric.Int64Counter
 	fetchDuration    metric.Float64Histogram
+	unavailable      metric.Int64Counter
 }
 
 // Cause categories of errors on spans.
@@ -58,6 +59,9 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	err = errors.Join(err, e)
 	t.fetchDuration, e = m.Float64Histogram("halite.fhir.fetch.duration", metric.WithUnit("s"),
 		metric.WithDescription("FHIR fetches by outcome cause"))
+	err = errors.Join(err, e)
+	t.unavailable, e = m.Int64Counter("halite.unavailable",
+		metric.WithDescription("Calls answered 503, by reason (store-busy, store-timeout, store-queue-full, store-fault, fhir-timeout, call-timeout, budget-exhausted, keys-unavailable)"))
 	err = errors.Join(err, e)
 	if err != nil {
 		return nil, fmt.Errorf("telemetry: %w", err)

@@ -43,6 +43,7 @@ func TestAdminListener(t *testing.T) {
 	for addr, ok := range map[string]bool{"": false, ":9090": false, "0.0.0.0:9090": false, "203.0.113.7:9090": false,
 		"127.0.0.1:9090": true, "10.1.2.3:9090": true} {
 		cfg := defaultConfig()
+		cfg.deriveBudgets(0)
 		cfg.AdminPprof, cfg.AdminAddr = true, addr
 		if err := cfg.validate(); (err == nil) != ok {
 			t.Errorf("admin_pprof on %q: %v; want accepted %v", addr, err, ok)

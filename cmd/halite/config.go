@@ -44,6 +44,11 @@ type Config struct {
 	Auth    AuthConfig     `yaml:"auth"`
 	Issuers []IssuerConfig `yaml:"issuers"`
 	Store   StoreConfig    `yaml:"store"`
+	Budget  BudgetConfig   `yaml:"budget"`
+
+	// memoryLimit is the process's memory limit the budgets were derived
+	// from and are checked against (bytes; not a setting).
+	memoryLimit int64
 }
 
 // FHIRClientConfig bounds the outbound FHIR client.
@@ -76,9 +81,8 @@ func defaultConfig() Config {
 		ShutdownGrace:   Duration(20 * time.Second),
 		LogLevel:        "info",
 		FHIRClient: FHIRClientConfig{
-			Timeout:          Duration(3 * time.Second),
-			MaxResponseBytes: 32 << 20,
-			MaxPages:         10,
+			Timeout:  Duration(3 * time.Second),
+			MaxPages: 10, // MaxResponseBytes is derived with the budgets
 		},
 		Auth:  defaultAuthConfig(),
 		Store: defaultStoreConfig(),
@@ -118,13 +122,18 @@ var envKeys = []struct {
 	{"auth.jwks_min_refresh", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSMinRefresh, v) }},
 	{"auth.jwks_stale_grace", func(c *Config, v string) error { return setDuration(&c.Auth.JWKSStaleGrace, v) }},
 	{"auth.jwks_max_bytes", func(c *Config, v string) (err error) { c.Auth.JWKSMaxBytes, err = strconv.ParseInt(v, 10, 64); return }},
-	{"auth.replay_cache_size", func(c *Config, v string) (err error) { c.Auth.ReplayCacheSize, err = strconv.Atoi(v); return }},
 	{"fhir_client.timeout", func(c *Config, v string) error { return setDuration(&c.FHIRClient.Timeout, v) }},
 	{"fhir_client.max_response_bytes", func(c *Config, v string) (err error) {
 		c.FHIRClient.MaxResponseBytes, err = strconv.ParseInt(v, 10, 64)
 		return
 	}},
 	{"fhir_client.max_pages", func(c *Config, v string) (err error) { c.FHIRClient.MaxPages, err = strconv.Atoi(v); return }},
+	{"budget.process_bytes", func(c *Config, v string) (err error) {
+		c.Budget.ProcessBytes, err = strconv.ParseInt(v, 10, 64)
+		return
+	}},
+	{"budget.call_bytes", func(c *Config, v string) (err error) { c.Budget.CallBytes, err = strconv.ParseInt(v, 10, 64); return }},
+	{"store.queue_size", func(c *Config, v string) (err error) { c.Store.QueueSize, err = strconv.Atoi(v); return }},
 }
 
 // envName is the environment variable for a key: HALITE_ and the key in
@@ -150,8 +159,16 @@ func splitList(v string) []string {
 }
 
 // loadConfig builds the configuration from the file at path (else the
-// one HALITE_CONFIG names; none if both are empty) and the environment.
+// one HALITE_CONFIG names; none if both are empty) and the environment,
+// deriving the byte budgets left unset from the process's memory limit.
 func loadConfig(path string, getenv func(string) string) (Config, error) {
+	cfg, err := readConfig(path, getenv)
+	cfg.deriveBudgets(memoryLimit())
+	return cfg, err
+}
+
+// readConfig is loadConfig without the derived budgets.
+func readConfig(path string, getenv func(string) string) (Config, error) {
 	if path == "" {
 		path = getenv("HALITE_CONFIG")
 	}
@@ -248,12 +265,13 @@ func (c Config) validate() error {
 	if _, ok := logLevels[c.LogLevel]; !ok {
 		return fmt.Errorf("config: log_level: %q is not one of debug, info, warn, error", c.LogLevel)
 	}
+	if err := c.validateBudgets(); err != nil {
+		return err
+	}
 	f := c.FHIRClient
 	switch {
 	case f.Timeout <= 0:
 		return fmt.Errorf("config: fhir_client.timeout: must be positive")
-	case f.MaxResponseBytes <= 0:
-		return fmt.Errorf("config: fhir_client.max_response_bytes: must be positive")
 	case f.MaxPages < 1 || f.MaxPages > 100:
 		return fmt.Errorf("config: fhir_client.max_pages: must be between 1 and 100")
 	}

@@ -73,6 +73,12 @@ func TestConfigErrorsNameTheKey(t *testing.T) {
 		{"public_base_url: https://halite.example.org\nissuers:\n  - iss: https://ehr.example.org\n    jwks_url: http://ehr.example.org/jwks\n", "", "issuers[0]"},
 		{"public_base_url: https://halite.example.org\nissuers:\n  - iss: https://a\n    jwks_url: https://a/j\n  - iss: https://a\n    jwks_url: https://a/j\n", "", "issuers[1].iss"},
 		{"public_base_url: https://halite.example.org\nissuers:\n  - iss: https://a\n    jwks_url: https://a/j\n    fhir_servers:\n      - base_url: http://fhir.example.org\n", "", "issuers[0].fhir_servers[0].base_url"},
+		{"budget:\n  process_bytes: -1\n", "", "budget.process_bytes"},
+		{"budget:\n  process_bytes: 20000000\n  call_bytes: 30000000\n", "", "budget.call_bytes"},
+		{"budget:\n  process_bytes: 20000000\n  call_bytes: 10000000\nfhir_client:\n  max_response_bytes: 10000001\n", "", "fhir_client.max_response_bytes"},
+		{"budget:\n  process_bytes: 20000000\n  call_bytes: 10000000\nmax_body_bytes: 30000000\n", "", "max_body_bytes"},
+		{"", "HALITE_BUDGET_PROCESS_BYTES=4000000000000", "budget.process_bytes"},
+		{"store:\n  queue_size: 0\n", "", "store.queue_size"},
 	} {
 		path := filepath.Join(t.TempDir(), "c.yaml")
 		os.WriteFile(path, []byte(tc.yaml), 0o644)
@@ -111,6 +117,9 @@ func TestEveryKeyHasAnEnvironmentVariable(t *testing.T) {
 	walk = func(typ reflect.Type, prefix string) {
 		for i := 0; i < typ.NumField(); i++ {
 			f := typ.Field(i)
+			if !f.IsExported() {
+				continue // derived, not a setting
+			}
 			key := prefix + strings.Split(f.Tag.Get("yaml"), ",")[0]
 			if f.Type.Kind() == reflect.Struct && f.Type != reflect.TypeOf(Duration(0)) {
 				walk(f.Type, key+".")
@@ -134,7 +143,37 @@ func TestExampleConfigIsValid(t *testing.T) {
 		t.Fatal(err)
 	}
 	def := defaultConfig()
+	def.deriveBudgets(memoryLimit())
 	if cfg.MaxBodyBytes != def.MaxBodyBytes || cfg.CallTimeout != def.CallTimeout || cfg.FHIRClient != def.FHIRClient {
 		t.Errorf("the example says it shows the defaults, but differs: %+v vs %+v", cfg, def)
+	}
+}
+
+// TestBudgetsFromMemoryLimit: left unset, the byte budgets follow the
+// process's memory limit (GOMEMLIMIT, else the cgroup's, else 256 MiB);
+// set ones are kept.
+func TestBudgetsFromMemoryLimit(t *testing.T) {
+	const mib = 1 << 20
+	for _, tc := range []struct {
+		name                       string
+		limit                      int64
+		set                        BudgetConfig
+		process, call, maxResponse int64
+	}{
+		{"the deployed 100 MiB", 100 * mib, BudgetConfig{}, 25 * mib, 25 * mib / 4, 25 * mib / 4},
+		{"1 GiB: one answer stays at 32 MiB", 1024 * mib, BudgetConfig{}, 256 * mib, 64 * mib, 32 * mib},
+		{"unknown: 256 MiB assumed", 0, BudgetConfig{}, 64 * mib, 16 * mib, 16 * mib},
+		{"set values are kept", 100 * mib, BudgetConfig{ProcessBytes: 40 * mib, CallBytes: 2 * mib}, 40 * mib, 2 * mib, 2 * mib},
+	} {
+		cfg := defaultConfig()
+		cfg.Budget = tc.set
+		cfg.deriveBudgets(tc.limit)
+		if cfg.Budget.ProcessBytes != tc.process || cfg.Budget.CallBytes != tc.call || cfg.FHIRClient.MaxResponseBytes != tc.maxResponse {
+			t.Errorf("%s: process %d call %d max_response %d; want %d %d %d", tc.name, cfg.Budget.ProcessBytes, cfg.Budget.CallBytes,
+				cfg.FHIRClient.MaxResponseBytes, tc.process, tc.call, tc.maxResponse)
+		}
+		if err := cfg.validate(); err != nil {
+			t.Errorf("%s: %v", tc.name, err)
+		}
 	}
 }

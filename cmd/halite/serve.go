@@ -13,7 +13,6 @@ import (
 
 	"github.com/gin-gonic/gin"
 	"github.com/halite-cds/halite/hooks"
-	"github.com/halite-cds/halite/hooks/auth"
 	"github.com/halite-cds/halite/hooks/fhirclient"
 	"github.com/halite-cds/halite/rules"
 )
@@ -52,11 +51,10 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer st.Close() // after the server has finished its calls: queued records are committed first
-	var shared auth.ReplayCache
-	if cfg.Store.postgres() {
-		shared = st // replicas sharing the database share the replay cache
-	}
-	authn, err := authenticator(cfg, shared)
+	// The replay cache is kept in the store, SQLite too: a token replayed
+	// after a restart is refused, and replicas sharing a PostgreSQL
+	// database share it.
+	authn, err := authenticator(cfg, st, log)
 	if err != nil {
 		return err
 	}
@@ -85,6 +83,8 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	engine := newEngine(rs, cfg, log, recorder{st}, hash, ht)
+	log.Info("budgets", "memory_limit_bytes", cfg.memoryLimit, "process_bytes", cfg.Budget.ProcessBytes,
+		"call_bytes", cfg.Budget.CallBytes, "max_response_bytes", cfg.FHIRClient.MaxResponseBytes, "store_queue_size", cfg.Store.QueueSize)
 	health := &hooks.Health{}
 	handler := hooks.NewHandler(engine, hooks.ServerConfig{
 		MaxBodyBytes: cfg.MaxBodyBytes,
@@ -94,6 +94,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		Authenticator: authn,
 		PublicBaseURL: cfg.PublicBaseURL,
 		Metrics:       metricsOnMain(cfg, tel.metrics),
+		StoreReady:    st.Ping,
 	}, health, log)
 	if cfg.AdminAddr != "" && tel.metrics != nil {
 		_, stopAdmin, err := serveAdmin(cfg.AdminAddr, tel.metrics, cfg.AdminPprof, log)
@@ -107,10 +108,13 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return fmt.Errorf("serve: %w", err)
 	}
+	// A call's handler sets its own read deadline (the call's), answering
+	// a slow upload 408; the server's bounds lie past it, so a call is
+	// always answered, never cut off.
 	srv := &http.Server{
 		Handler:           handler,
 		ReadHeaderTimeout: 10 * time.Second,
-		ReadTimeout:       30 * time.Second,
+		ReadTimeout:       time.Duration(cfg.CallTimeout) + 10*time.Second,
 		WriteTimeout:      time.Duration(cfg.CallTimeout) + 10*time.Second,
 		IdleTimeout:       2 * time.Minute,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
@@ -160,20 +164,23 @@ func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Record
 	return hooks.NewEngine(hooks.EngineConfig{
 		Registry: hooks.NewRegistry(),
 		Ruleset:  rs,
-		NewFetcher: func(server string, auth *hooks.FHIRAuthorization, caller hooks.Caller) (hooks.Fetcher, error) {
-			if len(cfg.Issuers) == 0 {
-				return fhirclient.New(server, auth.AccessToken, opts)
+		NewFetcher: func(server string, auth *hooks.FHIRAuthorization, caller hooks.Caller, budget *hooks.CallBudget) (hooks.Fetcher, error) {
+			o := opts
+			if len(cfg.Issuers) > 0 {
+				entry, ok := allowedServer(cfg, caller, server)
+				if !ok {
+					return nil, errors.New("fhirServer is not on the calling issuer's allowlist")
+				}
+				if entry.AllowPrivate {
+					o = private
+				}
 			}
-			entry, ok := allowedServer(cfg, caller, server)
-			if !ok {
-				return nil, errors.New("fhirServer is not on the calling issuer's allowlist")
-			}
-			if entry.AllowPrivate {
-				return fhirclient.New(server, auth.AccessToken, private)
-			}
-			return fhirclient.New(server, auth.AccessToken, opts)
+			o.Budget = budget
+			return fhirclient.New(server, auth.AccessToken, o)
 		},
 		Limits:      hooks.Limits{MaxPages: cfg.FHIRClient.MaxPages},
+		Budget:      hooks.NewProcessBudget(cfg.Budget.ProcessBytes),
+		CallBytes:   cfg.Budget.CallBytes,
 		Log:         log,
 		Telemetry:   tel,
 		Recorder:    rec,

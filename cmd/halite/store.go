@@ -33,11 +33,14 @@ type StoreConfig struct {
 	// leaves) or "normal" (commits survive a crash of halite, not of the
 	// machine); see feedback.Options.
 	SQLiteSynchronous string `yaml:"sqlite_synchronous"`
+	// QueueSize bounds the records waiting for the store's writer; a call
+	// that finds it full is answered 503 at once.
+	QueueSize int `yaml:"queue_size"`
 }
 
 func defaultStoreConfig() StoreConfig {
 	return StoreConfig{DSN: "sqlite:halite-data/halite.db", Retention: Duration(400 * 24 * time.Hour), PurgeEvery: Duration(time.Hour),
-		SQLiteSynchronous: feedback.SyncFull}
+		SQLiteSynchronous: feedback.SyncFull, QueueSize: 1024}
 }
 
 func (s StoreConfig) postgres() bool {
@@ -53,6 +56,9 @@ func (s StoreConfig) validate(dev bool) error {
 		return fmt.Errorf("config: store.sqlite_synchronous: %q is not %q or %q", s.SQLiteSynchronous, feedback.SyncFull, feedback.SyncNormal)
 	case s.postgres() && s.SQLiteSynchronous != feedback.SyncFull:
 		return errors.New("config: store.sqlite_synchronous: applies to a sqlite: store only; PostgreSQL commits are synced by the server")
+	}
+	if s.QueueSize < 1 || s.QueueSize > 1<<20 {
+		return errors.New("config: store.queue_size: must be between 1 and 1048576")
 	}
 	if s.Retention <= 0 || s.PurgeEvery <= 0 {
 		return errors.New("config: store.retention and store.purge_interval must be positive")
@@ -87,13 +93,13 @@ func openStore(c StoreConfig, log *slog.Logger, reader bool) (*feedback.DB, func
 	var st *feedback.DB
 	var err error
 	if c.postgres() {
-		st, err = feedback.OpenPostgres(c.DSN, feedback.Options{})
+		st, err = feedback.OpenPostgres(c.DSN, feedback.Options{QueueSize: c.QueueSize})
 	} else {
 		path := strings.TrimPrefix(c.DSN, "sqlite:")
 		if err := os.MkdirAll(filepath.Dir(path), 0o700); err != nil {
 			return nil, nil, fmt.Errorf("store: %w", err)
 		}
-		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous, Log: log, NoCheckpointer: reader})
+		st, err = feedback.OpenSQLite(path, feedback.Options{SQLiteSynchronous: c.SQLiteSynchronous, Log: log, NoCheckpointer: reader, QueueSize: c.QueueSize})
 	}
 	if err != nil {
 		return nil, nil, err
@@ -128,13 +134,29 @@ func purgeLoop(ctx context.Context, st feedback.Store, c StoreConfig, log *slog.
 // recorder presents a feedback.Store as the hooks Recorder.
 type recorder struct{ st feedback.Store }
 
+// storeUnavailable is a store failure as the 503 it is answered with,
+// with the store's reason (queue full, timeout, busy) when it has one.
+func storeUnavailable(err error, message string) error {
+	reason := hooks.ReasonStoreFault
+	if kind, ok := feedback.UnavailableKind(err); ok {
+		switch kind {
+		case hooks.ReasonStoreBusy, hooks.ReasonStoreTimeout, hooks.ReasonStoreQueueFull:
+			reason = kind
+		}
+	}
+	return &hooks.Error{Kind: hooks.KindUnavailable, Reason: reason, Message: message, Err: err}
+}
+
 func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error {
 	recs := make([]feedback.CardRecord, len(cards))
 	for i, c := range cards {
 		recs[i] = feedback.CardRecord{UUID: c.UUID, Service: c.Service, Rule: c.Rule, Indicator: c.Indicator, Ruleset: c.Ruleset,
 			Issuer: c.Issuer, Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions}
 	}
-	return r.st.LogCards(ctx, recs)
+	if err := r.st.LogCards(ctx, recs); err != nil {
+		return storeUnavailable(err, "the card log could not be written")
+	}
+	return nil
 }
 
 func (r recorder) RecordOutcomes(ctx context.Context, entries []hooks.CardOutcome) error {
@@ -146,14 +168,13 @@ func (r recorder) RecordOutcomes(ctx context.Context, entries []hooks.CardOutcom
 	}
 	err := r.st.RecordFeedback(ctx, recs)
 	var ee *feedback.EntryError
-	if !errors.As(err, &ee) {
-		return err
-	}
 	switch {
-	case errors.Is(err, feedback.ErrUnknownCard):
+	case err == nil:
+		return nil
+	case errors.As(err, &ee) && errors.Is(err, feedback.ErrUnknownCard):
 		return &hooks.OutcomeError{Index: ee.Index, Err: hooks.ErrUnknownCard}
-	case errors.Is(err, feedback.ErrUnknownSuggestion):
+	case errors.As(err, &ee) && errors.Is(err, feedback.ErrUnknownSuggestion):
 		return &hooks.OutcomeError{Index: ee.Index, Err: hooks.ErrUnknownSuggestion}
 	}
-	return err
+	return storeUnavailable(err, "feedback could not be stored")
 }

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"log/slog"
 	"net/http"
 	"net/url"
 	"os"
@@ -17,15 +18,14 @@ import (
 
 // AuthConfig bounds token verification.
 type AuthConfig struct {
-	Algorithms      []string `yaml:"algorithms"`
-	ClockSkew       Duration `yaml:"clock_skew"`
-	MaxLifetime     Duration `yaml:"max_token_lifetime"`
-	JWKSTimeout     Duration `yaml:"jwks_timeout"`
-	JWKSRefresh     Duration `yaml:"jwks_refresh"`
-	JWKSMinRefresh  Duration `yaml:"jwks_min_refresh"`
-	JWKSStaleGrace  Duration `yaml:"jwks_stale_grace"`
-	JWKSMaxBytes    int64    `yaml:"jwks_max_bytes"`
-	ReplayCacheSize int      `yaml:"replay_cache_size"`
+	Algorithms     []string `yaml:"algorithms"`
+	ClockSkew      Duration `yaml:"clock_skew"`
+	MaxLifetime    Duration `yaml:"max_token_lifetime"`
+	JWKSTimeout    Duration `yaml:"jwks_timeout"`
+	JWKSRefresh    Duration `yaml:"jwks_refresh"`
+	JWKSMinRefresh Duration `yaml:"jwks_min_refresh"`
+	JWKSStaleGrace Duration `yaml:"jwks_stale_grace"`
+	JWKSMaxBytes   int64    `yaml:"jwks_max_bytes"`
 }
 
 // IssuerConfig is one trusted EHR.
@@ -48,15 +48,14 @@ type FHIRServerCf struct {
 
 func defaultAuthConfig() AuthConfig {
 	return AuthConfig{
-		Algorithms:      []string{"ES384", "RS384"},
-		ClockSkew:       Duration(30 * time.Second),
-		MaxLifetime:     Duration(5 * time.Minute),
-		JWKSTimeout:     Duration(3 * time.Second),
-		JWKSRefresh:     Duration(time.Hour),
-		JWKSMinRefresh:  Duration(time.Minute),
-		JWKSStaleGrace:  Duration(6 * time.Hour),
-		JWKSMaxBytes:    64 << 10,
-		ReplayCacheSize: 200000,
+		Algorithms:     []string{"ES384", "RS384"},
+		ClockSkew:      Duration(30 * time.Second),
+		MaxLifetime:    Duration(5 * time.Minute),
+		JWKSTimeout:    Duration(3 * time.Second),
+		JWKSRefresh:    Duration(time.Hour),
+		JWKSMinRefresh: Duration(time.Minute),
+		JWKSStaleGrace: Duration(6 * time.Hour),
+		JWKSMaxBytes:   64 << 10,
 	}
 }
 
@@ -69,8 +68,8 @@ func (c Config) validateTrust() error {
 	if a.MaxLifetime <= 0 || a.MaxLifetime > Duration(time.Hour) {
 		return errors.New("config: auth.max_token_lifetime: must be positive and at most 1h")
 	}
-	if a.JWKSTimeout <= 0 || a.JWKSRefresh <= 0 || a.JWKSMinRefresh <= 0 || a.JWKSMaxBytes <= 0 || a.ReplayCacheSize <= 0 {
-		return errors.New("config: auth: jwks_timeout, jwks_refresh, jwks_min_refresh, jwks_max_bytes and replay_cache_size must be positive")
+	if a.JWKSTimeout <= 0 || a.JWKSRefresh <= 0 || a.JWKSMinRefresh <= 0 || a.JWKSMaxBytes <= 0 {
+		return errors.New("config: auth: jwks_timeout, jwks_refresh, jwks_min_refresh and jwks_max_bytes must be positive")
 	}
 	if a.JWKSMinRefresh > a.JWKSRefresh {
 		return errors.New("config: auth.jwks_min_refresh: must not exceed jwks_refresh (an expired set could not be refetched)")
@@ -122,9 +121,9 @@ func secureURL(u *url.URL, dev bool) bool {
 }
 
 // authenticator builds the caller check from the configuration; nil when no
-// issuer is trusted (development mode). shared, when set, is the replay
-// cache replicas share (the PostgreSQL store); else one in memory is used.
-func authenticator(c Config, shared auth.ReplayCache) (hooks.Authenticator, error) {
+// issuer is trusted (development mode). replay is the store's replay cache
+// (durable across restarts; shared by replicas on PostgreSQL).
+func authenticator(c Config, replay auth.ReplayCache, log *slog.Logger) (hooks.Authenticator, error) {
 	if len(c.Issuers) == 0 {
 		return nil, nil
 	}
@@ -135,6 +134,7 @@ func authenticator(c Config, shared auth.ReplayCache) (hooks.Authenticator, erro
 		Refresh:    time.Duration(a.JWKSRefresh),
 		MinRefresh: time.Duration(a.JWKSMinRefresh),
 		StaleGrace: time.Duration(a.JWKSStaleGrace),
+		Log:        log,
 	})
 	var issuers []auth.Issuer
 	for i, is := range c.Issuers {
@@ -147,10 +147,6 @@ func authenticator(c Config, shared auth.ReplayCache) (hooks.Authenticator, erro
 			ai.JWKS = data
 		}
 		issuers = append(issuers, ai)
-	}
-	replay := shared
-	if replay == nil {
-		replay = auth.NewMemoryReplay(a.ReplayCacheSize, nil)
 	}
 	v, err := auth.NewVerifier(auth.Config{Issuers: issuers, Algorithms: a.Algorithms, Skew: time.Duration(a.ClockSkew),
 		MaxLifetime: time.Duration(a.MaxLifetime), Keys: keys, Replay: replay})
@@ -165,7 +161,14 @@ type verifierAdapter struct{ v *auth.Verifier }
 
 func (a verifierAdapter) Authenticate(ctx context.Context, authorization, audience string) (hooks.Caller, error) {
 	c, err := a.v.Verify(ctx, authorization, audience)
-	if err != nil {
+	switch {
+	case errors.Is(err, auth.ErrReplayUnavailable):
+		// The store is down or slow: never the caller's fault, never a 401.
+		return hooks.Caller{}, storeUnavailable(err, "the token's replay check could not be made")
+	case errors.Is(err, auth.ErrKeysUnavailable):
+		return hooks.Caller{}, &hooks.Error{Kind: hooks.KindUnavailable, Reason: hooks.ReasonKeysTimeout,
+			Message: "the caller's key set could not be read in time", Err: err}
+	case err != nil:
 		return hooks.Caller{}, err
 	}
 	return hooks.Caller{Issuer: c.Issuer, Tenant: c.Tenant}, nil
