@@ -298,6 +298,15 @@ func storeOutageUnderLoad(t *testing.T, backend string) {
 		t.Errorf("readyz %d during the outage and %d after; want 503 then 200", readyDuring, readyAfter)
 	}
 	checkPeaks(t, backend, peak)
+	resp, err := client.Get(base + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	metrics, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if !strings.Contains(string(metrics), `halite_unavailable_total{`) || !strings.Contains(string(metrics), `reason="store-timeout"`) {
+		t.Errorf("the 503s are not counted by reason in /metrics")
+	}
 	if err := stop(); err != nil {
 		t.Fatal(err)
 	}

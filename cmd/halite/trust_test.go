@@ -250,6 +250,32 @@ func TestReplicasShareReplayCache(t *testing.T) {
 	}
 }
 
+// TestReplayRefusedAfterRestart: on one node with SQLite, a token used
+// before a restart is refused after it (the jti is kept in the store).
+func TestReplayRefusedAfterRestart(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	t.Setenv("HALITE_STORE_DSN", "sqlite:"+filepath.Join(t.TempDir(), "halite.db"))
+	dir, cfgPath := localIssuer(t)
+	var tok bytes.Buffer
+	if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
+		"--aud", "http://127.0.0.1/cds-services/sodium-infusion-check"}, &tok, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	demo, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	var statuses []int
+	for range 2 {
+		base, _, stop := startServe(t, "--config", cfgPath)
+		status, _ := postJSON(t, base+"/cds-services/sodium-infusion-check", "Bearer "+strings.TrimSpace(tok.String()), demo)
+		statuses = append(statuses, status)
+		if err := stop(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if statuses[0] != 200 || statuses[1] != 401 {
+		t.Errorf("the same token before and after a restart: %v; want 200 then 401", statuses)
+	}
+}
+
 // TestLogLinesCarryTraceIDs: a record logged inside a span gets its trace
 // and span ids.
 func TestLogLinesCarryTraceIDs(t *testing.T) {
