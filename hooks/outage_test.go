@@ -2,12 +2,16 @@ package hooks
 
 import (
 	"bufio"
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
+	"log/slog"
 	"net"
 	"net/http"
+	"net/http/httptest"
 	"strings"
 	"sync/atomic"
 	"testing"
@@ -152,5 +156,46 @@ func TestUnknownPrefetchKeysNotLogged(t *testing.T) {
 	}
 	if !strings.Contains(l, `"prefetch_unknown_keys":1`) {
 		t.Errorf("the unknown key is not counted: %.500s", l)
+	}
+}
+
+// TestBodyHeldInProcessBudget: a request body is held in the process's
+// byte budget, declared or chunked; one that does not fit is a 503
+// (budget-exhausted) with Retry-After, and every call gives back what it
+// held.
+func TestBodyHeldInProcessBudget(t *testing.T) {
+	body := mustMarshal(t, requestMap(t, "01-chronic-hypona-3pct-infusion.json", "sodium-infusion-check", HookOrderSign))
+	for _, tc := range []struct {
+		name    string
+		limit   int64
+		chunked bool
+		want    int
+	}{
+		{"declared, fits", int64(len(body)), false, 200},
+		{"chunked, fits", int64(len(body)), true, 200},
+		{"declared, does not fit", int64(len(body)) - 1, false, 503},
+		{"chunked, does not fit", int64(len(body)) - 1, true, 503},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			e := testEngine(t, nil)
+			e.budget = NewProcessBudget(tc.limit)
+			srv := httptest.NewServer(NewHandler(e, defaultServerConfig(), &Health{}, slog.New(slog.DiscardHandler)))
+			defer srv.Close()
+			var r io.Reader = bytes.NewReader(body)
+			if tc.chunked {
+				r = io.MultiReader(r) // no length known: sent chunked
+			}
+			resp, err := http.Post(srv.URL+"/cds-services/sodium-infusion-check", "application/json", r)
+			if err != nil {
+				t.Fatal(err)
+			}
+			resp.Body.Close()
+			if resp.StatusCode != tc.want || (tc.want == 503 && resp.Header.Get("Retry-After") == "") {
+				t.Errorf("status %d Retry-After %q; want %d", resp.StatusCode, resp.Header.Get("Retry-After"), tc.want)
+			}
+			if n := e.budget.InUse(); n != 0 {
+				t.Errorf("%d bytes still held after the call", n)
+			}
+		})
 	}
 }

@@ -117,13 +117,13 @@ func (s *server) call(c *gin.Context) {
 	defer cancel()
 	// The caller is known before its body is read, so an unauthenticated
 	// client cannot make halite hold buffers for it.
-	ctx, ok := s.authenticate(c, ctx, "/cds-services/"+id)
+	ctx, ok := s.authenticate(ctx, c, "/cds-services/"+id)
 	if !ok {
 		return
 	}
 	budget := s.engine.newCallBudget()
 	defer budget.Release()
-	body, err := s.readBody(c, ctx, budget)
+	body, err := s.readBody(ctx, c, budget)
 	if err != nil {
 		s.fail(c, err)
 		return
@@ -150,21 +150,13 @@ func (s *server) deadline(c *gin.Context) (context.Context, context.CancelFunc) 
 	return context.WithTimeout(c.Request.Context(), s.cfg.CallTimeout)
 }
 
-// readBody reads the request body within the call's deadline, holding its
-// size in the process budget first: a declared length as declared, an
-// undeclared one (chunked) at the limit. A body still arriving at the
+// readBody reads the request body within the call's deadline, holding it
+// in the process's byte budget: a declared length before it is read, an
+// undeclared one (chunked) as it arrives. A body still arriving at the
 // deadline is answered 408; a deadline already past (spent authenticating)
-// is halite's 503.
-func (s *server) readBody(c *gin.Context, ctx context.Context, budget *CallBudget) ([]byte, error) {
+// is halite's 503, and so is a budget that cannot hold the body.
+func (s *server) readBody(ctx context.Context, c *gin.Context, budget *CallBudget) ([]byte, error) {
 	limit := s.cfg.MaxBodyBytes
-	hold := c.Request.ContentLength
-	if hold < 0 || hold > limit {
-		hold = limit
-	}
-	if err := budget.Hold(hold); err != nil {
-		return nil, &Error{Kind: KindUnavailable, Reason: ReasonBudget,
-			Message: "halite is holding too much data for other calls just now", Err: err}
-	}
 	if ctx.Err() != nil {
 		// The time went before the body was read (authentication waited):
 		// halite's delay, not a slow upload.
@@ -178,8 +170,12 @@ func (s *server) readBody(c *gin.Context, ctx context.Context, budget *CallBudge
 		// body always gets minBodyWindow: a 408 means it really did not come.
 		_ = http.NewResponseController(c.Writer).SetReadDeadline(later(d, time.Now().Add(minBodyWindow)))
 	}
-	body, err := readBody(c, limit)
+	body, err := readBody(c, limit, budget.Hold)
 	if err != nil {
+		if errors.Is(err, ErrProcessBudget) {
+			return nil, &Error{Kind: KindUnavailable, Reason: ReasonBudget,
+				Message: "halite is holding too much data for other calls just now", Err: err}
+		}
 		if errors.Is(err, os.ErrDeadlineExceeded) {
 			return nil, &Error{Kind: KindTimeout, Message: "the request body did not arrive within the call's time budget"}
 		}
@@ -192,7 +188,7 @@ func (s *server) readBody(c *gin.Context, ctx context.Context, budget *CallBudge
 // returning false if refused, or 503 when the check could not be made (the
 // replay cache's store or the caller's key set unavailable in time): that
 // is never the caller's fault.
-func (s *server) authenticate(c *gin.Context, ctx context.Context, path string) (context.Context, bool) {
+func (s *server) authenticate(ctx context.Context, c *gin.Context, path string) (context.Context, bool) {
 	a := s.cfg.Authenticator
 	if a == nil {
 		return ctx, true
@@ -230,7 +226,7 @@ func (s *server) feedback(c *gin.Context) {
 	defer cancel()
 	// The caller is verified before anything about the service or the body
 	// is answered, so an unauthenticated client learns nothing from it.
-	ctx, ok := s.authenticate(c, ctx, "/cds-services/"+id+"/feedback")
+	ctx, ok := s.authenticate(ctx, c, "/cds-services/"+id+"/feedback")
 	if !ok {
 		return
 	}
@@ -244,7 +240,7 @@ func (s *server) feedback(c *gin.Context) {
 	}
 	budget := s.engine.newCallBudget()
 	defer budget.Release()
-	body, err := s.readBody(c, ctx, budget)
+	body, err := s.readBody(ctx, c, budget)
 	if err != nil {
 		s.fail(c, err)
 		return
@@ -278,11 +274,16 @@ func (s *server) feedback(c *gin.Context) {
 // sized for it rather than a growing one (for a large prefetch, growth was
 // most of a call's garbage); what is set aside before any byte arrives is
 // capped at maxPrealloc, so a declared length alone cannot claim memory.
-func readBody(c *gin.Context, limit int64) ([]byte, error) {
+// hold takes the body's bytes from the process's budget: a declared length
+// before reading (until the call's deadline at most), others as they come.
+func readBody(c *gin.Context, limit int64, hold func(int64) error) ([]byte, error) {
 	r := http.MaxBytesReader(c.Writer, c.Request.Body, limit)
 	n := c.Request.ContentLength
 	if n <= 0 || n > limit {
-		return io.ReadAll(r)
+		return io.ReadAll(heldReader{r, hold})
+	}
+	if err := hold(n); err != nil {
+		return nil, err
 	}
 	// bytes.MinRead spare, so that reading the end of the body does not grow it.
 	buf := bytes.NewBuffer(make([]byte, 0, min(n, maxPrealloc)+bytes.MinRead))
@@ -293,6 +294,22 @@ func readBody(c *gin.Context, limit int64) ([]byte, error) {
 		return nil, io.ErrUnexpectedEOF // net/http ends a body at its declared length
 	}
 	return buf.Bytes(), nil
+}
+
+// heldReader holds each part of a body of undeclared length as it is read.
+type heldReader struct {
+	r    io.Reader
+	hold func(int64) error
+}
+
+func (h heldReader) Read(p []byte) (int, error) {
+	n, err := h.r.Read(p)
+	if n > 0 {
+		if herr := h.hold(int64(n)); herr != nil {
+			return 0, herr
+		}
+	}
+	return n, err
 }
 
 // minBodyWindow is the least time a request body is given to arrive, even
