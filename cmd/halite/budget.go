@@ -44,10 +44,10 @@ func memoryLimit() int64 {
 }
 
 // deriveBudgets fills the byte budgets left unset from the memory limit
-// (0: unknown, fallbackMemoryLimit assumed): a quarter of it for all calls'
+// (0: unknown, fallbackMemoryLimit assumed): a fifth of it for all calls'
 // data, a quarter of that for one call, and one FHIR answer at most the
 // call's budget and 32 MiB. Measured (README, Reliability): parsing makes
-// the heap hold about three times the bytes read, so a quarter keeps the
+// the heap hold about three times the bytes read, so a fifth keeps the
 // peak well inside the limit.
 func (c *Config) deriveBudgets(limit int64) {
 	if limit <= 0 {
@@ -55,7 +55,7 @@ func (c *Config) deriveBudgets(limit int64) {
 	}
 	c.memoryLimit = limit
 	if c.Budget.ProcessBytes == 0 {
-		c.Budget.ProcessBytes = limit / 4
+		c.Budget.ProcessBytes = limit / 5
 	}
 	if c.Budget.CallBytes == 0 && c.Budget.ProcessBytes > 0 {
 		c.Budget.CallBytes = c.Budget.ProcessBytes / 4

@@ -160,9 +160,9 @@ func TestBudgetsFromMemoryLimit(t *testing.T) {
 		set                        BudgetConfig
 		process, call, maxResponse int64
 	}{
-		{"the deployed 100 MiB", 100 * mib, BudgetConfig{}, 25 * mib, 25 * mib / 4, 25 * mib / 4},
-		{"1 GiB: one answer stays at 32 MiB", 1024 * mib, BudgetConfig{}, 256 * mib, 64 * mib, 32 * mib},
-		{"unknown: 256 MiB assumed", 0, BudgetConfig{}, 64 * mib, 16 * mib, 16 * mib},
+		{"the deployed 100 MiB", 100 * mib, BudgetConfig{}, 20 * mib, 5 * mib, 5 * mib},
+		{"1 GiB: one answer stays at 32 MiB", 1024 * mib, BudgetConfig{}, 1024 * mib / 5, 1024 * mib / 5 / 4, 32 * mib},
+		{"unknown: 256 MiB assumed", 0, BudgetConfig{}, 256 * mib / 5, 256 * mib / 5 / 4, 256 * mib / 5 / 4},
 		{"set values are kept", 100 * mib, BudgetConfig{ProcessBytes: 40 * mib, CallBytes: 2 * mib}, 40 * mib, 2 * mib, 2 * mib},
 	} {
 		cfg := defaultConfig()
