@@ -52,8 +52,12 @@ func TestLOINCMolarMass(t *testing.T) {
 		{"15074-8", 180.156}, // glucose, IUPAC 2021
 		{"3094-0", 28.014},   // urea nitrogen: 2 N per urea molecule, IUPAC 2021
 		{"14937-7", 28.014},  // urea nitrogen: 2 N per urea molecule, IUPAC 2021
+		{"6299-2", 28.014},   // urea nitrogen in blood: 2 N per urea molecule, IUPAC 2021
+		{"59570-2", 28.014},  // urea nitrogen in blood: 2 N per urea molecule, IUPAC 2021
 		{"3091-6", 60.056},   // urea, IUPAC 2021 (CH4N2O)
 		{"22664-7", 60.056},  // urea, IUPAC 2021
+		{"20977-5", 60.056},  // urea in blood, IUPAC 2021 (CH4N2O)
+		{"38483-4", 113.120}, // creatinine in blood, IUPAC 2021 (C4H7N3O)
 		{"2160-0", 113.120},  // creatinine, IUPAC 2021 (C4H7N3O)
 		{"14682-9", 113.120}, // creatinine, IUPAC 2021
 		{"2951-2", 0},        // sodium: no mass-unit form (codes.go contract)
@@ -82,8 +86,10 @@ func TestLOINCCodes(t *testing.T) {
 	}
 	// LOINC sodium codes (Regenstrief), verified in halite's clinical
 	// reference notes §8 (source V-B): 2951-2 serum/plasma, 2947-0 blood,
-	// 32717-1 arterial blood, 39791-9 venous blood.
-	want := []string{"2947-0", "2951-2", "32717-1", "39791-9"}
+	// 32717-1 arterial blood, 39791-9 venous blood; and in the VSAC Sodium
+	// Lab Test value set (codes.go): 41657-8 mixed venous blood, 77139-4
+	// serum, plasma or blood.
+	want := []string{"2947-0", "2951-2", "32717-1", "39791-9", "41657-8", "77139-4"}
 	got := LOINCCodes(rules.Sodium)
 	if len(got) != len(want) {
 		t.Fatalf("LOINCCodes(sodium) = %v, want %v", got, want)
@@ -96,12 +102,14 @@ func TestLOINCCodes(t *testing.T) {
 }
 
 func TestToCanonicalAccepted(t *testing.T) {
-	sodium := []string{"2951-2", "2947-0", "32717-1", "39791-9"}
-	potassium := []string{"2823-3", "6298-4"}
-	glucose := []string{"2345-7", "14749-6", "2339-0", "15074-8"}
-	bun := []string{"3094-0", "14937-7"}
-	urea := []string{"3091-6", "22664-7"}
-	creatinine := []string{"2160-0", "14682-9"}
+	sodium := []string{"2951-2", "2947-0", "32717-1", "39791-9", "41657-8", "77139-4"}
+	potassium := []string{"2823-3", "6298-4", "32713-0", "39789-3", "41656-0", "77142-8"}
+	glucose := []string{"2345-7", "14749-6", "2339-0", "15074-8", "74774-1", "77135-2", "41651-1", "39481-7",
+		"41652-9", "39480-9", "104655-6", "100746-7", "32016-8", "51596-5", "41653-7", "14743-9",
+		"104597-0", "104598-8", "2340-8", "72516-8", "2341-6"}
+	bun := []string{"3094-0", "14937-7", "6299-2", "59570-2", "12961-9", "12962-7", "12963-5"}
+	urea := []string{"3091-6", "22664-7", "20977-5"}
+	creatinine := []string{"2160-0", "14682-9", "38483-4", "59826-8", "77140-2", "21232-4", "101475-2"}
 	tests := []struct {
 		name  string
 		codes []string
@@ -220,6 +228,8 @@ func TestToCanonicalRejected(t *testing.T) {
 		{"height kg", "8302-2", "kg", `unit "kg" is not one halite converts for body-height`},
 		{"height empty", "8302-2", "", "no unit"},
 		{"urine Na mg/dL", "2955-3", "mg/dL", `unit "mg/dL" is not one halite converts for urine-sodium`},
+		{"urine Na 24-h amount", "2955-3", "mmol/(24.h)", `unit "mmol/(24.h)" is not one halite converts for urine-sodium`}, // amount per day, not a concentration
+		{"arterial K mg/dL", "32713-0", "mg/dL", `unit "mg/dL" is not one halite converts for potassium`},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
