@@ -108,7 +108,7 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 			a.Missing = append(a.Missing, err.Error())
 		}
 	} else {
-		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %g days", p.Projection.WeightMaxAgeHours/24))
+		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %s days", orderHours.of(p.Projection.WeightMaxAgeHours/24)))
 	}
 	if v, basis, ok := Volume24h(o); ok {
 		a.Volume24hLitres, a.VolumeBasis = &v, basis

@@ -126,11 +126,11 @@ func (c chart) addFigures(fig map[string]float64) {
 // commonLines writes the lines every chart card carries: the sodium series used
 // and the limits.
 func (r *Ruleset) commonLines(b *strings.Builder, c chart) {
-	fmt.Fprintf(b, "- Latest sodium: %g mmol/L (%s, %s)\n", c.latest.Value, stamp(c.latest.At), c.latest.Source)
+	fmt.Fprintf(b, "- Latest sodium: %s mmol/L (%s, %s)\n", show(Sodium, c.latest.Value), stamp(c.latest.At), c.latest.Source)
 	if w := c.trend.Window48h; w != nil {
 		var vals []string
 		for _, m := range w.Used {
-			vals = append(vals, fmt.Sprintf("%.1f (%s)", m.Value, m.At.UTC().Format("01-02 15:04")))
+			vals = append(vals, fmt.Sprintf("%s (%s)", show(Sodium, m.Value), m.At.UTC().Format("01-02 15:04")))
 		}
 		fmt.Fprintf(b, "- Sodium in the last 48 h: %s\n", strings.Join(vals, ", "))
 	}
@@ -156,7 +156,8 @@ func (r *Ruleset) overcorrection(c chart) (Finding, bool) {
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
-	fmt.Fprintf(&b, "- Rise from the nadir: %.1f mmol/L in 24 h, %.1f in 48 h (rolling windows ending now)\n", a.Achieved24h, a.Achieved48h)
+	fmt.Fprintf(&b, "- Rise from the nadir: %s mmol/L in 24 h, %s in 48 h (rolling windows ending now)\n", naChange.of(a.Achieved24h),
+		naChange.of(a.Achieved48h))
 	fmt.Fprintf(&b, "- Limits: %g mmol/L per 24 h (%s), %g per 48 h (%s)\n", a.Limit24h, limitSource, a.Limit48h, l.HyponatremiaRise48h.Source)
 	fd := Finding{Figures: map[string]float64{}}
 	switch {
@@ -164,12 +165,12 @@ func (r *Ruleset) overcorrection(c chart) (Finding, bool) {
 		fd.Rule = RuleOvercorrected
 		switch {
 		case a.Achieved48h > a.Limit48h && a.Achieved24h > a.Limit24h:
-			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 24 h and %.1f in 48 h, above the %g and %g mmol/L limits",
-				a.Achieved24h, a.Achieved48h, a.Limit24h, a.Limit48h)
+			fd.Summary = fmt.Sprintf("Sodium rose %s mmol/L in 24 h and %s in 48 h, above the %g and %g mmol/L limits",
+				naChange.of(a.Achieved24h), naChange.of(a.Achieved48h), a.Limit24h, a.Limit48h)
 		case a.Achieved48h > a.Limit48h:
-			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 48 h, above the %g mmol/L limit", a.Achieved48h, a.Limit48h)
+			fd.Summary = fmt.Sprintf("Sodium rose %s mmol/L in 48 h, above the %g mmol/L limit", naChange.of(a.Achieved48h), a.Limit48h)
 		default:
-			fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L in 24 h, above the %g mmol/L limit", a.Achieved24h, a.Limit24h)
+			fd.Summary = fmt.Sprintf("Sodium rose %s mmol/L in 24 h, above the %g mmol/L limit", naChange.of(a.Achieved24h), a.Limit24h)
 		}
 		b.WriteString("\nGuidelines describe re-lowering sodium after an overcorrection in patients at risk (Verbalis 2013; " +
 			"Spasovski 2014; from memory); whether and how is the treating team's decision under local protocol.")
@@ -187,11 +188,11 @@ func (r *Ruleset) overcorrection(c chart) (Finding, bool) {
 		left := closes.Sub(c.f.At).Hours()
 		allowed = math.Max(0, allowed)
 		fd.Rule = RuleNearingLimit
-		fd.Summary = fmt.Sprintf("Sodium rose %.1f mmol/L since the nadir; %.1f more allowed in the next %.0f h (%g-h limit %g)",
-			a.Latest.Value-nadir.Value, allowed, left, hours, limit)
+		fd.Summary = fmt.Sprintf("Sodium rose %s mmol/L since the nadir; %s more allowed in the next %s h (%g-h limit %g)",
+			naChange.of(a.Latest.Value-nadir.Value), naChange.of(allowed), hoursSince.of(left), hours, limit)
 		fd.Figures["hoursLeftInWindow"], fd.Figures["riseStillAllowed"] = Round(left, 1), Round(allowed, 1)
-		fmt.Fprintf(&b, "- The %g-h window from the nadir (%s) closes in %.1f h; %.1f mmol/L more is allowed until then\n",
-			hours, stamp(nadir.At), left, allowed)
+		fmt.Fprintf(&b, "- The %g-h window from the nadir (%s) closes in %s h; %s mmol/L more is allowed until then\n",
+			hours, stamp(nadir.At), hoursSpan.of(left), naChange.of(allowed))
 	default:
 		return Finding{}, false
 	}
@@ -218,11 +219,12 @@ func (r *Ruleset) hyperTooFast(c chart) (Finding, bool) {
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
-	fmt.Fprintf(&b, "- Fall from the peak of %.1f (%s): %.1f mmol/L over %.1f h, %.2f mmol/L per hour\n", w.Peak.Value, stamp(w.Peak.At),
-		w.FallFromPeak, hours, perHour)
+	fmt.Fprintf(&b, "- Fall from the peak of %s (%s): %s mmol/L over %s h, %s mmol/L per hour\n", show(Sodium, w.Peak.Value), stamp(w.Peak.At),
+		naChange.of(w.FallFromPeak), hoursSpan.of(hours), naPerHour.of(perHour))
 	fmt.Fprintf(&b, "- Limits: %g mmol/L per 24 h and %g per hour (%s); the hourly rate is judged over at least %g h\n",
 		l.HypernatremiaFall24h.Value, l.HypernatremiaFallPerHour.Value, l.HypernatremiaFall24h.Source, cp.HourlyFallMinHours)
-	summary := fmt.Sprintf("Sodium fell %.1f mmol/L in %.0f h from %.0f, faster than the limits", w.FallFromPeak, hours, w.Peak.Value)
+	summary := fmt.Sprintf("Sodium fell %s mmol/L in %s h from %s, faster than the limits", naChange.of(w.FallFromPeak), hoursSince.of(hours),
+		show(Sodium, w.Peak.Value))
 	return Finding{Rule: RuleHyperTooFast, Summary: summary, Detail: b.String(),
 		Figures: map[string]float64{"fallPerHour": Round(perHour, 2)}}, true
 }
@@ -243,9 +245,9 @@ func (r *Ruleset) profoundOrFalling(c chart) (Finding, bool) {
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
-	summary := fmt.Sprintf("Sodium %g mmol/L, below %g", na, cp.ProfoundBelow)
+	summary := fmt.Sprintf("Sodium %s mmol/L, below %g", show(Sodium, na), cp.ProfoundBelow)
 	if falling {
-		summary = fmt.Sprintf("Sodium fell %.1f mmol/L in 48 h to %g", fall, na)
+		summary = fmt.Sprintf("Sodium fell %s mmol/L in 48 h to %s", naChange.of(fall), show(Sodium, na))
 	}
 	drugs := r.activeDrugs(c.f, EffectHyponatremia)
 	if len(drugs) > 0 {
@@ -289,9 +291,10 @@ func (r *Ruleset) notHypotonic(c chart) (Finding, bool) {
 	r.contextLines(&b, t)
 	b.WriteString("\nA hyponatremia that is not hypotonic (hyperglycaemia, or another effective osmole) is not corrected " +
 		"like a hypotonic one; a measured serum osmolality confirms it (reference notes §3; Verbalis 2013, from memory).")
-	summary := fmt.Sprintf("Sodium %g but effective osmolality %.0f mOsm/kg: not hypotonic", c.latest.Value, *t.EffectiveOsmolality)
+	summary := fmt.Sprintf("Sodium %s but effective osmolality %s mOsm/kg: not hypotonic", show(Sodium, c.latest.Value),
+		osmolal.of(*t.EffectiveOsmolality))
 	if t.CorrectedKatz != nil {
-		summary += fmt.Sprintf("; glucose-corrected %.0f–%.0f", *t.CorrectedKatz, *t.CorrectedHillier)
+		summary += fmt.Sprintf("; glucose-corrected %s–%s", naChange.of(*t.CorrectedKatz), naChange.of(*t.CorrectedHillier))
 	}
 	return Finding{Rule: RuleNotHypotonic, Summary: shorten(summary, 139), Detail: b.String()}, true
 }
@@ -311,26 +314,26 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 			missingUrine(c.urineOs, c.urineNa))
 		b.WriteString("\nUrine osmolality and sodium separate the causes of a hypotonic hyponatremia (reference notes §4.3).")
 		return Finding{Rule: RuleUrineStudiesMissing, Detail: b.String(), Figures: map[string]float64{},
-			Summary: fmt.Sprintf("Hypotonic hyponatremia (sodium %g, effective osmolality %.0f) without urine osmolality and sodium",
-				c.latest.Value, *t.EffectiveOsmolality),
+			Summary: fmt.Sprintf("Hypotonic hyponatremia (sodium %s, effective osmolality %s) without urine osmolality and sodium",
+				show(Sodium, c.latest.Value), osmolal.of(*t.EffectiveOsmolality)),
 			Advice: []Advice{{Kind: AdviseUrineStudies, Label: "Order urine osmolality and urine sodium"}}}, true
 	}
 	if c.urineOs.Value <= cp.SIADH.UrineOsmolalityAbove || c.urineNa.Value <= cp.SIADH.UrineSodiumAbove {
 		return Finding{}, false
 	}
 	fig := map[string]float64{"urineOsmolality": c.urineOs.Value, "urineSodium": c.urineNa.Value}
-	fmt.Fprintf(&b, "- Urine osmolality %g mOsm/kg (%s), urine sodium %g mmol/L (%s)\n", c.urineOs.Value, stamp(c.urineOs.At),
-		c.urineNa.Value, stamp(c.urineNa.At))
+	fmt.Fprintf(&b, "- Urine osmolality %s mOsm/kg (%s), urine sodium %s mmol/L (%s)\n", show(UrineOsmolality, c.urineOs.Value),
+		stamp(c.urineOs.At), show(UrineSodium, c.urineNa.Value), stamp(c.urineNa.At))
 	fmt.Fprintf(&b, "- Criteria: effective osmolality < %g, urine osmolality > %g, urine sodium > %g (%s)\n",
 		cp.SIADH.EffectiveOsmolalityBelow, cp.SIADH.UrineOsmolalityAbove, cp.SIADH.UrineSodiumAbove, cp.SIADH.Source)
-	summary := fmt.Sprintf("Labs consistent with the SIADH criteria: effective osmolality %.0f, urine osmolality %g, urine sodium %g",
-		*t.EffectiveOsmolality, c.urineOs.Value, c.urineNa.Value)
+	summary := fmt.Sprintf("Labs consistent with the SIADH criteria: effective osmolality %s, urine osmolality %s, urine sodium %s",
+		osmolal.of(*t.EffectiveOsmolality), show(UrineOsmolality, c.urineOs.Value), show(UrineSodium, c.urineNa.Value))
 	if c.urineK != nil {
 		ratio := (c.urineNa.Value + c.urineK.Value) / c.latest.Value
 		fig["urinePlasmaElectrolyteRatio"] = Round(ratio, 2)
 		band := r.restrictionBand(ratio)
-		fmt.Fprintf(&b, "- Urine-to-plasma electrolyte ratio (%g + %g)/%g = %.2f: %s (%s)\n", c.urineNa.Value, c.urineK.Value,
-			c.latest.Value, ratio, band.Text, cp.Restriction.Scheme)
+		fmt.Fprintf(&b, "- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s: %s (%s)\n", show(UrineSodium, c.urineNa.Value),
+			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio), band.Text, cp.Restriction.Scheme)
 		r.paediatricBand(&b, c, band, fig)
 	} else {
 		b.WriteString("- Urine potassium not available: the urine-to-plasma electrolyte ratio was not computed\n")
@@ -381,8 +384,8 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBa
 	w, okW := latestWithin(c.f.Labs[BodyWeight], c.f.At, p.Projection.WeightMaxAgeHours)
 	h, okH := latestWithin(c.f.Labs[BodyHeight], c.f.At, p.ChartReview.HeightMaxAgeHours)
 	if !okW || !okH {
-		fmt.Fprintf(b, "- Child: the band per body-surface area needs a weight from the last %g days and a height from the last %g days; "+
-			"missing: %s\n", p.Projection.WeightMaxAgeHours/24, p.ChartReview.HeightMaxAgeHours/24, missingSize(okW, okH))
+		fmt.Fprintf(b, "- Child: the band per body-surface area needs a weight from the last %s days and a height from the last %s days; "+
+			"missing: %s\n", orderHours.of(p.Projection.WeightMaxAgeHours/24), orderHours.of(p.ChartReview.HeightMaxAgeHours/24), missingSize(okW, okH))
 		return
 	}
 	bsa, err := MostellerBSA(h.Value, w.Value)
@@ -392,12 +395,13 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBa
 	}
 	perM2 := band.MlPerDayUpTo / p.ChartReview.Restriction.AdultBSA
 	fig["bsaM2"] = Round(bsa, 2)
-	fmt.Fprintf(b, "- Child: body-surface area %.2f m² (Mosteller; %g cm, %g kg); the band's %g mL/day for an adult is about %.0f mL/m²/day, "+
-		"%.0f mL/day for this child (%s)\n", bsa, Round(h.Value, 1), Round(w.Value, 1), band.MlPerDayUpTo, perM2, perM2*bsa,
+	fmt.Fprintf(b, "- Child: body-surface area %s m² (Mosteller; %s cm, %s kg); the band's %g mL/day for an adult is about %s mL/m²/day, "+
+		"%s mL/day for this child (%s)\n", ratioOrBSA.of(bsa), show(BodyHeight, h.Value), show(BodyWeight, w.Value), band.MlPerDayUpTo,
+		mlPerDay.of(perM2), mlPerDay.of(perM2*bsa),
 		p.ChartReview.Restriction.PaediatricSource)
 	if rs := p.ChartReview.Restriction; perM2 < rs.PaediatricInsensibleMlPerM2 {
-		fmt.Fprintf(b, "- That is below the %g mL/m²/day of insensible losses (%.0f mL/day for this child): a restriction this "+
-			"tight is not usually used in a child (%s)\n", rs.PaediatricInsensibleMlPerM2, rs.PaediatricInsensibleMlPerM2*bsa,
+		fmt.Fprintf(b, "- That is below the %g mL/m²/day of insensible losses (%s mL/day for this child): a restriction this "+
+			"tight is not usually used in a child (%s)\n", rs.PaediatricInsensibleMlPerM2, mlPerDay.of(rs.PaediatricInsensibleMlPerM2*bsa),
 			rs.PaediatricInsensibleSource)
 	}
 }
@@ -422,16 +426,17 @@ func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
 	if c.serumOs != nil {
-		fmt.Fprintf(&b, "- Serum osmolality %g mOsm/kg (%s)\n", c.serumOs.Value, stamp(c.serumOs.At))
+		fmt.Fprintf(&b, "- Serum osmolality %s mOsm/kg (%s)\n", show(SerumOsmolality, c.serumOs.Value), stamp(c.serumOs.At))
 	}
-	fmt.Fprintf(&b, "- Urine osmolality %g mOsm/kg (%s): dilute urine despite a high sodium or osmolality (%s)\n",
-		c.urineOs.Value, stamp(c.urineOs.At), cd.Source)
+	fmt.Fprintf(&b, "- Urine osmolality %s mOsm/kg (%s): dilute urine despite a high sodium or osmolality (%s)\n",
+		show(UrineOsmolality, c.urineOs.Value), stamp(c.urineOs.At), cd.Source)
 	drugs := r.activeDrugs(c.f, EffectNephrogenicDI)
 	if len(drugs) > 0 {
 		fmt.Fprintf(&b, "- Active drugs that can cause nephrogenic DI: %s\n", strings.Join(drugs, ", "))
 	}
 	fmt.Fprintf(&b, "\n**Evaluation the policy suggests**: %s.", cd.Evaluation)
-	summary := fmt.Sprintf("Dilute urine (%g mOsm/kg) with sodium %g: pattern of a urinary concentrating defect", c.urineOs.Value, c.latest.Value)
+	summary := fmt.Sprintf("Dilute urine (%s mOsm/kg) with sodium %s: pattern of a urinary concentrating defect",
+		show(UrineOsmolality, c.urineOs.Value), show(Sodium, c.latest.Value))
 	if len(drugs) > 0 {
 		summary += "; on " + strings.Join(drugs, ", ")
 	}

@@ -3,6 +3,7 @@ package rules
 import (
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -27,18 +28,22 @@ type drugContext struct {
 	fall        float64 // fall from the peak in the policy window
 	serumOsm    *Measurement
 	urineOsm    *Measurement
-	activeRisk  map[string]string // ingredient → how it is on the chart (active)
-	draftRisk   map[string]string // ingredient → draft reference
-	thiazide    string            // a thiazide active or drafted, by name
-	activeNames map[string]bool   // every active ingredient, for renewals
+	activeRisk  map[string]string   // ingredient → how it is on the chart (active)
+	draftRisk   map[string][]string // ingredient → the draft orders of it
+	thiazide    string              // a thiazide active or drafted, by name
+	activeNames map[string]bool     // every active ingredient, for renewals
 }
 
-// drugRiskFindings judges each selected draft order against the knowledge
-// base and this patient, one finding per risk ingredient (the most urgent of
-// its effects), naming the other risk drugs of the chart and the session.
+// drugRiskFindings judges the selected draft orders against the knowledge
+// base and this patient: one finding per knowledge-base entry per call (the
+// most urgent of its effects), covering every selected draft of it (an oral
+// and an intravenous furosemide give one card naming both), and naming the
+// other risk drugs of the chart and the session. The judgement depends on
+// the ingredient and the patient only, so it is the same for every order a
+// finding covers.
 func (r *Ruleset) drugRiskFindings(f Facts) []Finding {
 	p := r.policy.DrugRisk
-	c := drugContext{at: f.At, activeRisk: map[string]string{}, draftRisk: map[string]string{}, activeNames: map[string]bool{}}
+	c := drugContext{at: f.At, activeRisk: map[string]string{}, draftRisk: map[string][]string{}, activeNames: map[string]bool{}}
 	if l, ok := latestWithin(f.Labs[Sodium], f.At, p.SodiumMaxAgeHours); ok {
 		c.latest = &l
 	}
@@ -69,34 +74,39 @@ func (r *Ruleset) drugRiskFindings(f Facts) []Finding {
 			}
 		}
 	}
-	type drafted struct {
-		o  MedicationOrder
-		ms []DrugMatch
-	}
-	var drafts []drafted
+	var names []string // the selected entries, in the order first drafted
+	selected := map[string][]drafted{}
 	for _, o := range f.DraftOrders {
-		ms := r.MatchDrug(o.Medication)
-		for _, m := range ms {
+		for _, m := range r.MatchDrug(o.Medication) {
+			name := m.Ingredient.Name
 			if _, ok := m.Ingredient.Effect(EffectHyponatremia); ok && !m.Ingredient.IntendedToRaiseSodium {
-				c.draftRisk[m.Ingredient.Name] = o.Reference
+				c.draftRisk[name] = append(c.draftRisk[name], o.Reference)
 				if m.Ingredient.Class == "thiazide" && c.thiazide == "" {
-					c.thiazide = m.Ingredient.Name
+					c.thiazide = name
 				}
 			}
-		}
-		if o.Selected {
-			drafts = append(drafts, drafted{o, ms})
+			if o.Selected && !slices.ContainsFunc(selected[name], func(d drafted) bool { return d.o.Reference == o.Reference }) {
+				if selected[name] == nil {
+					names = append(names, name)
+				}
+				selected[name] = append(selected[name], drafted{o, m})
+			}
 		}
 	}
 	var out []Finding
-	for _, d := range drafts {
-		for _, m := range d.ms {
-			if fd, ok := r.judgeDrug(c, d.o, m); ok {
-				out = append(out, fd)
-			}
+	for _, name := range names {
+		if fd, ok := r.judgeDrug(c, selected[name]); ok {
+			out = append(out, fd)
 		}
 	}
 	return out
+}
+
+// drafted is one selected draft order of a knowledge-base entry and how it
+// was recognised.
+type drafted struct {
+	o MedicationOrder
+	m DrugMatch
 }
 
 // nearest is the measurement of s closest in time to ref, within hours and
@@ -122,18 +132,35 @@ type drugVerdict struct {
 	summary   string
 }
 
-func (r *Ruleset) judgeDrug(c drugContext, o MedicationOrder, m DrugMatch) (Finding, bool) {
+// judgeDrug judges the drafts of one knowledge-base entry. A finding about
+// one draft order carries it as Order and suggests removing it; a finding
+// about several carries no Order and suggests no removal (which of the
+// drafts to keep is the prescriber's choice; the detail names each), only
+// the sodium check, which serves them all.
+func (r *Ruleset) judgeDrug(c drugContext, ds []drafted) (Finding, bool) {
 	p := r.policy.DrugRisk
-	d := m.Ingredient
+	d := ds[0].m.Ingredient
 	renewal := c.activeNames[d.Name]
 	multipliers := c.multipliers(p, d)
-	others := c.otherRiskDrugs(d.Name, o.Reference)
+	refs := make([]string, len(ds))
+	var by []string
+	code := ""
+	for i, x := range ds {
+		refs[i] = x.o.Reference
+		if !slices.Contains(by, x.m.By) {
+			by = append(by, x.m.By)
+		}
+		if code == "" {
+			code = x.m.Code
+		}
+	}
+	others := c.otherRiskDrugs(d.Name, refs)
 	var vs []drugVerdict
 	if d.IntendedToRaiseSodium {
 		if c.latest != nil && c.latest.Value > p.HypernatremiaAbove {
 			e := d.Effects[0]
 			vs = append(vs, drugVerdict{RuleRaiserHypernatremia, Warning, e,
-				fmt.Sprintf("%s raises sodium, which is already %g mmol/L", capitalise(d.Name), c.latest.Value)})
+				fmt.Sprintf("%s raises sodium, which is already %s mmol/L", capitalise(d.Name), show(Sodium, c.latest.Value))})
 		}
 	} else if e, ok := d.Effect(EffectHyponatremia); ok {
 		if v, ok := c.hyponatremiaVerdict(p, d, e, renewal, multipliers); ok {
@@ -159,9 +186,10 @@ func (r *Ruleset) judgeDrug(c drugContext, o MedicationOrder, m DrugMatch) (Find
 		fig["sodiumLatest"] = c.last.Value
 		fig["sodiumAgeHours"] = Round(c.lastAgeHours(), 1)
 	}
-	attrs := map[string]any{"ingredient": d.Name, "effect": best.effect.Effect, "evidence": best.effect.Evidence, "matchedBy": m.By}
-	if m.Code != "" { // a class-level match has no ingredient code
-		attrs["ingredientRxcui"] = m.Code
+	attrs := map[string]any{"ingredient": d.Name, "effect": best.effect.Effect, "evidence": best.effect.Evidence,
+		"matchedBy": strings.Join(by, "; ")}
+	if code != "" { // a class-level match has no ingredient code
+		attrs["ingredientRxcui"] = code
 	}
 	if len(multipliers) > 0 {
 		attrs["riskMultipliers"] = multipliers
@@ -169,19 +197,23 @@ func (r *Ruleset) judgeDrug(c drugContext, o MedicationOrder, m DrugMatch) (Find
 	if len(others) > 0 {
 		attrs["otherRiskDrugs"] = others
 	}
-	advice := []Advice{r.drugRecheck(best.rule, best.indicator), {Kind: AdviseWithdraw, Label: "Remove this draft order"}}
-	return Finding{Rule: best.rule, Indicator: best.indicator, Summary: shorten(best.summary, 139),
-		Detail: r.drugDetail(c, o, m, vs, renewal, multipliers, others), Figures: fig, Attributes: attrs,
-		Order: o.Reference, Advice: advice}, true
+	fd := Finding{Rule: best.rule, Indicator: best.indicator, Summary: shorten(best.summary, 139),
+		Detail: r.drugDetail(c, ds, vs, renewal, multipliers, others), Figures: fig, Attributes: attrs,
+		Advice: []Advice{r.drugRecheck(best.rule)}}
+	if len(ds) == 1 {
+		fd.Order = refs[0]
+		fd.Advice = append(fd.Advice, Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"})
+	}
+	return fd, true
 }
 
 // drugRecheck is the sodium check a drug card suggests: now and after the
 // first weeks for a new start, else within the policy interval.
-func (r *Ruleset) drugRecheck(rule string, ind Indicator) Advice {
+func (r *Ruleset) drugRecheck(rule string) Advice {
 	p := r.policy.DrugRisk
 	if rule == RuleDrugNewStart || rule == RuleLithiumNoSodium {
 		return Advice{Kind: AdviseRecheck, RecheckHours: 0, FollowUpHours: p.NewStartFollowUpHours,
-			Label: fmt.Sprintf("Check serum sodium now and in %g days", p.NewStartFollowUpHours/24)}
+			Label: fmt.Sprintf("Check serum sodium now and in %s days", orderHours.of(p.NewStartFollowUpHours/24))}
 	}
 	return recheckAdvice(p.LowSodiumRecheckHours)
 }
@@ -216,7 +248,8 @@ func (c drugContext) hyponatremiaVerdict(p DrugRiskPolicy, d DrugIngredient, e D
 				return drugVerdict{}, false
 			}
 			return drugVerdict{RuleDrugHyponatremia, ind, e,
-				fmt.Sprintf("%s (%s) can lower sodium (%s evidence); sodium is %g mmol/L", capitalise(d.Name), start, e.Evidence, na)}, true
+				fmt.Sprintf("%s (%s) can lower sodium (%s evidence); sodium is %s mmol/L", capitalise(d.Name), start, e.Evidence,
+					show(Sodium, na))}, true
 		}
 	}
 	if e.Evidence != EvidenceStrong || len(multipliers) == 0 || renewal {
@@ -225,9 +258,9 @@ func (c drugContext) hyponatremiaVerdict(p DrugRiskPolicy, d DrugIngredient, e D
 	na := "no sodium on record"
 	switch {
 	case c.latest != nil:
-		na = fmt.Sprintf("sodium %g mmol/L", c.latest.Value)
+		na = fmt.Sprintf("sodium %s mmol/L", show(Sodium, c.latest.Value))
 	case c.last != nil:
-		na = fmt.Sprintf("last sodium %.0f days old", c.lastAgeHours()/24)
+		na = fmt.Sprintf("last sodium %s days old", daysSince.of(c.lastAgeHours()/24))
 	}
 	return drugVerdict{RuleDrugNewStart, Info, e,
 		fmt.Sprintf("%s can lower sodium, most in the first weeks; %s; %s", capitalise(d.Name), strings.Join(multipliers, ", "), na)}, true
@@ -238,17 +271,17 @@ func (c drugContext) ndiVerdict(p DrugRiskPolicy, d DrugIngredient, e DrugEffect
 	case c.latest != nil && c.latest.Value > p.HypernatremiaAbove:
 		urine := ""
 		if c.urineOsm != nil {
-			urine = fmt.Sprintf(", urine osmolality %g mOsm/kg", c.urineOsm.Value)
+			urine = fmt.Sprintf(", urine osmolality %s mOsm/kg", show(UrineOsmolality, c.urineOsm.Value))
 		}
 		return drugVerdict{RuleDrugNDI, ndiIndicator(e), e,
-			fmt.Sprintf("%s can cause nephrogenic DI; sodium is %g mmol/L%s", capitalise(d.Name), c.latest.Value, urine)}, true
+			fmt.Sprintf("%s can cause nephrogenic DI; sodium is %s mmol/L%s", capitalise(d.Name), show(Sodium, c.latest.Value), urine)}, true
 	case c.serumOsm != nil && c.urineOsm != nil && c.serumOsm.Value > p.SerumOsmolalityAbove && c.urineOsm.Value < p.UrineOsmolalityBelow:
 		return drugVerdict{RuleDrugNDI, ndiIndicator(e), e,
-			fmt.Sprintf("%s can cause nephrogenic DI; sodium %g, serum osmolality %g, urine osmolality %g mOsm/kg", capitalise(d.Name),
-				c.latest.Value, c.serumOsm.Value, c.urineOsm.Value)}, true
+			fmt.Sprintf("%s can cause nephrogenic DI; sodium %s, serum osmolality %s, urine osmolality %s mOsm/kg", capitalise(d.Name),
+				show(Sodium, c.latest.Value), show(SerumOsmolality, c.serumOsm.Value), show(UrineOsmolality, c.urineOsm.Value))}, true
 	case c.latest == nil && d.Class == "lithium":
 		return drugVerdict{RuleLithiumNoSodium, Info, e,
-			fmt.Sprintf("Lithium order: no serum sodium from the last %g days", p.SodiumMaxAgeHours/24)}, true
+			fmt.Sprintf("Lithium order: no serum sodium from the last %s days", orderHours.of(p.SodiumMaxAgeHours/24))}, true
 	}
 	return drugVerdict{}, false
 }
@@ -279,22 +312,25 @@ func (c drugContext) multipliers(p DrugRiskPolicy, d DrugIngredient) []string {
 		out = append(out, "a thiazide ("+c.thiazide+")")
 	}
 	if c.fall >= p.FallAtLeast {
-		out = append(out, fmt.Sprintf("sodium fell %.1f mmol/L in %d days", c.fall, p.FallWindowHours/24))
+		out = append(out, fmt.Sprintf("sodium fell %s mmol/L in %d days", naChange.of(c.fall), p.FallWindowHours/24))
 	}
 	return out
 }
 
 // otherRiskDrugs names the other hyponatremia-risk drugs active on the
-// chart or drafted in the same session, sorted.
-func (c drugContext) otherRiskDrugs(name, order string) []string {
+// chart or drafted in the same session, sorted. An ingredient drafted only
+// in the orders the finding covers (the other half of a combination
+// product) has its own finding and is not named.
+func (c drugContext) otherRiskDrugs(name string, orders []string) []string {
 	var out []string
 	for n := range c.activeRisk {
 		if n != name {
 			out = append(out, n+" (active)")
 		}
 	}
-	for n, ref := range c.draftRisk {
-		if n != name && ref != order && c.activeRisk[n] == "" {
+	for n, refs := range c.draftRisk {
+		elsewhere := slices.ContainsFunc(refs, func(ref string) bool { return !slices.Contains(orders, ref) })
+		if n != name && elsewhere && c.activeRisk[n] == "" {
 			out = append(out, n+" (draft)")
 		}
 	}
@@ -302,9 +338,9 @@ func (c drugContext) otherRiskDrugs(name, order string) []string {
 	return out
 }
 
-func (r *Ruleset) drugDetail(c drugContext, o MedicationOrder, m DrugMatch, vs []drugVerdict, renewal bool, multipliers, others []string) string {
+func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, renewal bool, multipliers, others []string) string {
 	p := r.policy.DrugRisk
-	d := m.Ingredient
+	d := ds[0].m.Ingredient
 	var b strings.Builder
 	line := func(format string, args ...any) { fmt.Fprintf(&b, "- "+format+"\n", args...) }
 	b.WriteString("**Drug**\n\n")
@@ -312,7 +348,9 @@ func (r *Ruleset) drugDetail(c drugContext, o MedicationOrder, m DrugMatch, vs [
 	if renewal {
 		start = "a renewal (the ingredient is already active)"
 	}
-	line("Order %s: %s, recognised by %s; %s", o.Reference, d.Name, m.By, start)
+	for _, x := range ds {
+		line("Order %s (%s): %s, recognised by %s; %s", x.o.Reference, orderText(x.o), d.Name, x.m.By, start)
+	}
 	for _, v := range vs {
 		e := v.effect
 		mech := ""
@@ -324,18 +362,19 @@ func (r *Ruleset) drugDetail(c drugContext, o MedicationOrder, m DrugMatch, vs [
 	b.WriteString("\n**Patient**\n\n")
 	switch {
 	case c.latest != nil:
-		line("Latest sodium: %g mmol/L (%s, %.0f h ago, %s)", c.latest.Value, stamp(c.latest.At), c.at.Sub(c.latest.At).Hours(), c.latest.Source)
+		line("Latest sodium: %s mmol/L (%s, %s h ago, %s)", show(Sodium, c.latest.Value), stamp(c.latest.At),
+			hoursSince.of(c.at.Sub(c.latest.At).Hours()), c.latest.Source)
 	case c.last != nil:
-		line("No sodium from the last %g days; the last, %g mmol/L, is %.0f days old (%s)", p.SodiumMaxAgeHours/24, c.last.Value,
-			c.lastAgeHours()/24, stamp(c.last.At))
+		line("No sodium from the last %s days; the last, %s mmol/L, is %s days old (%s)", orderHours.of(p.SodiumMaxAgeHours/24),
+			show(Sodium, c.last.Value), daysSince.of(c.lastAgeHours()/24), stamp(c.last.At))
 	default:
 		line("No serum sodium on record")
 	}
 	if c.serumOsm != nil {
-		line("Serum osmolality: %g mOsm/kg (%s)", c.serumOsm.Value, stamp(c.serumOsm.At))
+		line("Serum osmolality: %s mOsm/kg (%s)", show(SerumOsmolality, c.serumOsm.Value), stamp(c.serumOsm.At))
 	}
 	if c.urineOsm != nil {
-		line("Urine osmolality: %g mOsm/kg (%s)", c.urineOsm.Value, stamp(c.urineOsm.At))
+		line("Urine osmolality: %s mOsm/kg (%s)", show(UrineOsmolality, c.urineOsm.Value), stamp(c.urineOsm.At))
 	}
 	if !c.ageKnown {
 		line("Age: not recorded (no birth date); the age multiplier was not checked")
@@ -351,8 +390,8 @@ func (r *Ruleset) drugDetail(c drugContext, o MedicationOrder, m DrugMatch, vs [
 		b.WriteString("sodium, serum and urine osmolality, and urine output (polyuria, thirst). ")
 	}
 	if _, ok := d.Effect(EffectHyponatremia); ok && !d.IntendedToRaiseSodium {
-		fmt.Fprintf(&b, "sodium at baseline and after the first %g days of a new start, when it is most likely to fall, and "+
-			"symptoms of hyponatremia. ", p.NewStartFollowUpHours/24)
+		fmt.Fprintf(&b, "sodium at baseline and after the first %s days of a new start, when it is most likely to fall, and "+
+			"symptoms of hyponatremia. ", orderHours.of(p.NewStartFollowUpHours/24))
 	}
 	b.WriteString("Thresholds: " + p.Source)
 	return b.String()

@@ -3,6 +3,7 @@ package rules
 import (
 	"bufio"
 	"os"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -239,5 +240,86 @@ func TestDrugSessionNamesOthers(t *testing.T) {
 		if o, _ := got[i].Attributes["otherRiskDrugs"].([]string); len(o) != 1 || o[0] != other {
 			t.Errorf("card %d names %v, want %s", i, got[i].Attributes["otherRiskDrugs"], other)
 		}
+	}
+}
+
+// TestDrugOneFindingPerIngredient: the drafts of one ingredient in a call
+// give one finding that names each of them with its product and route,
+// suggests no removal (which draft to keep is the prescriber's choice) and
+// carries no Order; a single draft keeps its Order and removal. Facts
+// invented.
+func TestDrugOneFindingPerIngredient(t *testing.T) {
+	rs := loadRuleset(t)
+	oral := MedicationOrder{Reference: "MedicationRequest/oral", Status: "draft", Selected: true,
+		Medication: Medication{Text: "Furosemide 40 mg oral tablet"}, RouteText: "oral"}
+	iv := MedicationOrder{Reference: "MedicationRequest/iv", Status: "draft", Selected: true,
+		Medication: Medication{Codings: []Coding{{System: SystemRxNorm, Code: "4603", Display: "furosemide"}}},
+		Route:      []Coding{{System: "http://snomed.info/sct", Code: "47625008", Display: "Intravenous route"}}}
+	sertraline := MedicationOrder{Reference: "MedicationRequest/s", Status: "draft", Selected: true, Medication: Medication{Text: "sertraline"}}
+	unselected := iv
+	unselected.Reference, unselected.Selected = "MedicationRequest/later", false
+	const (
+		oralLine = "Order MedicationRequest/oral (Furosemide 40 mg oral tablet; route: oral): furosemide, recognised by name"
+		ivLine   = "Order MedicationRequest/iv (furosemide; route: Intravenous route): furosemide, recognised by RxNorm 4603 (ingredient)"
+	)
+	type card struct {
+		ingredient string
+		order      string   // the finding's Order: the one draft it covers, or none
+		lines      []string // one per draft covered
+		others     []string
+	}
+	for _, tc := range []struct {
+		name   string
+		drafts []MedicationOrder
+		want   []card
+	}{
+		{"oral and intravenous furosemide: one card", []MedicationOrder{oral, iv},
+			[]card{{"furosemide", "", []string{oralLine, ivLine}, nil}}},
+		{"one draft listed twice: one order", []MedicationOrder{oral, oral},
+			[]card{{"furosemide", "MedicationRequest/oral", []string{oralLine}, nil}}},
+		{"an unselected draft is not covered", []MedicationOrder{oral, unselected},
+			[]card{{"furosemide", "MedicationRequest/oral", []string{oralLine}, nil}}},
+		{"two furosemide and sertraline: one card each, naming the other", []MedicationOrder{oral, sertraline, iv}, []card{
+			{"furosemide", "", []string{oralLine, ivLine}, []string{"sertraline (draft)"}},
+			{"sertraline", "MedicationRequest/s", []string{"Order MedicationRequest/s (sertraline; route: not stated): sertraline"},
+				[]string{"furosemide (draft)"}},
+		}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{3: 128}, nil)
+			f.DraftOrders = tc.drafts
+			got := rs.Evaluate(DrugRisk, f)
+			if len(got) != len(tc.want) {
+				t.Fatalf("%d findings, want %d: %+v", len(got), len(tc.want), got)
+			}
+			for i, w := range tc.want {
+				fd := got[i]
+				if fd.Attributes["ingredient"] != w.ingredient || fd.Rule != RuleDrugHyponatremia || fd.Indicator != Warning {
+					t.Errorf("finding %d: %s %s %v", i, fd.Rule, fd.Indicator, fd.Attributes["ingredient"])
+				}
+				if n := strings.Count(fd.Detail, "- Order "); n != len(w.lines) {
+					t.Errorf("finding %d names %d orders, want %d:\n%s", i, n, len(w.lines), fd.Detail)
+				}
+				for _, l := range w.lines {
+					if !strings.Contains(fd.Detail, "- "+l) {
+						t.Errorf("finding %d lacks %q:\n%s", i, l, fd.Detail)
+					}
+				}
+				var kinds []AdviceKind
+				for _, a := range fd.Advice {
+					kinds = append(kinds, a.Kind)
+				}
+				wantKinds := []AdviceKind{AdviseRecheck}
+				if w.order != "" {
+					wantKinds = append(wantKinds, AdviseWithdraw)
+				}
+				if fd.Order != w.order || !slices.Equal(kinds, wantKinds) {
+					t.Errorf("finding %d: order %q, advice %v; want %q, %v", i, fd.Order, kinds, w.order, wantKinds)
+				}
+				if o, _ := fd.Attributes["otherRiskDrugs"].([]string); !slices.Equal(o, w.others) {
+					t.Errorf("finding %d names others %v, want %v", i, o, w.others)
+				}
+			}
+		})
 	}
 }

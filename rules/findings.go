@@ -37,7 +37,10 @@ type Finding struct {
 	// drug-risk check's ingredient, evidence, match, multipliers).
 	Attributes map[string]any
 	// Order is the draft order the finding is about ("MedicationRequest/id"),
-	// empty for a finding about the chart.
+	// empty for a finding about the chart or about several draft orders (a
+	// drug-risk or water-balance drug finding covers every selected draft
+	// of its drug, and its detail names each); advice that acts on a draft
+	// (a new rate, removing it) comes only with an Order.
 	Order string
 	// Advice lists the changes the card may suggest, in the order offered;
 	// hooks builds them as FHIR resources. The prescriber chooses.

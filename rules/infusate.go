@@ -114,7 +114,7 @@ func (r *Ruleset) InfusateComposition(m Medication) (Composition, bool) {
 			}
 			if k > 0 {
 				comp.K += k
-				comp.Basis += fmt.Sprintf(" with potassium chloride %g mmol/L added", Round(k, 1))
+				comp.Basis += fmt.Sprintf(" with potassium chloride %s mmol/L added", infusateNa.of(k))
 			}
 			return comp, true
 		}
@@ -320,7 +320,7 @@ func (t *fluidTable) fromName(text string) (Composition, bool) {
 	f := t.Fluids[i]
 	c := Composition{Na: f.Na, K: f.K + k, Basis: "name (" + f.Label + ")", Source: f.Source}
 	if k > 0 {
-		c.Basis += fmt.Sprintf(" with potassium chloride %g mmol/L", k)
+		c.Basis += fmt.Sprintf(" with potassium chloride %s mmol/L", infusateNa.of(k))
 	}
 	return c, true
 }

@@ -58,11 +58,11 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	case a.Latest != nil && exceeded && sameWay:
 		fd.Rule = RuleLimitExceeded
 		if a.Achieved24h > a.Limit24h {
-			fd.Summary = fmt.Sprintf("Sodium already %s %.1f mmol/L in 24 h (limit %g); this order moves it further",
-				pastTense(word), a.Achieved24h, a.Limit24h)
+			fd.Summary = fmt.Sprintf("Sodium already %s %s mmol/L in 24 h (limit %g); this order moves it further",
+				pastTense(word), naChange.of(a.Achieved24h), a.Limit24h)
 		} else {
-			fd.Summary = fmt.Sprintf("Sodium already rose %.1f mmol/L in 48 h (limit %g); this order raises it further",
-				a.Achieved48h, a.Limit48h)
+			fd.Summary = fmt.Sprintf("Sodium already rose %s mmol/L in 48 h (limit %g); this order raises it further",
+				naChange.of(a.Achieved48h), a.Limit48h)
 		}
 	case a.OverLimit:
 		fd.Rule = RuleProjectedOver
@@ -72,12 +72,12 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Summary = "Hypertonic sodium order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
 	case hypertonic && !a.Hypernatremia:
 		fd.Rule = RuleHypertonicOrder
-		fd.Summary = fmt.Sprintf("Hypertonic sodium: projected 24-h rise %.1f mmol/L (%.1f measured + %.1f from this order), limit %g",
-			*a.ProjectedTotal24h, a.Achieved24h, *a.ProjectedChange24h, a.Limit24h)
+		fd.Summary = fmt.Sprintf("Hypertonic sodium: projected 24-h rise %s mmol/L (%s measured + %s from this order), limit %g",
+			naChange.of(*a.ProjectedTotal24h), naChange.of(a.Achieved24h), naChange.of(*a.ProjectedChange24h), a.Limit24h)
 	case hypertonic:
 		fd.Rule = RuleHypertonicOrder
-		fd.Summary = fmt.Sprintf("Hypertonic sodium with sodium %g mmol/L: projected change %+.1f mmol/L in 24 h",
-			a.Latest.Value, *a.ProjectedChange24h)
+		fd.Summary = fmt.Sprintf("Hypertonic sodium with sodium %s mmol/L: projected change %s mmol/L in 24 h",
+			show(Sodium, a.Latest.Value), naChange.signed(*a.ProjectedChange24h))
 	default:
 		return Finding{}, false
 	}
@@ -95,14 +95,14 @@ func (r *Ruleset) overSummary(a InfusionAssessment, word string) string {
 	l := r.policy.Limits
 	switch a.Binding {
 	case Bound48h:
-		return fmt.Sprintf("Projected sodium rise passes the 48-h limit of %g mmol/L: %.1f already, %+.1f from this order",
-			a.Limit48h, a.Achieved48h, *a.ProjectedChange24h)
+		return fmt.Sprintf("Projected sodium rise passes the 48-h limit of %g mmol/L: %s already, %s from this order",
+			a.Limit48h, naChange.of(a.Achieved48h), naChange.signed(*a.ProjectedChange24h))
 	case BoundHourly:
-		return fmt.Sprintf("Projected sodium fall %.2f mmol/L per hour with this order, above the %g mmol/L per hour limit",
-			math.Abs(*a.ProjectedChange24h)/a.RunHours, l.HypernatremiaFallPerHour.Value)
+		return fmt.Sprintf("Projected sodium fall %s mmol/L per hour with this order, above the %g mmol/L per hour limit",
+			naPerHour.of(math.Abs(*a.ProjectedChange24h)/a.RunHours), l.HypernatremiaFallPerHour.Value)
 	}
-	return fmt.Sprintf("Projected 24-h sodium %s %.1f mmol/L (%.1f measured + %.1f from this order), above the %g limit",
-		word, math.Abs(*a.ProjectedTotal24h), a.Achieved24h, math.Abs(*a.ProjectedChange24h), a.Limit24h)
+	return fmt.Sprintf("Projected 24-h sodium %s %s mmol/L (%s measured + %s from this order), above the %g limit",
+		word, naChange.of(math.Abs(*a.ProjectedTotal24h)), naChange.of(a.Achieved24h), naChange.of(math.Abs(*a.ProjectedChange24h)), a.Limit24h)
 }
 
 // infusionAdvice is what a card of rule id suggests: for a projected
@@ -121,7 +121,7 @@ func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Adv
 		if a.MaxRateMlPerHour != nil {
 			if rate := math.Floor(*a.MaxRateMlPerHour*10) / 10; rate >= 0.1 {
 				out = append(out, Advice{Kind: AdviseRate, RateMlPerHour: rate, RecheckHours: recheckHours, Recommended: true,
-					Label: fmt.Sprintf("Change the rate to %g mL/h and re-check sodium in %g h", rate, recheckHours)})
+					Label: fmt.Sprintf("Change the rate to %s mL/h and re-check sodium in %g h", orderRate.of(rate), recheckHours)})
 			}
 		}
 		return append(out, recheck, withdraw)
@@ -206,20 +206,22 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	line := func(format string, args ...any) { fmt.Fprintf(&b, "- "+format+"\n", args...) }
 	b.WriteString("**Figures**\n\n")
 	if a.Latest != nil {
-		line("Latest sodium: %g mmol/L (%s, %s)", a.Latest.Value, stamp(a.Latest.At), a.Latest.Source)
+		line("Latest sodium: %s mmol/L (%s, %s)", show(Sodium, a.Latest.Value), stamp(a.Latest.At), a.Latest.Source)
 	}
 	if w := a.Trend.Window24h; w != nil {
 		if a.Hypernatremia {
-			line("Fall already measured: %.1f mmol/L from the peak of %.1f (%s) in the last 24 h", w.FallFromPeak, w.Peak.Value, stamp(w.Peak.At))
+			line("Fall already measured: %s mmol/L from the peak of %s (%s) in the last 24 h", naChange.of(w.FallFromPeak),
+				show(Sodium, w.Peak.Value), stamp(w.Peak.At))
 		} else {
-			line("Rise already measured: %.1f mmol/L from the nadir of %.1f (%s) in the last 24 h", w.RiseFromNadir, w.Nadir.Value, stamp(w.Nadir.At))
+			line("Rise already measured: %s mmol/L from the nadir of %s (%s) in the last 24 h", naChange.of(w.RiseFromNadir),
+				show(Sodium, w.Nadir.Value), stamp(w.Nadir.At))
 		}
 		if w.Start != nil {
-			line("The value at the start of the 24-h window, %.1f mmol/L, is interpolated from the results either side", w.Start.Value)
+			line("The value at the start of the 24-h window, %s mmol/L, is interpolated from the results either side", show(Sodium, w.Start.Value))
 		}
 	}
 	if w := a.Trend.Window48h; w != nil && !a.Hypernatremia {
-		line("Rise in the last 48 h: %.1f mmol/L from the nadir of %.1f", w.RiseFromNadir, w.Nadir.Value)
+		line("Rise in the last 48 h: %s mmol/L from the nadir of %s", naChange.of(w.RiseFromNadir), show(Sodium, w.Nadir.Value))
 	}
 	switch {
 	case a.Hypernatremia:
@@ -250,36 +252,37 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 		line("The hourly fall limit was not checked: the order gives no rate or dose duration")
 	}
 	if a.Weight != nil && a.TBWLitres != nil {
-		line("Total body water: %.1f L, %s of %g kg weighed %s%s", *a.TBWLitres, a.TBWMethod, Round(a.Weight.Value, 1),
+		line("Total body water: %s L, %s of %s kg weighed %s%s", bodyWater.of(*a.TBWLitres), a.TBWMethod, show(BodyWeight, a.Weight.Value),
 			stamp(a.Weight.At), asSent(*a.Weight))
 	}
 	c := a.Composition
-	line("Infusate: sodium %g + potassium %g mmol/L, from %s (%s)", Round(c.Na, 1), Round(c.K, 1), c.Basis, c.Source)
+	line("Infusate: sodium %s + potassium %s mmol/L, from %s (%s)", infusateNa.of(c.Na), infusateNa.of(c.K), c.Basis, c.Source)
 	if a.Volume24hLitres != nil {
-		line("Volume in the next 24 h: %.3f L (%s)", *a.Volume24hLitres, a.VolumeBasis)
+		line("Volume in the next 24 h: %s L (%s)", volume24h.of(*a.Volume24hLitres), a.VolumeBasis)
 	}
 	if a.DeltaPerLitre != nil {
-		line("Change per litre (Adrogué–Madias): %+.2f mmol/L", *a.DeltaPerLitre)
+		line("Change per litre (Adrogué–Madias): %s mmol/L", naPerLitre.signed(*a.DeltaPerLitre))
 	}
 	if a.ProjectedChange24h != nil {
-		line("Projected change from this order: %+.1f mmol/L; projected 24-h total: %+.1f mmol/L", *a.ProjectedChange24h, *a.ProjectedTotal24h)
+		line("Projected change from this order: %s mmol/L; projected 24-h total: %s mmol/L", naChange.signed(*a.ProjectedChange24h),
+			naChange.signed(*a.ProjectedTotal24h))
 	}
 	if a.DeltaPerLitre != nil && !a.LimitReached {
-		line("Still allowed: %.1f mmol/L, set by %s", a.Allowed, r.describeLimit(a))
+		line("Still allowed: %s mmol/L, set by %s", naChange.of(a.Allowed), r.describeLimit(a))
 	}
 	switch {
 	case a.LimitReached:
 		line("The %s allowed by %s is already used", word, r.describeLimit(a))
 	case a.MaxRateMlPerHour != nil:
-		line("Largest rate that keeps the projection within the limit: %g mL/h over %g h (%g L), rounded down",
-			math.Floor(*a.MaxRateMlPerHour*10)/10, a.InfusionHours, math.Floor(*a.MaxVolume24hLitres*1000)/1000)
+		line("Largest rate that keeps the projection within the limit: %s mL/h over %s h (%s L), rounded down",
+			orderRate.of(math.Floor(*a.MaxRateMlPerHour*10)/10), orderHours.of(a.InfusionHours), maxLitres.of(math.Floor(*a.MaxVolume24hLitres*1000)/1000))
 	case a.MaxVolume24hLitres != nil:
-		line("Largest volume in the next 24 h that keeps the projection within the limit: %g mL, rounded down",
-			math.Floor(*a.MaxVolume24hLitres*1000))
+		line("Largest volume in the next 24 h that keeps the projection within the limit: %s mL, rounded down",
+			orderMl.of(math.Floor(*a.MaxVolume24hLitres*1000)))
 	}
 	if a.FreeWaterDeficitLitres != nil {
-		line("Free-water deficit: %.1f L, classic formula TBW × (Na/140 − 1) (Adrogué HJ, Madias NE, N Engl J Med 2000;342:1493-1499)",
-			*a.FreeWaterDeficitLitres)
+		line("Free-water deficit: %s L, classic formula TBW × (Na/140 − 1) (Adrogué HJ, Madias NE, N Engl J Med 2000;342:1493-1499)",
+			bodyWater.of(*a.FreeWaterDeficitLitres))
 	}
 	r.contextLines(&b, a.Context)
 	line("Policy re-check interval for this card: %g h", recheckHours)
@@ -307,8 +310,8 @@ func (r *Ruleset) describeLimit(a InfusionAssessment) string {
 	case Bound48h:
 		return fmt.Sprintf("the 48-h limit of %g mmol/L", a.Limit48h)
 	case BoundHourly:
-		return fmt.Sprintf("the limit of %g mmol/L per hour over the %.2g h the order runs",
-			r.policy.Limits.HypernatremiaFallPerHour.Value, a.RunHours)
+		return fmt.Sprintf("the limit of %g mmol/L per hour over the %s h the order runs",
+			r.policy.Limits.HypernatremiaFallPerHour.Value, orderHours.of(a.RunHours))
 	}
 	return fmt.Sprintf("the 24-h limit of %g mmol/L", a.Limit24h)
 }
@@ -316,22 +319,22 @@ func (r *Ruleset) describeLimit(a InfusionAssessment) string {
 // contextLines writes the tonicity figures that could be computed.
 func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
 	if c.CorrectedKatz != nil {
-		fmt.Fprintf(b, "- Glucose-corrected sodium: %.1f mmol/L (Katz, 1.6 per 100 mg/dL; N Engl J Med 1973) or %.1f mmol/L "+
-			"(Hillier, 2.4 per 100 mg/dL; Am J Med 1999)\n", *c.CorrectedKatz, *c.CorrectedHillier)
+		fmt.Fprintf(b, "- Glucose-corrected sodium: %s mmol/L (Katz, 1.6 per 100 mg/dL; N Engl J Med 1973) or %s mmol/L "+
+			"(Hillier, 2.4 per 100 mg/dL; Am J Med 1999)\n", naChange.of(*c.CorrectedKatz), naChange.of(*c.CorrectedHillier))
 	}
 	if c.EffectiveOsmolality != nil {
-		fmt.Fprintf(b, "- Effective osmolality (%s): %.0f mOsm/kg (%s)", c.EffectiveBasis, *c.EffectiveOsmolality, c.Class)
+		fmt.Fprintf(b, "- Effective osmolality (%s): %s mOsm/kg (%s)", c.EffectiveBasis, osmolal.of(*c.EffectiveOsmolality), c.Class)
 		if c.CalculatedOsmolality != nil {
-			fmt.Fprintf(b, "; calculated osmolality 2·Na + glucose + urea: %.0f mOsm/kg", *c.CalculatedOsmolality)
+			fmt.Fprintf(b, "; calculated osmolality 2·Na + glucose + urea: %s mOsm/kg", osmolal.of(*c.CalculatedOsmolality))
 		}
 		b.WriteString("\n")
 	}
 	if c.OsmolalGap != nil {
-		fmt.Fprintf(b, "- Osmolal gap: %.0f mOsm/kg (measured %.0f − calculated)\n", *c.OsmolalGap, *c.MeasuredOsmolality)
+		fmt.Fprintf(b, "- Osmolal gap: %s mOsm/kg (measured %s − calculated)\n", osmolal.of(*c.OsmolalGap), show(SerumOsmolality, *c.MeasuredOsmolality))
 	} else if c.MeasuredOsmolality != nil {
-		fmt.Fprintf(b, "- Measured osmolality: %.0f mOsm/kg\n", *c.MeasuredOsmolality)
+		fmt.Fprintf(b, "- Measured osmolality: %s mOsm/kg\n", show(SerumOsmolality, *c.MeasuredOsmolality))
 	}
 	for _, m := range c.Inputs {
-		fmt.Fprintf(b, "- Used: %s %g %s (%s, %s)%s\n", m.Analyte, Round(m.Value, 1), CanonicalUnit(m.Analyte), stamp(m.At), m.Source, asSent(m))
+		fmt.Fprintf(b, "- Used: %s %s %s (%s, %s)%s\n", m.Analyte, show(m.Analyte, m.Value), CanonicalUnit(m.Analyte), stamp(m.At), m.Source, asSent(m))
 	}
 }

@@ -157,3 +157,52 @@ func TestRateThatFitsAdvice(t *testing.T) {
 		t.Errorf("6-h course: max rate %v, want %v", a.MaxRateMlPerHour, want)
 	}
 }
+
+// TestWaterDrugOneFindingPerDrug: the drafts of one water-balance drug give
+// one finding naming each (with no Order when it covers several); another
+// drug gets its own. Facts invented.
+func TestWaterDrugOneFindingPerDrug(t *testing.T) {
+	rs := loadRuleset(t)
+	tolvaptan := func(ref, text string) MedicationOrder {
+		return MedicationOrder{Reference: ref, Medication: Medication{Text: text}, RouteText: "oral", Selected: true, Draft: true}
+	}
+	desmopressin := MedicationOrder{Reference: "MedicationRequest/dd", Selected: true, Draft: true,
+		Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}}
+	for _, tc := range []struct {
+		name   string
+		drafts []MedicationOrder
+		want   map[string]string // summary prefix → Order
+		refs   []string          // named in the first finding's detail
+	}{
+		{"two tolvaptan drafts", []MedicationOrder{tolvaptan("MedicationRequest/t1", "tolvaptan 15 mg tablet"), tolvaptan("MedicationRequest/t2", "tolvaptan 7.5 mg tablet")},
+			map[string]string{"Tolvaptan orders with sodium 122 mmol/L": ""}, []string{"MedicationRequest/t1", "MedicationRequest/t2"}},
+		{"one tolvaptan draft", []MedicationOrder{tolvaptan("MedicationRequest/t1", "tolvaptan")},
+			map[string]string{"Tolvaptan order with sodium 122 mmol/L": "MedicationRequest/t1"}, []string{"MedicationRequest/t1"}},
+		{"tolvaptan and desmopressin", []MedicationOrder{tolvaptan("MedicationRequest/t1", "tolvaptan"), desmopressin},
+			map[string]string{"Tolvaptan order with sodium 122 mmol/L": "MedicationRequest/t1", "Desmopressin order with sodium 122 mmol/L": "MedicationRequest/dd"},
+			[]string{"MedicationRequest/t1"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{2: 122}, nil)
+			f.DraftOrders = tc.drafts
+			got := rs.Evaluate(InfusionCheck, f)
+			if len(got) != len(tc.want) {
+				t.Fatalf("%d findings, want %d: %+v", len(got), len(tc.want), got)
+			}
+			for _, fd := range got {
+				prefix, _, _ := strings.Cut(fd.Summary, ":")
+				if order, ok := tc.want[prefix]; !ok || fd.Order != order {
+					t.Errorf("finding %q with order %q; want one of %v", fd.Summary, fd.Order, tc.want)
+				}
+			}
+			if n := strings.Count(got[0].Detail, "- Order: "); n != len(tc.refs) {
+				t.Errorf("first finding names %d orders, want %d:\n%s", n, len(tc.refs), got[0].Detail)
+			}
+			for _, ref := range tc.refs {
+				if !strings.Contains(got[0].Detail, "- Order: "+ref+" (tolvaptan") {
+					t.Errorf("first finding does not name %s:\n%s", ref, got[0].Detail)
+				}
+			}
+		})
+	}
+}

@@ -29,9 +29,9 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 		return 0, "", false
 	case o.RateMlPerHour != nil:
 		ml := *o.RateMlPerHour * window
-		basis = fmt.Sprintf("%g mL/h for %g h", *o.RateMlPerHour, window)
+		basis = fmt.Sprintf("%s mL/h for %s h", orderRate.of(*o.RateMlPerHour), orderHours.of(window))
 		if ml > total {
-			ml, basis = total, basis+fmt.Sprintf(", capped at the ordered %g mL", total)
+			ml, basis = total, basis+fmt.Sprintf(", capped at the ordered %s mL", orderMl.of(total))
 		}
 		return ml / 1000, basis, true
 	case o.Dose != nil:
@@ -40,14 +40,14 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 			return 0, "", false
 		}
 		n := 1.0
-		basis = fmt.Sprintf("one dose of %g mL", dose)
+		basis = fmt.Sprintf("one dose of %s mL", orderMl.of(dose))
 		if o.Frequency != nil && o.Period != nil {
 			if h, known := DurationHours(*o.Period); known && h > 0 {
 				n = math.Floor(float64(*o.Frequency) * window / h)
 				if n < 1 {
 					n = 1
 				}
-				basis = fmt.Sprintf("%g doses of %g mL in %g h", n, dose, window)
+				basis = fmt.Sprintf("%s doses of %s mL in %s h", doseCount.of(n), orderMl.of(dose), orderHours.of(window))
 			}
 		}
 		ml := math.Min(n*dose, total)

@@ -77,28 +77,40 @@ func wordIn(text, word string) bool {
 
 func isWordRune(r rune) bool { return unicode.IsLetter(r) || unicode.IsDigit(r) }
 
-// waterDrugFindings flags each selected draft order for a vasopressin
+// waterDrugFindings flags the selected draft orders for a vasopressin
 // receptor antagonist or agonist when the latest sodium is below the
 // policy threshold, the demyelination risk is high, or sodium has already
 // risen by the policy amount in 24 h; and says so when there is no recent
-// sodium to judge the order against. No formula predicts these drugs, so
-// no projection is given.
+// sodium to judge them against. No formula predicts these drugs, so no
+// projection is given. There is one finding per drug per call, covering
+// every selected draft of it (the judgement depends on the drug and the
+// patient only); it carries the order as Order when it covers one.
 func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 	p := r.policy
+	type ordered struct {
+		o   MedicationOrder
+		how string // how the drug was recognised
+	}
+	var drugs []WaterDrug // in the order first drafted
+	selected := map[string][]ordered{}
+	for _, o := range f.DraftOrders {
+		if !o.Selected {
+			continue
+		}
+		if drug, how, ok := p.WaterDrugs.match(o.Medication); ok {
+			if selected[drug.Name] == nil {
+				drugs = append(drugs, drug)
+			}
+			selected[drug.Name] = append(selected[drug.Name], ordered{o, how})
+		}
+	}
 	var out []Finding
 	// The patient's side is the same for every order: work it out once.
 	trend := AnalyseSodium(f.Labs[Sodium], f.At)
 	risk := DemyelinationRisk(p.DemyelinationRisk, f, f.At)
 	unchecked := UncheckedRisk(p.DemyelinationRisk, f, f.At)
 	latest, haveNa := latestWithin(f.Labs[Sodium], f.At, p.Projection.SodiumMaxAgeHours)
-	for _, o := range f.DraftOrders {
-		if !o.Selected {
-			continue
-		}
-		drug, how, ok := p.WaterDrugs.match(o.Medication)
-		if !ok {
-			continue
-		}
+	for _, drug := range drugs {
 		var reasons []string
 		fig := map[string]float64{"odsHighRisk": 0}
 		if len(risk) > 0 {
@@ -110,38 +122,44 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		if w := trend.Window24h; w != nil {
 			fig["riseFromNadir24h"], fig["fallFromPeak24h"] = Round(w.RiseFromNadir, 1), Round(w.FallFromPeak, 1)
 			if drug.RaisesSodium && w.RiseFromNadir >= p.WaterDrugs.RiseAlready24h {
-				reasons = append(reasons, fmt.Sprintf("a rise of %.1f mmol/L already in 24 h", w.RiseFromNadir))
+				reasons = append(reasons, fmt.Sprintf("a rise of %s mmol/L already in 24 h", naChange.of(w.RiseFromNadir)))
 			}
 		}
 		if haveNa {
 			fig["sodiumLatest"] = latest.Value
 			if latest.Value < p.WaterDrugs.SodiumBelow {
-				reasons = append([]string{fmt.Sprintf("sodium %g mmol/L", latest.Value)}, reasons...)
+				reasons = append([]string{fmt.Sprintf("sodium %s mmol/L", show(Sodium, latest.Value))}, reasons...)
 			}
 		}
-		id := RuleWaterDrug
+		id, orders, them := RuleWaterDrug, "order", "it"
+		if len(selected[drug.Name]) > 1 {
+			orders, them = "orders", "them"
+		}
 		var summary string
 		switch {
 		case len(reasons) > 0:
-			summary = fmt.Sprintf("%s order with %s: no formula predicts the sodium change", capitalise(drug.Name), strings.Join(reasons, ", "))
+			summary = fmt.Sprintf("%s %s with %s: no formula predicts the sodium change", capitalise(drug.Name), orders, strings.Join(reasons, ", "))
 		case !haveNa:
 			id = RuleWaterDrugNoSodium
-			summary = fmt.Sprintf("%s order: no serum sodium from the last %g h to judge it against", capitalise(drug.Name),
-				p.Projection.SodiumMaxAgeHours)
+			summary = fmt.Sprintf("%s %s: no serum sodium from the last %g h to judge %s against", capitalise(drug.Name), orders,
+				p.Projection.SodiumMaxAgeHours, them)
 		default:
 			continue
 		}
 		rule := r.cardRule(id)
 		var b strings.Builder
 		b.WriteString("**Figures**\n\n")
-		fmt.Fprintf(&b, "- Order: %s, recognised as %s by %s (%s)\n", o.Reference, drug.Name, how, drug.Source)
+		for _, d := range selected[drug.Name] {
+			fmt.Fprintf(&b, "- Order: %s (%s), recognised as %s by %s (%s)\n", d.o.Reference, orderText(d.o), drug.Name, d.how, drug.Source)
+		}
 		if haveNa {
-			fmt.Fprintf(&b, "- Latest sodium: %g mmol/L (%s, %s)\n", latest.Value, stamp(latest.At), latest.Source)
+			fmt.Fprintf(&b, "- Latest sodium: %s mmol/L (%s, %s)\n", show(Sodium, latest.Value), stamp(latest.At), latest.Source)
 		} else {
 			fmt.Fprintf(&b, "- No serum sodium from the last %g h\n", p.Projection.SodiumMaxAgeHours)
 		}
 		if w := trend.Window24h; w != nil {
-			fmt.Fprintf(&b, "- Rise in the last 24 h: %.1f mmol/L from the nadir of %.1f (%s)\n", w.RiseFromNadir, w.Nadir.Value, stamp(w.Nadir.At))
+			fmt.Fprintf(&b, "- Rise in the last 24 h: %s mmol/L from the nadir of %s (%s)\n", naChange.of(w.RiseFromNadir),
+				show(Sodium, w.Nadir.Value), stamp(w.Nadir.At))
 		}
 		for _, rf := range risk {
 			fmt.Fprintf(&b, "- Demyelination risk factor: %s (%s)\n", rf.Factor, rf.Evidence)
@@ -159,8 +177,12 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		fmt.Fprintf(&b, "- Policy re-check interval for this card: %g h\n", rule.RecheckHours)
 		b.WriteString("\n**Method**: no formula predicts the change these drugs cause (a vasopressin antagonist's aquaresis " +
 			"or an agonist's antidiuresis depends on intake, urine output and other therapy); measured sodium is the guide.")
-		out = append(out, Finding{Rule: id, Indicator: rule.Indicator, Summary: shorten(summary, 139), Detail: b.String(),
-			Figures: fig, Order: o.Reference, Advice: []Advice{recheckAdvice(rule.RecheckHours)}})
+		fd := Finding{Rule: id, Indicator: rule.Indicator, Summary: shorten(summary, 139), Detail: b.String(),
+			Figures: fig, Advice: []Advice{recheckAdvice(rule.RecheckHours)}}
+		if ds := selected[drug.Name]; len(ds) == 1 {
+			fd.Order = ds[0].o.Reference
+		}
+		out = append(out, fd)
 	}
 	return out
 }

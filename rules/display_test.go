@@ -1,0 +1,118 @@
+package rules
+
+import (
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+)
+
+// TestPrecision checks the display table: measured values at the precision
+// laboratories report (common practice), trailing zeros dropped; computed
+// figures at fixed decimals. 139.99997792809936 is the sodium the issue saw
+// after a unit conversion.
+func TestPrecision(t *testing.T) {
+	for _, tc := range []struct {
+		name string
+		got  string
+		want string
+	}{
+		{"converted sodium", show(Sodium, 139.99997792809936), "140"},
+		{"sodium with a decimal", show(Sodium, 136.5), "136.5"},
+		{"sodium to one decimal", show(Sodium, 136.2500001), "136.3"},
+		{"converted potassium", show(Potassium, 3.0999999999999996), "3.1"},
+		{"converted glucose", show(Glucose, 27.750000000000004), "27.8"},
+		{"creatinine whole", show(Creatinine, 88.40000000000001), "88"},
+		{"osmolality whole", show(SerumOsmolality, 284.99999), "285"},
+		{"urine osmolality whole", show(UrineOsmolality, 99.6), "100"},
+		{"converted weight", show(BodyWeight, 69.99996), "70"},
+		{"weight with a decimal", show(BodyWeight, 3.45), "3.5"},
+		{"change keeps its decimal", naChange.of(5), "5.0"},
+		{"change rounds", naChange.of(4.96), "5.0"},
+		{"signed rise", naChange.signed(2.25), "+2.3"},
+		{"signed fall", naChange.signed(-1.26), "-1.3"},
+		{"no minus zero", naChange.signed(-0.04), "+0.0"},
+		{"per hour", naPerHour.of(0.4999), "0.50"},
+		{"volume to the mL", volume24h.of(0.24), "0.240"},
+		{"ordered rate", orderRate.of(1.2 * 60), "72"},
+		{"course in hours from minutes", orderHours.of(100.0 / 60), "1.7"},
+		{"policy window in days", orderHours.of(100.0 / 24), "4.2"},
+		{"ordered litre in mL", orderMl.of(0.1 * 1000), "100"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			if tc.got != tc.want {
+				t.Errorf("got %q, want %q", tc.got, tc.want)
+			}
+		})
+	}
+}
+
+// noise is a number with four or more decimals, which no card text writes.
+var noise = regexp.MustCompile(`\d\.\d{4,}`)
+
+// TestConvertedValuesInCardText: values that arrived in other units and
+// were converted (invented facts) read as the laboratory reported them in
+// every card they reach, while the Figures keep the values computed with.
+func TestConvertedValuesInCardText(t *testing.T) {
+	rs := loadRuleset(t)
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	const na = 139.99997792809936
+	rate := 1.2 * 60 // 1.2 mL/min
+	for _, tc := range []struct {
+		name  string
+		check Check
+		facts func() Facts
+		want  []string // in the summary or detail
+	}{
+		{"drug risk, new start at age 80", DrugRisk, func() Facts {
+			f := assessFacts(t, SexFemale, "1946-01-10", 60, map[float64]float64{3: na}, nil)
+			f.DraftOrders = []MedicationOrder{{Reference: "MedicationRequest/d", Medication: Medication{Text: "citalopram"}, Selected: true}}
+			return f
+		}, []string{"sodium 140 mmol/L", "Latest sodium: 140 mmol/L"}},
+		{"drug risk, lithium and osmolalities", DrugRisk, func() Facts {
+			f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{3: 148.00000000000003}, map[Analyte][]Measurement{
+				SerumOsmolality: {{Analyte: SerumOsmolality, Value: 305.00000000000006, At: at.Add(-3 * time.Hour)}},
+				UrineOsmolality: {{Analyte: UrineOsmolality, Value: 179.99999999999997, At: at.Add(-2 * time.Hour)}},
+			})
+			f.DraftOrders = []MedicationOrder{{Reference: "MedicationRequest/d", Medication: Medication{Text: "lithium"}, Selected: true}}
+			return f
+		}, []string{"sodium is 148 mmol/L, urine osmolality 180 mOsm/kg", "Serum osmolality: 305 mOsm/kg"}},
+		{"infusion, converted weight, rate and glucose", InfusionCheck, func() Facts {
+			f := assessFacts(t, SexFemale, "1986-01-10", 69.99996, map[float64]float64{20: 112.00000000000001, 2: 115.99999999999999},
+				map[Analyte][]Measurement{Glucose: {{Analyte: Glucose, Value: 27.750000000000004, At: at.Add(-2 * time.Hour)}}})
+			f.DraftOrders = []MedicationOrder{{Reference: "MedicationRequest/d", Medication: Medication{Text: "3% saline"}, RateMlPerHour: &rate, Selected: true}}
+			return f
+		}, []string{"Latest sodium: 116 mmol/L", "nadir of 112 ", "of 70 kg", "72 mL/h for 24 h", "glucose 27.8 mmol/L"}},
+		{"chart review, concentrating defect", ChartReview, func() Facts {
+			return assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{3: 150.99999999999997}, map[Analyte][]Measurement{
+				UrineOsmolality: {{Analyte: UrineOsmolality, Value: 119.99999999999999, At: at.Add(-2 * time.Hour)}},
+			})
+		}, []string{"Dilute urine (120 mOsm/kg) with sodium 151", "Latest sodium: 151 mmol/L"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			f := tc.facts()
+			got := rs.Evaluate(tc.check, f)
+			if len(got) == 0 {
+				t.Fatal("no finding")
+			}
+			var text strings.Builder
+			for _, fd := range got {
+				text.WriteString(fd.Summary + "\n" + fd.Detail + "\n")
+				for _, a := range fd.Advice {
+					text.WriteString(a.Label + "\n")
+				}
+				if v, ok := fd.Figures["sodiumLatest"]; ok && v != f.Labs[Sodium][len(f.Labs[Sodium])-1].Value {
+					t.Errorf("%s: figure sodiumLatest %v, want the value computed with", fd.Rule, v)
+				}
+			}
+			for _, w := range tc.want {
+				if !strings.Contains(text.String(), w) {
+					t.Errorf("card text lacks %q:\n%s", w, text.String())
+				}
+			}
+			if n := noise.FindString(text.String()); n != "" {
+				t.Errorf("card text shows %q:\n%s", n, text.String())
+			}
+		})
+	}
+}
