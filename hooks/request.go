@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"net/url"
+	"reflect"
 	"regexp"
 	"strings"
 
@@ -46,6 +47,10 @@ func DecodeCall(svc Service, body []byte) (*Call, error) {
 	var c Call
 	if len(bytes.TrimSpace(body)) == 0 {
 		return nil, badRequest("", "request body is empty")
+	}
+	body, err := fhirmap.ReadDocument(body)
+	if err != nil {
+		return nil, badRequest("", "%v: a CDS Hooks request is a JSON object", err)
 	}
 	if err := fhirmap.DecodeJSON(body, &c.Request); err != nil {
 		return nil, badRequest(jsonField(err), "request is not a valid CDS Hooks JSON object: %s", jsonProblem(err))
@@ -187,6 +192,9 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 		if fhirmap.DecodeJSON(e.Resource, &h) != nil || h.ResourceType == "" {
 			return badRequest(fmt.Sprintf("context.draftOrders.entry[%d].resource", i), "must be a FHIR resource")
 		}
+		if err := fhirmap.CheckR4(fhirmap.Resource{Type: h.ResourceType, ID: h.ID, Raw: e.Resource}); err != nil {
+			return badRequest(fmt.Sprintf("context.draftOrders.entry[%d].resource", i), "%v", err)
+		}
 		refs[h.ResourceType+"/"+h.ID] = true
 		c.DraftOrders = append(c.DraftOrders, e.Resource)
 	}
@@ -234,10 +242,29 @@ func jsonField(err error) string {
 	return ""
 }
 
+// jsonKind names a Go kind as the JSON value it decodes from, so that an
+// error never shows a Go type name.
+func jsonKind(k reflect.Kind) string {
+	switch k {
+	case reflect.Struct, reflect.Map:
+		return "a JSON object"
+	case reflect.Slice, reflect.Array:
+		return "a JSON array"
+	case reflect.String:
+		return "a JSON string"
+	case reflect.Bool:
+		return "true or false"
+	case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64, reflect.Uint, reflect.Uint8,
+		reflect.Uint16, reflect.Uint32, reflect.Uint64, reflect.Float32, reflect.Float64:
+		return "a JSON number"
+	}
+	return "another JSON value"
+}
+
 func jsonProblem(err error) string {
 	switch e := err.(type) {
 	case *json.UnmarshalTypeError:
-		return fmt.Sprintf("expected %s, got JSON %s", e.Type, e.Value)
+		return fmt.Sprintf("expected %s, got JSON %s", jsonKind(e.Type.Kind()), e.Value)
 	case *json.SyntaxError:
 		return fmt.Sprintf("syntax error at byte %d", e.Offset)
 	}

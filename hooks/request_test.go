@@ -177,3 +177,33 @@ func TestTemplatesUseRestrictedSyntax(t *testing.T) {
 		}
 	}
 }
+
+// TestDecodeCallEncodingsAndVersions: a UTF-8 byte-order mark is accepted
+// (RFC 8259 §8.1 lets a parser ignore it); a document that is not an
+// object is refused in plain words, with no Go type name; a draft order of
+// an earlier FHIR version is refused as not R4.
+func TestDecodeCallEncodingsAndVersions(t *testing.T) {
+	svc := mustService(t, "sodium-drug-risk")
+	valid := mustMarshal(t, requestMap(t, "02-ssri-new-start-mild-hypona.json", "sodium-drug-risk", HookOrderSign))
+	if _, err := DecodeCall(svc, append([]byte("\xEF\xBB\xBF"), valid...)); err != nil {
+		t.Errorf("a body with a byte-order mark: %v", err)
+	}
+	stu3 := requestMap(t, "02-ssri-new-start-mild-hypona.json", "sodium-drug-risk", HookOrderSign)
+	stu3["context"].(map[string]any)["draftOrders"] = map[string]any{"resourceType": "Bundle", "type": "collection",
+		"entry": []any{map[string]any{"resource": map[string]any{"resourceType": "MedicationOrder", "id": "old",
+			"patient": map[string]any{"reference": "Patient/pt-birch"}}}}}
+	for _, tc := range []struct {
+		name string
+		body []byte
+		want string
+	}{
+		{"top-level array", []byte(`[` + string(valid) + `]`), "the document is a JSON array"},
+		{"hook of the wrong type", []byte(`{"hook": 7}`), "expected a JSON string, got JSON number"},
+		{"DSTU2 draft order", mustMarshal(t, stu3), "FHIR R4 expected: this is a DSTU2 MedicationOrder"},
+	} {
+		_, err := DecodeCall(svc, tc.body)
+		if err == nil || !strings.Contains(err.Error(), tc.want) || strings.Contains(err.Error(), "hooks.") || strings.Contains(err.Error(), "Go value") {
+			t.Errorf("%s: error %v; want one saying %q and no Go type", tc.name, err, tc.want)
+		}
+	}
+}
