@@ -1,6 +1,8 @@
 package fhirmap
 
 import (
+	"fmt"
+
 	"github.com/halite-cds/halite/rules"
 	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
 )
@@ -13,7 +15,7 @@ func (m *mapper) condition(r Resource) {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return
 	}
-	if !RefersTo(str(c.Subject.Reference), "Patient", m.in.PatientID) {
+	if !m.refersToPatient(str(c.Subject.Reference), r) {
 		m.reject(r, "", "subject is not the patient in context")
 		return
 	}
@@ -28,9 +30,11 @@ func (m *mapper) condition(r Resource) {
 	switch cond.ClinicalStatus {
 	case "active", "recurrence", "relapse":
 	default:
+		m.unused[[2]string{r.Type, fmt.Sprintf("clinicalStatus %q is not active", cond.ClinicalStatus)}]++
 		return
 	}
 	if cond.VerificationStatus == "refuted" || cond.VerificationStatus == "entered-in-error" {
+		m.unused[[2]string{r.Type, fmt.Sprintf("verificationStatus is %q", cond.VerificationStatus)}]++
 		return
 	}
 	m.facts.Conditions = append(m.facts.Conditions, cond)

@@ -101,3 +101,15 @@ func qstr(q *rules.Quantity) string {
 	}
 	return fmt.Sprintf("%v %s", q.Value, q.Unit)
 }
+
+// perResource leaves out the rejections that count resources by type
+// ("3 × Encounter"), keeping those about one resource.
+func perResource(rs []rules.Rejection) []rules.Rejection {
+	var out []rules.Rejection
+	for _, r := range rs {
+		if !strings.Contains(r.Source, " × ") {
+			out = append(out, r)
+		}
+	}
+	return out
+}

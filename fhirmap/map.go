@@ -14,12 +14,21 @@ type Input struct {
 	At        time.Time       // evaluation time; results after it are not used
 	PatientID string          // context.patientId
 	Patient   json.RawMessage // nil when the chart returned no Patient
+	// PatientFullURL is the fullUrl of the Patient's Bundle entry, if any.
+	PatientFullURL string
+	// Server is the call's fhirServer: references on it, or relative ones
+	// to resources the data lacks, name resources by their Type/id.
+	Server string
 	// Resources are the search results: Observations, MedicationRequests,
 	// Conditions and the Medications they reference. A resource that appears
-	// more than once (overlapping searches) is read once.
+	// more than once (overlapping searches) is read once. Entries are read
+	// alike, keeping the fullUrl references are resolved with.
 	Resources []json.RawMessage
-	// DraftOrders are the resources of context.draftOrders.
-	DraftOrders []json.RawMessage
+	Entries   []BundleEntry
+	// DraftOrders are the resources of context.draftOrders; DraftEntries
+	// the same with their fullUrls.
+	DraftOrders  []json.RawMessage
+	DraftEntries []BundleEntry
 	// Selections are order-select's selected references ("MedicationRequest/1");
 	// nil means every draft order is evaluated (order-sign).
 	Selections []string
@@ -30,11 +39,15 @@ type mapper struct {
 	rs    *rules.Ruleset
 	facts rules.Facts
 	seen  map[seriesKey]string
+	refs  *References
 	// medications indexes Medication resources by "Medication/id".
 	medications map[string]Resource
 	// readMedications caches each referenced Medication once read, so an
 	// unreadable one is rejected once, however many orders point at it.
 	readMedications map[string]readMedication
+	// unused counts resources not used for a reason that would flood the
+	// report if given per resource, by type and reason.
+	unused map[[2]string]int
 }
 
 // Map reads in into facts. Problems with single resources never fail the
@@ -47,11 +60,18 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 		seen:            map[seriesKey]string{},
 		medications:     map[string]Resource{},
 		readMedications: map[string]readMedication{},
+		unused:          map[[2]string]int{},
 	}
+	resources := m.distinct("resources", in.Resources, in.Entries)
+	unreadCodes := 0
+	drafts := m.distinct("draftOrders", in.DraftOrders, in.DraftEntries)
+	all := append(append([]Resource(nil), resources...), drafts...)
+	if p, err := ReadEntry(BundleEntry{FullURL: in.PatientFullURL, Resource: in.Patient}); err == nil {
+		all = append(all, p)
+	}
+	m.refs = NewReferences(in.Server, all)
 	m.patient()
-	resources := m.distinct("resources", in.Resources)
-	drafts := m.distinct("draftOrders", in.DraftOrders)
-	for _, r := range append(resources, drafts...) {
+	for _, r := range all {
 		if r.Type == "Medication" {
 			m.medications[r.Ref()] = r
 		}
@@ -59,13 +79,22 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	for _, r := range resources {
 		switch r.Type {
 		case "Observation":
+			before := len(m.facts.Rejected) + m.labCount()
 			m.observation(r)
+			if len(m.facts.Rejected)+m.labCount() == before {
+				unreadCodes++
+			}
 		case "MedicationRequest":
 			if o, ok := m.medicationRequest(r); ok && o.Status == "active" {
 				m.facts.Medications = append(m.facts.Medications, o)
+			} else if ok {
+				m.unused[[2]string{r.Type, fmt.Sprintf("status %q is not active", o.Status)}]++
 			}
 		case "Condition":
 			m.condition(r)
+		case "Medication":
+		default:
+			m.unused[[2]string{r.Type, "resource type not read by halite"}]++
 		}
 	}
 	selected := map[string]bool{}
@@ -73,7 +102,12 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 		selected[s] = true
 	}
 	for _, r := range drafts {
-		if r.Type != "MedicationRequest" {
+		switch r.Type {
+		case "MedicationRequest":
+		case "Medication":
+			continue // read when an order references it
+		default:
+			m.unused[[2]string{r.Type, "draft order type not read by halite"}]++
 			continue
 		}
 		if o, ok := m.medicationRequest(r); ok {
@@ -82,6 +116,16 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 			m.facts.DraftOrders = append(m.facts.DraftOrders, o)
 		}
 	}
+	for ref, r := range m.medications {
+		if _, read := m.readMedications[ref]; !read {
+			m.unused[[2]string{r.Type, "no order read references it"}]++
+		}
+	}
+	m.reportUnused()
+	if unreadCodes > 0 {
+		// A note, not a rejection: nothing is wrong with such a result.
+		m.note("%d × Observation %s", unreadCodes, noteUnreadCode)
+	}
 	for a, s := range m.facts.Labs {
 		sort.SliceStable(s, func(i, j int) bool { return s[i].At.Before(s[j].At) })
 		m.facts.Labs[a] = s
@@ -89,13 +133,53 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	return m.facts
 }
 
-// distinct reads each raw resource of the named list once; values that are
-// not FHIR resources are rejected.
-func (m *mapper) distinct(list string, raws []json.RawMessage) []Resource {
+// noteUnreadCode ends the note counting Observations whose code halite
+// does not read.
+const noteUnreadCode = "not used: no code halite reads"
+
+// labCount is the number of results used so far.
+func (m *mapper) labCount() int {
+	n := 0
+	for _, s := range m.facts.Labs {
+		n += len(s)
+	}
+	return n
+}
+
+// reportUnused adds one rejection per type and reason counted in unused,
+// with the count as its Source ("12 × Encounter"), in a stable order.
+func (m *mapper) reportUnused() {
+	keys := make([][2]string, 0, len(m.unused))
+	for k := range m.unused {
+		keys = append(keys, k)
+	}
+	sort.Slice(keys, func(i, j int) bool {
+		return keys[i][0] < keys[j][0] || keys[i][0] == keys[j][0] && keys[i][1] < keys[j][1]
+	})
+	for _, k := range keys {
+		m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{
+			Source: fmt.Sprintf("%d × %s", m.unused[k], k[0]), Reason: k[1]})
+	}
+}
+
+// refersToPatient reports whether ref, written in r, is the patient in context.
+func (m *mapper) refersToPatient(ref string, r Resource) bool {
+	return m.refs.RefersToPatient(ref, r, m.in.PatientID)
+}
+
+// distinct reads each raw resource and entry of the named list once;
+// values that are not FHIR resources are rejected.
+func (m *mapper) distinct(list string, raws []json.RawMessage, entries []BundleEntry) []Resource {
 	var out []Resource
 	seen := map[string]bool{}
-	for i, raw := range raws {
-		r, err := ReadResource(raw)
+	for i := range len(raws) + len(entries) {
+		var e BundleEntry
+		if i < len(raws) {
+			e.Resource = raws[i]
+		} else {
+			e = entries[i-len(raws)]
+		}
+		r, err := ReadEntry(e)
 		if err != nil {
 			m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{
 				Source: fmt.Sprintf("%s[%d]", list, i), Reason: err.Error()})
@@ -138,6 +222,9 @@ func (m *mapper) patient() {
 		m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{
 			Source: m.facts.Patient.Reference, Reason: "not a readable Patient resource"})
 		return
+	}
+	if p.ID == "" {
+		p.ID = urnID(m.in.PatientFullURL)
 	}
 	if p.ID != "" && p.ID != m.in.PatientID {
 		m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{

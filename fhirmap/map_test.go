@@ -2,6 +2,8 @@ package fhirmap
 
 import (
 	"encoding/json"
+	"reflect"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -234,6 +236,9 @@ func TestMapUnknownCodeIgnored(t *testing.T) {
 			if len(f.Rejected) != 0 {
 				t.Errorf("rejected %+v, want none", f.Rejected)
 			}
+			if !slices.Contains(f.Notes, "1 × Observation not used: no code halite reads") {
+				t.Errorf("notes %q, want the Observation counted", f.Notes)
+			}
 			for a, s := range f.Labs {
 				if len(s) != 0 {
 					t.Errorf("%s series %+v, want none", a, s)
@@ -432,11 +437,13 @@ func TestMapDefectOutsideReadElements(t *testing.T) {
 
 func TestMapOtherResourceTypesIgnored(t *testing.T) {
 	// A Device (as in scenario 07) and a Patient among the search results are
-	// neither read nor rejected.
+	// not read, and counted by type.
 	f := mapResources(t,
 		json.RawMessage(`{"resourceType":"Device","id":"pump","status":"active","patient":{"reference":"Patient/p1"}}`),
 		json.RawMessage(`{"resourceType":"Patient","id":"p2","gender":"male"}`))
-	if len(f.Rejected) != 0 || len(f.Medications) != 0 || len(f.Conditions) != 0 || len(f.DraftOrders) != 0 {
-		t.Errorf("facts %+v, want nothing read and nothing rejected", f)
+	want := []rules.Rejection{{Source: "1 × Device", Reason: "resource type not read by halite"},
+		{Source: "1 × Patient", Reason: "resource type not read by halite"}}
+	if !reflect.DeepEqual(f.Rejected, want) || len(f.Medications) != 0 || len(f.Conditions) != 0 || len(f.DraftOrders) != 0 {
+		t.Errorf("facts %+v, want nothing read and the types counted", f)
 	}
 }

@@ -35,7 +35,7 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 		m.reject(r, "", "status is missing")
 		return rules.MedicationOrder{}, false
 	}
-	if !RefersTo(str(mr.Subject.Reference), "Patient", m.in.PatientID) { // subject is 1..1 in R4
+	if !m.refersToPatient(str(mr.Subject.Reference), r) { // subject is 1..1 in R4
 		m.reject(r, "", "subject is not the patient in context")
 		return rules.MedicationOrder{}, false
 	}
@@ -68,24 +68,33 @@ func (m *mapper) medicationOf(r Resource, mr medicationRequestFields) rules.Medi
 	}
 	ref := str(mr.MedicationReference.Reference)
 	unresolved := rules.Medication{Source: rules.FromUnresolved, Text: str(mr.MedicationReference.Display)}
-	if strings.HasPrefix(ref, "#") {
-		med, ok := containedMedication(r.Raw, ref[1:])
+	if ref == "" {
+		return unresolved
+	}
+	t, err := m.refs.Resolve(ref, r)
+	switch {
+	case err != nil && strings.HasPrefix(ref, "#"):
+		m.note("%s: contained Medication %s not found", r.Ref(), ref)
+		return unresolved
+	case err != nil:
+		m.note("%s: medicationReference: %v", r.Ref(), err)
+		return unresolved
+	case t.Type != "Medication":
+		m.note("%s: medicationReference is to a %s, not a Medication", r.Ref(), t.Type)
+		return unresolved
+	case t.Contained:
+		med, ok := containedMedication(t.Resource.Raw)
 		if !ok {
-			m.note("%s: contained Medication %s not found", r.Ref(), ref)
+			m.note("%s: contained Medication %s is not readable", r.Ref(), ref)
 			return unresolved
 		}
 		med.Source = rules.FromContained
 		return med
 	}
-	if typ, id, ok := lastTwo(ref); ok && typ == "Medication" {
-		if med, ok := m.referencedMedication("Medication/" + id); ok {
-			return med
-		}
-		if _, exists := m.medications["Medication/"+id]; exists {
-			return unresolved
-		}
+	if med, ok := m.referencedMedication(t.Ref()); ok {
+		return med
 	}
-	if ref != "" {
+	if _, exists := m.medications[t.Ref()]; !exists {
 		m.note("%s: Medication %s is not in the data", r.Ref(), ref)
 	}
 	return unresolved
@@ -119,34 +128,13 @@ func (m *mapper) referencedMedication(ref string) (rules.Medication, bool) {
 	return got.med, got.ok
 }
 
-// lastTwo splits a relative or absolute reference into its type and id.
-func lastTwo(ref string) (typ, id string, ok bool) {
-	parts := strings.Split(ref, "/")
-	if len(parts) < 2 || parts[len(parts)-1] == "" {
-		return "", "", false
-	}
-	return parts[len(parts)-2], parts[len(parts)-1], true
-}
-
-func containedMedication(raw json.RawMessage, id string) (rules.Medication, bool) {
-	var c struct {
-		Contained []json.RawMessage `json:"contained"`
-	}
-	if DecodeJSON(raw, &c) != nil {
+// containedMedication reads a contained Medication.
+func containedMedication(raw json.RawMessage) (rules.Medication, bool) {
+	var med fhir.Medication
+	if err := DecodeJSON(raw, &med); err != nil {
 		return rules.Medication{}, false
 	}
-	for _, cr := range c.Contained {
-		res, err := ReadResource(cr)
-		if err != nil || res.Type != "Medication" || res.ID != id {
-			continue
-		}
-		var med fhir.Medication
-		if err := DecodeJSON(cr, &med); err != nil {
-			return rules.Medication{}, false
-		}
-		return medication(med), true
-	}
-	return rules.Medication{}, false
+	return medication(med), true
 }
 
 func medication(med fhir.Medication) rules.Medication {

@@ -54,7 +54,7 @@ func TestMapMedicationRequestLists(t *testing.T) {
 				Resources:   []json.RawMessage{active, stopped},
 				DraftOrders: []json.RawMessage{d1, d2},
 				Selections:  tt.selections}, ruleset(t))
-			if len(f.Rejected) != 0 {
+			if len(perResource(f.Rejected)) != 0 {
 				t.Fatalf("rejected %+v", f.Rejected)
 			}
 			if len(f.Medications) != 1 || f.Medications[0].Reference != "MedicationRequest/mr-a" ||
@@ -265,7 +265,7 @@ func TestMapMedicationIdentity(t *testing.T) {
 			in := tt.in
 			in.At, in.PatientID = testAt, testPatient
 			f := Map(in, ruleset(t))
-			if len(f.Rejected) != 0 {
+			if len(perResource(f.Rejected)) != 0 {
 				t.Fatalf("rejected %+v", f.Rejected)
 			}
 			if len(f.DraftOrders) != 1 {

@@ -56,7 +56,7 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, fmt.Sprintf("status %q is not final, amended or corrected", obs.Status.Code()))
 		return
 	}
-	if obs.Subject == nil || !RefersTo(str(obs.Subject.Reference), "Patient", m.in.PatientID) {
+	if obs.Subject == nil || !m.refersToPatient(str(obs.Subject.Reference), r) {
 		m.reject(r, a, "subject is not the patient in context")
 		return
 	}

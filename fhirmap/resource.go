@@ -4,17 +4,18 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"strings"
 
 	"github.com/halite-cds/halite/rules"
 	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
 )
 
-// Resource is one FHIR resource as received: its type, id and raw JSON.
+// Resource is one FHIR resource as received: its type, id, raw JSON and,
+// when it came in a Bundle entry that had one, its fullUrl.
 type Resource struct {
-	Type string
-	ID   string
-	Raw  json.RawMessage
+	Type    string
+	ID      string
+	Raw     json.RawMessage
+	FullURL string
 }
 
 // Ref is the resource's relative reference, "Type/id".
@@ -88,13 +89,6 @@ func ParseBundle(raw []byte) (*Bundle, error) {
 		out.Entries = append(out.Entries, BundleEntry{FullURL: e.FullURL, Resource: e.Resource})
 	}
 	return out, nil
-}
-
-// RefersTo reports whether reference ref points at resource typ/id, in its
-// relative ("Patient/1") or absolute (".../Patient/1") form.
-func RefersTo(ref, typ, id string) bool {
-	rel := typ + "/" + id
-	return ref == rel || strings.HasSuffix(ref, "/"+rel)
 }
 
 func str(p *string) string {

@@ -108,6 +108,7 @@ func TestScenarios(t *testing.T) {
 			{Source: "Observation/obs-ginkgo-na-notime", Analyte: rules.Sodium, Reason: "no effective time"},
 			{Source: "Observation/obs-ginkgo-na-prelim", Analyte: rules.Sodium, Reason: `status "preliminary" is not final, amended or corrected`},
 			{Source: "Observation/obs-ginkgo-na-string", Analyte: rules.Sodium, Reason: "no valueQuantity"},
+			{Source: "1 × Device", Reason: "resource type not read by halite"},
 		}, 0},
 		{"08-lithium-hyperna-desmopressin.json", 60, rules.SexMale, []lab{
 			{rules.Sodium, []float64{149}, 0}, {rules.SerumOsmolality, []float64{305}, 0},

@@ -33,7 +33,9 @@ type RequestOptions struct {
 // BuildRequest turns a patient Bundle into the request a CDS client would
 // send to svc: the one Patient gives patientId, resources with status
 // "draft" become context.draftOrders, and each prefetch template is run
-// against the Bundle.
+// against the Bundle as BundleStore answers it. A Patient without an id
+// whose entry's fullUrl is urn:uuid:U (or urn:oid:U) has patientId U, as a
+// server processing the Bundle as a transaction would give it an id.
 func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request, error) {
 	if !svc.Serves(opt.Hook) {
 		return nil, fmt.Errorf("build request: service %s does not serve hook %q", svc.ID, opt.Hook)
@@ -55,7 +57,7 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 		}
 	}
 	if patientID == "" {
-		return nil, fmt.Errorf("build request: the bundle holds no Patient with an id")
+		return nil, fmt.Errorf("build request: the bundle holds no Patient with an id or a urn:uuid fullUrl")
 	}
 	ctx := HookContext{UserID: opt.UserID, PatientID: patientID, EncounterID: opt.EncounterID}
 	if opt.Hook != HookPatientView {
@@ -115,4 +117,22 @@ func BuildRequest(b *fhirmap.Bundle, svc Service, opt RequestOptions) (*Request,
 		req.Prefetch[k.Key] = v
 	}
 	return req, nil
+}
+
+// PatientLinks counts the resources of b that name a patient (subject or
+// patient): those that resolve to the Patient with id patientID, and the
+// others.
+func PatientLinks(b *fhirmap.Bundle, patientID string) (linked, other int) {
+	s := NewBundleStore(b)
+	for _, r := range s.resources {
+		if r.res.Type == "Patient" || (r.fields.Subject == nil && r.fields.Patient == nil) {
+			continue
+		}
+		if s.refMatches(r, patientID) {
+			linked++
+		} else {
+			other++
+		}
+	}
+	return linked, other
 }

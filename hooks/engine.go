@@ -2,7 +2,6 @@ package hooks
 
 import (
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -82,6 +81,9 @@ type Outcome struct {
 	// UnknownPrefetchKeys counts prefetch keys sent that the service did not
 	// ask for (ignored).
 	UnknownPrefetchKeys int
+	// Dropped counts the resources read but not used, by reason category
+	// (fhirmap.DropCounts); it names no resource and may be logged.
+	Dropped map[string]int
 }
 
 // Handle answers one call to service id with body, evaluated at time at.
@@ -120,8 +122,7 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 		return nil, err
 	}
 	in := mapInput(call, keys, at)
-	in.Resources = append(in.Resources,
-		fetchMedications(pctx, fetch, append(append([]json.RawMessage(nil), in.Resources...), in.DraftOrders...))...)
+	in.Resources = fetchMedications(pctx, fetch, in)
 	states := map[KeyState]int{}
 	for _, k := range keys {
 		states[k.State]++
@@ -179,7 +180,8 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 			span.SetAttributes(attribute.String("halite.tenant", t))
 		}
 	}
-	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys}, nil
+	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys,
+		Dropped: fhirmap.DropCounts(facts)}, nil
 }
 
 // storeError is the answer to a store failure: the store adapter's own
@@ -238,18 +240,25 @@ func (e *Engine) fetcher(ctx context.Context, c *Call, budget *CallBudget) Fetch
 }
 
 func mapInput(c *Call, keys []Resolved, at time.Time) fhirmap.Input {
-	in := fhirmap.Input{At: at, PatientID: c.Context.PatientID, DraftOrders: c.DraftOrders}
+	in := fhirmap.Input{At: at, PatientID: c.Context.PatientID, Server: c.Request.FHIRServer}
+	// draftOrders was validated as a Bundle of resources; read again, its
+	// entries keep their fullUrls.
+	if b, err := fhirmap.ParseBundle(c.Context.DraftOrders); err == nil && len(b.Entries) == len(c.DraftOrders) {
+		in.DraftEntries = b.Entries
+	} else {
+		in.DraftOrders = c.DraftOrders
+	}
 	if c.Request.Hook == HookOrderSelect {
 		in.Selections = c.Context.Selections
 	}
 	for _, k := range keys {
 		if k.Key.Key == "patient" {
 			if len(k.Resources) > 0 {
-				in.Patient = k.Resources[0]
+				in.Patient, in.PatientFullURL = k.Resources[0].Resource, k.Resources[0].FullURL
 			}
 			continue
 		}
-		in.Resources = append(in.Resources, k.Resources...)
+		in.Entries = append(in.Entries, k.Resources...)
 	}
 	return in
 }

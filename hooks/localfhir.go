@@ -1,6 +1,7 @@
 package hooks
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"net/http"
@@ -17,8 +18,15 @@ import (
 // Bundle, for the search parameters halite's prefetch templates use. It is
 // how `halite request` fills prefetch from a file, and, as an http.Handler,
 // a small read-only FHIR server for testing the fetch path.
+//
+// It serves the Bundle as a server that processed it as a transaction
+// would: references among its entries (urn:uuid:, urn:oid:, absolute or
+// relative to an entry's fullUrl) are rewritten to the relative Type/id of
+// the entry they resolve to, and a resource without an id known by a urn
+// fullUrl gets that id (fhirmap.ReadEntry).
 type BundleStore struct {
 	resources []stored
+	refs      *fhirmap.References
 	// PageSize, when positive, makes ServeHTTP split search results into
 	// pages of that many entries linked by "next".
 	PageSize int
@@ -64,17 +72,65 @@ type periodField struct {
 // NewBundleStore indexes the resources of b. Entries that are not FHIR
 // resources are skipped; mapping reports them.
 func NewBundleStore(b *fhirmap.Bundle) *BundleStore {
-	s := &BundleStore{}
+	var rs []fhirmap.Resource
 	for _, e := range b.Entries {
-		r, err := fhirmap.ReadResource(e.Resource)
-		if err != nil {
-			continue
+		if r, err := fhirmap.ReadEntry(e); err == nil {
+			rs = append(rs, r)
 		}
+	}
+	s := &BundleStore{refs: fhirmap.NewReferences("", rs)}
+	for _, r := range rs {
+		r.Raw = s.relativise(r)
 		var f searchFields
-		_ = fhirmap.DecodeJSON(e.Resource, &f) // a resource with odd fields still matches by type and id
+		_ = fhirmap.DecodeJSON(r.Raw, &f) // a resource with odd fields still matches by type and id
 		s.resources = append(s.resources, stored{res: r, fields: f})
 	}
 	return s
+}
+
+// relativise returns r's JSON with every reference to another entry
+// written as that entry's Type/id, and r's id when it had none; the JSON
+// is returned unchanged when nothing needs rewriting.
+func (s *BundleStore) relativise(r fhirmap.Resource) json.RawMessage {
+	dec := json.NewDecoder(bytes.NewReader(r.Raw))
+	dec.UseNumber()
+	var v map[string]any
+	if dec.Decode(&v) != nil {
+		return r.Raw
+	}
+	changed := false
+	if _, has := v["id"]; !has && r.ID != "" {
+		v["id"], changed = r.ID, true
+	}
+	var walk func(any)
+	walk = func(x any) {
+		switch x := x.(type) {
+		case map[string]any:
+			if ref, ok := x["reference"].(string); ok && !strings.HasPrefix(ref, "#") {
+				if t, err := s.refs.Resolve(ref, r); err == nil && t.Held() && t.Ref() != ref {
+					x["reference"], changed = t.Ref(), true
+				}
+			}
+			for k, e := range x {
+				if k != "contained" {
+					walk(e)
+				}
+			}
+		case []any:
+			for _, e := range x {
+				walk(e)
+			}
+		}
+	}
+	walk(v)
+	if !changed {
+		return r.Raw
+	}
+	out, err := json.Marshal(v)
+	if err != nil {
+		return r.Raw
+	}
+	return out
 }
 
 // Query runs a relative FHIR read ("Patient/1") or search ("Observation?…").
@@ -97,18 +153,20 @@ func (s *BundleStore) Query(ref string) (json.RawMessage, error) {
 // withMedications adds the Medications that matched MedicationRequests
 // reference, as an EHR that includes them in its prefetch would.
 func (s *BundleStore) withMedications(matches []stored) []stored {
-	raws := make([]json.RawMessage, len(matches))
+	rs := make([]fhirmap.Resource, len(matches))
+	held := map[string]bool{}
 	for i, m := range matches {
-		raws[i] = m.res.Raw
+		rs[i] = m.res
+		held[m.res.Ref()] = true
 	}
-	held := resourceIDs("Medication", raws)
-	for _, id := range medicationRefs(raws) {
-		if held[id] {
+	for _, t := range medicationRefs(s.refs, rs) {
+		if held[t.Ref()] {
 			continue
 		}
 		for _, r := range s.resources {
-			if r.res.Type == "Medication" && r.res.ID == id {
+			if r.res.Ref() == t.Ref() {
 				matches = append(matches, r)
+				break
 			}
 		}
 	}
@@ -137,7 +195,7 @@ func (s *BundleStore) match(ref string) (out []stored, read bool, err error) {
 		v := strings.Join(values, ",")
 		switch name {
 		case "patient", "subject":
-			filters = append(filters, func(r stored) bool { return refMatches(r.fields, v) })
+			filters = append(filters, func(r stored) bool { return s.refMatches(r, v) })
 		case "code":
 			filters = append(filters, func(r stored) bool { return tokenMatches(r.fields.Code, v) })
 		case "clinical-status":
@@ -208,9 +266,13 @@ func dateKey(s string) time.Time {
 	return t
 }
 
-func refMatches(f searchFields, id string) bool {
-	return (f.Subject != nil && fhirmap.RefersTo(f.Subject.Reference, "Patient", id)) ||
-		(f.Patient != nil && fhirmap.RefersTo(f.Patient.Reference, "Patient", id))
+// refMatches applies a patient or subject search value ("id" or
+// "Patient/id") to r.
+func (s *BundleStore) refMatches(r stored, v string) bool {
+	id := strings.TrimPrefix(v, "Patient/")
+	f := r.fields
+	return (f.Subject != nil && s.refs.RefersToPatient(f.Subject.Reference, r.res, id)) ||
+		(f.Patient != nil && s.refs.RefersToPatient(f.Patient.Reference, r.res, id))
 }
 
 // tokenMatches applies a token search value list ("system|code,code").

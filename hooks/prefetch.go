@@ -40,9 +40,11 @@ const (
 
 // Resolved is the outcome for one prefetch key.
 type Resolved struct {
-	Key       PrefetchKey
-	State     KeyState
-	Resources []json.RawMessage
+	Key   PrefetchKey
+	State KeyState
+	// Resources are the resources read, each with its Bundle entry's
+	// fullUrl when it came in one, so that references resolve.
+	Resources []fhirmap.BundleEntry
 	// Partial is set when a paginated result could not be read to its end.
 	Partial bool
 	// Reason explains Failed, Unavailable and Partial states, without PHI;
@@ -202,7 +204,7 @@ func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limi
 			case res.Type == "Bundle":
 				return fmt.Errorf("page %d: %w", page, err)
 			}
-			r.Resources = append(r.Resources, raw)
+			r.Resources = append(r.Resources, fhirmap.BundleEntry{Resource: raw})
 			return nil
 		}
 		for _, e := range b.Entries {
@@ -213,7 +215,7 @@ func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limi
 				}
 				continue // a search warning (search.mode "outcome")
 			}
-			r.Resources = append(r.Resources, e.Resource)
+			r.Resources = append(r.Resources, e)
 		}
 		if b.Next == "" {
 			return nil

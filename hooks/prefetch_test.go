@@ -8,6 +8,8 @@ import (
 	"strings"
 	"sync"
 	"testing"
+
+	"github.com/halite-cds/halite/fhirmap"
 )
 
 // mapFetcher serves canned bodies by ref and records what was asked.
@@ -123,11 +125,11 @@ func TestResolveStates(t *testing.T) {
 	}
 }
 
-func idsOf(t *testing.T, rs []json.RawMessage) string {
+func idsOf(t *testing.T, rs []fhirmap.BundleEntry) string {
 	var ids []string
 	for _, r := range rs {
 		var h struct{ ID string }
-		if err := json.Unmarshal(r, &h); err != nil {
+		if err := json.Unmarshal(r.Resource, &h); err != nil {
 			t.Fatal(err)
 		}
 		ids = append(ids, h.ID)

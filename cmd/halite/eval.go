@@ -11,6 +11,7 @@ import (
 	"text/tabwriter"
 	"time"
 
+	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
 	"github.com/halite-cds/halite/rules"
 )
@@ -59,10 +60,14 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	engine := hooks.NewEngine(hooks.EngineConfig{Registry: reg, Ruleset: rs, Limits: hooks.Limits{MaxPages: 1},
 		Log: slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))})
 	outcomes := map[string]*hooks.Outcome{}
+	warning := ""
 	for _, svc := range svcs {
 		req, err := hooks.BuildRequest(b, svc, bf.options())
 		if err != nil {
 			return err
+		}
+		if warning == "" {
+			warning = unlinkedWarning(b, req)
 		}
 		body, err := json.Marshal(req)
 		if err != nil {
@@ -74,6 +79,10 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		}
 		outcomes[svc.ID] = out
 	}
+	if warning != "" && *asJSON {
+		// stdout stays the exact CDS Hooks response.
+		fmt.Fprintln(stderr, warning)
+	}
 	switch {
 	case *asJSON && bf.service != "":
 		err = writeJSON(stdout, outcomes[bf.service].Response)
@@ -84,7 +93,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		}
 		err = writeJSON(stdout, all)
 	default:
-		err = writeReport(stdout, bf.hook, when, rs.Revision(), svcs, outcomes)
+		err = writeReport(stdout, bf.hook, when, rs.Revision(), warning, svcs, outcomes)
 	}
 	if err != nil {
 		return err
@@ -111,10 +120,32 @@ func exitStatus(outcomes map[string]*hooks.Outcome) int {
 	return code
 }
 
-// writeReport prints, per service, the cards and what the data held.
-func writeReport(w io.Writer, hook string, at time.Time, revision string, svcs []hooks.Service,
+// unlinkedWarning is the warning eval gives when b holds resources that
+// name a patient but none names the patient in context of req, or "".
+func unlinkedWarning(b *fhirmap.Bundle, req *hooks.Request) string {
+	var ctx struct {
+		PatientID string `json:"patientId"`
+	}
+	if json.Unmarshal(req.Context, &ctx) != nil {
+		return ""
+	}
+	linked, other := hooks.PatientLinks(b, ctx.PatientID)
+	if linked > 0 || other == 0 {
+		return ""
+	}
+	return fmt.Sprintf("WARNING: none of the %d resources that name a patient is linked to the patient in context "+
+		"(Patient/%s): no data from this bundle was used. References are read as Type/id, [base]/Type/id or a "+
+		"urn:uuid:/urn:oid: fullUrl of an entry.", other, ctx.PatientID)
+}
+
+// writeReport prints, per service, the cards and what the data held,
+// after warning when there is one.
+func writeReport(w io.Writer, hook string, at time.Time, revision, warning string, svcs []hooks.Service,
 	outcomes map[string]*hooks.Outcome) error {
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
+	if warning != "" {
+		fmt.Fprintf(tw, "%s\n\n", warning)
+	}
 	fmt.Fprintf(tw, "hook %s at %s, ruleset %s\n", hook, at.Format(time.RFC3339), revision)
 	for _, svc := range svcs {
 		o := outcomes[svc.ID]
