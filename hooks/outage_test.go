@@ -199,3 +199,27 @@ func TestBodyHeldInProcessBudget(t *testing.T) {
 		})
 	}
 }
+
+// TestDroppedResourcesCounted: the request line counts the resources not
+// used by reason, never naming them.
+func TestDroppedResourcesCounted(t *testing.T) {
+	srv, _, logs := testServerWith(t, defaultServerConfig(), nil)
+	m := requestMap(t, "01-chronic-hypona-3pct-infusion.json", "sodium-infusion-check", HookOrderSign)
+	sodium := m["prefetch"].(map[string]any)["sodium"].(map[string]any)
+	sodium["entry"] = append(sodium["entry"].([]any), map[string]any{"resource": map[string]any{
+		"resourceType": "Observation", "id": "someone-elses", "status": "final",
+		"code":    map[string]any{"coding": []any{map[string]any{"system": "http://loinc.org", "code": "2951-2"}}},
+		"subject": map[string]any{"reference": "Patient/another-patient"}, "effectiveDateTime": "2026-11-20T06:00:00Z",
+		"valueQuantity": map[string]any{"value": 120, "unit": "mmol/L", "system": "http://unitsofmeasure.org", "code": "mmol/L"}}})
+	resp, b := post(t, srv.URL+"/cds-services/sodium-infusion-check", mustMarshal(t, m), nil)
+	if resp.StatusCode != 200 {
+		t.Fatalf("status %d: %.200s", resp.StatusCode, b)
+	}
+	l := logs.String()
+	if !strings.Contains(l, `"dropped":"`) || !strings.Contains(l, "not-this-patient=1") {
+		t.Errorf("the request line does not count the other patient's result: %s", l)
+	}
+	if strings.Contains(l, "someone-elses") || strings.Contains(l, "another-patient") {
+		t.Errorf("the request line names a resource: %s", l)
+	}
+}

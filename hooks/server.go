@@ -10,6 +10,7 @@ import (
 	"mime"
 	"net/http"
 	"os"
+	"sort"
 	"strconv"
 	"strings"
 	"sync/atomic"
@@ -138,6 +139,9 @@ func (s *server) call(c *gin.Context) {
 	c.Set(logKeys, keySummary(out.Keys))
 	if n := out.UnknownPrefetchKeys; n > 0 {
 		c.Set(logUnknownKeys, n)
+	}
+	if len(out.Dropped) > 0 {
+		c.Set(logDropped, countSummary(out.Dropped))
 	}
 	c.Data(http.StatusOK, "application/json", mustJSON(out.Response))
 }
@@ -418,6 +422,9 @@ const (
 	// logUnknownKeys counts prefetch keys the service did not ask for; their
 	// names are the EHR's text and are never logged.
 	logUnknownKeys = "halite.prefetch.unknown"
+	// logDropped counts the resources not used, by reason category (never
+	// which resources).
+	logDropped = "halite.dropped"
 )
 
 // accessLog writes one line per request: route, status, duration, card
@@ -446,6 +453,9 @@ func (s *server) accessLog(c *gin.Context) {
 	}
 	if v, ok := c.Get(logUnknownKeys); ok {
 		attrs = append(attrs, "prefetch_unknown_keys", v)
+	}
+	if v, ok := c.Get(logDropped); ok {
+		attrs = append(attrs, "dropped", v)
 	}
 	level := slog.LevelInfo
 	if c.Writer.Status() >= http.StatusInternalServerError {
@@ -476,6 +486,16 @@ func errorSummary(err error) string {
 		return statusOf[e.Kind].issueType + " " + e.Reason
 	}
 	return statusOf[e.Kind].issueType
+}
+
+// countSummary writes counts by category as "a=1,b=2", in name order.
+func countSummary(counts map[string]int) string {
+	parts := make([]string, 0, len(counts))
+	for k, n := range counts {
+		parts = append(parts, k+"="+strconv.Itoa(n))
+	}
+	sort.Strings(parts)
+	return strings.Join(parts, ",")
 }
 
 func keySummary(keys []Resolved) string {

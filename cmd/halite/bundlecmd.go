@@ -71,9 +71,19 @@ func readBundle(path string) (*fhirmap.Bundle, error) {
 	if err != nil {
 		return nil, fmt.Errorf("read bundle: %w", err)
 	}
+	if data, err = fhirmap.ReadDocument(data); err != nil {
+		return nil, fmt.Errorf("%s: %w: a FHIR R4 Bundle is a JSON object", path, err)
+	}
 	b, err := fhirmap.ParseBundle(data)
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	for i, e := range b.Entries {
+		if r, err := fhirmap.ReadResource(e.Resource); err == nil {
+			if err := fhirmap.CheckR4(r); err != nil {
+				return nil, fmt.Errorf("%s: entry[%d]: %w", path, i, err)
+			}
+		}
 	}
 	switch b.Type {
 	case "collection", "searchset", "transaction", "batch":
