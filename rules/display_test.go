@@ -116,3 +116,21 @@ func TestConvertedValuesInCardText(t *testing.T) {
 		})
 	}
 }
+
+// TestSentValue: the "as sent" audit text keeps a laboratory's precision
+// and drops a converting system's floating-point noise.
+func TestSentValue(t *testing.T) {
+	for in, want := range map[string]string{
+		"15.000007772701675 mg/dL": "15 mg/dL",
+		"139.99997792809936 meq/L": "140 meq/L",
+		"3.0 mmol/L":               "3.0 mmol/L",
+		"136.2 meq/L":              "136.2 meq/L",
+		"0.000123 mmol/L":          "0.000123 mmol/L",
+		"7.25 mmol/L":              "7.25 mmol/L",
+		"n/a mg/dL":                "n/a mg/dL",
+	} {
+		if got := sentValue(in); got != want {
+			t.Errorf("sentValue(%q) = %q, want %q", in, got, want)
+		}
+	}
+}

@@ -3,6 +3,7 @@ package rules
 import (
 	"fmt"
 	"math"
+	"strconv"
 	"strings"
 	"time"
 )
@@ -302,7 +303,24 @@ func asSent(m Measurement) string {
 	if m.Original == "" || m.Original == fmt.Sprintf("%g %s", m.Value, CanonicalUnit(m.Analyte)) {
 		return ""
 	}
-	return " (sent as " + m.Original + ")"
+	return " (sent as " + sentValue(m.Original) + ")"
+}
+
+// sentValue is an "as sent" value and unit as sent, unless its number has
+// more than six significant digits: a laboratory's own precision ("3.0")
+// survives, the floating-point noise of a converting system
+// ("15.000007772701675") is rounded away.
+func sentValue(original string) string {
+	num, unit, _ := strings.Cut(original, " ")
+	v, err := strconv.ParseFloat(num, 64)
+	if err != nil {
+		return original
+	}
+	mantissa, _, _ := strings.Cut(strings.ToLower(strings.TrimLeft(num, "+-")), "e")
+	if digits := strings.TrimLeft(strings.ReplaceAll(mantissa, ".", ""), "0"); len(digits) <= 6 {
+		return original
+	}
+	return strings.TrimSpace(strconv.FormatFloat(v, 'g', 6, 64) + " " + unit)
 }
 
 func (r *Ruleset) describeLimit(a InfusionAssessment) string {
