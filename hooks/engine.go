@@ -241,13 +241,7 @@ func (e *Engine) fetcher(ctx context.Context, c *Call, budget *CallBudget) Fetch
 
 func mapInput(c *Call, keys []Resolved, at time.Time) fhirmap.Input {
 	in := fhirmap.Input{At: at, PatientID: c.Context.PatientID, Server: c.Request.FHIRServer}
-	// draftOrders was validated as a Bundle of resources; read again, its
-	// entries keep their fullUrls.
-	if b, err := fhirmap.ParseBundle(c.Context.DraftOrders); err == nil && len(b.Entries) == len(c.DraftOrders) {
-		in.DraftEntries = b.Entries
-	} else {
-		in.DraftOrders = c.DraftOrders
-	}
+	in.DraftEntries = c.DraftEntries // with their fullUrls
 	if c.Request.Hook == HookOrderSelect {
 		in.Selections = c.Context.Selections
 	}

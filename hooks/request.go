@@ -23,8 +23,10 @@ type Call struct {
 	// prefetch tokens (CDS Hooks 2.0 §Prefetch tokens): userId, patientId and
 	// encounterId, whose values are FHIR ids or Type/id references.
 	ContextTokens map[string]string
-	// DraftOrders are the raw resources of context.draftOrders.
-	DraftOrders []json.RawMessage
+	// DraftOrders are the raw resources of context.draftOrders;
+	// DraftEntries the same with their fullUrls, for resolving references.
+	DraftOrders  []json.RawMessage
+	DraftEntries []fhirmap.BundleEntry
 	// UnknownPrefetchKeys counts the prefetch keys the service did not ask
 	// for; they are ignored, and their names (the EHR's text) never logged.
 	UnknownPrefetchKeys int
@@ -177,6 +179,7 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 	var b struct {
 		ResourceType string `json:"resourceType"`
 		Entry        []struct {
+			FullURL  string          `json:"fullUrl"`
 			Resource json.RawMessage `json:"resource"`
 		} `json:"entry"`
 	}
@@ -197,6 +200,7 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 		}
 		refs[h.ResourceType+"/"+h.ID] = true
 		c.DraftOrders = append(c.DraftOrders, e.Resource)
+		c.DraftEntries = append(c.DraftEntries, fhirmap.BundleEntry{FullURL: e.FullURL, Resource: e.Resource})
 	}
 	if c.Request.Hook != HookOrderSelect {
 		return nil
