@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"errors"
 	"io"
 	"os"
 	"path/filepath"
@@ -42,5 +43,22 @@ func TestEvalReadsBundlesAsSent(t *testing.T) {
 		if err == nil || !strings.Contains(err.Error(), tc.wantErr) || strings.Contains(err.Error(), "Go value") {
 			t.Errorf("%s: error %v; want one saying %q", tc.name, err, tc.wantErr)
 		}
+	}
+}
+
+// TestEvalNamesWhatNoQueryAsksFor: the bundle's resources a service's
+// request does not carry (no prefetch query asks for an Encounter or a
+// Provenance) are counted in its report, not passed over in silence.
+func TestEvalNamesWhatNoQueryAsksFor(t *testing.T) {
+	var out bytes.Buffer
+	err := run(t.Context(), []string{"eval", "--hook", "order-sign", "--service", "sodium-infusion-check", "--at", scenarioAt,
+		filepath.Join("..", "..", "testdata", "bundles", "transaction-urn-uuid.json")}, &out, io.Discard)
+	var ee *exitError
+	if err != nil && !errors.As(err, &ee) {
+		t.Fatal(err)
+	}
+	want := "not read      1 × Encounter, 1 × Provenance: no prefetch query of this service asks for them"
+	if !strings.Contains(strings.Join(strings.Fields(out.String()), " "), strings.Join(strings.Fields(want), " ")) {
+		t.Errorf("report lacks %q:\n%s", want, out.String())
 	}
 }

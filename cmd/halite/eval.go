@@ -60,6 +60,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	engine := hooks.NewEngine(hooks.EngineConfig{Registry: reg, Ruleset: rs, Limits: hooks.Limits{MaxPages: 1},
 		Log: slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))})
 	outcomes := map[string]*hooks.Outcome{}
+	unasked := map[string]string{} // by service: the bundle's resources its request does not carry
 	warning := ""
 	for _, svc := range svcs {
 		req, err := hooks.BuildRequest(b, svc, bf.options())
@@ -69,6 +70,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		if warning == "" {
 			warning = unlinkedWarning(b, req)
 		}
+		unasked[svc.ID] = notAskedFor(b, req)
 		body, err := json.Marshal(req)
 		if err != nil {
 			return fmt.Errorf("eval: %w", err)
@@ -93,7 +95,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		}
 		err = writeJSON(stdout, all)
 	default:
-		err = writeReport(stdout, bf.hook, when, rs.Revision(), warning, svcs, outcomes)
+		err = writeReport(stdout, bf.hook, when, rs.Revision(), warning, svcs, outcomes, unasked)
 	}
 	if err != nil {
 		return err
@@ -138,10 +140,56 @@ func unlinkedWarning(b *fhirmap.Bundle, req *hooks.Request) string {
 		"urn:uuid:/urn:oid: fullUrl of an entry.", other, ctx.PatientID)
 }
 
+// notAskedFor counts by type the bundle's resources that req carries
+// neither in its prefetch nor in its draft orders ("2 × Encounter, 1 ×
+// Provenance"): no query of the service asks for them, so they are
+// reported here rather than dropped without a word. The Patient is carried.
+func notAskedFor(b *fhirmap.Bundle, req *hooks.Request) string {
+	carried := map[string]bool{}
+	add := func(raw []byte) {
+		if pb, err := fhirmap.ParseBundle(raw); err == nil {
+			for _, e := range pb.Entries {
+				if r, err := fhirmap.ReadEntry(e); err == nil {
+					carried[r.Ref()] = true
+				}
+			}
+			return
+		}
+		if r, err := fhirmap.ReadResource(raw); err == nil {
+			carried[r.Ref()] = true
+		}
+	}
+	for _, v := range req.Prefetch {
+		add(v)
+	}
+	var ctx struct {
+		DraftOrders json.RawMessage `json:"draftOrders"`
+	}
+	if json.Unmarshal(req.Context, &ctx) == nil && len(ctx.DraftOrders) > 0 {
+		add(ctx.DraftOrders)
+	}
+	counts := map[string]int{}
+	for _, e := range b.Entries {
+		if r, err := fhirmap.ReadEntry(e); err == nil && !carried[r.Ref()] {
+			counts[r.Type]++
+		}
+	}
+	types := make([]string, 0, len(counts))
+	for t := range counts {
+		types = append(types, t)
+	}
+	sort.Strings(types)
+	parts := make([]string, len(types))
+	for i, t := range types {
+		parts[i] = fmt.Sprintf("%d × %s", counts[t], t)
+	}
+	return strings.Join(parts, ", ")
+}
+
 // writeReport prints, per service, the cards and what the data held,
 // after warning when there is one.
 func writeReport(w io.Writer, hook string, at time.Time, revision, warning string, svcs []hooks.Service,
-	outcomes map[string]*hooks.Outcome) error {
+	outcomes map[string]*hooks.Outcome, unasked map[string]string) error {
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	if warning != "" {
 		fmt.Fprintf(tw, "%s\n\n", warning)
@@ -170,6 +218,9 @@ func writeReport(w io.Writer, hook string, at time.Time, revision, warning strin
 				state += " (" + k.Reason + ")"
 			}
 			fmt.Fprintf(tw, "prefetch\t%s: %s, %d resources\n", k.Key.Key, state, len(k.Resources))
+		}
+		if u := unasked[svc.ID]; u != "" {
+			fmt.Fprintf(tw, "not read\t%s: no prefetch query of this service asks for them\n", u)
 		}
 		writeFacts(tw, o.Facts)
 	}
