@@ -48,23 +48,6 @@ const (
 	PointOfCare Source = "point of care"
 )
 
-// LabCode describes a LOINC code halite reads.
-type LabCode struct {
-	Analyte  rules.Analyte
-	Specimen string
-	Source   Source
-	Display  string // LOINC long common name
-}
-
-// LookupLOINC describes LOINC code code, if halite reads it.
-func LookupLOINC(code string) (LabCode, bool) {
-	m, ok := loinc[code]
-	if !ok {
-		return LabCode{}, false
-	}
-	return LabCode{Analyte: m.analyte, Specimen: m.specimen, Source: m.source, Display: m.display}, true
-}
-
 // Molar masses from IUPAC standard atomic weights (abridged, 2021: C 12.011,
 // H 1.008, N 14.007, O 15.999), computed in units_test.go.
 const (
