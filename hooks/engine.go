@@ -149,7 +149,7 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	rspan.SetAttributes(attribute.Int("halite.findings", len(findings)))
 	rspan.End()
 	cards, err := renderCards(findings, e.ruleset.Revision(),
-		suggestionInput{At: at, PatientID: call.Context.PatientID, EncounterID: call.Context.EncounterID, Drafts: draftIndex(call.DraftOrders)})
+		suggestionInput{At: at, PatientID: call.Context.PatientID, EncounterID: call.Context.EncounterID, Drafts: draftIndex(call.DraftEntries)})
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}

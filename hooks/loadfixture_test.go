@@ -225,7 +225,7 @@ func BenchmarkRenderCards(b *testing.B) {
 	if len(findings) == 0 {
 		b.Fatal("setup: no findings")
 	}
-	in := suggestionInput{At: scenarioAt, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftOrders)}
+	in := suggestionInput{At: scenarioAt, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftEntries)}
 	b.ReportAllocs()
 	for b.Loop() {
 		cards, err := renderCards(findings, e.ruleset.Revision(), in)

@@ -23,9 +23,8 @@ type Call struct {
 	// prefetch tokens (CDS Hooks 2.0 §Prefetch tokens): userId, patientId and
 	// encounterId, whose values are FHIR ids or Type/id references.
 	ContextTokens map[string]string
-	// DraftOrders are the raw resources of context.draftOrders;
-	// DraftEntries the same with their fullUrls, for resolving references.
-	DraftOrders  []json.RawMessage
+	// DraftEntries are the entries of context.draftOrders: each resource
+	// with its fullUrl, for resolving references.
 	DraftEntries []fhirmap.BundleEntry
 	// UnknownPrefetchKeys counts the prefetch keys the service did not ask
 	// for; they are ignored, and their names (the EHR's text) never logged.
@@ -199,7 +198,6 @@ func (c *Call) decodeOrders(fields map[string]json.RawMessage) error {
 			return badRequest(fmt.Sprintf("context.draftOrders.entry[%d].resource", i), "%v", err)
 		}
 		refs[h.ResourceType+"/"+h.ID] = true
-		c.DraftOrders = append(c.DraftOrders, e.Resource)
 		c.DraftEntries = append(c.DraftEntries, fhirmap.BundleEntry{FullURL: e.FullURL, Resource: e.Resource})
 	}
 	if c.Request.Hook != HookOrderSelect {

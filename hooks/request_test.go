@@ -28,7 +28,7 @@ func TestDecodeCallValid(t *testing.T) {
 			if c.Context.PatientID == "" || c.ContextTokens["patientId"] != c.Context.PatientID {
 				t.Errorf("patientId %q, token %q", c.Context.PatientID, c.ContextTokens["patientId"])
 			}
-			if tc.hook != HookPatientView && len(c.DraftOrders) == 0 {
+			if tc.hook != HookPatientView && len(c.DraftEntries) == 0 {
 				t.Error("no draft orders decoded")
 			}
 		})

@@ -53,9 +53,10 @@ type suggestionInput struct {
 }
 
 // draftIndex keys the raw draft orders by their reference.
-func draftIndex(raws []json.RawMessage) map[string]json.RawMessage {
-	out := make(map[string]json.RawMessage, len(raws))
-	for _, raw := range raws {
+func draftIndex(entries []fhirmap.BundleEntry) map[string]json.RawMessage {
+	out := make(map[string]json.RawMessage, len(entries))
+	for _, e := range entries {
+		raw := e.Resource
 		var head struct {
 			ResourceType string `json:"resourceType"`
 			ID           string `json:"id"`

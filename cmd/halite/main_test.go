@@ -366,8 +366,8 @@ func TestRequestCommand(t *testing.T) {
 	if err != nil {
 		t.Fatalf("the service rejects the request it was built for: %v", err)
 	}
-	if len(c.DraftOrders) != 2 || len(c.Context.Selections) != 2 {
-		t.Errorf("%d drafts, %d selections; the scenario has two drafts", len(c.DraftOrders), len(c.Context.Selections))
+	if len(c.DraftEntries) != 2 || len(c.Context.Selections) != 2 {
+		t.Errorf("%d drafts, %d selections; the scenario has two drafts", len(c.DraftEntries), len(c.Context.Selections))
 	}
 	for _, k := range mustLookup(t, "sodium-drug-risk").Prefetch {
 		if _, ok := req.Prefetch[k.Key]; !ok {
