@@ -29,24 +29,8 @@ type measure struct {
 	// zero means the code has no mass-unit form halite converts.
 	molarMass float64
 	display   string
-	source    Source
+	origin    rules.Origin
 }
-
-// Source says where a result of a LOINC code usually comes from, so that a
-// card can tell a blood gas from a laboratory or point-of-care result.
-type Source string
-
-// Sources of a result.
-const (
-	// Laboratory: LOINC's name names no method or device (laboratory or
-	// unspecified).
-	Laboratory Source = "laboratory"
-	// BloodGas: whole arterial, venous or mixed venous blood; measured on
-	// blood-gas analysers in common practice (inferred, not in LOINC's name).
-	BloodGas Source = "blood gas"
-	// PointOfCare: LOINC's name gives a glucometer or test strip method.
-	PointOfCare Source = "point of care"
-)
 
 // Molar masses from IUPAC standard atomic weights (abridged, 2021: C 12.011,
 // H 1.008, N 14.007, O 15.999), computed in units_test.go.
@@ -73,73 +57,73 @@ const (
 
 // loinc maps the LOINC codes halite reads (LOINC, Regenstrief).
 var loinc = map[string]measure{
-	"2951-2":  {rules.Sodium, "serum or plasma", 0, "Sodium [Moles/volume] in Serum or Plasma", Laboratory},               // §8; VSAC SodiumLabTest
-	"2947-0":  {rules.Sodium, "blood", 0, "Sodium [Moles/volume] in Blood", Laboratory},                                   // §8; VSAC SodiumLabTest
-	"32717-1": {rules.Sodium, "arterial blood", 0, "Sodium [Moles/volume] in Arterial blood", BloodGas},                   // §8; VSAC SodiumLabTest
-	"39791-9": {rules.Sodium, "venous blood", 0, "Sodium [Moles/volume] in Venous blood", BloodGas},                       // §8; VSAC SodiumLabTest
-	"41657-8": {rules.Sodium, "mixed venous blood", 0, "Sodium [Moles/volume] in Mixed venous blood", BloodGas},           // VSAC SodiumLabTest
-	"77139-4": {rules.Sodium, "serum, plasma or blood", 0, "Sodium [Moles/volume] in Serum, Plasma or Blood", Laboratory}, // VSAC SodiumLabTest
+	"2951-2":  {rules.Sodium, "serum or plasma", 0, "Sodium [Moles/volume] in Serum or Plasma", rules.Laboratory},               // §8; VSAC SodiumLabTest
+	"2947-0":  {rules.Sodium, "blood", 0, "Sodium [Moles/volume] in Blood", rules.Laboratory},                                   // §8; VSAC SodiumLabTest
+	"32717-1": {rules.Sodium, "arterial blood", 0, "Sodium [Moles/volume] in Arterial blood", rules.BloodGas},                   // §8; VSAC SodiumLabTest
+	"39791-9": {rules.Sodium, "venous blood", 0, "Sodium [Moles/volume] in Venous blood", rules.BloodGas},                       // §8; VSAC SodiumLabTest
+	"41657-8": {rules.Sodium, "mixed venous blood", 0, "Sodium [Moles/volume] in Mixed venous blood", rules.BloodGas},           // VSAC SodiumLabTest
+	"77139-4": {rules.Sodium, "serum, plasma or blood", 0, "Sodium [Moles/volume] in Serum, Plasma or Blood", rules.Laboratory}, // VSAC SodiumLabTest
 
-	"2823-3":  {rules.Potassium, "serum or plasma", 0, "Potassium [Moles/volume] in Serum or Plasma", Laboratory},               // §8; VSAC PotassiumLabTest
-	"6298-4":  {rules.Potassium, "blood", 0, "Potassium [Moles/volume] in Blood", Laboratory},                                   // §8; VSAC PotassiumLabTest
-	"32713-0": {rules.Potassium, "arterial blood", 0, "Potassium [Moles/volume] in Arterial blood", BloodGas},                   // VSAC PotassiumLabTest
-	"39789-3": {rules.Potassium, "venous blood", 0, "Potassium [Moles/volume] in Venous blood", BloodGas},                       // VSAC PotassiumLabTest
-	"41656-0": {rules.Potassium, "mixed venous blood", 0, "Potassium [Moles/volume] in Mixed venous blood", BloodGas},           // VSAC PotassiumLabTest
-	"77142-8": {rules.Potassium, "serum, plasma or blood", 0, "Potassium [Moles/volume] in Serum, Plasma or Blood", Laboratory}, // VSAC PotassiumLabTest
+	"2823-3":  {rules.Potassium, "serum or plasma", 0, "Potassium [Moles/volume] in Serum or Plasma", rules.Laboratory},               // §8; VSAC PotassiumLabTest
+	"6298-4":  {rules.Potassium, "blood", 0, "Potassium [Moles/volume] in Blood", rules.Laboratory},                                   // §8; VSAC PotassiumLabTest
+	"32713-0": {rules.Potassium, "arterial blood", 0, "Potassium [Moles/volume] in Arterial blood", rules.BloodGas},                   // VSAC PotassiumLabTest
+	"39789-3": {rules.Potassium, "venous blood", 0, "Potassium [Moles/volume] in Venous blood", rules.BloodGas},                       // VSAC PotassiumLabTest
+	"41656-0": {rules.Potassium, "mixed venous blood", 0, "Potassium [Moles/volume] in Mixed venous blood", rules.BloodGas},           // VSAC PotassiumLabTest
+	"77142-8": {rules.Potassium, "serum, plasma or blood", 0, "Potassium [Moles/volume] in Serum, Plasma or Blood", rules.Laboratory}, // VSAC PotassiumLabTest
 
-	"2345-7":   {rules.Glucose, "serum or plasma", molarMassGlucose, "Glucose [Mass/volume] in Serum or Plasma", Laboratory},                 // §8; VSAC GlucoseLabTest
-	"14749-6":  {rules.Glucose, "serum or plasma", molarMassGlucose, "Glucose [Moles/volume] in Serum or Plasma", Laboratory},                // §8; VSAC GlucoseLabTest
-	"2339-0":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood", Laboratory},                                     // §8; VSAC GlucoseLabTest
-	"15074-8":  {rules.Glucose, "blood", molarMassGlucose, "Glucose [Moles/volume] in Blood", Laboratory},                                    // §8; VSAC GlucoseLabTest
-	"74774-1":  {rules.Glucose, "serum, plasma or blood", molarMassGlucose, "Glucose [Mass/volume] in Serum, Plasma or Blood", Laboratory},   // VSAC GlucoseLabTest
-	"77135-2":  {rules.Glucose, "serum, plasma or blood", molarMassGlucose, "Glucose [Moles/volume] in Serum, Plasma or Blood", Laboratory},  // VSAC GlucoseLabTest
-	"41651-1":  {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Mass/volume] in Arterial blood", BloodGas},                     // VSAC GlucoseLabTest
-	"39481-7":  {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Moles/volume] in Arterial blood", BloodGas},                    // VSAC GlucoseLabTest
-	"41652-9":  {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Mass/volume] in Venous blood", BloodGas},                         // VSAC GlucoseLabTest
-	"39480-9":  {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Moles/volume] in Venous blood", BloodGas},                        // VSAC GlucoseLabTest
-	"104655-6": {rules.Glucose, "mixed venous blood", molarMassGlucose, "Glucose [Mass/volume] in Mixed venous blood", BloodGas},             // VSAC GlucoseLabTest
-	"100746-7": {rules.Glucose, "mixed venous blood", molarMassGlucose, "Glucose [Moles/volume] in Mixed venous blood", BloodGas},            // VSAC GlucoseLabTest
-	"32016-8":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Mass/volume] in Capillary blood", Laboratory},                 // VSAC GlucoseLabTest
-	"51596-5":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Moles/volume] in Capillary blood", Laboratory},                // VSAC GlucoseLabTest
-	"41653-7":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Mass/volume] in Capillary blood by Glucometer", PointOfCare},  // VSAC GlucoseLabTest
-	"14743-9":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Moles/volume] in Capillary blood by Glucometer", PointOfCare}, // VSAC GlucoseLabTest
-	"104597-0": {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Mass/volume] in Venous blood by Glucometer", PointOfCare},        // VSAC GlucoseLabTest
-	"104598-8": {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Mass/volume] in Arterial blood by Glucometer", PointOfCare},    // VSAC GlucoseLabTest
-	"2340-8":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood by Automated test strip", PointOfCare},            // VSAC GlucoseLabTest
-	"72516-8":  {rules.Glucose, "blood", molarMassGlucose, "Glucose [Moles/volume] in Blood by Automated test strip", PointOfCare},           // VSAC GlucoseLabTest
-	"2341-6":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood by Test strip manual", PointOfCare},               // VSAC GlucoseLabTest
+	"2345-7":   {rules.Glucose, "serum or plasma", molarMassGlucose, "Glucose [Mass/volume] in Serum or Plasma", rules.Laboratory},                 // §8; VSAC GlucoseLabTest
+	"14749-6":  {rules.Glucose, "serum or plasma", molarMassGlucose, "Glucose [Moles/volume] in Serum or Plasma", rules.Laboratory},                // §8; VSAC GlucoseLabTest
+	"2339-0":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood", rules.Laboratory},                                     // §8; VSAC GlucoseLabTest
+	"15074-8":  {rules.Glucose, "blood", molarMassGlucose, "Glucose [Moles/volume] in Blood", rules.Laboratory},                                    // §8; VSAC GlucoseLabTest
+	"74774-1":  {rules.Glucose, "serum, plasma or blood", molarMassGlucose, "Glucose [Mass/volume] in Serum, Plasma or Blood", rules.Laboratory},   // VSAC GlucoseLabTest
+	"77135-2":  {rules.Glucose, "serum, plasma or blood", molarMassGlucose, "Glucose [Moles/volume] in Serum, Plasma or Blood", rules.Laboratory},  // VSAC GlucoseLabTest
+	"41651-1":  {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Mass/volume] in Arterial blood", rules.BloodGas},                     // VSAC GlucoseLabTest
+	"39481-7":  {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Moles/volume] in Arterial blood", rules.BloodGas},                    // VSAC GlucoseLabTest
+	"41652-9":  {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Mass/volume] in Venous blood", rules.BloodGas},                         // VSAC GlucoseLabTest
+	"39480-9":  {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Moles/volume] in Venous blood", rules.BloodGas},                        // VSAC GlucoseLabTest
+	"104655-6": {rules.Glucose, "mixed venous blood", molarMassGlucose, "Glucose [Mass/volume] in Mixed venous blood", rules.BloodGas},             // VSAC GlucoseLabTest
+	"100746-7": {rules.Glucose, "mixed venous blood", molarMassGlucose, "Glucose [Moles/volume] in Mixed venous blood", rules.BloodGas},            // VSAC GlucoseLabTest
+	"32016-8":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Mass/volume] in Capillary blood", rules.Laboratory},                 // VSAC GlucoseLabTest
+	"51596-5":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Moles/volume] in Capillary blood", rules.Laboratory},                // VSAC GlucoseLabTest
+	"41653-7":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Mass/volume] in Capillary blood by Glucometer", rules.PointOfCare},  // VSAC GlucoseLabTest
+	"14743-9":  {rules.Glucose, "capillary blood", molarMassGlucose, "Glucose [Moles/volume] in Capillary blood by Glucometer", rules.PointOfCare}, // VSAC GlucoseLabTest
+	"104597-0": {rules.Glucose, "venous blood", molarMassGlucose, "Glucose [Mass/volume] in Venous blood by Glucometer", rules.PointOfCare},        // VSAC GlucoseLabTest
+	"104598-8": {rules.Glucose, "arterial blood", molarMassGlucose, "Glucose [Mass/volume] in Arterial blood by Glucometer", rules.PointOfCare},    // VSAC GlucoseLabTest
+	"2340-8":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood by Automated test strip", rules.PointOfCare},            // VSAC GlucoseLabTest
+	"72516-8":  {rules.Glucose, "blood", molarMassGlucose, "Glucose [Moles/volume] in Blood by Automated test strip", rules.PointOfCare},           // VSAC GlucoseLabTest
+	"2341-6":   {rules.Glucose, "blood", molarMassGlucose, "Glucose [Mass/volume] in Blood by Test strip manual", rules.PointOfCare},               // VSAC GlucoseLabTest
 
 	// Urea nitrogen codes convert on the nitrogen mass (molarMassUreaN), urea
 	// codes on urea (molarMassUrea); see the MIRACUM warning in §8.
-	"3094-0": {rules.Urea, "serum or plasma", molarMassUreaN, "Urea nitrogen [Mass/volume] in Serum or Plasma", Laboratory}, // §8; VSAC BloodUreaNitrogenLabTest
+	"3094-0": {rules.Urea, "serum or plasma", molarMassUreaN, "Urea nitrogen [Mass/volume] in Serum or Plasma", rules.Laboratory}, // §8; VSAC BloodUreaNitrogenLabTest
 	// 14937-7 is "Urea nitrogen [Moles/volume]"; in mmol/L it is numerically
 	// urea in mmol/L (one urea molecule per two nitrogen atoms reported as
 	// one mole of urea) — common practice in laboratories reporting SI units.
 	// The same holds for 59570-2 in blood.
-	"14937-7": {rules.Urea, "serum or plasma", molarMassUreaN, "Urea nitrogen [Moles/volume] in Serum or Plasma", Laboratory},  // §8; VSAC BloodUreaNitrogenLabTest
-	"6299-2":  {rules.Urea, "blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Blood", Laboratory},                       // VSAC BloodUreaNitrogenLabTest
-	"59570-2": {rules.Urea, "blood", molarMassUreaN, "Urea nitrogen [Moles/volume] in Blood", Laboratory},                      // VSAC BloodUreaNitrogenLabTest
-	"12961-9": {rules.Urea, "arterial blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Arterial blood", BloodGas},       // VSAC BloodUreaNitrogenLabTest
-	"12962-7": {rules.Urea, "venous blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Venous blood", BloodGas},           // VSAC BloodUreaNitrogenLabTest
-	"12963-5": {rules.Urea, "peripheral blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Peripheral blood", Laboratory}, // VSAC BloodUreaNitrogenLabTest
-	"3091-6":  {rules.Urea, "serum or plasma", molarMassUrea, "Urea [Mass/volume] in Serum or Plasma", Laboratory},             // §8
-	"22664-7": {rules.Urea, "serum or plasma", molarMassUrea, "Urea [Moles/volume] in Serum or Plasma", Laboratory},            // §8
-	"20977-5": {rules.Urea, "blood", molarMassUrea, "Urea [Mass/volume] in Blood", Laboratory},                                 // SSIDL
+	"14937-7": {rules.Urea, "serum or plasma", molarMassUreaN, "Urea nitrogen [Moles/volume] in Serum or Plasma", rules.Laboratory},  // §8; VSAC BloodUreaNitrogenLabTest
+	"6299-2":  {rules.Urea, "blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Blood", rules.Laboratory},                       // VSAC BloodUreaNitrogenLabTest
+	"59570-2": {rules.Urea, "blood", molarMassUreaN, "Urea nitrogen [Moles/volume] in Blood", rules.Laboratory},                      // VSAC BloodUreaNitrogenLabTest
+	"12961-9": {rules.Urea, "arterial blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Arterial blood", rules.BloodGas},       // VSAC BloodUreaNitrogenLabTest
+	"12962-7": {rules.Urea, "venous blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Venous blood", rules.BloodGas},           // VSAC BloodUreaNitrogenLabTest
+	"12963-5": {rules.Urea, "peripheral blood", molarMassUreaN, "Urea nitrogen [Mass/volume] in Peripheral blood", rules.Laboratory}, // VSAC BloodUreaNitrogenLabTest
+	"3091-6":  {rules.Urea, "serum or plasma", molarMassUrea, "Urea [Mass/volume] in Serum or Plasma", rules.Laboratory},             // §8
+	"22664-7": {rules.Urea, "serum or plasma", molarMassUrea, "Urea [Moles/volume] in Serum or Plasma", rules.Laboratory},            // §8
+	"20977-5": {rules.Urea, "blood", molarMassUrea, "Urea [Mass/volume] in Blood", rules.Laboratory},                                 // SSIDL
 
-	"2160-0":   {rules.Creatinine, "serum or plasma", molarMassCreatinine, "Creatinine [Mass/volume] in Serum or Plasma", Laboratory},                // §8; VSAC CreatinineLabTest
-	"14682-9":  {rules.Creatinine, "serum or plasma", molarMassCreatinine, "Creatinine [Moles/volume] in Serum or Plasma", Laboratory},               // §8; VSAC CreatinineLabTest
-	"38483-4":  {rules.Creatinine, "blood", molarMassCreatinine, "Creatinine [Mass/volume] in Blood", Laboratory},                                    // VSAC CreatinineLabTest
-	"59826-8":  {rules.Creatinine, "blood", molarMassCreatinine, "Creatinine [Moles/volume] in Blood", Laboratory},                                   // VSAC CreatinineLabTest
-	"77140-2":  {rules.Creatinine, "serum, plasma or blood", molarMassCreatinine, "Creatinine [Moles/volume] in Serum, Plasma or Blood", Laboratory}, // VSAC CreatinineLabTest
-	"21232-4":  {rules.Creatinine, "arterial blood", molarMassCreatinine, "Creatinine [Mass/volume] in Arterial blood", BloodGas},                    // VSAC CreatinineLabTest
-	"101475-2": {rules.Creatinine, "venous blood", molarMassCreatinine, "Creatinine [Moles/volume] in Venous blood", BloodGas},                       // VSAC CreatinineLabTest
+	"2160-0":   {rules.Creatinine, "serum or plasma", molarMassCreatinine, "Creatinine [Mass/volume] in Serum or Plasma", rules.Laboratory},                // §8; VSAC CreatinineLabTest
+	"14682-9":  {rules.Creatinine, "serum or plasma", molarMassCreatinine, "Creatinine [Moles/volume] in Serum or Plasma", rules.Laboratory},               // §8; VSAC CreatinineLabTest
+	"38483-4":  {rules.Creatinine, "blood", molarMassCreatinine, "Creatinine [Mass/volume] in Blood", rules.Laboratory},                                    // VSAC CreatinineLabTest
+	"59826-8":  {rules.Creatinine, "blood", molarMassCreatinine, "Creatinine [Moles/volume] in Blood", rules.Laboratory},                                   // VSAC CreatinineLabTest
+	"77140-2":  {rules.Creatinine, "serum, plasma or blood", molarMassCreatinine, "Creatinine [Moles/volume] in Serum, Plasma or Blood", rules.Laboratory}, // VSAC CreatinineLabTest
+	"21232-4":  {rules.Creatinine, "arterial blood", molarMassCreatinine, "Creatinine [Mass/volume] in Arterial blood", rules.BloodGas},                    // VSAC CreatinineLabTest
+	"101475-2": {rules.Creatinine, "venous blood", molarMassCreatinine, "Creatinine [Moles/volume] in Venous blood", rules.BloodGas},                       // VSAC CreatinineLabTest
 
-	"2692-2":  {rules.SerumOsmolality, "serum or plasma", 0, "Osmolality of Serum or Plasma", Laboratory}, // §8
-	"2695-5":  {rules.UrineOsmolality, "urine", 0, "Osmolality of Urine", Laboratory},                     // §8
-	"2955-3":  {rules.UrineSodium, "urine", 0, "Sodium [Moles/volume] in Urine", Laboratory},              // §8
-	"2828-2":  {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", Laboratory},        // §8
-	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                               // §8
-	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                               // §8
+	"2692-2":  {rules.SerumOsmolality, "serum or plasma", 0, "Osmolality of Serum or Plasma", rules.Laboratory}, // §8
+	"2695-5":  {rules.UrineOsmolality, "urine", 0, "Osmolality of Urine", rules.Laboratory},                     // §8
+	"2955-3":  {rules.UrineSodium, "urine", 0, "Sodium [Moles/volume] in Urine", rules.Laboratory},              // §8
+	"2828-2":  {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", rules.Laboratory},        // §8
+	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                                     // §8
+	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                                     // §8
 }
 
 // LOINCCodes returns the LOINC codes that map to analyte a, sorted, for

@@ -19,69 +19,69 @@ func TestLOINCTable(t *testing.T) {
 		analyte   rules.Analyte
 		specimen  string
 		molarMass float64
-		source    Source
+		origin    rules.Origin
 	}{
-		{"2951-2", "Sodium [Moles/volume] in Serum or Plasma", rules.Sodium, "serum or plasma", 0, Laboratory},                // §8, VSAC
-		{"2947-0", "Sodium [Moles/volume] in Blood", rules.Sodium, "blood", 0, Laboratory},                                    // §8, VSAC
-		{"32717-1", "Sodium [Moles/volume] in Arterial blood", rules.Sodium, "arterial blood", 0, BloodGas},                   // §8, VSAC; blood gas: common practice
-		{"39791-9", "Sodium [Moles/volume] in Venous blood", rules.Sodium, "venous blood", 0, BloodGas},                       // §8, VSAC; blood gas: common practice
-		{"41657-8", "Sodium [Moles/volume] in Mixed venous blood", rules.Sodium, "mixed venous blood", 0, BloodGas},           // VSAC; blood gas: common practice
-		{"77139-4", "Sodium [Moles/volume] in Serum, Plasma or Blood", rules.Sodium, "serum, plasma or blood", 0, Laboratory}, // VSAC
+		{"2951-2", "Sodium [Moles/volume] in Serum or Plasma", rules.Sodium, "serum or plasma", 0, rules.Laboratory},                // §8, VSAC
+		{"2947-0", "Sodium [Moles/volume] in Blood", rules.Sodium, "blood", 0, rules.Laboratory},                                    // §8, VSAC
+		{"32717-1", "Sodium [Moles/volume] in Arterial blood", rules.Sodium, "arterial blood", 0, rules.BloodGas},                   // §8, VSAC; blood gas: common practice
+		{"39791-9", "Sodium [Moles/volume] in Venous blood", rules.Sodium, "venous blood", 0, rules.BloodGas},                       // §8, VSAC; blood gas: common practice
+		{"41657-8", "Sodium [Moles/volume] in Mixed venous blood", rules.Sodium, "mixed venous blood", 0, rules.BloodGas},           // VSAC; blood gas: common practice
+		{"77139-4", "Sodium [Moles/volume] in Serum, Plasma or Blood", rules.Sodium, "serum, plasma or blood", 0, rules.Laboratory}, // VSAC
 
-		{"2823-3", "Potassium [Moles/volume] in Serum or Plasma", rules.Potassium, "serum or plasma", 0, Laboratory},                // §8, VSAC
-		{"6298-4", "Potassium [Moles/volume] in Blood", rules.Potassium, "blood", 0, Laboratory},                                    // §8, VSAC
-		{"32713-0", "Potassium [Moles/volume] in Arterial blood", rules.Potassium, "arterial blood", 0, BloodGas},                   // VSAC
-		{"39789-3", "Potassium [Moles/volume] in Venous blood", rules.Potassium, "venous blood", 0, BloodGas},                       // VSAC
-		{"41656-0", "Potassium [Moles/volume] in Mixed venous blood", rules.Potassium, "mixed venous blood", 0, BloodGas},           // VSAC
-		{"77142-8", "Potassium [Moles/volume] in Serum, Plasma or Blood", rules.Potassium, "serum, plasma or blood", 0, Laboratory}, // VSAC
+		{"2823-3", "Potassium [Moles/volume] in Serum or Plasma", rules.Potassium, "serum or plasma", 0, rules.Laboratory},                // §8, VSAC
+		{"6298-4", "Potassium [Moles/volume] in Blood", rules.Potassium, "blood", 0, rules.Laboratory},                                    // §8, VSAC
+		{"32713-0", "Potassium [Moles/volume] in Arterial blood", rules.Potassium, "arterial blood", 0, rules.BloodGas},                   // VSAC
+		{"39789-3", "Potassium [Moles/volume] in Venous blood", rules.Potassium, "venous blood", 0, rules.BloodGas},                       // VSAC
+		{"41656-0", "Potassium [Moles/volume] in Mixed venous blood", rules.Potassium, "mixed venous blood", 0, rules.BloodGas},           // VSAC
+		{"77142-8", "Potassium [Moles/volume] in Serum, Plasma or Blood", rules.Potassium, "serum, plasma or blood", 0, rules.Laboratory}, // VSAC
 
-		{"2345-7", "Glucose [Mass/volume] in Serum or Plasma", rules.Glucose, "serum or plasma", 180.156, Laboratory},                  // §8, VSAC; IUPAC 2021
-		{"14749-6", "Glucose [Moles/volume] in Serum or Plasma", rules.Glucose, "serum or plasma", 180.156, Laboratory},                // §8, VSAC
-		{"2339-0", "Glucose [Mass/volume] in Blood", rules.Glucose, "blood", 180.156, Laboratory},                                      // §8, VSAC
-		{"15074-8", "Glucose [Moles/volume] in Blood", rules.Glucose, "blood", 180.156, Laboratory},                                    // §8, VSAC
-		{"74774-1", "Glucose [Mass/volume] in Serum, Plasma or Blood", rules.Glucose, "serum, plasma or blood", 180.156, Laboratory},   // VSAC
-		{"77135-2", "Glucose [Moles/volume] in Serum, Plasma or Blood", rules.Glucose, "serum, plasma or blood", 180.156, Laboratory},  // VSAC
-		{"41651-1", "Glucose [Mass/volume] in Arterial blood", rules.Glucose, "arterial blood", 180.156, BloodGas},                     // VSAC
-		{"39481-7", "Glucose [Moles/volume] in Arterial blood", rules.Glucose, "arterial blood", 180.156, BloodGas},                    // VSAC
-		{"41652-9", "Glucose [Mass/volume] in Venous blood", rules.Glucose, "venous blood", 180.156, BloodGas},                         // VSAC
-		{"39480-9", "Glucose [Moles/volume] in Venous blood", rules.Glucose, "venous blood", 180.156, BloodGas},                        // VSAC
-		{"104655-6", "Glucose [Mass/volume] in Mixed venous blood", rules.Glucose, "mixed venous blood", 180.156, BloodGas},            // VSAC
-		{"100746-7", "Glucose [Moles/volume] in Mixed venous blood", rules.Glucose, "mixed venous blood", 180.156, BloodGas},           // VSAC
-		{"32016-8", "Glucose [Mass/volume] in Capillary blood", rules.Glucose, "capillary blood", 180.156, Laboratory},                 // VSAC; no method in the name
-		{"51596-5", "Glucose [Moles/volume] in Capillary blood", rules.Glucose, "capillary blood", 180.156, Laboratory},                // VSAC; no method in the name
-		{"41653-7", "Glucose [Mass/volume] in Capillary blood by Glucometer", rules.Glucose, "capillary blood", 180.156, PointOfCare},  // VSAC
-		{"14743-9", "Glucose [Moles/volume] in Capillary blood by Glucometer", rules.Glucose, "capillary blood", 180.156, PointOfCare}, // VSAC
-		{"104597-0", "Glucose [Mass/volume] in Venous blood by Glucometer", rules.Glucose, "venous blood", 180.156, PointOfCare},       // VSAC
-		{"104598-8", "Glucose [Mass/volume] in Arterial blood by Glucometer", rules.Glucose, "arterial blood", 180.156, PointOfCare},   // VSAC
-		{"2340-8", "Glucose [Mass/volume] in Blood by Automated test strip", rules.Glucose, "blood", 180.156, PointOfCare},             // VSAC
-		{"72516-8", "Glucose [Moles/volume] in Blood by Automated test strip", rules.Glucose, "blood", 180.156, PointOfCare},           // VSAC
-		{"2341-6", "Glucose [Mass/volume] in Blood by Test strip manual", rules.Glucose, "blood", 180.156, PointOfCare},                // VSAC
+		{"2345-7", "Glucose [Mass/volume] in Serum or Plasma", rules.Glucose, "serum or plasma", 180.156, rules.Laboratory},                  // §8, VSAC; IUPAC 2021
+		{"14749-6", "Glucose [Moles/volume] in Serum or Plasma", rules.Glucose, "serum or plasma", 180.156, rules.Laboratory},                // §8, VSAC
+		{"2339-0", "Glucose [Mass/volume] in Blood", rules.Glucose, "blood", 180.156, rules.Laboratory},                                      // §8, VSAC
+		{"15074-8", "Glucose [Moles/volume] in Blood", rules.Glucose, "blood", 180.156, rules.Laboratory},                                    // §8, VSAC
+		{"74774-1", "Glucose [Mass/volume] in Serum, Plasma or Blood", rules.Glucose, "serum, plasma or blood", 180.156, rules.Laboratory},   // VSAC
+		{"77135-2", "Glucose [Moles/volume] in Serum, Plasma or Blood", rules.Glucose, "serum, plasma or blood", 180.156, rules.Laboratory},  // VSAC
+		{"41651-1", "Glucose [Mass/volume] in Arterial blood", rules.Glucose, "arterial blood", 180.156, rules.BloodGas},                     // VSAC
+		{"39481-7", "Glucose [Moles/volume] in Arterial blood", rules.Glucose, "arterial blood", 180.156, rules.BloodGas},                    // VSAC
+		{"41652-9", "Glucose [Mass/volume] in Venous blood", rules.Glucose, "venous blood", 180.156, rules.BloodGas},                         // VSAC
+		{"39480-9", "Glucose [Moles/volume] in Venous blood", rules.Glucose, "venous blood", 180.156, rules.BloodGas},                        // VSAC
+		{"104655-6", "Glucose [Mass/volume] in Mixed venous blood", rules.Glucose, "mixed venous blood", 180.156, rules.BloodGas},            // VSAC
+		{"100746-7", "Glucose [Moles/volume] in Mixed venous blood", rules.Glucose, "mixed venous blood", 180.156, rules.BloodGas},           // VSAC
+		{"32016-8", "Glucose [Mass/volume] in Capillary blood", rules.Glucose, "capillary blood", 180.156, rules.Laboratory},                 // VSAC; no method in the name
+		{"51596-5", "Glucose [Moles/volume] in Capillary blood", rules.Glucose, "capillary blood", 180.156, rules.Laboratory},                // VSAC; no method in the name
+		{"41653-7", "Glucose [Mass/volume] in Capillary blood by Glucometer", rules.Glucose, "capillary blood", 180.156, rules.PointOfCare},  // VSAC
+		{"14743-9", "Glucose [Moles/volume] in Capillary blood by Glucometer", rules.Glucose, "capillary blood", 180.156, rules.PointOfCare}, // VSAC
+		{"104597-0", "Glucose [Mass/volume] in Venous blood by Glucometer", rules.Glucose, "venous blood", 180.156, rules.PointOfCare},       // VSAC
+		{"104598-8", "Glucose [Mass/volume] in Arterial blood by Glucometer", rules.Glucose, "arterial blood", 180.156, rules.PointOfCare},   // VSAC
+		{"2340-8", "Glucose [Mass/volume] in Blood by Automated test strip", rules.Glucose, "blood", 180.156, rules.PointOfCare},             // VSAC
+		{"72516-8", "Glucose [Moles/volume] in Blood by Automated test strip", rules.Glucose, "blood", 180.156, rules.PointOfCare},           // VSAC
+		{"2341-6", "Glucose [Mass/volume] in Blood by Test strip manual", rules.Glucose, "blood", 180.156, rules.PointOfCare},                // VSAC
 
-		{"3094-0", "Urea nitrogen [Mass/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 28.014, Laboratory},    // §8, VSAC; 2 N, IUPAC 2021
-		{"14937-7", "Urea nitrogen [Moles/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 28.014, Laboratory},  // §8, VSAC
-		{"6299-2", "Urea nitrogen [Mass/volume] in Blood", rules.Urea, "blood", 28.014, Laboratory},                        // VSAC
-		{"59570-2", "Urea nitrogen [Moles/volume] in Blood", rules.Urea, "blood", 28.014, Laboratory},                      // VSAC
-		{"12961-9", "Urea nitrogen [Mass/volume] in Arterial blood", rules.Urea, "arterial blood", 28.014, BloodGas},       // VSAC
-		{"12962-7", "Urea nitrogen [Mass/volume] in Venous blood", rules.Urea, "venous blood", 28.014, BloodGas},           // VSAC
-		{"12963-5", "Urea nitrogen [Mass/volume] in Peripheral blood", rules.Urea, "peripheral blood", 28.014, Laboratory}, // VSAC
-		{"3091-6", "Urea [Mass/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 60.056, Laboratory},             // §8; CH4N2O, IUPAC 2021
-		{"22664-7", "Urea [Moles/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 60.056, Laboratory},           // §8
-		{"20977-5", "Urea [Mass/volume] in Blood", rules.Urea, "blood", 60.056, Laboratory},                                // SSIDL
+		{"3094-0", "Urea nitrogen [Mass/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 28.014, rules.Laboratory},    // §8, VSAC; 2 N, IUPAC 2021
+		{"14937-7", "Urea nitrogen [Moles/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 28.014, rules.Laboratory},  // §8, VSAC
+		{"6299-2", "Urea nitrogen [Mass/volume] in Blood", rules.Urea, "blood", 28.014, rules.Laboratory},                        // VSAC
+		{"59570-2", "Urea nitrogen [Moles/volume] in Blood", rules.Urea, "blood", 28.014, rules.Laboratory},                      // VSAC
+		{"12961-9", "Urea nitrogen [Mass/volume] in Arterial blood", rules.Urea, "arterial blood", 28.014, rules.BloodGas},       // VSAC
+		{"12962-7", "Urea nitrogen [Mass/volume] in Venous blood", rules.Urea, "venous blood", 28.014, rules.BloodGas},           // VSAC
+		{"12963-5", "Urea nitrogen [Mass/volume] in Peripheral blood", rules.Urea, "peripheral blood", 28.014, rules.Laboratory}, // VSAC
+		{"3091-6", "Urea [Mass/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 60.056, rules.Laboratory},             // §8; CH4N2O, IUPAC 2021
+		{"22664-7", "Urea [Moles/volume] in Serum or Plasma", rules.Urea, "serum or plasma", 60.056, rules.Laboratory},           // §8
+		{"20977-5", "Urea [Mass/volume] in Blood", rules.Urea, "blood", 60.056, rules.Laboratory},                                // SSIDL
 
-		{"2160-0", "Creatinine [Mass/volume] in Serum or Plasma", rules.Creatinine, "serum or plasma", 113.120, Laboratory},                 // §8, VSAC; IUPAC 2021
-		{"14682-9", "Creatinine [Moles/volume] in Serum or Plasma", rules.Creatinine, "serum or plasma", 113.120, Laboratory},               // §8, VSAC
-		{"38483-4", "Creatinine [Mass/volume] in Blood", rules.Creatinine, "blood", 113.120, Laboratory},                                    // VSAC
-		{"59826-8", "Creatinine [Moles/volume] in Blood", rules.Creatinine, "blood", 113.120, Laboratory},                                   // VSAC
-		{"77140-2", "Creatinine [Moles/volume] in Serum, Plasma or Blood", rules.Creatinine, "serum, plasma or blood", 113.120, Laboratory}, // VSAC
-		{"21232-4", "Creatinine [Mass/volume] in Arterial blood", rules.Creatinine, "arterial blood", 113.120, BloodGas},                    // VSAC
-		{"101475-2", "Creatinine [Moles/volume] in Venous blood", rules.Creatinine, "venous blood", 113.120, BloodGas},                      // VSAC
+		{"2160-0", "Creatinine [Mass/volume] in Serum or Plasma", rules.Creatinine, "serum or plasma", 113.120, rules.Laboratory},                 // §8, VSAC; IUPAC 2021
+		{"14682-9", "Creatinine [Moles/volume] in Serum or Plasma", rules.Creatinine, "serum or plasma", 113.120, rules.Laboratory},               // §8, VSAC
+		{"38483-4", "Creatinine [Mass/volume] in Blood", rules.Creatinine, "blood", 113.120, rules.Laboratory},                                    // VSAC
+		{"59826-8", "Creatinine [Moles/volume] in Blood", rules.Creatinine, "blood", 113.120, rules.Laboratory},                                   // VSAC
+		{"77140-2", "Creatinine [Moles/volume] in Serum, Plasma or Blood", rules.Creatinine, "serum, plasma or blood", 113.120, rules.Laboratory}, // VSAC
+		{"21232-4", "Creatinine [Mass/volume] in Arterial blood", rules.Creatinine, "arterial blood", 113.120, rules.BloodGas},                    // VSAC
+		{"101475-2", "Creatinine [Moles/volume] in Venous blood", rules.Creatinine, "venous blood", 113.120, rules.BloodGas},                      // VSAC
 
-		{"2692-2", "Osmolality of Serum or Plasma", rules.SerumOsmolality, "serum or plasma", 0, Laboratory}, // §8
-		{"2695-5", "Osmolality of Urine", rules.UrineOsmolality, "urine", 0, Laboratory},                     // §8
-		{"2955-3", "Sodium [Moles/volume] in Urine", rules.UrineSodium, "urine", 0, Laboratory},              // §8
-		{"2828-2", "Potassium [Moles/volume] in Urine", rules.UrinePotassium, "urine", 0, Laboratory},        // §8
-		{"29463-7", "Body weight", rules.BodyWeight, "", 0, ""},                                              // §8
-		{"8302-2", "Body height", rules.BodyHeight, "", 0, ""},                                               // §8
+		{"2692-2", "Osmolality of Serum or Plasma", rules.SerumOsmolality, "serum or plasma", 0, rules.Laboratory}, // §8
+		{"2695-5", "Osmolality of Urine", rules.UrineOsmolality, "urine", 0, rules.Laboratory},                     // §8
+		{"2955-3", "Sodium [Moles/volume] in Urine", rules.UrineSodium, "urine", 0, rules.Laboratory},              // §8
+		{"2828-2", "Potassium [Moles/volume] in Urine", rules.UrinePotassium, "urine", 0, rules.Laboratory},        // §8
+		{"29463-7", "Body weight", rules.BodyWeight, "", 0, ""},                                                    // §8
+		{"8302-2", "Body height", rules.BodyHeight, "", 0, ""},                                                     // §8
 	}
 	seen := map[string]bool{}
 	for _, tt := range tests {
@@ -94,8 +94,8 @@ func TestLOINCTable(t *testing.T) {
 			if m.display == "" || m.display != tt.display {
 				t.Errorf("display %q, want %q", m.display, tt.display)
 			}
-			if m.analyte != tt.analyte || m.specimen != tt.specimen || m.source != tt.source {
-				t.Errorf("got %s/%q/%q, want %s/%q/%q", m.analyte, m.specimen, m.source, tt.analyte, tt.specimen, tt.source)
+			if m.analyte != tt.analyte || m.specimen != tt.specimen || m.origin != tt.origin {
+				t.Errorf("got %s/%q/%q, want %s/%q/%q", m.analyte, m.specimen, m.origin, tt.analyte, tt.specimen, tt.origin)
 			}
 			if !near(m.molarMass, tt.molarMass, 0.001) {
 				t.Errorf("molar mass %.3f, want %.3f", m.molarMass, tt.molarMass)

@@ -38,7 +38,6 @@ type mapper struct {
 	in    Input
 	rs    *rules.Ruleset
 	facts rules.Facts
-	seen  map[seriesKey]string
 	refs  *References
 	// medications indexes Medication resources by "Medication/id".
 	medications map[string]Resource
@@ -57,7 +56,6 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 		in:              in,
 		rs:              rs,
 		facts:           rules.Facts{At: in.At, Labs: map[rules.Analyte][]rules.Measurement{}},
-		seen:            map[seriesKey]string{},
 		medications:     map[string]Resource{},
 		readMedications: map[string]readMedication{},
 		unused:          map[[2]string]int{},
@@ -126,11 +124,24 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 		// A note, not a rejection: nothing is wrong with such a result.
 		m.note("%d × Observation %s", unreadCodes, noteUnreadCode)
 	}
-	for a, s := range m.facts.Labs {
-		sort.SliceStable(s, func(i, j int) bool { return s[i].At.Before(s[j].At) })
-		m.facts.Labs[a] = s
-	}
+	m.resolveSameTime()
 	return m.facts
+}
+
+// resolveSameTime orders each series by time and settles results taken at
+// the same time with differing values, by the policy (rules.SameTimePolicy).
+func (m *mapper) resolveSameTime() {
+	for _, a := range rules.Analytes() {
+		s := m.facts.Labs[a]
+		if len(s) == 0 {
+			continue
+		}
+		sort.SliceStable(s, func(i, j int) bool { return s[i].At.Before(s[j].At) })
+		kept, rejected, notes := rules.ResolveSameTime(s, m.rs.Policy().SameTime)
+		m.facts.Labs[a] = kept
+		m.facts.Rejected = append(m.facts.Rejected, rejected...)
+		m.facts.Notes = append(m.facts.Notes, notes...)
+	}
 }
 
 // noteUnreadCode ends the note counting Observations whose code halite

@@ -261,6 +261,13 @@ func TestMapSecondCodingRecognised(t *testing.T) {
 	}
 }
 
+// tiedNa is the rejection of sodium result loser, tied with stand.
+func tiedNa(loser, stand, values string) rules.Rejection {
+	return rules.Rejection{Source: "Observation/" + loser, Analyte: rules.Sodium, Reason: "differs from Observation/" + stand +
+		" at the same time (" + values + " mmol/L) and neither ranks higher; Observation/" + stand +
+		" stands for both, and each figure counts the value on its safer side"}
+}
+
 func TestMapDuplicates(t *testing.T) {
 	a := obsSpec{id: "a", effective: dt("2026-11-20T02:00:00Z"), value: vq("128", "mmol/L")}.raw()
 	// Same instant as a (03:00+01:00 = 02:00Z) and the same value, 128 meq/L = 128 mmol/L (UCUM).
@@ -282,8 +289,10 @@ func TestMapDuplicates(t *testing.T) {
 		{"reversed", []json.RawMessage{b, a}, []string{"Observation/b"},
 			[]rules.Rejection{{Source: "Observation/a", Analyte: rules.Sodium, Reason: "duplicate of Observation/b"}}},
 		{"same resource twice is read once", []json.RawMessage{a, a}, []string{"Observation/a"}, nil},
-		{"same resource in overlapping searches", []json.RawMessage{a, c, a, c}, []string{"Observation/a", "Observation/c"}, nil},
-		{"different value", []json.RawMessage{a, c}, []string{"Observation/a", "Observation/c"}, nil},
+		// A different value at the same time is a conflict, not a change
+		// (rules.SameTimePolicy): 128 stands, being farther from 140.
+		{"same resource in overlapping searches", []json.RawMessage{a, c, a, c}, []string{"Observation/a"}, []rules.Rejection{tiedNa("c", "a", "129 vs 128")}},
+		{"different value", []json.RawMessage{c, a}, []string{"Observation/a"}, []rules.Rejection{tiedNa("c", "a", "129 vs 128")}},
 		{"other analyte", []json.RawMessage{a, d}, []string{"Observation/a"}, nil},
 	}
 	for _, tt := range tests {

@@ -29,6 +29,7 @@ type observationFields struct {
 	EffectiveDateTime *string                 `json:"effectiveDateTime"`
 	EffectivePeriod   *fhir.Period            `json:"effectivePeriod"`
 	EffectiveInstant  *string                 `json:"effectiveInstant"`
+	Issued            *string                 `json:"issued"`
 	ValueQuantity     *fhir.Quantity          `json:"valueQuantity"`
 }
 
@@ -93,12 +94,6 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, why)
 		return
 	}
-	key := seriesKey{a, at.Unix(), at.Nanosecond(), cv}
-	if first, dup := m.seen[key]; dup {
-		m.reject(r, a, "duplicate of "+first)
-		return
-	}
-	m.seen[key] = r.Ref()
 	m.facts.Labs[a] = append(m.facts.Labs[a], rules.Measurement{
 		Analyte:  a,
 		Value:    cv,
@@ -107,7 +102,23 @@ func (m *mapper) observation(r Resource) {
 		Code:     code,
 		Specimen: meas.specimen,
 		Original: q.Value.String() + " " + unit,
+		Origin:   meas.origin,
+		Status:   obs.Status.Code(),
+		Issued:   issuedTime(obs.Issued),
 	})
+}
+
+// issuedTime is Observation.issued, or nil when it is absent or not a
+// full date and time (it only ranks results taken at one time).
+func issuedTime(s *string) *time.Time {
+	if s == nil {
+		return nil
+	}
+	t, hasTime, err := ParseDateTime(*s)
+	if err != nil || !hasTime {
+		return nil
+	}
+	return &t
 }
 
 // observationStatusAndCode is the part of an Observation read again when
@@ -142,15 +153,6 @@ func (m *mapper) unreadableObservation(r Resource, decodeErr error) {
 		return
 	}
 	m.reject(r, meas.analyte, "invalid resource: "+decodeErr.Error())
-}
-
-// seriesKey identifies a result for de-duplication: the same analyte, time
-// and canonical value reported twice is one result.
-type seriesKey struct {
-	analyte rules.Analyte
-	unix    int64
-	nanos   int
-	value   float64
 }
 
 func recognise(cc fhir.CodeableConcept) (string, measure, bool) {

@@ -364,6 +364,7 @@ func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, rene
 	case c.latest != nil:
 		line("Latest sodium: %s mmol/L (%s, %s h ago, %s)", show(Sodium, c.latest.Value), stamp(c.latest.At),
 			hoursSince.of(c.at.Sub(c.latest.At).Hours()), c.latest.Source)
+		b.WriteString(sameTimeLine(*c.latest))
 	case c.last != nil:
 		line("No sodium from the last %s days; the last, %s mmol/L, is %s days old (%s)", orderHours.of(p.SodiumMaxAgeHours/24),
 			show(Sodium, c.last.Value), daysSince.of(c.lastAgeHours()/24), stamp(c.last.At))

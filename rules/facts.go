@@ -61,6 +61,13 @@ type Measurement struct {
 	Specimen string // "serum or plasma", "blood", "arterial blood", "urine", …
 	// Original is the value and unit as sent, e.g. "136 meq/L", for audit.
 	Original string
+	Origin   Origin     // laboratory, blood gas or point of care
+	Status   string     // the result's status: final, amended or corrected
+	Issued   *time.Time // when the result was released, if stated
+	// SameTime, when not nil, holds the results of the analyte taken at the
+	// same time with other values, and why this one counts (see
+	// SameTimePolicy).
+	SameTime *Conflict
 }
 
 // Rejection records a resource that was read but not used, and why.

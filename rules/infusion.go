@@ -208,6 +208,7 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	b.WriteString("**Figures**\n\n")
 	if a.Latest != nil {
 		line("Latest sodium: %s mmol/L (%s, %s)", show(Sodium, a.Latest.Value), stamp(a.Latest.At), a.Latest.Source)
+		b.WriteString(sameTimeLine(*a.Latest))
 	}
 	if w := a.Trend.Window24h; w != nil {
 		if a.Hypernatremia {
@@ -255,6 +256,7 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	if a.Weight != nil && a.TBWLitres != nil {
 		line("Total body water: %s L, %s of %s kg weighed %s%s", bodyWater.of(*a.TBWLitres), a.TBWMethod, show(BodyWeight, a.Weight.Value),
 			stamp(a.Weight.At), asSent(*a.Weight))
+		b.WriteString(sameTimeLine(*a.Weight))
 	}
 	c := a.Composition
 	line("Infusate: sodium %s + potassium %s mmol/L, from %s (%s)", infusateNa.of(c.Na), infusateNa.of(c.K), c.Basis, c.Source)
@@ -354,5 +356,6 @@ func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
 	}
 	for _, m := range c.Inputs {
 		fmt.Fprintf(b, "- Used: %s %s %s (%s, %s)%s\n", m.Analyte, show(m.Analyte, m.Value), CanonicalUnit(m.Analyte), stamp(m.At), m.Source, asSent(m))
+		b.WriteString(sameTimeLine(m))
 	}
 }

@@ -249,14 +249,11 @@ func TestAnalyseSodium(t *testing.T) {
 	if !near(straddle.Window24h.RiseFromNadir, 9.5*23/24, 1e-9) {
 		t.Errorf("straddling rise %v, want %v", straddle.Window24h.RiseFromNadir, 9.5*23/24)
 	}
-	if tr.HourlyRate == nil || *tr.HourlyRate != 0.5 { // (123 − 121)/4 h
-		t.Errorf("hourly rate %v, want 0.5", tr.HourlyRate)
-	}
 	falling := AnalyseSodium([]Measurement{m(20, 161), m(10, 156), m(1, 150)}, at)
 	if falling.Window24h.FallFromPeak != 11 || falling.Window24h.RiseFromNadir != 0 {
 		t.Errorf("falling: %+v", falling.Window24h)
 	}
-	if empty := AnalyseSodium([]Measurement{m(72, 120)}, at); empty.Window24h != nil || empty.Window48h != nil || empty.HourlyRate != nil {
+	if empty := AnalyseSodium([]Measurement{m(72, 120)}, at); empty.Window24h != nil || empty.Window48h != nil {
 		t.Errorf("a value outside both windows must leave them empty: %+v", empty)
 	}
 }

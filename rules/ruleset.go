@@ -94,6 +94,7 @@ type Policy struct {
 	ChartReview       ChartReviewPolicy       `json:"chartReview"`
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
+	SameTime          SameTimePolicy          `json:"sameTime"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -168,6 +169,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.ChartReview.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.SameTime.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	for _, a := range Analytes() {

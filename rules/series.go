@@ -8,8 +8,13 @@ type SodiumWindow struct {
 	Hours int
 	// Nadir and Peak are the lowest and highest values in the window, and
 	// Latest the last; RiseFromNadir = Latest − Nadir and FallFromPeak =
-	// Peak − Latest, each ≥ 0.
+	// Peak − Latest, each ≥ 0. Where results at one time are tied (see
+	// SameTimePolicy), each figure counts the value on its safer side: the
+	// nadir and the latest of a fall at their lowest, the peak and the
+	// latest of a rise at their highest. RiseTo and FallTo are then the
+	// values the rise and the fall were measured to; else both are Latest.
 	Nadir, Peak, Latest Measurement
+	RiseTo, FallTo      Measurement
 	RiseFromNadir       float64
 	FallFromPeak        float64
 	Used                []Measurement // the values used, oldest first
@@ -22,15 +27,12 @@ type SodiumWindow struct {
 // SodiumTrend is the analysis of a sodium series at a time.
 type SodiumTrend struct {
 	Window24h, Window48h *SodiumWindow // nil when the window holds no value
-	// HourlyRate is (last − previous)/hours between the last two values in
-	// the 48-h window; nil with fewer than two.
-	HourlyRate *float64
 }
 
 // AnalyseSodium measures the change already achieved: rise from the nadir
 // and fall from the peak in the trailing 24-h and 48-h windows ending at at
 // (rolling windows, as the US panel applies its limits "in any 24-h period":
-// Verbalis JG et al., Am J Med 2013;126:S1–S42), and the latest hourly rate.
+// Verbalis JG et al., Am J Med 2013;126:S1–S42).
 // A value before a window (by no more than the window's length) gives, by
 // linear interpolation, the value at the window's start, so a change that
 // straddles the start is not missed.
@@ -39,28 +41,13 @@ func AnalyseSodium(series []Measurement, at time.Time) SodiumTrend {
 	var t SodiumTrend
 	t.Window24h = window(series, at, 24)
 	t.Window48h = window(series, at, 48)
-	if w := t.Window48h; w != nil && len(w.Used) >= 2 {
-		a, b := w.Used[len(w.Used)-2], w.Used[len(w.Used)-1]
-		if h := b.At.Sub(a.At).Hours(); h > 0 {
-			r := (b.Value - a.Value) / h
-			t.HourlyRate = &r
-		}
-	}
 	return t
 }
 
 func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	from := at.Add(-time.Duration(hours) * time.Hour)
 	w := &SodiumWindow{Hours: hours}
-	consider := func(m Measurement) {
-		if len(w.Used) == 0 || m.Value < w.Nadir.Value {
-			w.Nadir = m
-		}
-		if len(w.Used) == 0 || m.Value > w.Peak.Value {
-			w.Peak = m
-		}
-		w.Used = append(w.Used, m)
-	}
+	consider := func(m Measurement) { w.Used = append(w.Used, m) }
 	// A change that began before the window and went on inside it is
 	// counted from the window's start: the value there is interpolated
 	// linearly between the last value before the window and the first
@@ -99,8 +86,24 @@ func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	if inside == 0 {
 		return nil
 	}
-	w.Latest = w.Used[len(w.Used)-1]
-	w.RiseFromNadir = w.Latest.Value - w.Nadir.Value
-	w.FallFromPeak = w.Peak.Value - w.Latest.Value
+	last := len(w.Used) - 1
+	w.Latest, w.RiseTo, w.FallTo = w.Used[last], w.Used[last].Highest(), w.Used[last].Lowest()
+	// The rise: every earlier value at its lowest, the latest at its
+	// highest; the fall the other way round. Without ties both are the
+	// plain nadir and peak.
+	for i, m := range w.Used {
+		lo, hi := m.Lowest(), m.Highest()
+		if i == last {
+			lo, hi = w.RiseTo, w.FallTo
+		}
+		if i == 0 || lo.Value < w.Nadir.Value {
+			w.Nadir = lo
+		}
+		if i == 0 || hi.Value > w.Peak.Value {
+			w.Peak = hi
+		}
+	}
+	w.RiseFromNadir = w.RiseTo.Value - w.Nadir.Value
+	w.FallFromPeak = w.Peak.Value - w.FallTo.Value
 	return w
 }

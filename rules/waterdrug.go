@@ -154,6 +154,7 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		}
 		if haveNa {
 			fmt.Fprintf(&b, "- Latest sodium: %s mmol/L (%s, %s)\n", show(Sodium, latest.Value), stamp(latest.At), latest.Source)
+			b.WriteString(sameTimeLine(latest))
 		} else {
 			fmt.Fprintf(&b, "- No serum sodium from the last %g h\n", p.Projection.SodiumMaxAgeHours)
 		}

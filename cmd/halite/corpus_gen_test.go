@@ -25,6 +25,11 @@ type corpusPatient struct {
 	// eval prints ("sodium", "glucose", "urea", "creatinine", "body-weight").
 	obs  map[string]string
 	dups int // Observations repeated at the same time with the same value
+	// conflicts counts results given a second, different value at the same
+	// time: a blood-gas sodium 7 mmol/L above the laboratory's (the
+	// laboratory's counts), or on seeded patients a second laboratory
+	// sodium 7 above (a tie: the lower, farther from 140, stands).
+	conflicts int
 	// named counts the resources that name the patient (subject); active
 	// the active MedicationRequests.
 	named, active int
@@ -187,8 +192,8 @@ func generatePatient(rng *rand.Rand, i int, at time.Time) (corpusPatient, error)
 		p.obs["Observation/"+id] = analyte
 		return res
 	}
-	// duplicate repeats res under a new id with the same time and value.
-	duplicate := func(res map[string]any, analyte string) {
+	// repeat copies res under a new id, naming the patient again.
+	repeat := func(res map[string]any) (string, map[string]any) {
 		id := g.uuid()
 		c := map[string]any{}
 		for k, v := range res {
@@ -196,9 +201,26 @@ func generatePatient(rng *rand.Rand, i int, at time.Time) (corpusPatient, error)
 		}
 		c["id"] = id
 		c["subject"] = patientRef()
+		return id, c
+	}
+	// duplicate repeats res under a new id with the same time and value.
+	duplicate := func(res map[string]any, analyte string) {
+		id, c := repeat(res)
 		g.add(id, c)
 		p.obs["Observation/"+id] = analyte
 		p.dups++
+	}
+	// differing repeats a sodium res at the same time with value and code.
+	differing := func(res map[string]any, code, display string, value float64) {
+		id, c := repeat(res)
+		c["code"] = map[string]any{
+			"coding": []any{map[string]any{"system": loincSys, "code": code, "display": display}},
+			"text":   display,
+		}
+		c["valueQuantity"] = map[string]any{"value": value, "unit": "mmol/L", "system": ucumSys, "code": "mmol/L"}
+		g.add(id, c)
+		p.obs["Observation/"+id] = "sodium"
+		p.conflicts++
 	}
 	// noisy adds generator floating-point noise to one value in four.
 	noisy := func(v float64) float64 {
@@ -233,6 +255,12 @@ func generatePatient(rng *rand.Rand, i int, at time.Time) (corpusPatient, error)
 	}
 	if i%7 == 2 {
 		duplicate(lastNa, "sodium")
+	}
+	switch {
+	case i%8 == 0 && p.seeded:
+		differing(lastNa, "2951-2", "Sodium [Moles/volume] in Serum or Plasma", p.latestSodium+7)
+	case i%8 == 3:
+		differing(lastNa, "39791-9", "Sodium [Moles/volume] in Venous blood", p.latestSodium+7)
 	}
 	for k := range 1 + g.rng.IntN(2) {
 		res := obs("glucose", "2345-7", "Glucose [Mass/volume] in Serum or Plasma", "mg/dL",

@@ -130,7 +130,7 @@ func TestSyntheticCorpus(t *testing.T) {
 	for i := range patients {
 		for _, hook := range []string{hooks.HookOrderSign, hooks.HookPatientView} {
 			jobs = append(jobs, job{i: i, hook: hook})
-			if i%20 == 0 && !testing.Short() {
+			if (i%20 == 0 || i%40 == 3) && !testing.Short() {
 				jobs = append(jobs, job{i: i, hook: hook, text: true})
 			}
 		}
@@ -230,6 +230,9 @@ func TestSyntheticCorpus(t *testing.T) {
 				if !strings.Contains(c.Summary, "(new start)") || !strings.Contains(c.Summary, wantNa) {
 					t.Errorf("%s: card summary %q, want a new start and %q", name, c.Summary, wantNa)
 				}
+				if p.conflicts > 0 && !strings.Contains(c.Detail, "Results taken at the same time differ") {
+					t.Errorf("%s: the latest sodium has a differing result at its time; the card does not say so:\n%s", name, c.Detail)
+				}
 				if c.Indicator != "warning" && c.Indicator != "critical" {
 					t.Errorf("%s: card indicator %q at sodium %g, want warning or critical", name, c.Indicator, p.latestSodium)
 				}
@@ -307,6 +310,11 @@ func checkCorpusReport(t *testing.T, name string, p corpusPatient, hook, report 
 	}
 	if hook != hooks.HookPatientView {
 		return
+	}
+	// Each differing result at one time is named in a note, with the value
+	// that counts (rules.SameTimePolicy).
+	if got := strings.Count(report, "sodium results taken at the same time"); got != p.conflicts {
+		t.Errorf("%s: %d same-time sodium conflicts generated, the report names %d:\n%s", name, p.conflicts, got, report)
 	}
 	generated := map[string]int{}
 	for _, a := range p.obs {
