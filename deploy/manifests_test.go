@@ -360,6 +360,7 @@ type haliteConfig struct {
 	ListenAddr     string `yaml:"listen_addr"`
 	AdminAddr      string `yaml:"admin_listen_addr"`
 	PolicyOverride string `yaml:"policy_override"`
+	LabCodes       string `yaml:"lab_codes"`
 	Store          struct {
 		HashKeyFile string `yaml:"hash_key_file"`
 	} `yaml:"store"`
@@ -475,7 +476,7 @@ func TestConfigFitsDeployment(t *testing.T) {
 			}
 			pod := r.deployments[0].Spec.Template.Spec
 			c := pod.Containers[0]
-			files := map[string]string{"store.hash_key_file": cfg.Store.HashKeyFile, "policy_override": cfg.PolicyOverride}
+			files := map[string]string{"store.hash_key_file": cfg.Store.HashKeyFile, "policy_override": cfg.PolicyOverride, "lab_codes": cfg.LabCodes}
 			for i, is := range cfg.Issuers {
 				files[fmt.Sprintf("issuers[%d].jwks_file", i)] = is.JWKSFile
 			}

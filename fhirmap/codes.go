@@ -6,8 +6,6 @@
 package fhirmap
 
 import (
-	"sort"
-
 	"github.com/halite-cds/halite/rules"
 )
 
@@ -124,17 +122,4 @@ var loinc = map[string]measure{
 	"2828-2":  {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", rules.Laboratory},        // §8
 	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                                     // §8
 	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                                     // §8
-}
-
-// LOINCCodes returns the LOINC codes that map to analyte a, sorted, for
-// building search queries.
-func LOINCCodes(a rules.Analyte) []string {
-	var out []string
-	for code, m := range loinc {
-		if m.analyte == a {
-			out = append(out, code)
-		}
-	}
-	sort.Strings(out)
-	return out
 }

@@ -32,11 +32,14 @@ type Input struct {
 	// Selections are order-select's selected references ("MedicationRequest/1");
 	// nil means every draft order is evaluated (order-sign).
 	Selections []string
+	// Codes are the result codes read; nil means the built-in LOINC table.
+	Codes *Codes
 }
 
 type mapper struct {
 	in    Input
 	rs    *rules.Ruleset
+	codes *Codes
 	facts rules.Facts
 	refs  *References
 	// medications indexes Medication resources by "Medication/id".
@@ -55,10 +58,14 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	m := &mapper{
 		in:              in,
 		rs:              rs,
+		codes:           in.Codes,
 		facts:           rules.Facts{At: in.At, Labs: map[rules.Analyte][]rules.Measurement{}},
 		medications:     map[string]Resource{},
 		readMedications: map[string]readMedication{},
 		unused:          map[[2]string]int{},
+	}
+	if m.codes == nil {
+		m.codes = BuiltinCodes()
 	}
 	resources := m.distinct("resources", in.Resources, in.Entries)
 	unreadCodes := 0

@@ -44,7 +44,7 @@ func (m *mapper) observation(r Resource) {
 		m.unreadableObservation(r, err)
 		return
 	}
-	code, meas, known := recognise(obs.Code)
+	code, meas, localUnit, known := recognise(m.codes, obs.Code)
 	if !known {
 		return
 	}
@@ -85,6 +85,9 @@ func (m *mapper) observation(r Resource) {
 		return
 	}
 	unit := ucumUnit(q.System, q.Code, q.Unit)
+	if unit == "" {
+		unit = localUnit // the site declared its code's unit
+	}
 	cv, err := toCanonical(meas, v, unit)
 	if err != nil {
 		m.reject(r, a, err.Error())
@@ -144,7 +147,7 @@ func (m *mapper) unreadableObservation(r Resource, decodeErr error) {
 		m.reject(r, "", "invalid resource: "+err.Error())
 		return
 	}
-	_, meas, known := recognise(head.Code)
+	_, meas, _, known := recognise(m.codes, head.Code)
 	if !known {
 		return
 	}
@@ -155,16 +158,25 @@ func (m *mapper) unreadableObservation(r Resource, decodeErr error) {
 	m.reject(r, meas.analyte, "invalid resource: "+decodeErr.Error())
 }
 
-func recognise(cc fhir.CodeableConcept) (string, measure, bool) {
-	for _, c := range cc.Coding {
-		if str(c.System) != SystemLOINC || c.Code == nil {
-			continue
-		}
-		if m, ok := loinc[*c.Code]; ok {
-			return *c.Code, m, true
+// recognise finds the first coding of cc that codes reads, a LOINC code
+// before a site's local one. It returns the code as Measurement.Code holds
+// it, how it maps, and the unit a result without one is read in.
+func recognise(codes *Codes, cc fhir.CodeableConcept) (string, measure, string, bool) {
+	for _, loincFirst := range []bool{true, false} {
+		for _, c := range cc.Coding {
+			sys := str(c.System)
+			if c.Code == nil || (sys == SystemLOINC) != loincFirst {
+				continue
+			}
+			if m, unit, ok := codes.lookup(sys, *c.Code); ok {
+				if sys == SystemLOINC {
+					return *c.Code, m, unit, true
+				}
+				return sys + "|" + *c.Code, m, unit, true
+			}
 		}
 	}
-	return "", measure{}, false
+	return "", measure{}, "", false
 }
 
 // effectiveTime is the clinically relevant time: effectiveDateTime,

@@ -1,7 +1,6 @@
 package hooks
 
 import (
-	"sort"
 	"strings"
 
 	"github.com/halite-cds/halite/fhirmap"
@@ -60,12 +59,17 @@ func (s Service) Serves(hook string) bool {
 // Registry is the fixed set of services, in discovery order.
 type Registry struct {
 	services []Service
+	codes    *fhirmap.Codes
 }
 
-// NewRegistry returns halite's services.
-func NewRegistry() *Registry {
-	k := prefetchKeys()
-	return &Registry{services: []Service{
+// NewRegistry returns halite's services reading results by codes (nil: the
+// built-in LOINC table); their prefetch queries ask for every such code.
+func NewRegistry(codes *fhirmap.Codes) *Registry {
+	if codes == nil {
+		codes = fhirmap.BuiltinCodes()
+	}
+	k := prefetchKeys(codes)
+	return &Registry{codes: codes, services: []Service{
 		{
 			ID:    "sodium-infusion-check",
 			Hooks: []string{HookOrderSelect, HookOrderSign},
@@ -114,16 +118,9 @@ type keySet struct {
 // syntax of CDS Hooks 2.0 §Prefetch query restrictions: instance reads, a
 // resource reference, token parameters by equality (comma = OR), _sort and
 // _count.
-func prefetchKeys() keySet {
+func prefetchKeys(codes *fhirmap.Codes) keySet {
 	obs := func(analytes ...rules.Analyte) string {
-		var codes []string
-		for _, a := range analytes {
-			for _, c := range fhirmap.LOINCCodes(a) {
-				codes = append(codes, fhirmap.SystemLOINC+"|"+c)
-			}
-		}
-		sort.Strings(codes)
-		return "Observation?patient={{context.patientId}}&code=" + strings.Join(codes, ",") + "&_sort=-date&_count=200"
+		return "Observation?patient={{context.patientId}}&code=" + strings.Join(codes.SearchTokens(analytes...), ",") + "&_sort=-date&_count=200"
 	}
 	return keySet{
 		patient: PrefetchKey{Key: "patient", Template: "Patient/{{context.patientId}}", Required: true,
@@ -145,6 +142,9 @@ func prefetchKeys() keySet {
 			What:     "active conditions"},
 	}
 }
+
+// Codes returns the result codes the services read.
+func (r *Registry) Codes() *fhirmap.Codes { return r.codes }
 
 // Lookup returns the service with id.
 func (r *Registry) Lookup(id string) (Service, bool) {

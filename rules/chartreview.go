@@ -126,7 +126,7 @@ func (c chart) addFigures(fig map[string]float64) {
 // commonLines writes the lines every chart card carries: the sodium series used
 // and the limits.
 func (r *Ruleset) commonLines(b *strings.Builder, c chart) {
-	fmt.Fprintf(b, "- Latest sodium: %s mmol/L (%s, %s)\n", show(Sodium, c.latest.Value), stamp(c.latest.At), c.latest.Source)
+	fmt.Fprintf(b, "- Latest sodium: %s mmol/L (%s%s, %s)\n", show(Sodium, c.latest.Value), measuredBy(*c.latest), stamp(c.latest.At), c.latest.Source)
 	b.WriteString(sameTimeLine(*c.latest))
 	if w := c.trend.Window48h; w != nil {
 		var vals []string

@@ -362,7 +362,7 @@ func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, rene
 	b.WriteString("\n**Patient**\n\n")
 	switch {
 	case c.latest != nil:
-		line("Latest sodium: %s mmol/L (%s, %s h ago, %s)", show(Sodium, c.latest.Value), stamp(c.latest.At),
+		line("Latest sodium: %s mmol/L (%s%s, %s h ago, %s)", show(Sodium, c.latest.Value), measuredBy(*c.latest), stamp(c.latest.At),
 			hoursSince.of(c.at.Sub(c.latest.At).Hours()), c.latest.Source)
 		b.WriteString(sameTimeLine(*c.latest))
 	case c.last != nil:

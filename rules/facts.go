@@ -57,7 +57,7 @@ type Measurement struct {
 	Value    float64
 	At       time.Time
 	Source   string // resource reference, e.g. "Observation/na-1"
-	Code     string // the LOINC code it was recognised by
+	Code     string // the LOINC code it was recognised by, or a site's "system|code"
 	Specimen string // "serum or plasma", "blood", "arterial blood", "urine", …
 	// Original is the value and unit as sent, e.g. "136 meq/L", for audit.
 	Original string

@@ -207,7 +207,7 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	line := func(format string, args ...any) { fmt.Fprintf(&b, "- "+format+"\n", args...) }
 	b.WriteString("**Figures**\n\n")
 	if a.Latest != nil {
-		line("Latest sodium: %s mmol/L (%s, %s)", show(Sodium, a.Latest.Value), stamp(a.Latest.At), a.Latest.Source)
+		line("Latest sodium: %s mmol/L (%s%s, %s)", show(Sodium, a.Latest.Value), measuredBy(*a.Latest), stamp(a.Latest.At), a.Latest.Source)
 		b.WriteString(sameTimeLine(*a.Latest))
 	}
 	if w := a.Trend.Window24h; w != nil {
@@ -355,7 +355,7 @@ func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
 		fmt.Fprintf(b, "- Measured osmolality: %s mOsm/kg\n", show(SerumOsmolality, *c.MeasuredOsmolality))
 	}
 	for _, m := range c.Inputs {
-		fmt.Fprintf(b, "- Used: %s %s %s (%s, %s)%s\n", m.Analyte, show(m.Analyte, m.Value), CanonicalUnit(m.Analyte), stamp(m.At), m.Source, asSent(m))
+		fmt.Fprintf(b, "- Used: %s %s %s (%s%s, %s)%s\n", m.Analyte, show(m.Analyte, m.Value), CanonicalUnit(m.Analyte), measuredBy(m), stamp(m.At), m.Source, asSent(m))
 		b.WriteString(sameTimeLine(m))
 	}
 }

@@ -361,6 +361,15 @@ func conflictNote(m Measurement) string {
 	return fmt.Sprintf("%s results taken at the same time (%s) differ: %s", m.Analyte, stamp(m.At), conflictText(m))
 }
 
+// measuredBy names, for a card, where m was measured when that is not a
+// laboratory: "blood gas, " or "point of care, " (else "").
+func measuredBy(m Measurement) string {
+	if m.Origin == BloodGas || m.Origin == PointOfCare {
+		return string(m.Origin) + ", "
+	}
+	return ""
+}
+
 // sameTimeLine is a card's data line naming the results that differ from m
 // at its time; empty when none do.
 func sameTimeLine(m Measurement) string {

@@ -160,3 +160,31 @@ func TestSameTimePolicyValidation(t *testing.T) {
 		}
 	}
 }
+
+// A card says where the sodium it shows was measured when that is not a
+// laboratory, and names a same-time conflict beside it.
+func TestCardNamesOriginAndConflict(t *testing.T) {
+	rs, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	gas := Measurement{Analyte: Sodium, Value: 123, At: at.Add(-time.Hour), Source: "Observation/gas", Origin: BloodGas, Status: "final"}
+	poc := gas
+	poc.Source, poc.Origin, poc.Value = "Observation/poc", PointOfCare, 127
+	series, _, _ := ResolveSameTime([]Measurement{gas, poc}, rs.Policy().SameTime)
+	f := Facts{At: at, Labs: map[Analyte][]Measurement{Sodium: series}}
+	var details []string
+	for _, fd := range rs.Evaluate(ChartReview, f) {
+		details = append(details, fd.Detail)
+	}
+	all := strings.Join(details, "\n")
+	for _, want := range []string{
+		"Latest sodium: 123 mmol/L (blood gas, 2026-11-20 07:00 UTC, Observation/gas)",
+		"Results taken at the same time differ: 123 mmol/L, blood gas (Observation/gas) and 127 mmol/L, point of care (Observation/poc); 123 is counted (blood gas over point of care)",
+	} {
+		if !strings.Contains(all, want) {
+			t.Errorf("chart review details lack %q:\n%s", want, all)
+		}
+	}
+}

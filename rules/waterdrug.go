@@ -153,7 +153,7 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 			fmt.Fprintf(&b, "- Order: %s (%s), recognised as %s by %s (%s)\n", d.o.Reference, orderText(d.o), drug.Name, d.how, drug.Source)
 		}
 		if haveNa {
-			fmt.Fprintf(&b, "- Latest sodium: %s mmol/L (%s, %s)\n", show(Sodium, latest.Value), stamp(latest.At), latest.Source)
+			fmt.Fprintf(&b, "- Latest sodium: %s mmol/L (%s%s, %s)\n", show(Sodium, latest.Value), measuredBy(latest), stamp(latest.At), latest.Source)
 			b.WriteString(sameTimeLine(latest))
 		} else {
 			fmt.Fprintf(&b, "- No serum sodium from the last %g h\n", p.Projection.SodiumMaxAgeHours)

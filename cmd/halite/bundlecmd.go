@@ -23,6 +23,7 @@ func (s *stringList) Set(v string) error { *s = append(*s, v); return nil }
 type bundleFlags struct {
 	hook, service, user, encounter string
 	selections                     stringList
+	labCodes                       string
 }
 
 func (b *bundleFlags) register(fs *flag.FlagSet) {
@@ -31,6 +32,16 @@ func (b *bundleFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&b.user, "user", "Practitioner/cli-user", "context.userId `reference`")
 	fs.StringVar(&b.encounter, "encounter", "", "context.encounterId: the `id` of the encounter the call is made in (default: none)")
 	fs.Var(&b.selections, "select", "order-select: a draft order `reference` to select, repeatable (default: all drafts)")
+	fs.StringVar(&b.labCodes, "lab-codes", "", "read results also by a site's local laboratory codes in `file` (as lab_codes does for the server)")
+}
+
+// registry returns the services, reading the flags' local lab codes.
+func (b *bundleFlags) registry() (*hooks.Registry, error) {
+	codes, err := loadLabCodes(b.labCodes)
+	if err != nil {
+		return nil, err
+	}
+	return hooks.NewRegistry(codes), nil
 }
 
 // services returns the services to run for the flags.
@@ -131,7 +142,10 @@ func request(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	reg := hooks.NewRegistry()
+	reg, err := bf.registry()
+	if err != nil {
+		return err
+	}
 	svcs, err := bf.services(reg)
 	if err != nil {
 		return err

@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks/fhirclient"
 	"github.com/halite-cds/halite/rules"
 	"go.yaml.in/yaml/v3"
@@ -33,6 +34,9 @@ type Config struct {
 	// PolicyOverride is the path of a site's policy override (JSON shaped
 	// like rules/data/policy.json); empty means the embedded policy.
 	PolicyOverride string `yaml:"policy_override"`
+	// LabCodes is the path of a site's local laboratory codes (JSON, see
+	// fhirmap.ReadLocalCodes); empty means the built-in LOINC table only.
+	LabCodes string `yaml:"lab_codes"`
 	// AdminAddr, when set, serves /metrics on its own listener instead of
 	// the main one.
 	AdminAddr string `yaml:"admin_listen_addr"`
@@ -107,6 +111,7 @@ var envKeys = []struct {
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
+	{"lab_codes", func(c *Config, v string) error { c.LabCodes = v; return nil }},
 	{"admin_listen_addr", func(c *Config, v string) error { c.AdminAddr = v; return nil }},
 	{"admin_pprof", func(c *Config, v string) (err error) { c.AdminPprof, err = strconv.ParseBool(v); return }},
 	{"store.dsn", func(c *Config, v string) error { c.Store.DSN = v; return nil }},
@@ -209,6 +214,23 @@ func loadRuleset(path string) (*rules.Ruleset, error) {
 		return nil, fmt.Errorf("policy_override %s: %w", path, err)
 	}
 	return rs, nil
+}
+
+// loadLabCodes reads a site's local laboratory codes at path, checking every
+// entry (none if path is empty: the built-in LOINC table).
+func loadLabCodes(path string) (*fhirmap.Codes, error) {
+	if path == "" {
+		return fhirmap.BuiltinCodes(), nil
+	}
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("lab_codes: %w", err)
+	}
+	codes, err := fhirmap.ReadLocalCodes(data)
+	if err != nil {
+		return nil, fmt.Errorf("lab_codes %s: %w", path, err)
+	}
+	return codes, nil
 }
 
 // validate checks every key, naming the first that is wrong.

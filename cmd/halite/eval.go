@@ -27,7 +27,7 @@ const (
 // eval runs a bundle through the same pipeline as the server and prints the
 // response: a readable report, or with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE", stderr)
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] BUNDLE", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
@@ -47,7 +47,10 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	reg := hooks.NewRegistry()
+	reg, err := bf.registry()
+	if err != nil {
+		return err
+	}
 	svcs, err := bf.services(reg)
 	if err != nil {
 		return err

@@ -167,7 +167,7 @@ func TestServeDrainsInFlight(t *testing.T) {
 		store.ServeHTTP(w, r)
 	}))
 	defer slow.Close()
-	svc, _ := hooks.NewRegistry().Lookup("sodium-drug-risk")
+	svc, _ := hooks.NewRegistry(nil).Lookup("sodium-drug-risk")
 	req, err := hooks.BuildRequest(b, svc, hooks.RequestOptions{Hook: "order-sign", UserID: "Practitioner/u",
 		OmitPrefetch: true, FHIRServer: slow.URL, AccessToken: "tok"})
 	if err != nil {
@@ -326,7 +326,7 @@ func TestCommandErrors(t *testing.T) {
 }
 
 func mustLookup(t *testing.T, id string) hooks.Service {
-	s, ok := hooks.NewRegistry().Lookup(id)
+	s, ok := hooks.NewRegistry(nil).Lookup(id)
 	if !ok {
 		t.Fatal(id)
 	}
@@ -583,5 +583,68 @@ func TestRulesCommand(t *testing.T) {
 	}
 	if err := json.Unmarshal(out.Bytes(), &doc); err != nil || !strings.HasPrefix(doc.Ruleset, "2026.") || len(doc.Drugs.Ingredients) < 80 {
 		t.Errorf("rules --json: %v, %s, %d ingredients", err, doc.Ruleset, len(doc.Drugs.Ingredients))
+	}
+}
+
+// TestEvalLocalLabCodes: a bundle whose sodium results carry only a site's
+// code gives the same card as with LOINC once --lab-codes names the code,
+// and none without; a bad codes file is refused, naming the entry.
+func TestEvalLocalLabCodes(t *testing.T) {
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "29-overcorrected-19-in-36h.json")
+	data, err := os.ReadFile(scenario)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The example site code NA-SER in deploy/lab-codes.example.json.
+	local := bytes.ReplaceAll(data, []byte(`"system": "http://loinc.org",
+              "code": "2951-2"`), []byte(`"system": "http://lab.example.org/codes",
+              "code": "NA-SER"`))
+	if bytes.Equal(local, data) {
+		t.Fatal("the scenario's sodium codings were not found to replace")
+	}
+	file := filepath.Join(t.TempDir(), "local.json")
+	if err := os.WriteFile(file, local, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	codes := filepath.Join("..", "..", "deploy", "lab-codes.example.json")
+	evalCards := func(path string, extra ...string) []hooks.Card {
+		t.Helper()
+		var out bytes.Buffer
+		args := append([]string{"eval", "--hook", "patient-view", "--service", "sodium-chart-review", "--at", scenarioAt, "--json"}, extra...)
+		err := run(context.Background(), append(args, path), &out, io.Discard)
+		var ee *exitError
+		if err != nil && !errors.As(err, &ee) {
+			t.Fatal(err)
+		}
+		var r hooks.Response
+		if err := json.Unmarshal(out.Bytes(), &r); err != nil {
+			t.Fatalf("%v %s", err, out.String())
+		}
+		return r.Cards
+	}
+	want := evalCards(scenario)
+	if len(want) == 0 {
+		t.Fatal("scenario 29 gives no card")
+	}
+	if got := evalCards(file); len(got) != 0 {
+		t.Errorf("site-coded sodium read without --lab-codes: %d cards", len(got))
+	}
+	got := evalCards(file, "--lab-codes", codes)
+	if len(got) != len(want) || got[0].Summary != want[0].Summary {
+		t.Errorf("with --lab-codes: %d cards %v, want %d like the LOINC-coded scenario (%q)", len(got), got, len(want), want[0].Summary)
+	}
+	bad := filepath.Join(t.TempDir(), "bad.json")
+	if err := os.WriteFile(bad, []byte(`{"codes":[{"system":"http://lab.example.org/codes","code":"K","analyte":"kalium"}]}`), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	err = run(context.Background(), []string{"eval", "--hook", "patient-view", "--lab-codes", bad, file}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "lab_codes") || !strings.Contains(err.Error(), `codes[0]: analyte "kalium"`) {
+		t.Errorf("bad codes file: %v", err)
+	}
+	// The server refuses it at start-up.
+	t.Setenv("HALITE_LAB_CODES", bad)
+	err = run(context.Background(), []string{"serve", "--addr", "127.0.0.1:0"}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "lab_codes") {
+		t.Errorf("serve with a bad lab_codes: %v", err)
 	}
 }

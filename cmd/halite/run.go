@@ -18,14 +18,14 @@ const usage = `halite: sodium safety checks as a CDS Hooks 2.0 service.
 
 Usage:
   halite serve   [--config FILE] [--addr HOST:PORT]
-  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] BUNDLE
+  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] BUNDLE
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
   halite healthcheck [--url URL]
   halite load    --url URL [--rate N] [--workers N] [--duration D] [--key FILE --iss URL] [--baseline] BUNDLE
   halite keys    --out DIR
   halite token   --key FILE --iss URL --aud URL [--tenant T] [--lifetime 5m]
-  halite request --hook HOOK [--service ID] BUNDLE
+  halite request --hook HOOK [--service ID] [--lab-codes FILE] BUNDLE
   halite serve-bundle [--addr HOST:PORT] [--page-size N] [--token T] BUNDLE
   halite help
 

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/gin-gonic/gin"
+	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
 	"github.com/halite-cds/halite/hooks/fhirclient"
 	"github.com/halite-cds/halite/rules"
@@ -41,6 +42,10 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	rs, err := loadRuleset(cfg.PolicyOverride)
+	if err != nil {
+		return err
+	}
+	codes, err := loadLabCodes(cfg.LabCodes)
 	if err != nil {
 		return err
 	}
@@ -82,7 +87,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	engine := newEngine(rs, cfg, log, recorder{st}, hash, ht)
+	engine := newEngine(rs, codes, cfg, log, recorder{st}, hash, ht)
 	log.Info("budgets", "memory_limit_bytes", cfg.memoryLimit, "process_bytes", cfg.Budget.ProcessBytes,
 		"call_bytes", cfg.Budget.CallBytes, "max_response_bytes", cfg.FHIRClient.MaxResponseBytes, "store_queue_size", cfg.Store.QueueSize)
 	health := &hooks.Health{}
@@ -152,7 +157,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 // issuers, a call's fhirServer must be on its issuer's allowlist, or it is
 // not used (the call is answered as if no server were given); without
 // issuers (development mode) any https server, or loopback, is used.
-func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string, tel *hooks.Telemetry) *hooks.Engine {
+func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string, tel *hooks.Telemetry) *hooks.Engine {
 	opts := fhirclient.Options{
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
@@ -162,7 +167,7 @@ func newEngine(rs *rules.Ruleset, cfg Config, log *slog.Logger, rec hooks.Record
 	private := opts
 	private.Transport = fhirclient.NewTransport(cfg.DevelopmentMode, true)
 	return hooks.NewEngine(hooks.EngineConfig{
-		Registry: hooks.NewRegistry(),
+		Registry: hooks.NewRegistry(codes),
 		Ruleset:  rs,
 		NewFetcher: func(server string, auth *hooks.FHIRAuthorization, caller hooks.Caller, budget *hooks.CallBudget) (hooks.Fetcher, error) {
 			o := opts
