@@ -67,7 +67,7 @@ func FuzzMap(f *testing.F) {
 				patient = e.Resource
 			}
 		}
-		in := Input{At: fuzzAt, PatientID: "p1", Patient: patient, Resources: all, DraftOrders: all}
+		in := Input{At: fuzzAt, PatientID: "p1", Patient: patient, Entries: raws(all...), DraftEntries: raws(all...)}
 		facts := Map(in, rs)
 		for a, s := range facts.Labs {
 			bd, ok := bounds[a]

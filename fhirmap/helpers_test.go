@@ -81,7 +81,16 @@ func (s obsSpec) raw() json.RawMessage {
 
 func mapResources(t *testing.T, rs ...json.RawMessage) rules.Facts {
 	t.Helper()
-	return Map(Input{At: testAt, PatientID: testPatient, Resources: rs}, ruleset(t))
+	return Map(Input{At: testAt, PatientID: testPatient, Entries: raws(rs...)}, ruleset(t))
+}
+
+// raws wraps resources in Bundle entries without fullUrls.
+func raws(rs ...json.RawMessage) []BundleEntry {
+	out := make([]BundleEntry, len(rs))
+	for i, r := range rs {
+		out[i] = BundleEntry{Resource: r}
+	}
+	return out
 }
 
 func near(got, want, tol float64) bool { return math.Abs(got-want) <= tol }

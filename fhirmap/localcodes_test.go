@@ -1,7 +1,6 @@
 package fhirmap
 
 import (
-	"encoding/json"
 	"strings"
 	"testing"
 
@@ -71,7 +70,7 @@ func TestMapLocalCodes(t *testing.T) {
 	bun := obsSpec{id: "bun", system: siteSystem, code: "BUN", value: vq("14", "mg/dL")}.raw()
 	// The same coding under another system is not the site's code.
 	other := obsSpec{id: "other", system: "http://other.example.org", code: "NA-GAS", value: vq("120", "mmol/L")}.raw()
-	in := Input{At: testAt, PatientID: testPatient, Resources: []json.RawMessage{gas, bun, other}, Codes: codes}
+	in := Input{At: testAt, PatientID: testPatient, Entries: raws(gas, bun, other), Codes: codes}
 	f := Map(in, ruleset(t))
 
 	na := f.Labs[rules.Sodium]

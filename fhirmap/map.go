@@ -19,15 +19,12 @@ type Input struct {
 	// Server is the call's fhirServer: references on it, or relative ones
 	// to resources the data lacks, name resources by their Type/id.
 	Server string
-	// Resources are the search results: Observations, MedicationRequests,
-	// Conditions and the Medications they reference. A resource that appears
-	// more than once (overlapping searches) is read once. Entries are read
-	// alike, keeping the fullUrl references are resolved with.
-	Resources []json.RawMessage
-	Entries   []BundleEntry
-	// DraftOrders are the resources of context.draftOrders; DraftEntries
-	// the same with their fullUrls.
-	DraftOrders  []json.RawMessage
+	// Entries are the search results, with the fullUrls references are
+	// resolved against: Observations, MedicationRequests, Conditions and the
+	// Medications they reference. A resource that appears more than once
+	// (overlapping searches) is read once.
+	Entries []BundleEntry
+	// DraftEntries are the entries of context.draftOrders.
 	DraftEntries []BundleEntry
 	// Selections are order-select's selected references ("MedicationRequest/1");
 	// nil means every draft order is evaluated (order-sign).
@@ -67,9 +64,9 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	if m.codes == nil {
 		m.codes = BuiltinCodes()
 	}
-	resources := m.distinct("resources", in.Resources, in.Entries)
+	resources := m.distinct("resources", in.Entries)
 	unreadCodes := 0
-	drafts := m.distinct("draftOrders", in.DraftOrders, in.DraftEntries)
+	drafts := m.distinct("draftOrders", in.DraftEntries)
 	all := append(append([]Resource(nil), resources...), drafts...)
 	if p, err := ReadEntry(BundleEntry{FullURL: in.PatientFullURL, Resource: in.Patient}); err == nil {
 		all = append(all, p)
@@ -185,18 +182,12 @@ func (m *mapper) refersToPatient(ref string, r Resource) bool {
 	return m.refs.RefersToPatient(ref, r, m.in.PatientID)
 }
 
-// distinct reads each raw resource and entry of the named list once;
-// values that are not FHIR resources are rejected.
-func (m *mapper) distinct(list string, raws []json.RawMessage, entries []BundleEntry) []Resource {
+// distinct reads each entry of the named list once; values that are not
+// FHIR resources are rejected.
+func (m *mapper) distinct(list string, entries []BundleEntry) []Resource {
 	var out []Resource
 	seen := map[string]bool{}
-	for i := range len(raws) + len(entries) {
-		var e BundleEntry
-		if i < len(raws) {
-			e.Resource = raws[i]
-		} else {
-			e = entries[i-len(raws)]
-		}
+	for i, e := range entries {
 		r, err := ReadEntry(e)
 		if err != nil {
 			m.facts.Rejected = append(m.facts.Rejected, rules.Rejection{

@@ -22,14 +22,14 @@ func BenchmarkMap200(b *testing.B) {
 	for i := 0; i < 200; i++ {
 		k := kinds[i%len(kinds)]
 		at := testAt.Add(-time.Duration(i+1) * 15 * time.Minute).Format(time.RFC3339)
-		in.Resources = append(in.Resources, obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw())
+		in.Entries = append(in.Entries, BundleEntry{Resource: obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw()})
 	}
 	for i := 0; i < 20; i++ {
 		dosage := `"dosageInstruction":[{"timing":{"repeat":{"boundsDuration":{"value":8,"code":"h"}}},"doseAndRate":[{"rateQuantity":{"value":75,"unit":"mL/h","system":"http://unitsofmeasure.org","code":"mL/h"}}]}]`
 		if i%2 == 0 {
-			in.Resources = append(in.Resources, mr(fmt.Sprintf("a%d", i), "active", nsConcept+","+dosage))
+			in.Entries = append(in.Entries, BundleEntry{Resource: mr(fmt.Sprintf("a%d", i), "active", nsConcept+","+dosage)})
 		} else {
-			in.DraftOrders = append(in.DraftOrders, mr(fmt.Sprintf("d%d", i), "draft", nsConcept+","+dosage))
+			in.DraftEntries = append(in.DraftEntries, BundleEntry{Resource: mr(fmt.Sprintf("d%d", i), "draft", nsConcept+","+dosage)})
 		}
 	}
 	rs := ruleset(b)
@@ -59,7 +59,7 @@ func BenchmarkMapObservations(b *testing.B) {
 		for i := 0; i < n; i++ {
 			k := kinds[i%len(kinds)]
 			at := testAt.Add(-time.Duration(i+1) * time.Minute).Format(time.RFC3339)
-			in.Resources = append(in.Resources, obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw())
+			in.Entries = append(in.Entries, BundleEntry{Resource: obsSpec{id: fmt.Sprintf("o%d", i), code: k.code, effective: dt(at), value: vq(k.value, k.unit)}.raw()})
 		}
 		if f := Map(in, rs); len(f.Rejected) != 0 {
 			b.Fatalf("setup: %d rejected", len(f.Rejected))

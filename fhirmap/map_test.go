@@ -375,8 +375,8 @@ func TestMapNonResources(t *testing.T) {
 		t.Run(tt.name, func(t *testing.T) {
 			good := obsSpec{id: "ok"}.raw()
 			in := Input{At: testAt, PatientID: testPatient,
-				Resources:   []json.RawMessage{json.RawMessage(tt.raw), good},
-				DraftOrders: []json.RawMessage{json.RawMessage(tt.raw)}}
+				Entries:      raws(json.RawMessage(tt.raw), good),
+				DraftEntries: raws(json.RawMessage(tt.raw))}
 			f := Map(in, ruleset(t))
 			if len(f.Rejected) != 2 {
 				t.Fatalf("rejected %+v, want two (one per list)", f.Rejected)

@@ -51,9 +51,9 @@ func TestMapMedicationRequestLists(t *testing.T) {
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			f := Map(Input{At: testAt, PatientID: testPatient,
-				Resources:   []json.RawMessage{active, stopped},
-				DraftOrders: []json.RawMessage{d1, d2},
-				Selections:  tt.selections}, ruleset(t))
+				Entries:      raws(active, stopped),
+				DraftEntries: raws(d1, d2),
+				Selections:   tt.selections}, ruleset(t))
 			if len(perResource(f.Rejected)) != 0 {
 				t.Fatalf("rejected %+v", f.Rejected)
 			}
@@ -94,9 +94,9 @@ func TestMapMedicationRequestRejected(t *testing.T) {
 			t.Run(fmt.Sprintf("%s/draft=%v", tt.name, asDraft), func(t *testing.T) {
 				in := Input{At: testAt, PatientID: testPatient}
 				if asDraft {
-					in.DraftOrders = []json.RawMessage{tt.raw}
+					in.DraftEntries = raws(tt.raw)
 				} else {
-					in.Resources = []json.RawMessage{tt.raw}
+					in.Entries = raws(tt.raw)
 				}
 				f := Map(in, ruleset(t))
 				want := rules.Rejection{Source: "MedicationRequest/m", Reason: tt.reason}
@@ -155,7 +155,7 @@ func TestMapRate(t *testing.T) {
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
-			o := draftOrder(t, Input{DraftOrders: []json.RawMessage{mr("m", "draft", nsConcept+","+tt.dosage)}})
+			o := draftOrder(t, Input{DraftEntries: raws(mr("m", "draft", nsConcept+","+tt.dosage))})
 			switch {
 			case tt.wantMlH == nil && o.RateMlPerHour != nil,
 				tt.wantMlH != nil && (o.RateMlPerHour == nil || !near(*o.RateMlPerHour, *tt.wantMlH, 1e-9)):
@@ -179,7 +179,7 @@ func TestMapDosageTiming(t *testing.T) {
 	  "dispenseRequest":{"quantity":{"value":500,"unit":"mL","system":"http://unitsofmeasure.org","code":"mL"}}`)
 	// Values are invented but mirror scenario 13 (150 mL over 20 min),
 	// scenario 01 (20 h bounds) and scenario 08 (frequency 2 per day).
-	f := Map(Input{At: testAt, PatientID: testPatient, DraftOrders: []json.RawMessage{raw}}, ruleset(t))
+	f := Map(Input{At: testAt, PatientID: testPatient, DraftEntries: raws(raw)}, ruleset(t))
 	if len(f.DraftOrders) != 1 {
 		t.Fatalf("draft orders %+v", f.DraftOrders)
 	}
@@ -212,7 +212,7 @@ func TestMapDosageTiming(t *testing.T) {
 }
 
 func TestMapDosageAbsent(t *testing.T) {
-	o := draftOrder(t, Input{DraftOrders: []json.RawMessage{mr("m", "draft", nsConcept)}})
+	o := draftOrder(t, Input{DraftEntries: raws(mr("m", "draft", nsConcept))})
 	if o.Dose != nil || o.Duration != nil || o.Bounds != nil || o.Period != nil || o.DispenseQuantity != nil ||
 		o.RateMlPerHour != nil || o.Rate != "" || o.Frequency != nil || o.AuthoredOn != nil || o.Route != nil {
 		t.Errorf("order %+v, want nothing but identity and status", o)
@@ -243,21 +243,21 @@ func TestMapMedicationIdentity(t *testing.T) {
 		wantStrong bool   // the 3 g/100 mL ingredient is read
 		wantNote   string // substring of a note
 	}{
-		{"codeable concept", Input{DraftOrders: []json.RawMessage{mr("m", "draft", nsConcept)}},
+		{"codeable concept", Input{DraftEntries: raws(mr("m", "draft", nsConcept))},
 			rules.FromCodeableConcept, "sodium chloride 0.9% 1000 mL IV", false, ""},
-		{"contained #med1", Input{DraftOrders: []json.RawMessage{mr("m", "draft", contained+","+ref("#med1", ""))}},
+		{"contained #med1", Input{DraftEntries: raws(mr("m", "draft", contained+","+ref("#med1", "")))},
 			rules.FromContained, "sodium chloride 3% in water", true, ""},
-		{"contained id not found", Input{DraftOrders: []json.RawMessage{mr("m", "draft", contained+","+ref("#med2", "3% saline"))}},
+		{"contained id not found", Input{DraftEntries: raws(mr("m", "draft", contained+","+ref("#med2", "3% saline")))},
 			rules.FromUnresolved, "3% saline", false, "contained Medication #med2 not found"},
-		{"referenced, in Resources", Input{Resources: []json.RawMessage{medX}, DraftOrders: []json.RawMessage{mr("m", "draft", ref("Medication/x", ""))}},
+		{"referenced, in Resources", Input{Entries: raws(medX), DraftEntries: raws(mr("m", "draft", ref("Medication/x", "")))},
 			rules.FromReferenced, "sodium chloride 3% in water", true, ""},
-		{"referenced, in DraftOrders", Input{DraftOrders: []json.RawMessage{mr("m", "draft", ref("Medication/x", "")), medX}},
+		{"referenced, in DraftOrders", Input{DraftEntries: raws(mr("m", "draft", ref("Medication/x", "")), medX)},
 			rules.FromReferenced, "sodium chloride 3% in water", true, ""},
-		{"referenced, absolute URL", Input{Resources: []json.RawMessage{medX}, DraftOrders: []json.RawMessage{mr("m", "draft", ref("http://example.org/fhir/Medication/x", ""))}},
+		{"referenced, absolute URL", Input{Entries: raws(medX), DraftEntries: raws(mr("m", "draft", ref("http://example.org/fhir/Medication/x", "")))},
 			rules.FromReferenced, "sodium chloride 3% in water", true, ""},
-		{"unresolved reference keeps display", Input{DraftOrders: []json.RawMessage{mr("m", "draft", ref("Medication/y", "3% saline 500 mL"))}},
+		{"unresolved reference keeps display", Input{DraftEntries: raws(mr("m", "draft", ref("Medication/y", "3% saline 500 mL")))},
 			rules.FromUnresolved, "3% saline 500 mL", false, "Medication Medication/y is not in the data"},
-		{"reference to other id", Input{Resources: []json.RawMessage{medX}, DraftOrders: []json.RawMessage{mr("m", "draft", ref("Medication/xx", "other"))}},
+		{"reference to other id", Input{Entries: raws(medX), DraftEntries: raws(mr("m", "draft", ref("Medication/xx", "other")))},
 			rules.FromUnresolved, "other", false, "Medication Medication/xx is not in the data"},
 	}
 	for _, tt := range tests {
@@ -309,8 +309,8 @@ func TestMapActiveOrderInResources(t *testing.T) {
 	// An active order's referenced Medication is found among Resources, and
 	// drafts listed in Resources (not in DraftOrders) are not current medication.
 	medX := json.RawMessage(`{"resourceType":"Medication","id":"x",` + med3pct + `}`)
-	f := Map(Input{At: testAt, PatientID: testPatient, Resources: []json.RawMessage{
-		mr("a", "active", `"medicationReference":{"reference":"Medication/x"}`), medX, mr("d", "draft", nsConcept)}}, ruleset(t))
+	f := Map(Input{At: testAt, PatientID: testPatient, Entries: raws(
+		mr("a", "active", `"medicationReference":{"reference":"Medication/x"}`), medX, mr("d", "draft", nsConcept))}, ruleset(t))
 	if len(f.Medications) != 1 || f.Medications[0].Reference != "MedicationRequest/a" || f.Medications[0].Medication.Source != rules.FromReferenced {
 		t.Errorf("medications %+v, want only a, from the referenced Medication", f.Medications)
 	}

@@ -13,10 +13,10 @@ import (
 func TestDuplicateKeyCenturiesApart(t *testing.T) {
 	// Two instants whose UnixNano values collide (int64 wrap-around) are
 	// distinct results, not duplicates. 140 mmol/L: invented normal value.
-	f := Map(Input{At: testAt, PatientID: testPatient, Resources: []json.RawMessage{
+	f := Map(Input{At: testAt, PatientID: testPatient, Entries: raws(
 		obsSpec{id: "a", effective: dt("1000-01-01T00:00:00Z")}.raw(),
 		obsSpec{id: "b", effective: dt("1584-07-21T23:34:33.709551616Z")}.raw(),
-	}}, ruleset(t))
+	)}, ruleset(t))
 	if len(f.Labs[rules.Sodium]) != 2 || len(f.Rejected) != 0 {
 		t.Errorf("series %d, rejected %+v; want both results kept", len(f.Labs[rules.Sodium]), f.Rejected)
 	}

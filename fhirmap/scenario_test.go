@@ -36,9 +36,9 @@ func scenarioInput(t testing.TB, path string) Input {
 		case r.Type == "Patient":
 			in.Patient, in.PatientID = e.Resource, r.ID
 		case r.Type == "MedicationRequest" && st.Status == "draft":
-			in.DraftOrders = append(in.DraftOrders, e.Resource)
+			in.DraftEntries = append(in.DraftEntries, BundleEntry{Resource: e.Resource})
 		default:
-			in.Resources = append(in.Resources, e.Resource)
+			in.Entries = append(in.Entries, BundleEntry{Resource: e.Resource})
 		}
 	}
 	return in

@@ -123,7 +123,7 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	}
 	in := mapInput(call, keys, at)
 	in.Codes = e.registry.Codes()
-	in.Resources = fetchMedications(pctx, fetch, in)
+	in.Entries = fetchMedications(pctx, fetch, in)
 	states := map[KeyState]int{}
 	for _, k := range keys {
 		states[k.State]++

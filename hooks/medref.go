@@ -2,7 +2,6 @@ package hooks
 
 import (
 	"context"
-	"encoding/json"
 
 	"github.com/halite-cds/halite/fhirmap"
 )
@@ -53,25 +52,17 @@ func readEntries(es ...[]fhirmap.BundleEntry) []fhirmap.Resource {
 	return out
 }
 
-// fetchMedications returns in.Resources with the Medications that orders
+// fetchMedications returns in.Entries with the Medications that orders
 // reference but the data does not hold. CDS Hooks prefetch cannot ask for
 // them (no _include in the restricted syntax), so they are read one by one
 // from fhirServer, by a reference relative to it or on it. A failed read
 // leaves the reference unresolved, which mapping reports.
-func fetchMedications(ctx context.Context, fetch Fetcher, in fhirmap.Input) []json.RawMessage {
+func fetchMedications(ctx context.Context, fetch Fetcher, in fhirmap.Input) []fhirmap.BundleEntry {
 	if fetch == nil {
-		return in.Resources
+		return in.Entries
 	}
-	var drafts []fhirmap.BundleEntry
-	for _, raw := range in.DraftOrders {
-		drafts = append(drafts, fhirmap.BundleEntry{Resource: raw})
-	}
-	var have []fhirmap.BundleEntry
-	for _, raw := range in.Resources {
-		have = append(have, fhirmap.BundleEntry{Resource: raw})
-	}
-	rs := readEntries(have, in.Entries, drafts, in.DraftEntries)
-	out := in.Resources
+	rs := readEntries(in.Entries, in.DraftEntries)
+	out := in.Entries
 	n := 0
 	for _, t := range medicationRefs(fhirmap.NewReferences(in.Server, rs), rs) {
 		if t.Held() || n == maxMedicationFetches {
@@ -79,7 +70,7 @@ func fetchMedications(ctx context.Context, fetch Fetcher, in fhirmap.Input) []js
 		}
 		n++
 		if body, err := fetch.Fetch(ctx, t.Ref()); err == nil {
-			out = append(out, body)
+			out = append(out, fhirmap.BundleEntry{Resource: body})
 		}
 	}
 	return out
