@@ -20,6 +20,7 @@ type medicationRequestFields struct {
 	AuthoredOn                *string                                `json:"authoredOn"`
 	DosageInstruction         []fhir.Dosage                          `json:"dosageInstruction"`
 	DispenseRequest           *fhir.MedicationRequestDispenseRequest `json:"dispenseRequest"`
+	PriorPrescription         *fhir.Reference                        `json:"priorPrescription"`
 }
 
 // medicationRequest reads one MedicationRequest. fhir-models drops
@@ -58,6 +59,22 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 	}
 	if dr := mr.DispenseRequest; dr != nil {
 		o.DispenseQuantity = quantity(dr.Quantity)
+	}
+	if p := mr.PriorPrescription; p != nil && p.Reference != nil {
+		if t, err := m.refs.Resolve(*p.Reference, r); err == nil {
+			o.Replaces = t.Ref()
+		} else {
+			o.Replaces = *p.Reference // not in the data: kept as written
+		}
+	}
+	if len(mr.DosageInstruction) > 0 {
+		if end := boundsEnd(mr.DosageInstruction[0]); end != "" {
+			if t, hasTime, err := ParseDateTime(end); err == nil && hasTime {
+				o.EndsAt = &t
+			} else {
+				m.note("%s: timing.repeat.boundsPeriod.end %q is not a date and time; no stop read from it", r.Ref(), end)
+			}
+		}
 	}
 	return o, true
 }
@@ -204,6 +221,15 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 		}
 	}
 	return ignored
+}
+
+// boundsEnd is the end of the first dosage's timing.repeat.boundsPeriod, if
+// any: the time the order stops.
+func boundsEnd(d fhir.Dosage) string {
+	if d.Timing == nil || d.Timing.Repeat == nil || d.Timing.Repeat.BoundsPeriod == nil {
+		return ""
+	}
+	return str(d.Timing.Repeat.BoundsPeriod.End)
 }
 
 func formatQuantity(q rules.Quantity) string {

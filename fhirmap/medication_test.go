@@ -318,3 +318,24 @@ func TestMapActiveOrderInResources(t *testing.T) {
 		t.Errorf("draft orders %+v, want none", f.DraftOrders)
 	}
 }
+
+// A draft that replaces a running order names it (priorPrescription), and
+// an order's stated end (timing.repeat.boundsPeriod.end) is read as its
+// stop; both as FHIR R4 MedicationRequest and Timing define them.
+func TestMapOrderStopAndPrior(t *testing.T) {
+	draft := mr("d", "draft", nsConcept+`,"priorPrescription":{"reference":"MedicationRequest/running"},`+
+		`"dosageInstruction":[{"timing":{"repeat":{"boundsPeriod":{"start":"2026-11-20T08:00:00Z","end":"2026-11-20T14:00:00+01:00"}}},`+
+		`"doseAndRate":[{"rateQuantity":{"value":100,"unit":"mL/h","system":"http://unitsofmeasure.org","code":"mL/h"}}]}]`)
+	o := draftOrder(t, Input{DraftEntries: raws(draft)})
+	if o.Replaces != "MedicationRequest/running" {
+		t.Errorf("Replaces %q, want MedicationRequest/running", o.Replaces)
+	}
+	if want := time.Date(2026, 11, 20, 13, 0, 0, 0, time.UTC); o.EndsAt == nil || !o.EndsAt.Equal(want) {
+		t.Errorf("EndsAt %v, want %v", o.EndsAt, want)
+	}
+	dateOnly := mr("d", "draft", nsConcept+`,"dosageInstruction":[{"timing":{"repeat":{"boundsPeriod":{"end":"2026-11-21"}}}}]`)
+	f := Map(Input{At: testAt, PatientID: testPatient, DraftEntries: raws(dateOnly)}, ruleset(t))
+	if len(f.DraftOrders) != 1 || f.DraftOrders[0].EndsAt != nil || !strings.Contains(strings.Join(f.Notes, "\n"), "no stop read") {
+		t.Errorf("a date-only end must not be read as a time: %+v, notes %q", f.DraftOrders, f.Notes)
+	}
+}

@@ -110,15 +110,15 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	} else {
 		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %s days", orderHours.of(p.Projection.WeightMaxAgeHours/24)))
 	}
-	if v, basis, ok := Volume24h(o); ok {
+	if v, basis, ok := Volume24h(o, f.At); ok {
 		a.Volume24hLitres, a.VolumeBasis = &v, basis
 	} else {
 		a.Missing = append(a.Missing, "the volume the order gives in 24 h (rate, or dose in mL)")
 	}
-	if h, ok := InfusionHours(o); ok {
+	if h, ok := InfusionHours(o, f.At); ok {
 		a.InfusionHours = h
 	}
-	if h, ok := RunHours(o); ok {
+	if h, ok := RunHours(o, f.At); ok {
 		a.RunHours = h
 	}
 	a.project(p.Limits)

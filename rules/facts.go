@@ -178,7 +178,12 @@ type MedicationOrder struct {
 	// Duration is the duration of one administration (timing.repeat.duration).
 	Duration *Quantity
 	// Bounds is the total course (timing.repeat.boundsDuration).
-	Bounds           *Quantity
+	Bounds *Quantity
+	// EndsAt is when the order stops (timing.repeat.boundsPeriod.end).
+	EndsAt *time.Time
+	// Replaces is the order this one replaces (priorPrescription, as
+	// "MedicationRequest/id" when the data holds it).
+	Replaces         string
 	Frequency        *int // administrations per Period
 	Period           *Quantity
 	DispenseQuantity *Quantity

@@ -63,11 +63,11 @@ func TestInfusionCardPolicy(t *testing.T) {
 		{"desmopressin after a 7 mmol/L rise at high risk", woman(60, map[float64]float64{20: 120, 2: 127}, lowK),
 			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
 			"", 0},
-		// Hypernatremia, 5% dextrose 250 mL/h with 1 L ordered: the bag runs 4 h,
+		// Hypernatremia, 5% dextrose 250 mL/h for an ordered course of 4 h:
 		// 1 × (0 − 152)/(31 + 1) = −4.75 in 4 h, 1.19 per hour > 0.5.
-		{"hourly fall limit with an ordered total", woman(62, map[float64]float64{2: 152}, nil),
+		{"hourly fall limit with an ordered course", woman(62, map[float64]float64{2: 152}, nil),
 			MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "D5W"}, RateMlPerHour: rate(250),
-				DispenseQuantity: &Quantity{Value: 1000, Unit: "mL"}, Selected: true}, RuleProjectedOver, Warning},
+				Bounds: &Quantity{Value: 4, Unit: "h"}, Selected: true}, RuleProjectedOver, Warning},
 		// The same litre as a bolus over 2 h: 2.4 per hour.
 		{"hourly fall limit for a bolus with a duration", woman(62, map[float64]float64{2: 152}, nil),
 			MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "D5W"}, Dose: &Quantity{Value: 1000, Unit: "mL"},

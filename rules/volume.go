@@ -3,37 +3,27 @@ package rules
 import (
 	"fmt"
 	"math"
+	"time"
 )
 
-// Volume24h is the volume (litres) an order would give in the next 24 h,
-// and how it was worked out: from an infusion rate (bounded by the ordered
-// course, boundsDuration, and the ordered total, dispenseRequest.quantity),
-// or from a bolus dose in mL repeated per its timing. ok is false when the
-// order says neither, or gives a rate or dose that is not positive; nothing
-// is assumed.
-func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
-	window := 24.0
-	if o.Bounds != nil {
-		if h, known := DurationHours(*o.Bounds); known && h < window {
-			window = h
-		}
-	}
-	total := math.Inf(1)
-	if o.DispenseQuantity != nil {
-		if ml, known := VolumeMl(*o.DispenseQuantity); known && ml > 0 {
-			total = ml
-		}
-	}
+// Volume24h is the volume (litres) an order would give in the 24 h from at,
+// and how it was worked out: from an infusion rate, for 24 h unless the
+// order states a stop (a course, timing.repeat.boundsDuration, or an end
+// time, boundsPeriod.end), or from a dose in mL repeated per its timing.
+// The quantity of one dispense (a 500 mL bag) is not a stop: bags are
+// replaced. ok is false when the order says neither, or gives a rate or
+// dose that is not positive; nothing is assumed.
+func Volume24h(o MedicationOrder, at time.Time) (litres float64, basis string, ok bool) {
+	window, stop := orderWindow(o, at)
 	switch {
 	case o.RateMlPerHour != nil && *o.RateMlPerHour <= 0:
 		return 0, "", false
 	case o.RateMlPerHour != nil:
-		ml := *o.RateMlPerHour * window
 		basis = fmt.Sprintf("%s mL/h for %s h", orderRate.of(*o.RateMlPerHour), orderHours.of(window))
-		if ml > total {
-			ml, basis = total, basis+fmt.Sprintf(", capped at the ordered %s mL", orderMl.of(total))
+		if stop != "" {
+			basis += " (" + stop + ")"
 		}
-		return ml / 1000, basis, true
+		return *o.RateMlPerHour * window / 1000, basis, true
 	case o.Dose != nil:
 		dose, known := VolumeMl(*o.Dose)
 		if !known || dose <= 0 {
@@ -43,46 +33,50 @@ func Volume24h(o MedicationOrder) (litres float64, basis string, ok bool) {
 		basis = fmt.Sprintf("one dose of %s mL", orderMl.of(dose))
 		if o.Frequency != nil && o.Period != nil {
 			if h, known := DurationHours(*o.Period); known && h > 0 {
-				n = math.Floor(float64(*o.Frequency) * window / h)
-				if n < 1 {
-					n = 1
-				}
+				n = math.Max(1, math.Floor(float64(*o.Frequency)*window/h))
 				basis = fmt.Sprintf("%s doses of %s mL in %s h", doseCount.of(n), orderMl.of(dose), orderHours.of(window))
 			}
 		}
-		ml := math.Min(n*dose, total)
-		return ml / 1000, basis, true
+		return n * dose / 1000, basis, true
 	}
 	return 0, "", false
 }
 
-// InfusionHours is how long, within the next 24 h, a rate-based order runs
-// at its rate: 24 h, or the ordered course when shorter. ok is false for an
-// order without a rate (a bolus), for which a rate that fits is not given.
-func InfusionHours(o MedicationOrder) (float64, bool) {
+// orderWindow is how many of the 24 h from at the order runs: 24, or less
+// when it states a stop, which stop says in words.
+func orderWindow(o MedicationOrder, at time.Time) (hours float64, stop string) {
+	hours = 24
+	if o.Bounds != nil {
+		if h, known := DurationHours(*o.Bounds); known && h >= 0 && h < hours {
+			hours, stop = h, "the ordered course"
+		}
+	}
+	if o.EndsAt != nil {
+		if h := math.Max(0, o.EndsAt.Sub(at).Hours()); h < hours {
+			hours, stop = h, "the order ends at "+stamp(*o.EndsAt)
+		}
+	}
+	return hours, stop
+}
+
+// InfusionHours is how long, within the 24 h from at, a rate-based order
+// runs at its rate: 24 h, or less when it states a stop (orderWindow). ok
+// is false for an order without a rate (a bolus), for which a rate that
+// fits is not given.
+func InfusionHours(o MedicationOrder, at time.Time) (float64, bool) {
 	if o.RateMlPerHour == nil || *o.RateMlPerHour <= 0 {
 		return 0, false
 	}
-	if o.Bounds != nil {
-		if h, known := DurationHours(*o.Bounds); known && h > 0 && h < 24 {
-			return h, true
-		}
-	}
-	return 24, true
+	h, _ := orderWindow(o, at)
+	return h, h > 0
 }
 
-// RunHours is how long the order gives fluid within the next 24 h, for
-// the hourly limit: a rate-based order runs for 24 h, its ordered course
-// or until its ordered total is given, whichever is first; a dose-based
+// RunHours is how long the order gives fluid within the 24 h from at, for
+// the hourly limit: a rate-based order for InfusionHours; a dose-based
 // order for its doses times the duration of each (timing.repeat.duration).
 // ok is false when the order does not say (a dose with no duration).
-func RunHours(o MedicationOrder) (float64, bool) {
-	if h, ok := InfusionHours(o); ok {
-		if o.DispenseQuantity != nil {
-			if ml, known := VolumeMl(*o.DispenseQuantity); known && ml > 0 && ml / *o.RateMlPerHour < h {
-				h = ml / *o.RateMlPerHour
-			}
-		}
+func RunHours(o MedicationOrder, at time.Time) (float64, bool) {
+	if h, ok := InfusionHours(o, at); ok {
 		return h, true
 	}
 	if o.Dose == nil || o.Duration == nil {
