@@ -78,9 +78,10 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"vasopressin-receptor antagonists, desmopressin) against the correction already achieved and the " +
 				"rate limits in force, and estimates the change the order would cause. Advisory only.",
 			UsageRequirements: "Needs the patient's serum sodium results with their times; body weight, age and sex " +
-				"for projections. Draft orders must be MedicationRequests with coded or described products.",
+				"for projections; active MedicationRequests, so that infusions already running are counted with the " +
+				"drafts. Draft orders must be MedicationRequests with coded or described products.",
 			Check:    rules.InfusionCheck,
-			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.bodySize, k.conditions},
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.bodySize, k.conditions, k.medications},
 		},
 		{
 			ID:    "sodium-drug-risk",

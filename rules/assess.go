@@ -34,11 +34,25 @@ type InfusionAssessment struct {
 	Weight                   *Measurement
 	TBWLitres                *float64
 	TBWMethod                string
-	DeltaPerLitre            *float64
-	Volume24hLitres          *float64
+	DeltaPerLitre            *float64 // of this order's infusate alone
+	Volume24hLitres          *float64 // this order's
 	VolumeBasis              string
-	ProjectedChange24h       *float64
-	ProjectedTotal24h        *float64 // achieved + projected, signed as the change
+	// Others are the other orders counted in the next 24 h beside this
+	// one: the call's other draft orders and the infusions already running
+	// (see Contributor); a fluid halite cannot identify is among them with
+	// no Composition, named but not counted.
+	Others []Contributor
+	// ProjectedChange24h is the change from everything counted: this order
+	// and Others, in one mass balance (CombinedChange); OrderChange24h is
+	// this order's share of it and OthersChange24h what the others alone
+	// would bring without this order (nil when there are none).
+	ProjectedChange24h *float64
+	OrderChange24h     *float64
+	OthersChange24h    *float64
+	ProjectedTotal24h  *float64 // achieved + projected, signed as the change
+	// OthersReachLimit is set when the others alone already use what the
+	// limits allow: no volume of this order fits.
+	OthersReachLimit bool
 	// Allowed is the change still allowed (≥ 0, unsigned) by the tightest
 	// limit, Binding says which limit that is; both are set with a
 	// projection.
@@ -47,9 +61,10 @@ type InfusionAssessment struct {
 	// OverLimit is set when the projected change exceeds Allowed in the
 	// direction the limits restrict.
 	OverLimit bool
-	// MaxVolume24hLitres is the largest volume in the next 24 h inside the
-	// allowance; MaxRateMlPerHour gives it as a rate over InfusionHours for
-	// a rate-based order. Both nil when no volume can exceed the limit, or
+	// MaxVolume24hLitres is the largest volume of this order in the next
+	// 24 h inside the allowance, the others counted as ordered;
+	// MaxRateMlPerHour gives it as a rate over InfusionHours for a
+	// rate-based order. Both nil when no volume can exceed the limit, or
 	// inputs are missing.
 	MaxVolume24hLitres *float64
 	MaxRateMlPerHour   *float64
@@ -110,6 +125,7 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	} else {
 		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %s days", orderHours.of(p.Projection.WeightMaxAgeHours/24)))
 	}
+	a.Others = r.otherContributors(f, o)
 	if v, basis, ok := Volume24h(o, f.At); ok {
 		a.Volume24hLitres, a.VolumeBasis = &v, basis
 	} else {
@@ -176,21 +192,102 @@ func (a *InfusionAssessment) project(l Limits) {
 	if a.Allowed <= 0 {
 		a.LimitReached, a.Allowed = true, 0
 	}
+	var others Infused
+	for i, c := range a.Others {
+		if c.Composition != nil && c.Volume24hLitres != nil {
+			others = others.Add(*c.Volume24hLitres, c.Composition.NaK(), na)
+		}
+		a.Others[i].Change24h = nil // set below, with the whole balance
+	}
+	if len(a.Others) > 0 {
+		oc := CombinedChange(others, tbw)
+		a.OthersChange24h = &oc
+		a.OthersReachLimit = sign*oc >= a.Allowed-1e-9 && !a.LimitReached
+	}
 	if a.Volume24hLitres != nil {
-		c := ProjectedChange(*a.Volume24hLitres, naK, na, tbw)
+		all := others.Add(*a.Volume24hLitres, naK, na)
+		c := CombinedChange(all, tbw)
+		own := *a.Volume24hLitres * (naK - na) / (tbw + all.Litres)
 		total := sign*a.Achieved24h + c
-		a.ProjectedChange24h, a.ProjectedTotal24h = &c, &total
+		a.ProjectedChange24h, a.OrderChange24h, a.ProjectedTotal24h = &c, &own, &total
+		for i, o := range a.Others {
+			if o.Composition != nil && o.Volume24hLitres != nil {
+				share := *o.Volume24hLitres * (o.Composition.NaK() - na) / (tbw + all.Litres)
+				a.Others[i].Change24h = &share
+			}
+		}
 		// A change the limits do not restrict (a fall in hyponatremia, a
 		// rise in hypernatremia) is never over them.
 		a.OverLimit = sign*c > 0 && sign*c > a.Allowed+1e-9
 	}
-	if v := MaxVolume(sign*a.Allowed, naK, na, tbw); sign*d > 0 && !math.IsInf(v, 1) {
+	if v := MaxVolumeGiven(sign*a.Allowed, naK, na, tbw, others); sign*d > 0 && !math.IsInf(v, 1) {
 		a.MaxVolume24hLitres = &v
 		if a.InfusionHours > 0 {
 			rate := v * 1000 / a.InfusionHours
 			a.MaxRateMlPerHour = &rate
 		}
 	}
+}
+
+// Contributor is another order counted in the sodium balance of the next
+// 24 h beside the one assessed.
+type Contributor struct {
+	Order MedicationOrder
+	// Running: an active order already on the chart; else a draft of this
+	// call.
+	Running bool
+	// Composition is nil for a fluid halite cannot identify: it is named on
+	// the card and not counted.
+	Composition     *Composition
+	Volume24hLitres *float64 // nil when the order does not say
+	VolumeBasis     string
+	Change24h       *float64 // its share of the combined change
+}
+
+// otherContributors are the orders counted beside o: the call's other
+// draft orders with a known infusate, and the active orders that run at a
+// rate (infusions) or repeat a dose in mL, unless a draft replaces them
+// (priorPrescription). A draft or infusion whose infusate is unknown is
+// kept, without a composition, when it gives a volume (a rate or a dose
+// in mL): it is named, not silently left out.
+func (r *Ruleset) otherContributors(f Facts, o MedicationOrder) []Contributor {
+	replaced := map[string]bool{}
+	for _, d := range f.DraftOrders {
+		if d.Replaces != "" {
+			replaced[d.Replaces] = true
+		}
+	}
+	var out []Contributor
+	add := func(c MedicationOrder, running bool) {
+		comp, known := r.InfusateComposition(c.Medication)
+		v, basis, hasVolume := Volume24h(c, f.At)
+		repeats := c.RateMlPerHour != nil || (c.Frequency != nil && c.Period != nil)
+		switch {
+		case running && !repeats:
+			return // a single dose already on the chart is not running
+		case !known && !hasVolume:
+			return // not a fluid
+		}
+		k := Contributor{Order: c, Running: running, VolumeBasis: basis}
+		if known {
+			k.Composition = &comp
+		}
+		if hasVolume {
+			k.Volume24hLitres = &v
+		}
+		out = append(out, k)
+	}
+	for _, d := range f.DraftOrders {
+		if d.Reference != o.Reference {
+			add(d, false)
+		}
+	}
+	for _, m := range f.Medications {
+		if !replaced[m.Reference] && m.Reference != o.Replaces && m.Reference != o.Reference {
+			add(m, true)
+		}
+	}
+	return out
 }
 
 // totalBodyWater applies the policy's method, never assuming a sex or age.

@@ -124,3 +124,97 @@ func TestAssessInfusionHypernatremia(t *testing.T) {
 		t.Errorf("limit already reached: max rate %v, want 0", a.MaxRateMlPerHour)
 	}
 }
+
+// The whole balance of the next 24 h (issue 19): drafts and running
+// infusions counted together by Na₂₄ = (Na·TBW + Σ(Na+K)ᵢVᵢ)/(TBW + ΣVᵢ)
+// (Adrogué–Madias's mass balance summed over infusates). Expectations are
+// computed by hand from that formula; the facts are invented.
+func TestAssessCombinedBalance(t *testing.T) {
+	rs := loadRuleset(t)
+	rate := func(v float64) *float64 { return &v }
+	ns := func(ref string, mlh float64) MedicationOrder {
+		return MedicationOrder{Reference: ref, Medication: Medication{Text: "0.9% saline"}, RateMlPerHour: rate(mlh)}
+	}
+	// 40-year-old woman, 64 kg (TBW 32 L), sodium 111.5 → 116 in 24 h
+	// (achieved 4.5, 5.5 still allowed by the 24-h limit of 10).
+	base := func() Facts {
+		return assessFacts(t, SexFemale, "1986-01-10", 64, map[float64]float64{24: 111.5, 3: 116}, nil)
+	}
+	draft := saline3(18.7)
+	draft.Selected = true
+
+	t.Run("running saline counted", func(t *testing.T) {
+		f := base()
+		f.Medications = []MedicationOrder{ns("MedicationRequest/running", 100)}
+		a := rs.AssessInfusion(f, draft)
+		// 3%: 0.4488 L × (513 − 116) = 178.17; saline 2.4 L × (154 − 116) = 91.2;
+		// change = 269.37/(32 + 2.8488) = 7.7297; the draft's share 178.17/34.8488.
+		if a.ProjectedChange24h == nil || !near(*a.ProjectedChange24h, (0.4488*397+2.4*38)/(32+2.8488), 1e-9) {
+			t.Fatalf("combined change %v", a.ProjectedChange24h)
+		}
+		if !near(*a.OrderChange24h, 0.4488*397/34.8488, 1e-9) || !near(*a.OthersChange24h, 2.4*38/34.4, 1e-9) {
+			t.Errorf("order %v others %v", *a.OrderChange24h, *a.OthersChange24h)
+		}
+		if !a.OverLimit || a.OthersReachLimit {
+			t.Errorf("over %v, others reach %v; want over, not by the others alone", a.OverLimit, a.OthersReachLimit)
+		}
+		// Rate that fits given the saline: V = (5.5·34.4 − 91.2)/(397 − 5.5) = 0.25032 L → 10.43 mL/h.
+		if a.MaxRateMlPerHour == nil || !near(*a.MaxRateMlPerHour, (5.5*34.4-91.2)/(397-5.5)*1000/24, 1e-9) {
+			t.Errorf("max rate %v", a.MaxRateMlPerHour)
+		}
+		// The same pair as two drafts gives the same balance.
+		g := base()
+		other := ns("MedicationRequest/other-draft", 100)
+		other.Draft = true
+		g.DraftOrders = []MedicationOrder{draft, other}
+		if b := rs.AssessInfusion(g, draft); b.ProjectedChange24h == nil || !near(*b.ProjectedChange24h, *a.ProjectedChange24h, 1e-12) {
+			t.Errorf("as drafts: %v, want %v", b.ProjectedChange24h, *a.ProjectedChange24h)
+		}
+	})
+	t.Run("running fluids alone reach the limit", func(t *testing.T) {
+		f := base()
+		// 250 mL/h: 6 L × 38 / 38 L = 6.0 > 5.5 allowed.
+		f.Medications = []MedicationOrder{ns("MedicationRequest/running", 250)}
+		a := rs.AssessInfusion(f, draft)
+		if !a.OthersReachLimit || !a.OverLimit || a.MaxRateMlPerHour != nil && *a.MaxRateMlPerHour != 0 {
+			t.Errorf("others reach %v over %v max rate %v", a.OthersReachLimit, a.OverLimit, a.MaxRateMlPerHour)
+		}
+		fd := rs.Evaluate(InfusionCheck, Facts{At: f.At, Patient: f.Patient, Labs: f.Labs, Medications: f.Medications, DraftOrders: []MedicationOrder{draft}})
+		if len(fd) != 1 || !strings.HasPrefix(fd[0].Summary, "Other fluids alone bring a rise of 6.0 mmol/L") {
+			t.Errorf("findings %+v", fd)
+		}
+		for _, adv := range fd[0].Advice {
+			if adv.Kind == AdviseRate {
+				t.Errorf("a rate was offered although no volume fits: %+v", adv)
+			}
+		}
+	})
+	t.Run("an unknown infusion is named, not counted", func(t *testing.T) {
+		f := base()
+		f.Medications = []MedicationOrder{{Reference: "MedicationRequest/heparin", Medication: Medication{Text: "heparin 25,000 units in 250 mL"}, RateMlPerHour: rate(10)}}
+		a := rs.AssessInfusion(f, draft)
+		if len(a.Others) != 1 || a.Others[0].Composition != nil || !near(*a.ProjectedChange24h, 0.4488*397/32.4488, 1e-9) {
+			t.Fatalf("others %+v change %v", a.Others, *a.ProjectedChange24h)
+		}
+		fd := rs.Evaluate(InfusionCheck, Facts{At: f.At, Patient: f.Patient, Labs: f.Labs, Medications: f.Medications, DraftOrders: []MedicationOrder{draft}})
+		if len(fd) != 1 || !strings.Contains(fd[0].Detail, "Not counted: MedicationRequest/heparin (running") {
+			t.Errorf("the unknown infusion is not named: %+v", fd)
+		}
+	})
+	t.Run("a draft replacing a running order is not counted twice", func(t *testing.T) {
+		f := base()
+		f.Medications = []MedicationOrder{ns("MedicationRequest/running", 100)}
+		replacing := draft
+		replacing.Replaces = "MedicationRequest/running"
+		if a := rs.AssessInfusion(f, replacing); len(a.Others) != 0 {
+			t.Errorf("others %+v, want none: the draft replaces the running order", a.Others)
+		}
+	})
+	t.Run("a single dose already on the chart is not running", func(t *testing.T) {
+		f := base()
+		f.Medications = []MedicationOrder{{Reference: "MedicationRequest/bolus", Medication: Medication{Text: "0.9% saline"}, Dose: &Quantity{Value: 500, Unit: "mL"}}}
+		if a := rs.AssessInfusion(f, draft); len(a.Others) != 0 {
+			t.Errorf("others %+v, want none", a.Others)
+		}
+	})
+}

@@ -29,8 +29,13 @@ const (
 //     projected because an input is missing;
 //   - hypertonic-saline-projection: any other hypertonic order;
 //   - nothing otherwise.
+//
+// Every sodium-moving order of the next 24 h is judged together, in one
+// card: the selected draft that moves sodium furthest the way the limits
+// restrict is assessed with the call's other drafts and the running
+// infusions counted beside it (AssessInfusion), and the card names them all.
 func (r *Ruleset) infusionFindings(f Facts) []Finding {
-	var out []Finding
+	var lead *InfusionAssessment
 	for _, o := range f.DraftOrders {
 		if !o.Selected {
 			continue
@@ -39,11 +44,31 @@ func (r *Ruleset) infusionFindings(f Facts) []Finding {
 		if a.Composition == nil {
 			continue
 		}
-		if fd, ok := r.judge(a); ok {
-			out = append(out, fd)
+		if lead == nil || a.leads(*lead) {
+			lead = &a
 		}
 	}
-	return out
+	if lead == nil {
+		return nil
+	}
+	if fd, ok := r.judge(*lead); ok {
+		return []Finding{fd}
+	}
+	return nil
+}
+
+// leads reports whether a's order moves sodium further than b's the way the
+// limits restrict (a rise in hyponatremia, a fall in hypernatremia); an
+// order with a projection leads one without.
+func (a InfusionAssessment) leads(b InfusionAssessment) bool {
+	if a.OrderChange24h == nil || b.OrderChange24h == nil {
+		return a.OrderChange24h != nil && b.OrderChange24h == nil
+	}
+	sign := 1.0
+	if a.Hypernatremia {
+		sign = -1
+	}
+	return sign**a.OrderChange24h > sign**b.OrderChange24h
 }
 
 func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
@@ -52,7 +77,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	if a.Hypernatremia {
 		word, sign = "fall", -1
 	}
-	fd := Finding{Figures: a.figures(), Order: a.Order.Reference}
+	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Attributes: a.contributorAttributes()}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.DeltaPerLitre != nil && sign**a.DeltaPerLitre > 0
 	switch {
@@ -65,6 +90,10 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 			fd.Summary = fmt.Sprintf("Sodium already rose %s mmol/L in 48 h (limit %g); this order raises it further",
 				naChange.of(a.Achieved48h), a.Limit48h)
 		}
+	case a.OverLimit && a.OthersReachLimit:
+		fd.Rule = RuleProjectedOver
+		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order adds %s",
+			word, naChange.of(math.Abs(*a.OthersChange24h)), naChange.of(a.Allowed), naChange.signed(*a.OrderChange24h))
 	case a.OverLimit:
 		fd.Rule = RuleProjectedOver
 		fd.Summary = r.overSummary(a, word)
@@ -73,8 +102,8 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Summary = "Hypertonic sodium order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
 	case hypertonic && !a.Hypernatremia:
 		fd.Rule = RuleHypertonicOrder
-		fd.Summary = fmt.Sprintf("Hypertonic sodium: projected 24-h rise %s mmol/L (%s measured + %s from this order), limit %g",
-			naChange.of(*a.ProjectedTotal24h), naChange.of(a.Achieved24h), naChange.of(*a.ProjectedChange24h), a.Limit24h)
+		fd.Summary = fmt.Sprintf("Hypertonic sodium: projected 24-h rise %s mmol/L (%s measured + %s from %s), limit %g",
+			naChange.of(*a.ProjectedTotal24h), naChange.of(a.Achieved24h), naChange.of(*a.ProjectedChange24h), a.fromWhat(), a.Limit24h)
 	case hypertonic:
 		fd.Rule = RuleHypertonicOrder
 		fd.Summary = fmt.Sprintf("Hypertonic sodium with sodium %s mmol/L: projected change %s mmol/L in 24 h",
@@ -96,14 +125,56 @@ func (r *Ruleset) overSummary(a InfusionAssessment, word string) string {
 	l := r.policy.Limits
 	switch a.Binding {
 	case Bound48h:
-		return fmt.Sprintf("Projected sodium rise passes the 48-h limit of %g mmol/L: %s already, %s from this order",
-			a.Limit48h, naChange.of(a.Achieved48h), naChange.signed(*a.ProjectedChange24h))
+		return fmt.Sprintf("Projected sodium rise passes the 48-h limit of %g mmol/L: %s already, %s from %s",
+			a.Limit48h, naChange.of(a.Achieved48h), naChange.signed(*a.ProjectedChange24h), a.fromWhat())
 	case BoundHourly:
-		return fmt.Sprintf("Projected sodium fall %s mmol/L per hour with this order, above the %g mmol/L per hour limit",
-			naPerHour.of(math.Abs(*a.ProjectedChange24h)/a.RunHours), l.HypernatremiaFallPerHour.Value)
+		return fmt.Sprintf("Projected sodium fall %s mmol/L per hour with %s, above the %g mmol/L per hour limit",
+			naPerHour.of(math.Abs(*a.ProjectedChange24h)/a.RunHours), a.fromWhat(), l.HypernatremiaFallPerHour.Value)
 	}
-	return fmt.Sprintf("Projected 24-h sodium %s %s mmol/L (%s measured + %s from this order), above the %g limit",
-		word, naChange.of(math.Abs(*a.ProjectedTotal24h)), naChange.of(a.Achieved24h), naChange.of(math.Abs(*a.ProjectedChange24h)), a.Limit24h)
+	return fmt.Sprintf("Projected 24-h sodium %s %s mmol/L (%s measured + %s from %s), above the %g limit",
+		word, naChange.of(math.Abs(*a.ProjectedTotal24h)), naChange.of(a.Achieved24h), naChange.of(math.Abs(*a.ProjectedChange24h)), a.fromWhat(), a.Limit24h)
+}
+
+// counted are the other orders whose sodium the projection counts.
+func (a InfusionAssessment) counted() (drafts, running int) {
+	for _, c := range a.Others {
+		switch {
+		case c.Composition == nil || c.Volume24hLitres == nil:
+		case c.Running:
+			running++
+		default:
+			drafts++
+		}
+	}
+	return drafts, running
+}
+
+// fromWhat names what the projected change comes from: "this order", or
+// "this order and 1 running infusion", "this order, 1 other draft and 2
+// running infusions".
+func (a InfusionAssessment) fromWhat() string {
+	drafts, running := a.counted()
+	var parts []string
+	if drafts > 0 {
+		parts = append(parts, fmt.Sprintf("%d other draft%s", drafts, plural(drafts)))
+	}
+	if running > 0 {
+		parts = append(parts, fmt.Sprintf("%d running infusion%s", running, plural(running)))
+	}
+	switch len(parts) {
+	case 0:
+		return "this order"
+	case 1:
+		return "this order and " + parts[0]
+	}
+	return "this order, " + parts[0] + " and " + parts[1]
+}
+
+func plural(n int) string {
+	if n == 1 {
+		return ""
+	}
+	return "s"
 }
 
 // infusionAdvice is what a card of rule id suggests: for a projected
@@ -149,6 +220,21 @@ func shorten(s string, n int) string {
 	return s
 }
 
+// totalVolume is the 24-h volume of every order counted; nil without this
+// order's.
+func (a InfusionAssessment) totalVolume() *float64 {
+	if a.Volume24hLitres == nil {
+		return nil
+	}
+	v := *a.Volume24hLitres
+	for _, c := range a.Others {
+		if c.Composition != nil && c.Volume24hLitres != nil {
+			v += *c.Volume24hLitres
+		}
+	}
+	return &v
+}
+
 // figures are the machine-readable numbers (DESIGN §5 names).
 func (a InfusionAssessment) figures() map[string]float64 {
 	fig := map[string]float64{"limit24h": a.Limit24h, "infusateNaKmmolPerL": Round(a.Composition.NaK(), 1)}
@@ -176,8 +262,12 @@ func (a InfusionAssessment) figures() map[string]float64 {
 	}
 	set("tbwLitres", a.TBWLitres, 1)
 	set("deltaPerLitre", a.DeltaPerLitre, 2)
-	set("volume24hLitres", a.Volume24hLitres, 3)
+	set("volume24hLitres", a.totalVolume(), 3)
 	set("projectedChange24h", a.ProjectedChange24h, 1)
+	if len(a.Others) > 0 {
+		set("orderChange24h", a.OrderChange24h, 1)
+		set("othersChange24h", a.OthersChange24h, 1)
+	}
 	set("projectedTotal24h", a.ProjectedTotal24h, 1)
 	// Limits are shown rounded down, so no shown figure passes them.
 	floor := func(name string, v *float64, decimals int) {
@@ -266,9 +356,19 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	if a.DeltaPerLitre != nil {
 		line("Change per litre (Adrogué–Madias): %s mmol/L", naPerLitre.signed(*a.DeltaPerLitre))
 	}
-	if a.ProjectedChange24h != nil {
+	r.othersLines(&b, a)
+	switch {
+	case a.ProjectedChange24h != nil && len(a.Others) > 0:
+		line("Projected change in 24 h from everything counted: %s mmol/L (this order %s, the others %s); projected 24-h total: %s mmol/L",
+			naChange.signed(*a.ProjectedChange24h), naChange.signed(*a.OrderChange24h),
+			naChange.signed(*a.ProjectedChange24h-*a.OrderChange24h), naChange.signed(*a.ProjectedTotal24h))
+	case a.ProjectedChange24h != nil:
 		line("Projected change from this order: %s mmol/L; projected 24-h total: %s mmol/L", naChange.signed(*a.ProjectedChange24h),
 			naChange.signed(*a.ProjectedTotal24h))
+	}
+	if a.OthersReachLimit {
+		line("The other fluids alone bring %s mmol/L in 24 h, which uses the %s mmol/L still allowed: no volume of this order fits while they run as ordered",
+			naChange.signed(*a.OthersChange24h), naChange.of(a.Allowed))
 	}
 	if a.DeltaPerLitre != nil && !a.LimitReached {
 		line("Still allowed: %s mmol/L, set by %s", naChange.of(a.Allowed), r.describeLimit(a))
@@ -276,11 +376,13 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	switch {
 	case a.LimitReached:
 		line("The %s allowed by %s is already used", word, r.describeLimit(a))
+	case a.OthersReachLimit:
+		// said above: no volume of this order fits
 	case a.MaxRateMlPerHour != nil:
-		line("Largest rate that keeps the projection within the limit: %s mL/h over %s h (%s L), rounded down",
+		line("Largest rate that keeps the projection within the limit%s: %s mL/h over %s h (%s L), rounded down", a.givenOthers(),
 			orderRate.of(math.Floor(*a.MaxRateMlPerHour*10)/10), orderHours.of(a.InfusionHours), maxLitres.of(math.Floor(*a.MaxVolume24hLitres*1000)/1000))
 	case a.MaxVolume24hLitres != nil:
-		line("Largest volume in the next 24 h that keeps the projection within the limit: %s mL, rounded down",
+		line("Largest volume in the next 24 h that keeps the projection within the limit%s: %s mL, rounded down", a.givenOthers(),
 			orderMl.of(math.Floor(*a.MaxVolume24hLitres*1000)))
 	}
 	if a.FreeWaterDeficitLitres != nil {
@@ -292,12 +394,72 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	if len(a.Missing) > 0 {
 		b.WriteString("\n**Could not be computed without**: " + strings.Join(a.Missing, "; ") + ". Nothing was assumed in their place.\n")
 	}
-	b.WriteString("\n**Method**: mass balance ΔNa = V·(Na + K of the infusate − serum Na)/(TBW + V), the " +
-		"Adrogué–Madias formula (N Engl J Med 2000) scaled to the 24-h volume (Chen & Shey, Kidney360 2021). " +
-		"Rolling 24-h and 48-h windows end now; the projected 24-h total adds the order's next 24 h to the " +
-		"change already measured in the last 24 h. The projection ignores urine output, insensible and other " +
-		"ongoing losses, and other fluids and drugs; measured sodium is the guide.")
+	b.WriteString("\n**Method**: mass balance ΔNa = ΣVᵢ·(Na + K of infusate i − serum Na)/(TBW + ΣVᵢ) over the next 24 h, the " +
+		"Adrogué–Madias formula (N Engl J Med 2000) scaled to each 24-h volume (Chen & Shey, Kidney360 2021) and summed over " +
+		"this order, the call's other draft orders and the infusions already running; an infusion runs at its rate for 24 h " +
+		"unless its order states a stop. Rolling 24-h and 48-h windows end now; the projected 24-h total adds the next 24 h " +
+		"to the change already measured in the last 24 h. The projection ignores urine output, insensible and other ongoing " +
+		"losses, fluids it could not identify and drugs; measured sodium is the guide.")
 	return b.String()
+}
+
+// othersLines names every other order counted beside this one, and the
+// ones that could not be counted, with why.
+func (r *Ruleset) othersLines(b *strings.Builder, a InfusionAssessment) {
+	for _, c := range a.Others {
+		status := "draft"
+		if c.Running {
+			status = "running"
+		}
+		what := fmt.Sprintf("%s (%s: %s)", c.Order.Reference, status, orderText(c.Order))
+		switch {
+		case c.Composition == nil:
+			fmt.Fprintf(b, "- Not counted: %s: the fluid is not identified, so its sodium is unknown; the projection leaves it out\n", what)
+		case c.Volume24hLitres == nil:
+			fmt.Fprintf(b, "- Not counted: %s: the order gives no rate or volume in mL\n", what)
+		default:
+			fmt.Fprintf(b, "- Also counted: %s: %s L in 24 h (%s), sodium %s + potassium %s mmol/L", what,
+				volume24h.of(*c.Volume24hLitres), c.VolumeBasis, infusateNa.of(c.Composition.Na), infusateNa.of(c.Composition.K))
+			if c.Change24h != nil {
+				fmt.Fprintf(b, ", %s mmol/L", naChange.signed(*c.Change24h))
+			}
+			b.WriteString("\n")
+		}
+	}
+}
+
+// givenOthers qualifies a rate that fits when other orders are counted.
+func (a InfusionAssessment) givenOthers() string {
+	if d, r := a.counted(); d+r > 0 {
+		return ", the other orders counted as ordered"
+	}
+	return ""
+}
+
+// contributorAttributes lists every order the projection counted or named,
+// for extension.halite.contributors: reference, status (draft or active),
+// 24-h volume and infusate Na+K when known.
+func (a InfusionAssessment) contributorAttributes() map[string]any {
+	entry := func(o MedicationOrder, running bool, comp *Composition, vol *float64) map[string]any {
+		e := map[string]any{"reference": o.Reference, "status": "draft"}
+		if running {
+			e["status"] = "active"
+		}
+		if vol != nil {
+			e["volume24hLitres"] = Round(*vol, 3)
+		}
+		if comp != nil {
+			e["naKmmolPerL"] = Round(comp.NaK(), 1)
+		} else {
+			e["fluidUnknown"] = true
+		}
+		return e
+	}
+	list := []map[string]any{entry(a.Order, false, a.Composition, a.Volume24hLitres)}
+	for _, c := range a.Others {
+		list = append(list, entry(c.Order, c.Running, c.Composition, c.Volume24hLitres))
+	}
+	return map[string]any{"contributors": list}
 }
 
 // asSent gives the value as the chart sent it when halite converted it.

@@ -71,19 +71,56 @@ func DeltaPerLitre(naK, serumNa, tbw float64) float64 {
 // stays within allowed (mmol/L, same sign as the change the fluid causes),
 // solved from the same mass balance: V = allowed·TBW/(d − allowed) with
 // d = Na_inf + K_inf − Na. It is +Inf when no volume can exceed allowed (the
-// change approaches d as V grows), and 0 when nothing is allowed.
+// change approaches d as V grows), and 0 when nothing is allowed. It is
+// MaxVolumeGiven with nothing else infused.
 func MaxVolume(allowed, naK, serumNa, tbw float64) float64 {
+	return MaxVolumeGiven(allowed, naK, serumNa, tbw, Infused{})
+}
+
+// Infused is what other fluids bring to a mass balance over 24 h: their
+// volume ΣVᵢ (litres) and their excess Σ Vᵢ·(Na+Kᵢ − Na) (mmol), both
+// relative to one serum sodium.
+type Infused struct {
+	Litres, Excess float64
+}
+
+// Add counts volume litres of a fluid with sodium + potassium naK.
+func (in Infused) Add(litres, naK, serumNa float64) Infused {
+	return Infused{in.Litres + litres, in.Excess + litres*(naK-serumNa)}
+}
+
+// CombinedChange is the change in serum sodium after all of in is given:
+// Na₂₄ − Na = Σ Vᵢ·(Na+Kᵢ − Na)/(TBW + ΣVᵢ), the mass balance
+// Na₂₄ = (Na·TBW + Σ(Na+K)ᵢ·Vᵢ)/(TBW + ΣVᵢ) over several infusates
+// (Adrogué–Madias's balance, N Engl J Med 2000, applied to their sum;
+// for one fluid it is ProjectedChange).
+func CombinedChange(in Infused, tbw float64) float64 {
+	return in.Excess / (tbw + in.Litres)
+}
+
+// MaxVolumeGiven is the largest volume (litres) of one infusate (sodium +
+// potassium naK) that keeps the combined change within allowed (signed as
+// the change the limits restrict) while the others, given as ordered,
+// bring others: from (S + V·d)/(W + V) = allowed with S = others.Excess,
+// W = TBW + others.Litres and d = naK − Na, V = (allowed·W − S)/(d −
+// allowed). It is 0 when the others alone already reach allowed, and +Inf
+// when no volume of this fluid can pass it (the change approaches d).
+func MaxVolumeGiven(allowed, naK, serumNa, tbw float64, others Infused) float64 {
 	d := naK - serumNa
-	if allowed == 0 || d == 0 || math.Signbit(allowed) != math.Signbit(d) {
-		if allowed == 0 {
-			return 0
-		}
+	w := tbw + others.Litres
+	if allowed == 0 && others.Excess == 0 {
+		return 0
+	}
+	if d == 0 || math.Signbit(allowed) != math.Signbit(d) {
 		return math.Inf(1)
+	}
+	if s := math.Copysign(1, allowed); s*others.Excess/w >= s*allowed {
+		return 0
 	}
 	if math.Abs(d) <= math.Abs(allowed) {
 		return math.Inf(1)
 	}
-	return allowed * tbw / (d - allowed)
+	return (allowed*w - others.Excess) / (d - allowed)
 }
 
 // FreeWaterDeficit is the classic water deficit in litres,
