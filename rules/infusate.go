@@ -22,6 +22,9 @@ type Fluid struct {
 	Na     float64  `json:"na"`
 	K      float64  `json:"k"`
 	Source string   `json:"source"`
+	// PotassiumPremixed: the product's potassium chloride is in K, so the
+	// potassium its RxNorm name states is not added again.
+	PotassiumPremixed bool `json:"potassiumPremixed,omitempty"`
 }
 
 // fluidTable indexes the known fluids by RxNorm code and normalised name.
@@ -108,6 +111,9 @@ func (r *Ruleset) InfusateComposition(m Medication) (Composition, bool) {
 		if i, ok := t.byCode[c.Code]; ok {
 			f := t.Fluids[i]
 			comp := Composition{Na: f.Na, K: f.K, Basis: "RxNorm " + c.Code + " (" + f.Label + ")", Source: f.Source}
+			if f.PotassiumPremixed {
+				return comp, true
+			}
 			k, ok := addedPotassium(m)
 			if !ok {
 				return Composition{}, false

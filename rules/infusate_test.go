@@ -68,6 +68,19 @@ func TestInfusateComposition(t *testing.T) {
 			ing("9863", "sodium chloride", mgPerML(6)), ing("56489", "sodium lactate", mgPerML(3.1)),
 			ing("8591", "potassium chloride", mgPerML(0.3)), {Text: "calcium chloride", Strength: mgPerML(0.2)},
 		}}, 130, 4, 0.5},
+		// Fluids wards run (issue 19), by product code from the RxNorm extract
+		// and values from their labels (sources in infusates.json).
+		{"multiple electrolytes type 1 by SCD 801109", Medication{Codings: []Coding{{System: rxnorm, Code: "801109"}}}, 140, 5, 0},
+		{"8.4% bicarbonate by SCD 1868486", Medication{Codings: []Coding{{System: rxnorm, Code: "1868486"}}}, 1000, 0, 0},
+		{"4.2% bicarbonate by SCD 2198792", Medication{Codings: []Coding{{System: rxnorm, Code: "2198792"}}}, 500, 0, 0},
+		// A premix's potassium is in the table; its RxNorm name states it
+		// again and must not be added twice.
+		{"0.9% NaCl + KCl 20 premix by SCD 637551 with its RxNorm name", Medication{Codings: []Coding{{System: rxnorm, Code: "637551",
+			Display: "1000 ML potassium chloride 0.02 MEQ/ML / sodium chloride 9 MG/ML Injection"}}}, 154, 20, 0},
+		{"D5 0.45% NaCl + KCl 20 premix by SCD 1863605", Medication{Codings: []Coding{{System: rxnorm, Code: "1863605"}}}, 77, 20, 0},
+		{"name: isotonic bicarbonate", Medication{Text: "isotonic sodium bicarbonate"}, 150, 0, 0},
+		{"name: albumin 5%", Medication{Text: "Albumin 5%"}, 145, 0, 0},
+		{"name: plasma-lyte 148", Medication{Text: "Plasma-Lyte 148"}, 140, 5, 0},
 		// Names (the fluid table, same label values).
 		{"name: 3% saline", Medication{Text: "3% Saline"}, 513, 0, 0},
 		{"name: NaCl 0.45%", Medication{Text: "NaCl 0.45%"}, 77, 0, 0},
