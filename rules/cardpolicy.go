@@ -42,9 +42,21 @@ type CardRule struct {
 type CardPolicy struct {
 	// HypertonicNaKAtLeast is the infusate Na + K (mmol/L) from which an
 	// order is hypertonic saline and always answered with a card.
-	HypertonicNaKAtLeast float64             `json:"hypertonicNaKAtLeast"`
-	Rules                map[string]CardRule `json:"rules"`
-	Source               string              `json:"source"`
+	HypertonicNaKAtLeast float64 `json:"hypertonicNaKAtLeast"`
+	// NotHypotonic says when the sodium a hypertonic order is for is not a
+	// hypotonic hyponatremia, which hypertonic saline treats.
+	NotHypotonic NotHypotonicPolicy  `json:"notHypotonic"`
+	Rules        map[string]CardRule `json:"rules"`
+	Source       string              `json:"source"`
+}
+
+// NotHypotonicPolicy: an effective osmolality of at least
+// EffectiveOsmolalityAtLeast (mOsm/kg), or a glucose-corrected sodium (Katz)
+// of at least CorrectedSodiumAtLeast (mmol/L), is not hypotonic.
+type NotHypotonicPolicy struct {
+	EffectiveOsmolalityAtLeast float64 `json:"effectiveOsmolalityAtLeast"`
+	CorrectedSodiumAtLeast     float64 `json:"correctedSodiumAtLeast"`
+	Source                     string  `json:"source"`
 }
 
 // WaterDrug is a drug acting on renal water handling (a vasopressin V2
@@ -74,13 +86,16 @@ type WaterDrugPolicy struct {
 
 // cardRules are the rule ids the card policy must cover (infusion check
 // and chart review; the drug-risk check has its own severity table).
-var cardRules = [...]string{RuleLimitExceeded, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
+var cardRules = [...]string{RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
 	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
 	RuleSIADHPattern, RuleUrineStudiesMissing, RuleConcentratingDefect}
 
 func (c CardPolicy) validate() error {
 	if c.HypertonicNaKAtLeast <= 154 || c.Source == "" {
 		return fmt.Errorf("cards needs hypertonicNaKAtLeast above 0.9%% saline's 154 mmol/L and a source")
+	}
+	if n := c.NotHypotonic; n.EffectiveOsmolalityAtLeast <= 0 || n.CorrectedSodiumAtLeast <= 0 || n.Source == "" {
+		return fmt.Errorf("cards.notHypotonic needs positive thresholds and a source")
 	}
 	for _, id := range cardRules {
 		r, ok := c.Rules[id]

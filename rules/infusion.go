@@ -10,11 +10,14 @@ import (
 
 // Rule ids of the infusion check.
 const (
-	RuleLimitExceeded   = "sodium-limit-exceeded"
-	RuleProjectedOver   = "sodium-projected-over-limit"
-	RuleNoProjection    = "hypertonic-projection-unavailable"
-	RuleHypertonicOrder = "hypertonic-saline-projection"
-	RuleWaterDrug       = "water-balance-drug-caution"
+	RuleLimitExceeded = "sodium-limit-exceeded"
+	// RuleHypertonicNotHypotonic: hypertonic saline for a sodium that is
+	// not a hypotonic hyponatremia (cards.notHypotonic).
+	RuleHypertonicNotHypotonic = "hypertonic-saline-not-hypotonic"
+	RuleProjectedOver          = "sodium-projected-over-limit"
+	RuleNoProjection           = "hypertonic-projection-unavailable"
+	RuleHypertonicOrder        = "hypertonic-saline-projection"
+	RuleWaterDrug              = "water-balance-drug-caution"
 )
 
 // infusionFindings judges each selected draft order whose sodium content is
@@ -22,6 +25,9 @@ const (
 // and re-check interval of each rule are policy data (cards.rules):
 //   - sodium-limit-exceeded: the measured change already exceeds the 24-h
 //     or 48-h limit and the order moves sodium further the same way;
+//   - hypertonic-saline-not-hypotonic: a hypertonic order while the
+//     effective osmolality or the glucose-corrected sodium says the sodium
+//     is not a hypotonic hyponatremia (tonicity first);
 //   - sodium-projected-over-limit: the projected change exceeds what the
 //     tightest limit still allows (its high-risk indicator applies at high
 //     demyelination risk in hyponatremia);
@@ -90,6 +96,9 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 			fd.Summary = fmt.Sprintf("Sodium already rose %s mmol/L in 48 h (limit %g); this order raises it further",
 				naChange.of(a.Achieved48h), a.Limit48h)
 		}
+	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
+		fd.Rule = RuleHypertonicNotHypotonic
+		fd.Summary = notHypotonicSummary(a.Context)
 	case a.OverLimit && a.OthersReachLimit:
 		fd.Rule = RuleProjectedOver
 		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order adds %s",
@@ -118,7 +127,48 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	}
 	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
 	fd.Detail = r.detail(a, word, rule.RecheckHours)
+	if fd.Rule == RuleHypertonicNotHypotonic {
+		fd.Detail = r.notHypotonicLead(a.Context) + fd.Detail
+	}
 	return fd, true
+}
+
+// tonicityNotHypotonic reports whether the tonicity context says the sodium is not
+// a hypotonic hyponatremia (cards.notHypotonic).
+func (r *Ruleset) tonicityNotHypotonic(c TonicityContext) bool {
+	n := r.policy.Cards.NotHypotonic
+	return c.EffectiveOsmolality != nil && *c.EffectiveOsmolality >= n.EffectiveOsmolalityAtLeast ||
+		c.CorrectedKatz != nil && *c.CorrectedKatz >= n.CorrectedSodiumAtLeast
+}
+
+// notHypotonicSummary gives the corrected sodium and the effective
+// osmolality first.
+func notHypotonicSummary(c TonicityContext) string {
+	var parts []string
+	if c.CorrectedKatz != nil {
+		parts = append(parts, "glucose-corrected sodium "+naChange.of(*c.CorrectedKatz))
+	}
+	if c.EffectiveOsmolality != nil {
+		parts = append(parts, "effective osmolality "+osmolal.of(*c.EffectiveOsmolality)+" mOsm/kg")
+	}
+	return shorten("Hypertonic saline, but the sodium is not hypotonic: "+strings.Join(parts, ", "), 139)
+}
+
+// notHypotonicLead is the first paragraph of a not-hypotonic card.
+func (r *Ruleset) notHypotonicLead(c TonicityContext) string {
+	n := r.policy.Cards.NotHypotonic
+	var b strings.Builder
+	b.WriteString("**Not hypotonic**: ")
+	if c.CorrectedKatz != nil {
+		fmt.Fprintf(&b, "glucose-corrected sodium %s mmol/L (Katz; %s by Hillier), ", naChange.of(*c.CorrectedKatz), naChange.of(*c.CorrectedHillier))
+	}
+	if c.EffectiveOsmolality != nil {
+		fmt.Fprintf(&b, "effective osmolality %s mOsm/kg (%s). ", osmolal.of(*c.EffectiveOsmolality), c.EffectiveBasis)
+	}
+	fmt.Fprintf(&b, "Hypertonic saline treats hypotonic hyponatremia; at an effective osmolality of %g mOsm/kg or more, or a "+
+		"corrected sodium of %g mmol/L or more, the low sodium reflects another osmole (such as glucose), and the cause may "+
+		"deserve treatment first. The prescriber's assessment decides.\n\n", n.EffectiveOsmolalityAtLeast, n.CorrectedSodiumAtLeast)
+	return b.String()
 }
 
 func (r *Ruleset) overSummary(a InfusionAssessment, word string) string {
@@ -186,7 +236,7 @@ func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Adv
 	recheck := recheckAdvice(recheckHours)
 	withdraw := Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"}
 	switch id {
-	case RuleLimitExceeded:
+	case RuleLimitExceeded, RuleHypertonicNotHypotonic:
 		return []Advice{recheck, withdraw}
 	case RuleProjectedOver:
 		var out []Advice

@@ -38,6 +38,14 @@ func TestInfusionCardPolicy(t *testing.T) {
 		{"hypertonic without a weight", woman(0, map[float64]float64{2: 116}, nil), order("3% saline", 10), RuleNoProjection, Warning},
 		// 0.24 L of 3%: 0.24 × 397/30.24 = 3.2 mmol/L, within the limit.
 		{"hypertonic within the limit", woman(60, map[float64]float64{2: 116}, nil), order("3% saline", 10), RuleHypertonicOrder, Info},
+		// Tonicity first: sodium 124 with glucose 30 mmol/L (540.5 mg/dL) is
+		// 124 + 1.6 × 4.405 = 131.0 by Katz (N Engl J Med 1973), but the
+		// effective osmolality 2 × 124 + 30 = 278 ≥ 275 is not hypotonic.
+		{"hypertonic saline, not hypotonic", woman(60, map[float64]float64{2: 124}, map[Analyte][]Measurement{
+			Glucose: {{Analyte: Glucose, Value: 30, At: at.Add(-2 * time.Hour)}}}), order("3% saline", 10), RuleHypertonicNotHypotonic, Warning},
+		// Glucose 10 mmol/L: effective 2 × 124 + 10 = 258, Katz 124 + 1.6 × 0.80 = 125.3: hypotonic.
+		{"hypertonic saline, hypotonic", woman(60, map[float64]float64{2: 124}, map[Analyte][]Measurement{
+			Glucose: {{Analyte: Glucose, Value: 10, At: at.Add(-2 * time.Hour)}}}), order("3% saline", 10), RuleHypertonicOrder, Info},
 		// Rising too fast already, but 5% dextrose lowers sodium: no limit card.
 		{"order moving the other way", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 100), "", 0},
 		{"isotonic at normal sodium", woman(60, map[float64]float64{2: 139}, nil), order("0.9% sodium chloride", 100), "", 0},
