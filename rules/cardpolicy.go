@@ -219,6 +219,11 @@ type ChartReviewPolicy struct {
 		// flagged as tighter than insensible losses.
 		PaediatricInsensibleMlPerM2 float64 `json:"paediatricInsensibleMlPerM2"`
 		PaediatricInsensibleSource  string  `json:"paediatricInsensibleSource"`
+		// HypovolaemiaBUNCreatinineAbove: a blood urea nitrogen to
+		// creatinine ratio (mg/dL to mg/dL) above it leans hypovolaemic, and
+		// no restriction volume is given.
+		HypovolaemiaBUNCreatinineAbove float64 `json:"hypovolaemiaBunCreatinineAbove"`
+		WithheldSource                 string  `json:"withheldSource"`
 	} `json:"restriction"`
 	HeightMaxAgeHours float64 `json:"heightMaxAgeHours"`
 	Source            string  `json:"source"`
@@ -230,7 +235,8 @@ func (c ChartReviewPolicy) validate() error {
 		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
 		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
-		"restriction.adultBSA": c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2} {
+		"restriction.adultBSA": c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
+		"restriction.hypovolaemiaBunCreatinineAbove": c.Restriction.HypovolaemiaBUNCreatinineAbove} {
 		if v <= 0 {
 			return fmt.Errorf("chartReview.%s must be positive", name)
 		}

@@ -333,9 +333,19 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		ratio := (c.urineNa.Value + c.urineK.Value) / c.latest.Value
 		fig["urinePlasmaElectrolyteRatio"] = Round(ratio, 2)
 		band := r.restrictionBand(ratio)
-		fmt.Fprintf(&b, "- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s: %s (%s)\n", show(UrineSodium, c.urineNa.Value),
-			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio), band.Text, cp.Restriction.Scheme)
-		r.paediatricBand(&b, c, band, fig)
+		ratioText := fmt.Sprintf("- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s", show(UrineSodium, c.urineNa.Value),
+			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio))
+		child, _ := r.isChild(c.f)
+		switch why := r.restrictionWithheld(c); {
+		case why != "":
+			fmt.Fprintf(&b, "%s (%s); no restriction volume is given: %s\n", ratioText, cp.Restriction.Scheme, why)
+		case child:
+			fmt.Fprintf(&b, "%s (%s)\n", ratioText, cp.Restriction.Scheme)
+			r.paediatricBand(&b, c, fig)
+		default:
+			fmt.Fprintf(&b, "%s: %s (%s)\n", ratioText, band.Text, cp.Restriction.Scheme)
+			r.paediatricBand(&b, c, fig)
+		}
 	} else {
 		b.WriteString("- Urine potassium not available: the urine-to-plasma electrolyte ratio was not computed\n")
 	}
@@ -358,6 +368,35 @@ func missingUrine(osm, na *Measurement) string {
 	return "no urine sodium"
 }
 
+// restrictionWithheld says why no fluid-restriction volume may be given
+// (chartReview.restriction.withheldSource), or "" when one may: sodium
+// already risen at or beyond the limit, a vasopressin-receptor antagonist
+// active or drafted, or a urea-to-creatinine ratio that leans hypovolaemic.
+func (r *Ruleset) restrictionWithheld(c chart) string {
+	rs := r.policy.ChartReview.Restriction
+	l := c.limits
+	switch {
+	case l.Achieved24h >= l.Limit24h:
+		return fmt.Sprintf("sodium has already risen %s mmol/L in 24 h, at or beyond the limit of %g", naChange.of(l.Achieved24h), l.Limit24h)
+	case l.Limit48h > 0 && l.Achieved48h >= l.Limit48h:
+		return fmt.Sprintf("sodium has already risen %s mmol/L in 48 h, at or beyond the limit of %g", naChange.of(l.Achieved48h), l.Limit48h)
+	}
+	for _, o := range append(append([]MedicationOrder(nil), c.f.Medications...), c.f.DraftOrders...) {
+		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && d.RaisesSodium {
+			return fmt.Sprintf("%s is active or ordered (%s): restriction is not combined with it early in treatment", d.Name, o.Reference)
+		}
+	}
+	urea := nearest(c.f.Labs[Urea], *c.latest, r.policy.ChartReview.LabPairHours, c.f)
+	creat := nearest(c.f.Labs[Creatinine], *c.latest, r.policy.ChartReview.LabPairHours, c.f)
+	if urea != nil && creat != nil && creat.Value > 0 {
+		if ratio := BUNCreatinineRatio(urea.Value, creat.Value); ratio > rs.HypovolaemiaBUNCreatinineAbove {
+			return fmt.Sprintf("the blood urea nitrogen to creatinine ratio is %s (above %g), which leans hypovolaemic",
+				ratioOrBSA.of(ratio), rs.HypovolaemiaBUNCreatinineAbove)
+		}
+	}
+	return ""
+}
+
 func (r *Ruleset) restrictionBand(ratio float64) RestrictionBand {
 	bands := r.policy.ChartReview.Restriction.Bands
 	for _, b := range bands {
@@ -368,25 +407,37 @@ func (r *Ruleset) restrictionBand(ratio float64) RestrictionBand {
 	return bands[len(bands)-1]
 }
 
-// paediatricBand states a child's restriction per body-surface area, or
-// says which measurement is missing; without a birth date it says the band
-// shown is an adult's, rather than assume an adult.
-func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBand, fig map[string]float64) {
+// isChild reports whether the patient is known to be under the adult age;
+// ok is false without a birth date.
+func (r *Ruleset) isChild(f Facts) (child, ok bool) {
+	age, ok := f.Patient.AgeYears(f.At)
+	return ok && age < r.policy.TBW.AdultFromAge, ok
+}
+
+// paediatricBand says how a child's restriction is set instead of the adult
+// band — from insensible losses per body-surface area plus urine output, so
+// never below insensible losses — or which measurement is missing; without
+// a birth date it says the band shown is an adult's, rather than assume an
+// adult.
+func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, fig map[string]float64) {
 	p := r.policy
-	age, ok := c.f.Patient.AgeYears(c.f.At)
-	if !ok {
-		b.WriteString("- Age not recorded (no birth date): the band above is for an adult; for a child it would be scaled " +
-			"to body-surface area\n")
+	rs := p.ChartReview.Restriction
+	child, ok := r.isChild(c.f)
+	switch {
+	case !ok:
+		b.WriteString("- Age not recorded (no birth date): the band above is for an adult; a child's restriction is set " +
+			"from insensible losses plus urine output instead\n")
 		return
-	}
-	if age >= p.TBW.AdultFromAge {
+	case !child:
 		return
 	}
 	w, okW := latestWithin(c.f.Labs[BodyWeight], c.f.At, p.Projection.WeightMaxAgeHours)
 	h, okH := latestWithin(c.f.Labs[BodyHeight], c.f.At, p.ChartReview.HeightMaxAgeHours)
 	if !okW || !okH {
-		fmt.Fprintf(b, "- Child: the band per body-surface area needs a weight from the last %s days and a height from the last %s days; "+
-			"missing: %s\n", orderHours.of(p.Projection.WeightMaxAgeHours/24), orderHours.of(p.ChartReview.HeightMaxAgeHours/24), missingSize(okW, okH))
+		fmt.Fprintf(b, "- Child: a restriction is set from insensible losses (about %g mL/m²/day) plus urine output (%s); the "+
+			"body-surface area needs a weight from the last %s days and a height from the last %s days; missing: %s\n",
+			rs.PaediatricInsensibleMlPerM2, rs.PaediatricInsensibleSource, orderHours.of(p.Projection.WeightMaxAgeHours/24),
+			orderHours.of(p.ChartReview.HeightMaxAgeHours/24), missingSize(okW, okH))
 		return
 	}
 	bsa, err := MostellerBSA(h.Value, w.Value)
@@ -394,17 +445,11 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, band RestrictionBa
 		fmt.Fprintf(b, "- Child: body-surface area not computed: %v\n", err)
 		return
 	}
-	perM2 := band.MlPerDayUpTo / p.ChartReview.Restriction.AdultBSA
 	fig["bsaM2"] = Round(bsa, 2)
-	fmt.Fprintf(b, "- Child: body-surface area %s m² (Mosteller; %s cm, %s kg); the band's %g mL/day for an adult is about %s mL/m²/day, "+
-		"%s mL/day for this child (%s)\n", ratioOrBSA.of(bsa), show(BodyHeight, h.Value), show(BodyWeight, w.Value), band.MlPerDayUpTo,
-		mlPerDay.of(perM2), mlPerDay.of(perM2*bsa),
-		p.ChartReview.Restriction.PaediatricSource)
-	if rs := p.ChartReview.Restriction; perM2 < rs.PaediatricInsensibleMlPerM2 {
-		fmt.Fprintf(b, "- That is below the %g mL/m²/day of insensible losses (%s mL/day for this child): a restriction this "+
-			"tight is not usually used in a child (%s)\n", rs.PaediatricInsensibleMlPerM2, mlPerDay.of(rs.PaediatricInsensibleMlPerM2*bsa),
-			rs.PaediatricInsensibleSource)
-	}
+	fmt.Fprintf(b, "- Child: body-surface area %s m² (Mosteller; %s cm, %s kg). A child's restriction is set from insensible losses, "+
+		"about %g mL/m²/day (%s mL/day for this child), plus the measured urine output, never below the insensible losses; the adult "+
+		"bands are not scaled down (%s; %s)\n", ratioOrBSA.of(bsa), show(BodyHeight, h.Value), show(BodyWeight, w.Value),
+		rs.PaediatricInsensibleMlPerM2, mlPerDay.of(rs.PaediatricInsensibleMlPerM2*bsa), rs.PaediatricInsensibleSource, rs.PaediatricSource)
 }
 
 func missingSize(haveWeight, haveHeight bool) string {

@@ -25,6 +25,23 @@ func chartFacts(t *testing.T, birth string, na map[float64]float64, extra ...Mea
 // from the policy limits (reference notes §1), the SIADH criteria (§4.3),
 // the urine/plasma ratio bands (Furst 2000 in the three-band form, §4.1),
 // Katz and Hillier (§3) and Mosteller (§9).
+// withheld checks that the SIADH card gives no restriction volume, saying why.
+func withheld(why string) func(t *testing.T, fs []Finding) {
+	return func(t *testing.T, fs []Finding) {
+		t.Helper()
+		for _, f := range fs {
+			if f.Rule != RuleSIADHPattern {
+				continue
+			}
+			if !strings.Contains(f.Detail, "no restriction volume is given: ") || !strings.Contains(f.Detail, why) || strings.Contains(f.Detail, "1,000 mL/day") {
+				t.Errorf("restriction not withheld with %q:\n%s", why, f.Detail)
+			}
+			return
+		}
+		t.Errorf("no SIADH card in %+v", fs)
+	}
+}
+
 func TestChartReview(t *testing.T) {
 	rs := loadRuleset(t)
 	const adult, child = "1970-01-10", "2018-06-15"
@@ -96,9 +113,9 @@ func TestChartReview(t *testing.T) {
 					t.Errorf("advice %+v", fs[0].Advice)
 				}
 			}},
-		// (92 + 48)/128 = 1.09 > 1: restriction unlikely to work.
+		// (92 + 48)/128 = 1.09 > 1: restriction alone unlikely to let sodium rise.
 		{"SIADH pattern, ratio above 1", RuleSIADHPattern, chartFacts(t, adult, map[float64]float64{2: 128}, siadh(92, 48)...), func(t *testing.T, fs []Finding) {
-			if !near(fs[0].Figures["urinePlasmaElectrolyteRatio"], 1.09, 0.005) || !strings.Contains(fs[0].Detail, "unlikely to work") {
+			if !near(fs[0].Figures["urinePlasmaElectrolyteRatio"], 1.09, 0.005) || !strings.Contains(fs[0].Detail, "unlikely to let sodium rise") {
 				t.Errorf("%v", fs[0].Figures)
 			}
 		}},
@@ -109,21 +126,39 @@ func TestChartReview(t *testing.T) {
 			}
 		}},
 		{"urine sodium too low for SIADH", "", chartFacts(t, adult, map[float64]float64{2: 128}, siadh(20, 30)...), nil},
-		// Child 110 cm / 18 kg: Mosteller 0.7416 m² (reference notes §9 check value);
-		// ratio (60 + 30)/128 = 0.70 → 700 mL/day per 1.73 m² → 404.6 mL/m²/day → 300 mL/day.
-		{"child with a band per BSA", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128},
+		// Child 110 cm / 18 kg: Mosteller 0.7416 m² (reference notes §9 check value).
+		// Ratio (60 + 30)/128 = 0.70: the adult band scaled down would be 700/1.73
+		// = 404.6 mL/m²/day, about the 400 of insensible losses (issue 19), so a
+		// child gets no scaled band: insensible losses 400 × 0.7416 = 297 mL/day
+		// plus urine output.
+		{"child: insensible losses plus urine output, no scaled band", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128},
 			append(siadh(60, 30), lab(BodyWeight, 18, 20), lab(BodyHeight, 110, 20))...), func(t *testing.T, fs []Finding) {
-			if fs[0].Figures["bsaM2"] != 0.74 || !strings.Contains(fs[0].Detail, "about 405 mL/m²/day, 300 mL/day") {
-				t.Errorf("%v\n%s", fs[0].Figures, fs[0].Detail)
+			d := fs[0].Detail
+			if fs[0].Figures["bsaM2"] != 0.74 || !strings.Contains(d, "297 mL/day for this child), plus the measured urine output") ||
+				strings.Contains(d, "500-700 mL/day") || strings.Contains(d, "405") {
+				t.Errorf("%v\n%s", fs[0].Figures, d)
 			}
 		}},
-		// Ratio 1.09 → 500 mL/day per 1.73 m² = 289 mL/m²/day, below 400 of insensible losses.
-		{"child band below insensible losses", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128},
+		// Ratio 1.09: no adult band text for a child either.
+		{"child with a ratio above 1", RuleSIADHPattern, chartFacts(t, child, map[float64]float64{2: 128},
 			append(siadh(92, 48), lab(BodyWeight, 18, 20), lab(BodyHeight, 110, 20))...), func(t *testing.T, fs []Finding) {
-			if !strings.Contains(fs[0].Detail, "below the 400 mL/m²/day of insensible losses") {
-				t.Errorf("%s", fs[0].Detail)
+			if d := fs[0].Detail; strings.Contains(d, "less than 500 mL/day") || !strings.Contains(d, "never below the insensible losses") {
+				t.Errorf("%s", d)
 			}
 		}},
+		// No restriction volume while sodium already rose 10 in 24 h (the
+		// limit), under a vaptan, or with BUN/creatinine above 20 (urea 10
+		// mmol/L = BUN 28.0 mg/dL, creatinine 88.4 µmol/L = 1.0 mg/dL: 28.0).
+		{"restriction withheld: rising at the limit", RuleNearingLimit, chartFacts(t, adult, map[float64]float64{20: 118, 2: 128},
+			append(siadh(32, 18), normalK)...), withheld("already risen 10.0 mmol/L in 24 h")},
+		{"restriction withheld: vaptan active", RuleSIADHPattern, func() Facts {
+			f := chartFacts(t, adult, map[float64]float64{2: 128}, siadh(32, 18)...)
+			f.Medications = []MedicationOrder{{Reference: "MedicationRequest/tv", Status: "active", Medication: Medication{Text: "tolvaptan 15 mg"}}}
+			return f
+		}(), withheld("tolvaptan is active or ordered")},
+		{"restriction withheld: leans hypovolaemic", RuleSIADHPattern, chartFacts(t, adult, map[float64]float64{2: 128},
+			glucose(90), lab(Urea, 10, 2), lab(Creatinine, 88.4, 2), lab(UrineOsmolality, 480, 1), lab(UrineSodium, 32, 1), lab(UrinePotassium, 18, 1)),
+			withheld("ratio is 28.01 (above 20)")},
 		{"no birth date: the band is said to be an adult's", RuleSIADHPattern, chartFacts(t, "", map[float64]float64{2: 128}, siadh(60, 30)...),
 			func(t *testing.T, fs []Finding) {
 				if !strings.Contains(fs[0].Detail, "Age not recorded") {

@@ -164,6 +164,17 @@ func EffectiveOsmolality(na, glucose float64) float64 {
 	return 2*na + glucose
 }
 
+// BUNCreatinineRatio is the blood urea nitrogen to creatinine ratio in the
+// conventional units (mg/dL to mg/dL) from urea in mmol/L and creatinine in
+// µmol/L: BUN mg/dL = urea mmol/L × 2 × 14.007 g/mol ÷ 10 (two nitrogen atoms
+// per urea), creatinine mg/dL = µmol/L × 113.12 g/mol ÷ 10,000 (IUPAC 2021
+// atomic weights, as fhirmap converts them).
+func BUNCreatinineRatio(ureaMmol, creatinineUmol float64) float64 {
+	bun := ureaMmol * 2 * 14.007 / 10
+	cr := creatinineUmol * 113.12 / 10000
+	return bun / cr
+}
+
 // MostellerBSA is body-surface area in m², √(height cm × weight kg / 3600)
 // (Mosteller RD, N Engl J Med 1987;317:1098).
 func MostellerBSA(heightCm, weightKg float64) (float64, error) {
