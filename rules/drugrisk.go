@@ -85,7 +85,10 @@ func (r *Ruleset) drugRiskFindings(f Facts) []Finding {
 					c.thiazide = name
 				}
 			}
-			if o.Selected && !slices.ContainsFunc(selected[name], func(d drafted) bool { return d.o.Reference == o.Reference }) {
+			// A water-balance drug (a vaptan, desmopressin) is judged by the
+			// infusion check alone: one order, one card.
+			_, _, waterDrug := r.policy.WaterDrugs.match(o.Medication)
+			if o.Selected && !waterDrug && !slices.ContainsFunc(selected[name], func(d drafted) bool { return d.o.Reference == o.Reference }) {
 				if selected[name] == nil {
 					names = append(names, name)
 				}
@@ -224,6 +227,22 @@ func (c drugContext) lastAgeHours() float64 {
 		return math.Inf(1)
 	}
 	return c.at.Sub(c.last.At).Hours()
+}
+
+// sodiumBand is the indicator the drug-risk bands give a drug that can
+// lower sodium at sodium na (strong: its evidence is strong); ok is false
+// above every band.
+func (r *Ruleset) sodiumBand(na float64, strong bool) (Indicator, bool) {
+	for _, b := range r.policy.DrugRisk.Bands {
+		if na >= b.Below {
+			continue
+		}
+		if !strong && b.WeakerEvidence != 0 {
+			return b.WeakerEvidence, true
+		}
+		return b.Indicator, true
+	}
+	return 0, false
 }
 
 func (c drugContext) hyponatremiaVerdict(p DrugRiskPolicy, d DrugIngredient, e DrugEffect, renewal bool, multipliers []string) (drugVerdict, bool) {

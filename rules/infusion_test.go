@@ -64,9 +64,12 @@ func TestInfusionCardPolicy(t *testing.T) {
 		{"tolvaptan coded by RxNorm SCD after a 6 mmol/L rise", woman(60, map[float64]float64{20: 120, 2: 126}, nil),
 			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemRxNorm, Code: "849827"}}}, Selected: true},
 			RuleWaterDrug, Warning},
+		// Desmopressin lowers sodium (strong evidence in drugs.json): below 125
+		// the drug-risk band is critical, and this one card carries it (the
+		// drug-risk check stays silent on a water-balance drug).
 		{"desmopressin by ATC at sodium 122", woman(60, map[float64]float64{2: 122}, nil),
 			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
-			RuleWaterDrug, Warning},
+			RuleWaterDrug, Critical},
 		// Desmopressin lowers sodium: after a rapid rise or at high risk it is the usual rescue, not a hazard.
 		{"desmopressin after a 7 mmol/L rise at high risk", woman(60, map[float64]float64{20: 120, 2: 127}, lowK),
 			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
@@ -210,6 +213,43 @@ func TestWaterDrugOneFindingPerDrug(t *testing.T) {
 				if !strings.Contains(got[0].Detail, "- Order: "+ref+" (tolvaptan") {
 					t.Errorf("first finding does not name %s:\n%s", ref, got[0].Detail)
 				}
+			}
+		})
+	}
+}
+
+// One order, one card (issue 19): a water-balance drug is judged by the
+// infusion check alone; the drug-risk check stays silent on its draft and
+// the card names the other orders that can lower sodium.
+func TestWaterDrugOneCard(t *testing.T) {
+	rs := loadRuleset(t)
+	for _, tc := range []struct {
+		name   string
+		na     float64
+		order  MedicationOrder
+		want   Indicator
+		others string // a fragment the card must name, "" for none
+	}{
+		{"desmopressin at 122 beside an SSRI", 122, MedicationOrder{Reference: "MedicationRequest/ddavp", Medication: Medication{Text: "desmopressin 0.1 mg tablet"}},
+			Critical, "sertraline (active, MedicationRequest/ssri)"},
+		// Tolvaptan raises sodium: above 145 it is flagged here, no longer by the drug-risk check.
+		{"tolvaptan at 148", 148, MedicationOrder{Reference: "MedicationRequest/tv", Medication: Medication{Text: "tolvaptan 15 mg tablet"}}, Warning, ""},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			f := assessFacts(t, SexFemale, "1956-01-10", 60, map[float64]float64{2: tc.na}, nil)
+			d := tc.order
+			d.Draft, d.Selected = true, true
+			f.DraftOrders = []MedicationOrder{d}
+			f.Medications = []MedicationOrder{{Reference: "MedicationRequest/ssri", Status: "active", Medication: Medication{Text: "sertraline 50 mg"}}}
+			if got := rs.Evaluate(DrugRisk, f); len(got) != 0 {
+				t.Errorf("drug-risk check answered on a water-balance drug: %+v", got)
+			}
+			got := rs.Evaluate(InfusionCheck, f)
+			if len(got) != 1 || got[0].Rule != RuleWaterDrug || got[0].Indicator != tc.want {
+				t.Fatalf("infusion check %+v, want one %s %s card", got, RuleWaterDrug, tc.want)
+			}
+			if tc.others != "" && !strings.Contains(got[0].Detail, "Other orders that can lower sodium: "+tc.others) {
+				t.Errorf("detail does not name the other order:\n%s", got[0].Detail)
 			}
 		})
 	}

@@ -127,8 +127,11 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		}
 		if haveNa {
 			fig["sodiumLatest"] = latest.Value
-			if latest.Value < p.WaterDrugs.SodiumBelow {
+			switch {
+			case latest.Value < p.WaterDrugs.SodiumBelow:
 				reasons = append([]string{fmt.Sprintf("sodium %s mmol/L", show(Sodium, latest.Value))}, reasons...)
+			case drug.RaisesSodium && latest.Value > p.Projection.HypernatremiaAbove:
+				reasons = append([]string{fmt.Sprintf("sodium %s mmol/L, above %g", show(Sodium, latest.Value), p.Projection.HypernatremiaAbove)}, reasons...)
 			}
 		}
 		id, orders, them := RuleWaterDrug, "order", "it"
@@ -137,6 +140,8 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		}
 		var summary string
 		switch {
+		case len(reasons) > 0 && !drug.RaisesSodium:
+			summary = fmt.Sprintf("%s %s with %s: it can lower sodium further, by an amount no formula predicts", capitalise(drug.Name), orders, strings.Join(reasons, ", "))
 		case len(reasons) > 0:
 			summary = fmt.Sprintf("%s %s with %s: no formula predicts the sodium change", capitalise(drug.Name), orders, strings.Join(reasons, ", "))
 		case !haveNa:
@@ -175,15 +180,63 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 			fmt.Fprintf(&b, "- Flagged because it lowers sodium (antidiuresis): when sodium is below %g mmol/L; water intake "+
 				"decides how far sodium falls (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.Source)
 		}
+		if others := r.otherHyponatremiaDrugs(f, drug); len(others) > 0 && !drug.RaisesSodium {
+			fmt.Fprintf(&b, "- Other orders that can lower sodium: %s\n", strings.Join(others, "; "))
+		}
 		fmt.Fprintf(&b, "- Policy re-check interval for this card: %g h\n", rule.RecheckHours)
 		b.WriteString("\n**Method**: no formula predicts the change these drugs cause (a vasopressin antagonist's aquaresis " +
 			"or an agonist's antidiuresis depends on intake, urine output and other therapy); measured sodium is the guide.")
-		fd := Finding{Rule: id, Indicator: rule.Indicator, Summary: shorten(summary, 139), Detail: b.String(),
+		indicator := rule.Indicator
+		if haveNa && !drug.RaisesSodium && id == RuleWaterDrug {
+			// A drug that lowers sodium is as urgent as the drug-risk bands
+			// say for this sodium and its evidence; that check stays silent
+			// on it (one order, one card).
+			if e, ok := r.hyponatremiaEvidence(selected[drug.Name][0].o.Medication); ok {
+				if band, ok := r.sodiumBand(latest.Value, e == EvidenceStrong); ok && band > indicator {
+					indicator = band
+				}
+			}
+		}
+		fd := Finding{Rule: id, Indicator: indicator, Summary: shorten(summary, 139), Detail: b.String(),
 			Figures: fig, Advice: []Advice{recheckAdvice(rule.RecheckHours)}}
 		if ds := selected[drug.Name]; len(ds) == 1 {
 			fd.Order = ds[0].o.Reference
 		}
 		out = append(out, fd)
+	}
+	return out
+}
+
+// hyponatremiaEvidence is the knowledge base's evidence that m can lower
+// sodium; ok is false when no entry says so.
+func (r *Ruleset) hyponatremiaEvidence(m Medication) (string, bool) {
+	for _, dm := range r.MatchDrug(m) {
+		if e, ok := dm.Ingredient.Effect(EffectHyponatremia); ok && !dm.Ingredient.IntendedToRaiseSodium {
+			return e.Evidence, true
+		}
+	}
+	return "", false
+}
+
+// otherHyponatremiaDrugs names the active and drafted orders, other than
+// for drug, whose ingredients can lower sodium, with their references.
+func (r *Ruleset) otherHyponatremiaDrugs(f Facts, drug WaterDrug) []string {
+	var out []string
+	seen := map[string]bool{}
+	for _, o := range append(append([]MedicationOrder(nil), f.Medications...), f.DraftOrders...) {
+		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && d.Name == drug.Name {
+			continue
+		}
+		for _, m := range r.MatchDrug(o.Medication) {
+			if _, ok := m.Ingredient.Effect(EffectHyponatremia); ok && !m.Ingredient.IntendedToRaiseSodium && !seen[o.Reference] {
+				seen[o.Reference] = true
+				status := "active"
+				if o.Draft {
+					status = "draft"
+				}
+				out = append(out, fmt.Sprintf("%s (%s, %s)", m.Ingredient.Name, status, o.Reference))
+			}
+		}
 	}
 	return out
 }
