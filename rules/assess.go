@@ -53,6 +53,9 @@ type InfusionAssessment struct {
 	// OthersReachLimit is set when the others alone already use what the
 	// limits allow: no volume of this order fits.
 	OthersReachLimit bool
+	// Vaptan names a vasopressin-receptor antagonist active or drafted
+	// beside this order ("tolvaptan (MedicationRequest/x)"), if any.
+	Vaptan string
 	// Allowed is the change still allowed (≥ 0, unsigned) by the tightest
 	// limit, Binding says which limit that is; both are set with a
 	// projection.
@@ -126,6 +129,7 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %s days", orderHours.of(p.Projection.WeightMaxAgeHours/24)))
 	}
 	a.Others = r.otherContributors(f, o)
+	a.Vaptan = r.vaptanBeside(f, o)
 	if v, basis, ok := Volume24h(o, f.At); ok {
 		a.Volume24hLitres, a.VolumeBasis = &v, basis
 	} else {
@@ -288,6 +292,20 @@ func (r *Ruleset) otherContributors(f Facts, o MedicationOrder) []Contributor {
 		}
 	}
 	return out
+}
+
+// vaptanBeside names a vasopressin-receptor antagonist active or drafted
+// other than o, with its reference; "" when there is none.
+func (r *Ruleset) vaptanBeside(f Facts, o MedicationOrder) string {
+	for _, m := range append(append([]MedicationOrder(nil), f.Medications...), f.DraftOrders...) {
+		if m.Reference == o.Reference {
+			continue
+		}
+		if d, _, ok := r.policy.WaterDrugs.match(m.Medication); ok && d.RaisesSodium {
+			return fmt.Sprintf("%s (%s)", d.Name, m.Reference)
+		}
+	}
+	return ""
 }
 
 // totalBodyWater applies the policy's method, never assuming a sex or age.

@@ -78,15 +78,18 @@ type WaterDrug struct {
 // below SodiumBelow; for a drug that raises sodium also high demyelination
 // risk, or a rise of at least RiseAlready24h in the trailing 24 h.
 type WaterDrugPolicy struct {
-	SodiumBelow    float64     `json:"sodiumBelow"`
-	RiseAlready24h float64     `json:"riseAlready24h"`
-	Source         string      `json:"source"`
-	Drugs          []WaterDrug `json:"drugs"`
+	SodiumBelow    float64 `json:"sodiumBelow"`
+	RiseAlready24h float64 `json:"riseAlready24h"`
+	Source         string  `json:"source"`
+	// CombinationSource says, for a card, why a vaptan beside hypertonic
+	// saline is flagged.
+	CombinationSource string      `json:"combinationSource"`
+	Drugs             []WaterDrug `json:"drugs"`
 }
 
 // cardRules are the rule ids the card policy must cover (infusion check
 // and chart review; the drug-risk check has its own severity table).
-var cardRules = [...]string{RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
+var cardRules = [...]string{RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
 	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
 	RuleSIADHPattern, RuleUrineStudiesMissing, RuleConcentratingDefect}
 
@@ -118,8 +121,8 @@ func (c CardPolicy) validate() error {
 }
 
 func (w WaterDrugPolicy) validate() error {
-	if w.SodiumBelow <= 0 || w.RiseAlready24h <= 0 || w.Source == "" {
-		return fmt.Errorf("waterDrugs needs positive thresholds and a source")
+	if w.SodiumBelow <= 0 || w.RiseAlready24h <= 0 || w.Source == "" || w.CombinationSource == "" {
+		return fmt.Errorf("waterDrugs needs positive thresholds, a source and a combinationSource")
 	}
 	for i, d := range w.Drugs {
 		if d.Name == "" || d.Source == "" || len(d.RxNorm)+len(d.ATC)+len(d.Names) == 0 {

@@ -14,10 +14,13 @@ const (
 	// RuleHypertonicNotHypotonic: hypertonic saline for a sodium that is
 	// not a hypotonic hyponatremia (cards.notHypotonic).
 	RuleHypertonicNotHypotonic = "hypertonic-saline-not-hypotonic"
-	RuleProjectedOver          = "sodium-projected-over-limit"
-	RuleNoProjection           = "hypertonic-projection-unavailable"
-	RuleHypertonicOrder        = "hypertonic-saline-projection"
-	RuleWaterDrug              = "water-balance-drug-caution"
+	// RuleHypertonicWithVaptan: hypertonic saline beside a vasopressin-
+	// receptor antagonist (waterDrugs.combinationSource).
+	RuleHypertonicWithVaptan = "hypertonic-saline-with-vaptan"
+	RuleProjectedOver        = "sodium-projected-over-limit"
+	RuleNoProjection         = "hypertonic-projection-unavailable"
+	RuleHypertonicOrder      = "hypertonic-saline-projection"
+	RuleWaterDrug            = "water-balance-drug-caution"
 )
 
 // infusionFindings judges each selected draft order whose sodium content is
@@ -28,6 +31,8 @@ const (
 //   - hypertonic-saline-not-hypotonic: a hypertonic order while the
 //     effective osmolality or the glucose-corrected sodium says the sodium
 //     is not a hypotonic hyponatremia (tonicity first);
+//   - hypertonic-saline-with-vaptan: a hypertonic order beside an active or
+//     drafted vasopressin-receptor antagonist;
 //   - sodium-projected-over-limit: the projected change exceeds what the
 //     tightest limit still allows (its high-risk indicator applies at high
 //     demyelination risk in hyponatremia);
@@ -99,6 +104,9 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
 		fd.Rule = RuleHypertonicNotHypotonic
 		fd.Summary = notHypotonicSummary(a.Context)
+	case hypertonic && !a.Hypernatremia && a.Vaptan != "":
+		fd.Rule = RuleHypertonicWithVaptan
+		fd.Summary = shorten(fmt.Sprintf("Hypertonic saline with %s: the two together can raise sodium faster than either predicts", a.Vaptan), 139)
 	case a.OverLimit && a.OthersReachLimit:
 		fd.Rule = RuleProjectedOver
 		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order adds %s",
@@ -127,8 +135,13 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	}
 	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
 	fd.Detail = r.detail(a, word, rule.RecheckHours)
-	if fd.Rule == RuleHypertonicNotHypotonic {
+	switch fd.Rule {
+	case RuleHypertonicNotHypotonic:
 		fd.Detail = r.notHypotonicLead(a.Context) + fd.Detail
+	case RuleHypertonicWithVaptan:
+		fd.Detail = fmt.Sprintf("**With a vaptan**: %s is active or ordered. %s The projection below counts the saline only; "+
+			"the vaptan's aquaresis adds a rise no formula predicts. The prescriber's assessment decides.\n\n",
+			a.Vaptan, r.policy.WaterDrugs.CombinationSource) + fd.Detail
 	}
 	return fd, true
 }
@@ -236,7 +249,7 @@ func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Adv
 	recheck := recheckAdvice(recheckHours)
 	withdraw := Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"}
 	switch id {
-	case RuleLimitExceeded, RuleHypertonicNotHypotonic:
+	case RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan:
 		return []Advice{recheck, withdraw}
 	case RuleProjectedOver:
 		var out []Advice

@@ -218,6 +218,43 @@ func TestWaterDrugOneFindingPerDrug(t *testing.T) {
 	}
 }
 
+// A vaptan beside hypertonic saline (issue 19 item 6): whichever of the two
+// is being ordered, its card says so.
+func TestVaptanWithHypertonicSaline(t *testing.T) {
+	rs := loadRuleset(t)
+	rate := 10.0
+	saline := MedicationOrder{Reference: "MedicationRequest/hts", Medication: Medication{Text: "3% saline"}, RateMlPerHour: &rate}
+	vaptan := MedicationOrder{Reference: "MedicationRequest/tv", Medication: Medication{Text: "tolvaptan 15 mg tablet"}}
+	for _, tc := range []struct {
+		name      string
+		draft     MedicationOrder
+		active    MedicationOrder
+		rule, has string
+	}{
+		{"saline drafted, vaptan active", saline, vaptan, RuleHypertonicWithVaptan, "tolvaptan (MedicationRequest/tv)"},
+		{"vaptan drafted, saline running", vaptan, saline, RuleWaterDrug, "hypertonic saline active (MedicationRequest/hts)"},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			// Sodium 128 (no other reason to flag the vaptan), 60 kg.
+			f := assessFacts(t, SexFemale, "1970-01-10", 60, map[float64]float64{2: 128}, nil)
+			d := tc.draft
+			d.Draft, d.Selected = true, true
+			a := tc.active
+			a.Status = "active"
+			f.DraftOrders, f.Medications = []MedicationOrder{d}, []MedicationOrder{a}
+			var got []Finding
+			for _, fd := range rs.Evaluate(InfusionCheck, f) {
+				if fd.Rule == tc.rule {
+					got = append(got, fd)
+				}
+			}
+			if len(got) != 1 || got[0].Indicator != Warning || !strings.Contains(got[0].Summary+got[0].Detail, tc.has) {
+				t.Errorf("findings %+v, want one %s warning naming %q", rs.Evaluate(InfusionCheck, f), tc.rule, tc.has)
+			}
+		})
+	}
+}
+
 // One order, one card (issue 19): a water-balance drug is judged by the
 // infusion check alone; the drug-risk check stays silent on its draft and
 // the card names the other orders that can lower sodium.

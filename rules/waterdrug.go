@@ -125,6 +125,9 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 				reasons = append(reasons, fmt.Sprintf("a rise of %s mmol/L already in 24 h", naChange.of(w.RiseFromNadir)))
 			}
 		}
+		if h := r.hypertonicBeside(f); drug.RaisesSodium && h != "" {
+			reasons = append(reasons, "hypertonic saline "+h)
+		}
 		if haveNa {
 			fig["sodiumLatest"] = latest.Value
 			switch {
@@ -205,6 +208,21 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		out = append(out, fd)
 	}
 	return out
+}
+
+// hypertonicBeside names a hypertonic sodium fluid active or drafted
+// ("active, MedicationRequest/x"), or "" when there is none.
+func (r *Ruleset) hypertonicBeside(f Facts) string {
+	for _, o := range append(append([]MedicationOrder(nil), f.Medications...), f.DraftOrders...) {
+		if c, ok := r.InfusateComposition(o.Medication); ok && c.NaK() >= r.policy.Cards.HypertonicNaKAtLeast {
+			status := "active"
+			if o.Draft {
+				status = "drafted"
+			}
+			return fmt.Sprintf("%s (%s)", status, o.Reference)
+		}
+	}
+	return ""
 }
 
 // hyponatremiaEvidence is the knowledge base's evidence that m can lower
