@@ -45,9 +45,16 @@ type CardPolicy struct {
 	HypertonicNaKAtLeast float64 `json:"hypertonicNaKAtLeast"`
 	// NotHypotonic says when the sodium a hypertonic order is for is not a
 	// hypotonic hyponatremia, which hypertonic saline treats.
-	NotHypotonic NotHypotonicPolicy  `json:"notHypotonic"`
-	Rules        map[string]CardRule `json:"rules"`
-	Source       string              `json:"source"`
+	NotHypotonic NotHypotonicPolicy `json:"notHypotonic"`
+	// Relowering: after a rise beyond the limit, an order that lowers
+	// sodium is the usual management; its card warns only when the
+	// projection passes the target by more than BelowTargetTolerance.
+	Relowering struct {
+		BelowTargetTolerance float64 `json:"belowTargetTolerance"`
+		Source               string  `json:"source"`
+	} `json:"relowering"`
+	Rules  map[string]CardRule `json:"rules"`
+	Source string              `json:"source"`
 }
 
 // NotHypotonicPolicy: an effective osmolality of at least
@@ -89,7 +96,7 @@ type WaterDrugPolicy struct {
 
 // cardRules are the rule ids the card policy must cover (infusion check
 // and chart review; the drug-risk check has its own severity table).
-var cardRules = [...]string{RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
+var cardRules = [...]string{RuleLimitExceeded, RuleRelowering, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
 	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
 	RuleSIADHPattern, RuleUrineStudiesMissing, RuleConcentratingDefect}
 
@@ -99,6 +106,9 @@ func (c CardPolicy) validate() error {
 	}
 	if n := c.NotHypotonic; n.EffectiveOsmolalityAtLeast <= 0 || n.CorrectedSodiumAtLeast <= 0 || n.Source == "" {
 		return fmt.Errorf("cards.notHypotonic needs positive thresholds and a source")
+	}
+	if rl := c.Relowering; rl.BelowTargetTolerance < 0 || rl.Source == "" {
+		return fmt.Errorf("cards.relowering needs a non-negative belowTargetTolerance and a source")
 	}
 	for _, id := range cardRules {
 		r, ok := c.Rules[id]

@@ -17,10 +17,13 @@ const (
 	// RuleHypertonicWithVaptan: hypertonic saline beside a vasopressin-
 	// receptor antagonist (waterDrugs.combinationSource).
 	RuleHypertonicWithVaptan = "hypertonic-saline-with-vaptan"
-	RuleProjectedOver        = "sodium-projected-over-limit"
-	RuleNoProjection         = "hypertonic-projection-unavailable"
-	RuleHypertonicOrder      = "hypertonic-saline-projection"
-	RuleWaterDrug            = "water-balance-drug-caution"
+	// RuleRelowering: after a rise beyond the limit, an order that lowers
+	// sodium back (cards.relowering).
+	RuleRelowering      = "sodium-relowering-order"
+	RuleProjectedOver   = "sodium-projected-over-limit"
+	RuleNoProjection    = "hypertonic-projection-unavailable"
+	RuleHypertonicOrder = "hypertonic-saline-projection"
+	RuleWaterDrug       = "water-balance-drug-caution"
 )
 
 // infusionFindings judges each selected draft order whose sodium content is
@@ -31,6 +34,9 @@ const (
 //   - hypertonic-saline-not-hypotonic: a hypertonic order while the
 //     effective osmolality or the glucose-corrected sodium says the sodium
 //     is not a hypotonic hyponatremia (tonicity first);
+//   - sodium-relowering-order: after a rise beyond the limit, an order that
+//     lowers sodium: the target and the projected fall (a warning only when
+//     the projection passes the target by more than the policy allows);
 //   - hypertonic-saline-with-vaptan: a hypertonic order beside an active or
 //     drafted vasopressin-receptor antagonist;
 //   - sodium-projected-over-limit: the projected change exceeds what the
@@ -68,6 +74,23 @@ func (r *Ruleset) infusionFindings(f Facts) []Finding {
 	return nil
 }
 
+// reloweringTarget is, after a rise beyond the 24-h or 48-h limit in
+// hyponatremia, the sodium that brings the rise back within it: the nadir
+// plus the limit, the lower where both are passed. ok is false otherwise.
+func (a InfusionAssessment) reloweringTarget() (float64, bool) {
+	if a.Hypernatremia || a.Latest == nil {
+		return 0, false
+	}
+	target := math.Inf(1)
+	if w := a.Trend.Window24h; w != nil && a.Achieved24h > a.Limit24h {
+		target = w.Nadir.Value + a.Limit24h
+	}
+	if w := a.Trend.Window48h; w != nil && a.Limit48h > 0 && a.Achieved48h > a.Limit48h {
+		target = math.Min(target, w.Nadir.Value+a.Limit48h)
+	}
+	return target, !math.IsInf(target, 1)
+}
+
 // leads reports whether a's order moves sodium further than b's the way the
 // limits restrict (a rise in hyponatremia, a fall in hypernatremia); an
 // order with a projection leads one without.
@@ -91,6 +114,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Attributes: a.contributorAttributes()}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.DeltaPerLitre != nil && sign**a.DeltaPerLitre > 0
+	target, relowering := a.reloweringTarget()
 	switch {
 	case a.Latest != nil && exceeded && sameWay:
 		fd.Rule = RuleLimitExceeded
@@ -101,6 +125,18 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 			fd.Summary = fmt.Sprintf("Sodium already rose %s mmol/L in 48 h (limit %g); this order raises it further",
 				naChange.of(a.Achieved48h), a.Limit48h)
 		}
+	case relowering && a.DeltaPerLitre != nil && *a.DeltaPerLitre < 0:
+		fd.Rule = RuleRelowering
+		fd.Figures["relowerTargetSodium"] = Round(target, 1)
+		if a.ProjectedChange24h == nil {
+			fd.Summary = fmt.Sprintf("Re-lowering after a rise beyond the limit: target sodium %s mmol/L; fall not projected (missing %s)",
+				naChange.of(target), shorten(a.Missing[0], 50))
+			break
+		}
+		projected := a.Latest.Value + *a.ProjectedChange24h
+		fd.Figures["relowerProjectedSodium"] = Round(projected, 1)
+		fd.Summary = fmt.Sprintf("Re-lowering after a rise beyond the limit: target sodium %s; projected %s mmol/L in 24 h (%s)",
+			naChange.of(target), naChange.of(projected), naChange.signed(*a.ProjectedChange24h))
 	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
 		fd.Rule = RuleHypertonicNotHypotonic
 		fd.Summary = notHypotonicSummary(a.Context)
@@ -130,12 +166,23 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	}
 	rule := r.cardRule(fd.Rule)
 	fd.Indicator = rule.Indicator
+	if fd.Rule == RuleRelowering && a.ProjectedChange24h != nil &&
+		a.Latest.Value+*a.ProjectedChange24h < target-r.policy.Cards.Relowering.BelowTargetTolerance {
+		fd.Indicator = Warning
+		fd.Summary = fmt.Sprintf("Re-lowering projected to %s mmol/L, below the target of %s by more than %g: fall %s in 24 h",
+			naChange.of(a.Latest.Value+*a.ProjectedChange24h), naChange.of(target), r.policy.Cards.Relowering.BelowTargetTolerance,
+			naChange.signed(*a.ProjectedChange24h))
+	}
 	if fd.Rule == RuleProjectedOver && len(a.Risk) > 0 && !a.Hypernatremia && rule.HighRisk != 0 {
 		fd.Indicator = rule.HighRisk
 	}
 	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
 	fd.Detail = r.detail(a, word, rule.RecheckHours)
 	switch fd.Rule {
+	case RuleRelowering:
+		fd.Detail = fmt.Sprintf("**Re-lowering**: sodium rose beyond the limit; bringing it back to %s mmol/L (the nadir plus the limit) "+
+			"is the management the guidelines describe (%s). The card warns only when the projection falls more than %g mmol/L "+
+			"below that target.\n\n", naChange.of(target), r.policy.Cards.Relowering.Source, r.policy.Cards.Relowering.BelowTargetTolerance) + fd.Detail
 	case RuleHypertonicNotHypotonic:
 		fd.Detail = r.notHypotonicLead(a.Context) + fd.Detail
 	case RuleHypertonicWithVaptan:
@@ -251,6 +298,8 @@ func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Adv
 	switch id {
 	case RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan:
 		return []Advice{recheck, withdraw}
+	case RuleRelowering:
+		return []Advice{recheck}
 	case RuleProjectedOver:
 		var out []Advice
 		if a.MaxRateMlPerHour != nil {

@@ -46,8 +46,12 @@ func TestInfusionCardPolicy(t *testing.T) {
 		// Glucose 10 mmol/L: effective 2 × 124 + 10 = 258, Katz 124 + 1.6 × 0.80 = 125.3: hypotonic.
 		{"hypertonic saline, hypotonic", woman(60, map[float64]float64{2: 124}, map[Analyte][]Measurement{
 			Glucose: {{Analyte: Glucose, Value: 10, At: at.Add(-2 * time.Hour)}}}), order("3% saline", 10), RuleHypertonicOrder, Info},
-		// Rising too fast already, but 5% dextrose lowers sodium: no limit card.
-		{"order moving the other way", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 100), "", 0},
+		// Rising too fast already (110 → 121, 11 in 24 h): 5% dextrose lowers
+		// sodium, the re-lowering guidelines describe. Target 110 + 10 = 120.
+		// At 10 mL/h: 0.24 × (0 − 121)/30.24 = −0.96 → 120.0, on target: info.
+		{"re-lowering on target", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 10), RuleRelowering, Info},
+		// At 100 mL/h: 2.4 × (−121)/32.4 = −8.96 → 112.0, 8 below the target (> 2): warning.
+		{"re-lowering past the target", woman(60, map[float64]float64{20: 110, 2: 121}, nil), order("D5W", 100), RuleRelowering, Warning},
 		{"isotonic at normal sodium", woman(60, map[float64]float64{2: 139}, nil), order("0.9% sodium chloride", 100), "", 0},
 		// 48-h rise already 14 (106 → 120 over 40 h). The 24-h window starts at
 		// 106 + 11 × 16/20 = 114.8 (interpolated), so 5.2 in 24 h and 4.8 left;
@@ -74,6 +78,10 @@ func TestInfusionCardPolicy(t *testing.T) {
 		{"desmopressin after a 7 mmol/L rise at high risk", woman(60, map[float64]float64{20: 120, 2: 127}, lowK),
 			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
 			"", 0},
+		// After 110 → 121 (beyond the limit of 10) desmopressin is re-lowering: target 120.
+		{"desmopressin to re-lower", woman(60, map[float64]float64{20: 110, 2: 121}, nil),
+			MedicationOrder{Reference: "MedicationRequest/t", Medication: Medication{Codings: []Coding{{System: SystemATC, Code: "H01BA02"}}}, Selected: true},
+			RuleRelowering, Info},
 		// Hypernatremia, 5% dextrose 250 mL/h for an ordered course of 4 h:
 		// 1 × (0 − 152)/(31 + 1) = −4.75 in 4 h, 1.19 per hour > 0.5.
 		{"hourly fall limit with an ordered course", woman(62, map[float64]float64{2: 152}, nil),
@@ -213,6 +221,36 @@ func TestWaterDrugOneFindingPerDrug(t *testing.T) {
 				if !strings.Contains(got[0].Detail, "- Order: "+ref+" (tolvaptan") {
 					t.Errorf("first finding does not name %s:\n%s", ref, got[0].Detail)
 				}
+			}
+		})
+	}
+}
+
+// Re-lowering (issue 19 item 5): the target is the nadir plus the limit in
+// force, the lower of the 24-h and 48-h ones where both are passed; by hand
+// from the facts (Spasovski 2014's limits as policy).
+func TestReloweringTarget(t *testing.T) {
+	rs := loadRuleset(t)
+	d5w := MedicationOrder{Reference: "MedicationRequest/d", Medication: Medication{Text: "D5W"}, RateMlPerHour: func(v float64) *float64 { return &v }(10), Selected: true, Draft: true}
+	for _, tc := range []struct {
+		name        string
+		na          map[float64]float64
+		target, got float64
+	}{
+		// 11 in 24 h: 110 + 10 = 120; projected 121 − 0.96 = 120.0.
+		{"24-h limit passed", map[float64]float64{20: 110, 2: 121}, 120, 121 - 0.24*121/30.24},
+		// 20 in 48 h (nadir 104 at −40 h) but 8.1 in 24 h: 104 + 18 = 122.
+		{"48-h limit passed", map[float64]float64{40: 104, 26: 115, 2: 124}, 122, 124 - 0.24*124/30.24},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			f := assessFacts(t, SexFemale, "1986-01-10", 60, tc.na, nil)
+			f.DraftOrders = []MedicationOrder{d5w}
+			fs := rs.Evaluate(InfusionCheck, f)
+			if len(fs) != 1 || fs[0].Rule != RuleRelowering {
+				t.Fatalf("findings %+v", fs)
+			}
+			if fs[0].Figures["relowerTargetSodium"] != tc.target || !near(fs[0].Figures["relowerProjectedSodium"], tc.got, 0.05) {
+				t.Errorf("target %v projected %v, want %v and %.1f", fs[0].Figures["relowerTargetSodium"], fs[0].Figures["relowerProjectedSodium"], tc.target, tc.got)
 			}
 		})
 	}

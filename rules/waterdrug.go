@@ -137,12 +137,29 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 				reasons = append([]string{fmt.Sprintf("sodium %s mmol/L, above %g", show(Sodium, latest.Value), p.Projection.HypernatremiaAbove)}, reasons...)
 			}
 		}
+		// After a rise beyond the limit, an agonist (desmopressin) is the
+		// re-lowering the guidelines describe: its card gives the target.
+		var target float64
+		relowering := false
+		if haveNa && !drug.RaisesSodium {
+			l := InfusionAssessment{Trend: trend, Risk: risk, Latest: &latest,
+				Hypernatremia: latest.Value > p.Projection.HypernatremiaAbove}
+			l.setLimits(p.Limits)
+			if target, relowering = l.reloweringTarget(); relowering {
+				fig["limit24h"] = l.Limit24h
+			}
+		}
 		id, orders, them := RuleWaterDrug, "order", "it"
 		if len(selected[drug.Name]) > 1 {
 			orders, them = "orders", "them"
 		}
 		var summary string
 		switch {
+		case relowering:
+			id = RuleRelowering
+			fig["relowerTargetSodium"] = Round(target, 1)
+			summary = fmt.Sprintf("%s %s to re-lower sodium after a rise beyond the limit: target %s mmol/L; no formula predicts the fall",
+				capitalise(drug.Name), orders, naChange.of(target))
 		case len(reasons) > 0 && !drug.RaisesSodium:
 			summary = fmt.Sprintf("%s %s with %s: it can lower sodium further, by an amount no formula predicts", capitalise(drug.Name), orders, strings.Join(reasons, ", "))
 		case len(reasons) > 0:
@@ -182,6 +199,10 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		} else {
 			fmt.Fprintf(&b, "- Flagged because it lowers sodium (antidiuresis): when sodium is below %g mmol/L; water intake "+
 				"decides how far sodium falls (%s)\n", p.WaterDrugs.SodiumBelow, p.WaterDrugs.Source)
+		}
+		if id == RuleRelowering {
+			fmt.Fprintf(&b, "- Re-lowering: bringing sodium back to %s mmol/L (the nadir plus the limit) is the management the "+
+				"guidelines describe (%s)\n", naChange.of(target), p.Cards.Relowering.Source)
 		}
 		if others := r.otherHyponatremiaDrugs(f, drug); len(others) > 0 && !drug.RaisesSodium {
 			fmt.Fprintf(&b, "- Other orders that can lower sodium: %s\n", strings.Join(others, "; "))
