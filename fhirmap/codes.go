@@ -116,10 +116,14 @@ var loinc = map[string]measure{
 	"21232-4":  {rules.Creatinine, "arterial blood", molarMassCreatinine, "Creatinine [Mass/volume] in Arterial blood", rules.BloodGas},                    // VSAC CreatinineLabTest
 	"101475-2": {rules.Creatinine, "venous blood", molarMassCreatinine, "Creatinine [Moles/volume] in Venous blood", rules.BloodGas},                       // VSAC CreatinineLabTest
 
-	"2692-2":  {rules.SerumOsmolality, "serum or plasma", 0, "Osmolality of Serum or Plasma", rules.Laboratory}, // §8
-	"2695-5":  {rules.UrineOsmolality, "urine", 0, "Osmolality of Urine", rules.Laboratory},                     // §8
-	"2955-3":  {rules.UrineSodium, "urine", 0, "Sodium [Moles/volume] in Urine", rules.Laboratory},              // §8
-	"2828-2":  {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", rules.Laboratory},        // §8
-	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                                     // §8
-	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                                     // §8
+	"2692-2": {rules.SerumOsmolality, "serum or plasma", 0, "Osmolality of Serum or Plasma", rules.Laboratory}, // §8
+	"2695-5": {rules.UrineOsmolality, "urine", 0, "Osmolality of Urine", rules.Laboratory},                     // §8
+	"2955-3": {rules.UrineSodium, "urine", 0, "Sodium [Moles/volume] in Urine", rules.Laboratory},              // §8
+	"2828-2": {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", rules.Laboratory},        // §8
+	// Urine volumes over a collection period (the Observation's
+	// effectivePeriod; 3167-4 is 24 h by its name).
+	"9187-6":  {rules.UrineVolume, "urine", 0, "Urine output", rules.Laboratory},                    // OMOP vocabulary (concept 3014315 "Urine output", LOINC), as mapped in a public concept table; from memory otherwise
+	"3167-4":  {rules.UrineVolume, "24 hour urine", 0, "Volume of 24 hour Urine", rules.Laboratory}, // HL7 Order Catalog IG, example ObservationDefinition (code loinc#3167-4 "Volume of 24 hour Urine")
+	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                         // §8
+	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                         // §8
 }

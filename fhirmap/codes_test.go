@@ -1,7 +1,10 @@
 package fhirmap
 
 import (
+	"fmt"
+	"strings"
 	"testing"
+	"time"
 
 	"github.com/halite-cds/halite/rules"
 )
@@ -80,6 +83,8 @@ func TestLOINCTable(t *testing.T) {
 		{"2695-5", "Osmolality of Urine", rules.UrineOsmolality, "urine", 0, rules.Laboratory},                     // §8
 		{"2955-3", "Sodium [Moles/volume] in Urine", rules.UrineSodium, "urine", 0, rules.Laboratory},              // §8
 		{"2828-2", "Potassium [Moles/volume] in Urine", rules.UrinePotassium, "urine", 0, rules.Laboratory},        // §8
+		{"9187-6", "Urine output", rules.UrineVolume, "urine", 0, rules.Laboratory},                                // OMOP concept table (LOINC concept 3014315)
+		{"3167-4", "Volume of 24 hour Urine", rules.UrineVolume, "24 hour urine", 0, rules.Laboratory},             // HL7 Order Catalog IG example
 		{"29463-7", "Body weight", rules.BodyWeight, "", 0, ""},                                                    // §8
 		{"8302-2", "Body height", rules.BodyHeight, "", 0, ""},                                                     // §8
 	}
@@ -192,5 +197,37 @@ func TestMapTimedUrineAmountIgnored(t *testing.T) {
 	f := mapResources(t, obsSpec{id: "u", code: "2956-1", value: vq("150", "mmol/(24.h)")}.raw())
 	if len(f.Labs[rules.UrineSodium]) != 0 || len(f.Rejected) != 0 {
 		t.Errorf("urine sodium %+v, rejected %+v; want neither", f.Labs[rules.UrineSodium], f.Rejected)
+	}
+}
+
+// A urine volume is read with its collection period (FHIR R4
+// Observation.effectivePeriod): its rate needs both ends; At is the end.
+func TestMapUrineVolume(t *testing.T) {
+	period := func(start, end string) string {
+		return fmt.Sprintf(`"effectivePeriod":{"start":%q,"end":%q}`, start, end)
+	}
+	f := mapResources(t,
+		obsSpec{id: "uo-1", code: "9187-6", effective: period("2026-11-20T00:00:00Z", "2026-11-20T06:00:00Z"), value: vq("900", "mL")}.raw(),
+		obsSpec{id: "uo-24", code: "3167-4", effective: period("2026-11-19T06:00:00Z", "2026-11-20T06:00:00+00:00"), value: vq("2.4", "L")}.raw(),
+		obsSpec{id: "uo-noperiod", code: "9187-6", effective: dt("2026-11-20T06:00:00Z"), value: vq("300", "mL")}.raw(),
+		obsSpec{id: "uo-backwards", code: "9187-6", effective: period("2026-11-20T06:00:00Z", "2026-11-20T05:00:00Z"), value: vq("300", "mL")}.raw(),
+	)
+	got := f.Labs[rules.UrineVolume]
+	// Same end (06:00): one 6-h period, one 24-h; 2.4 L is 2400 mL (UCUM).
+	if len(got) != 2 {
+		t.Fatalf("urine volumes %+v, rejected %+v", got, f.Rejected)
+	}
+	for _, m := range got {
+		want := map[string][2]float64{"Observation/uo-1": {900, 6}, "Observation/uo-24": {2400, 24}}[m.Source]
+		if m.Value != want[0] || m.PeriodHours != want[1] || !m.At.Equal(time.Date(2026, 11, 20, 6, 0, 0, 0, time.UTC)) {
+			t.Errorf("%s: %g mL over %g h ending %v, want %v", m.Source, m.Value, m.PeriodHours, m.At, want)
+		}
+	}
+	reasons := map[string]string{}
+	for _, r := range f.Rejected {
+		reasons[r.Source] = r.Reason
+	}
+	if !strings.Contains(reasons["Observation/uo-noperiod"], "collection period") || !strings.Contains(reasons["Observation/uo-backwards"], "ends at or before") {
+		t.Errorf("rejections %v", reasons)
 	}
 }

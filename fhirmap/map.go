@@ -140,7 +140,9 @@ func (m *mapper) resolveSameTime() {
 		if len(s) == 0 {
 			continue
 		}
-		sort.SliceStable(s, func(i, j int) bool { return s[i].At.Before(s[j].At) })
+		sort.SliceStable(s, func(i, j int) bool {
+			return s[i].At.Before(s[j].At) || s[i].At.Equal(s[j].At) && s[i].PeriodHours < s[j].PeriodHours
+		})
 		kept, rejected, notes := rules.ResolveSameTime(s, m.rs.Policy().SameTime)
 		m.facts.Labs[a] = kept
 		m.facts.Rejected = append(m.facts.Rejected, rejected...)

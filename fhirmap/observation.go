@@ -66,6 +66,13 @@ func (m *mapper) observation(r Resource) {
 		m.reject(r, a, err.Error())
 		return
 	}
+	var periodHours float64
+	if a == rules.UrineVolume {
+		if at, periodHours, err = collectionPeriod(obs); err != nil {
+			m.reject(r, a, err.Error())
+			return
+		}
+	}
 	if at.After(m.in.At) {
 		m.reject(r, a, "effective time is after the evaluation time")
 		return
@@ -98,16 +105,17 @@ func (m *mapper) observation(r Resource) {
 		return
 	}
 	m.facts.Labs[a] = append(m.facts.Labs[a], rules.Measurement{
-		Analyte:  a,
-		Value:    cv,
-		At:       at,
-		Source:   r.Ref(),
-		Code:     code,
-		Specimen: meas.specimen,
-		Original: q.Value.String() + " " + unit,
-		Origin:   meas.origin,
-		Status:   obs.Status.Code(),
-		Issued:   issuedTime(obs.Issued),
+		Analyte:     a,
+		Value:       cv,
+		At:          at,
+		Source:      r.Ref(),
+		Code:        code,
+		Specimen:    meas.specimen,
+		Original:    q.Value.String() + " " + unit,
+		Origin:      meas.origin,
+		PeriodHours: periodHours,
+		Status:      obs.Status.Code(),
+		Issued:      issuedTime(obs.Issued),
 	})
 }
 
@@ -177,6 +185,25 @@ func recognise(codes *Codes, cc fhir.CodeableConcept) (string, measure, string, 
 		}
 	}
 	return "", measure{}, "", false
+}
+
+// collectionPeriod is a urine volume's collection period: its end, and its
+// length in hours, from effectivePeriod (both ends with a time of day). A
+// volume without one is refused: its rate cannot be known.
+func collectionPeriod(o observationFields) (time.Time, float64, error) {
+	p := o.EffectivePeriod
+	if p == nil || p.Start == nil || p.End == nil {
+		return time.Time{}, 0, fmt.Errorf("a urine volume needs its collection period (effectivePeriod with start and end)")
+	}
+	start, startTime, err1 := ParseDateTime(*p.Start)
+	end, endTime, err2 := ParseDateTime(*p.End)
+	switch {
+	case err1 != nil || err2 != nil || !startTime || !endTime:
+		return time.Time{}, 0, fmt.Errorf("effectivePeriod %q to %q: a collection period needs two dates with times", *p.Start, *p.End)
+	case !end.After(start):
+		return time.Time{}, 0, fmt.Errorf("effectivePeriod ends at or before it starts")
+	}
+	return end, end.Sub(start).Hours(), nil
 }
 
 // effectiveTime is the clinically relevant time: effectiveDateTime,

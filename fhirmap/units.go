@@ -65,6 +65,13 @@ func toCanonical(m measure, v float64, u string) (float64, error) {
 		case "mosm/kg", "mmol/kg":
 			return v, nil
 		}
+	case rules.UrineVolume:
+		switch u {
+		case "mL":
+			return v, nil
+		case "L":
+			return v * 1000, nil
+		}
 	case rules.BodyWeight:
 		switch u {
 		case "kg":

@@ -81,7 +81,7 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"for projections; active MedicationRequests, so that infusions already running are counted with the " +
 				"drafts. Draft orders must be MedicationRequests with coded or described products.",
 			Check:    rules.InfusionCheck,
-			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.bodySize, k.conditions, k.medications},
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications},
 		},
 		{
 			ID:    "sodium-drug-risk",
@@ -131,8 +131,8 @@ func prefetchKeys(codes *fhirmap.Codes) keySet {
 		chemistry: PrefetchKey{Key: "chemistry",
 			Template: obs(rules.Potassium, rules.Glucose, rules.Urea, rules.Creatinine, rules.SerumOsmolality),
 			What:     "potassium, glucose, urea, creatinine and serum osmolality"},
-		urine: PrefetchKey{Key: "urine", Template: obs(rules.UrineOsmolality, rules.UrineSodium, rules.UrinePotassium),
-			What: "urine osmolality, sodium and potassium"},
+		urine: PrefetchKey{Key: "urine", Template: obs(rules.UrineOsmolality, rules.UrineSodium, rules.UrinePotassium, rules.UrineVolume),
+			What: "urine osmolality, sodium and potassium, and urine output"},
 		bodySize: PrefetchKey{Key: "bodySize", Template: obs(rules.BodyWeight, rules.BodyHeight),
 			What: "body weight and height"},
 		medications: PrefetchKey{Key: "medications",

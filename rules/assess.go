@@ -53,6 +53,12 @@ type InfusionAssessment struct {
 	// OthersReachLimit is set when the others alone already use what the
 	// limits allow: no volume of this order fits.
 	OthersReachLimit bool
+	// Urine is the recent urine output and composition; with both,
+	// ProjectedChange24hWithUrine counts the urine of the next 24 h at the
+	// charted rate too, and EFWCLitres is its electrolyte-free water.
+	Urine                       UrineLosses
+	ProjectedChange24hWithUrine *float64
+	EFWCLitres                  *float64
 	// Vaptan names a vasopressin-receptor antagonist active or drafted
 	// beside this order ("tolvaptan (MedicationRequest/x)"), if any.
 	Vaptan string
@@ -130,6 +136,7 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	}
 	a.Others = r.otherContributors(f, o)
 	a.Vaptan = r.vaptanBeside(f, o)
+	a.Urine = ReadUrineLosses(p.UrineLosses, f)
 	if v, basis, ok := Volume24h(o, f.At); ok {
 		a.Volume24hLitres, a.VolumeBasis = &v, basis
 	} else {
@@ -223,6 +230,15 @@ func (a *InfusionAssessment) project(l Limits) {
 		// A change the limits do not restrict (a fall in hyponatremia, a
 		// rise in hypernatremia) is never over them.
 		a.OverLimit = sign*c > 0 && sign*c > a.Allowed+1e-9
+		if vu, ok := a.Urine.Litres24h(); ok {
+			if nak, ok := a.Urine.NaK(); ok {
+				if withU := withUrine(all, vu, nak, na); sane(withU, tbw) {
+					cu := CombinedChange(withU, tbw)
+					efwc := ElectrolyteFreeWaterClearance(vu, nak, na)
+					a.ProjectedChange24hWithUrine, a.EFWCLitres = &cu, &efwc
+				}
+			}
+		}
 	}
 	if v := MaxVolumeGiven(sign*a.Allowed, naK, na, tbw, others); sign*d > 0 && !math.IsInf(v, 1) {
 		a.MaxVolume24hLitres = &v

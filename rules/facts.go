@@ -24,13 +24,15 @@ const (
 	UrineOsmolality Analyte = "urine-osmolality"
 	UrineSodium     Analyte = "urine-sodium"
 	UrinePotassium  Analyte = "urine-potassium"
-	BodyWeight      Analyte = "body-weight"
-	BodyHeight      Analyte = "body-height"
+	// UrineVolume is urine output over a charted period (Measurement.PeriodHours).
+	UrineVolume Analyte = "urine-volume"
+	BodyWeight  Analyte = "body-weight"
+	BodyHeight  Analyte = "body-height"
 )
 
 // analyteOrder is the order Analytes reports.
 var analyteOrder = [...]Analyte{Sodium, Potassium, Glucose, Urea, Creatinine, SerumOsmolality,
-	UrineOsmolality, UrineSodium, UrinePotassium, BodyWeight, BodyHeight}
+	UrineOsmolality, UrineSodium, UrinePotassium, UrineVolume, BodyWeight, BodyHeight}
 
 // Analytes returns every analyte halite maps, in a stable order.
 func Analytes() []Analyte { return analyteOrder[:] }
@@ -44,6 +46,8 @@ func CanonicalUnit(a Analyte) string {
 		return "mosm/kg"
 	case BodyWeight:
 		return "kg"
+	case UrineVolume:
+		return "mL"
 	case BodyHeight:
 		return "cm"
 	default:
@@ -61,9 +65,12 @@ type Measurement struct {
 	Specimen string // "serum or plasma", "blood", "arterial blood", "urine", …
 	// Original is the value and unit as sent, e.g. "136 meq/L", for audit.
 	Original string
-	Origin   Origin     // laboratory, blood gas or point of care
-	Status   string     // the result's status: final, amended or corrected
-	Issued   *time.Time // when the result was released, if stated
+	// PeriodHours is the period a volume was collected over (urine
+	// output); 0 for a measurement at one time. At is then the period's end.
+	PeriodHours float64
+	Origin      Origin     // laboratory, blood gas or point of care
+	Status      string     // the result's status: final, amended or corrected
+	Issued      *time.Time // when the result was released, if stated
 	// SameTime, when not nil, holds the results of the analyte taken at the
 	// same time with other values, and why this one counts (see
 	// SameTimePolicy).

@@ -19,7 +19,13 @@ const (
 	RuleHypertonicWithVaptan = "hypertonic-saline-with-vaptan"
 	// RuleRelowering: after a rise beyond the limit, an order that lowers
 	// sodium back (cards.relowering).
-	RuleRelowering      = "sodium-relowering-order"
+	RuleRelowering = "sodium-relowering-order"
+	// RuleAquaresis: a brisk dilute urine during the correction of
+	// hyponatremia (urineLosses).
+	RuleAquaresis = "sodium-aquaresis-watch"
+	// RuleDesalination: a non-hypertonic saline whose Na + K is below the
+	// urine's, in hyponatremia (urineLosses.desalinationSource).
+	RuleDesalination    = "saline-desalination"
 	RuleProjectedOver   = "sodium-projected-over-limit"
 	RuleNoProjection    = "hypertonic-projection-unavailable"
 	RuleHypertonicOrder = "hypertonic-saline-projection"
@@ -115,6 +121,8 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.DeltaPerLitre != nil && sign**a.DeltaPerLitre > 0
 	target, relowering := a.reloweringTarget()
+	hyponatremic := a.Latest != nil && !a.Hypernatremia && a.Latest.Value < r.policy.ChartReview.HyponatremiaBelow
+	urineNaK, _ := a.Urine.NaK()
 	switch {
 	case a.Latest != nil && exceeded && sameWay:
 		fd.Rule = RuleLimitExceeded
@@ -137,6 +145,17 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Figures["relowerProjectedSodium"] = Round(projected, 1)
 		fd.Summary = fmt.Sprintf("Re-lowering after a rise beyond the limit: target sodium %s; projected %s mmol/L in 24 h (%s)",
 			naChange.of(target), naChange.of(projected), naChange.signed(*a.ProjectedChange24h))
+	case hyponatremic && a.Urine.Aquaresis(r.policy.UrineLosses):
+		fd.Rule = RuleAquaresis
+		fd.Summary = fmt.Sprintf("Urine output %s mL/h with urine osmolality %s: an aquaresis can raise sodium fast whatever is infused",
+			orderRate.of(*a.Urine.RateMlPerHour), show(UrineOsmolality, a.Urine.Osmolality.Value))
+	case hyponatremic && !hypertonic && a.Composition.Na > 0 && urineNaK > a.Composition.NaK():
+		fd.Rule = RuleDesalination
+		fd.Summary = fmt.Sprintf("This fluid may lower sodium: urine Na + K %s mmol/L exceeds its %s (desalination)",
+			infusateNa.of(urineNaK), infusateNa.of(a.Composition.NaK()))
+		if a.ProjectedChange24hWithUrine != nil {
+			fd.Summary += fmt.Sprintf("; %s mmol/L in 24 h with the urine", naChange.signed(*a.ProjectedChange24hWithUrine))
+		}
 	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
 		fd.Rule = RuleHypertonicNotHypotonic
 		fd.Summary = notHypotonicSummary(a.Context)
@@ -179,6 +198,18 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
 	fd.Detail = r.detail(a, word, rule.RecheckHours)
 	switch fd.Rule {
+	case RuleAquaresis:
+		fd.Detail = fmt.Sprintf("**Aquaresis**: urine output of %s mL/h with urine osmolality %s mOsm/kg during the correction of "+
+			"hyponatremia can raise sodium faster than any projection of the infusate; an early re-check is suggested (%s).\n\n",
+			orderRate.of(*a.Urine.RateMlPerHour), show(UrineOsmolality, a.Urine.Osmolality.Value), r.policy.UrineLosses.Source) + fd.Detail
+	case RuleDesalination:
+		size := "The projection with the urine below shows the expected change."
+		if a.ProjectedChange24hWithUrine == nil {
+			size = "Urine output (or the weight) is not charted, so the size of the change cannot be computed."
+		}
+		fd.Detail = fmt.Sprintf("**Desalination**: the urine's sodium + potassium (%s mmol/L) exceeds this fluid's (%s), so its water "+
+			"can be retained while its sodium is excreted (%s). %s\n\n",
+			infusateNa.of(urineNaK), infusateNa.of(a.Composition.NaK()), r.policy.UrineLosses.DesalinationSource, size) + fd.Detail
 	case RuleRelowering:
 		fd.Detail = fmt.Sprintf("**Re-lowering**: sodium rose beyond the limit; bringing it back to %s mmol/L (the nadir plus the limit) "+
 			"is the management the guidelines describe (%s). The card warns only when the projection falls more than %g mmol/L "+
@@ -296,7 +327,7 @@ func infusionAdvice(id string, a InfusionAssessment, recheckHours float64) []Adv
 	recheck := recheckAdvice(recheckHours)
 	withdraw := Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"}
 	switch id {
-	case RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan:
+	case RuleLimitExceeded, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleDesalination:
 		return []Advice{recheck, withdraw}
 	case RuleRelowering:
 		return []Advice{recheck}
@@ -391,6 +422,12 @@ func (a InfusionAssessment) figures() map[string]float64 {
 	floor("maxVolume24hLitres", a.MaxVolume24hLitres, 3)
 	floor("maxRateMlPerHour", a.MaxRateMlPerHour, 1)
 	set("freeWaterDeficitLitres", a.FreeWaterDeficitLitres, 1)
+	set("projectedChange24hWithUrine", a.ProjectedChange24hWithUrine, 1)
+	set("efwcLitresPerDay", a.EFWCLitres, 2)
+	set("urineOutputMlPerHour", a.Urine.RateMlPerHour, 0)
+	if nak, ok := a.Urine.NaK(); ok {
+		fig["urineNaKmmolPerL"] = Round(nak, 1)
+	}
 	c := a.Context
 	set("correctedSodiumKatz", c.CorrectedKatz, 1)
 	set("correctedSodiumHillier", c.CorrectedHillier, 1)
@@ -478,6 +515,7 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 		line("Projected change from this order: %s mmol/L; projected 24-h total: %s mmol/L", naChange.signed(*a.ProjectedChange24h),
 			naChange.signed(*a.ProjectedTotal24h))
 	}
+	r.urineLines(&b, a)
 	if a.OthersReachLimit {
 		line("The other fluids alone bring %s mmol/L in 24 h, which uses the %s mmol/L still allowed: no volume of this order fits while they run as ordered",
 			naChange.signed(*a.OthersChange24h), naChange.of(a.Allowed))
@@ -510,8 +548,9 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 		"Adrogué–Madias formula (N Engl J Med 2000) scaled to each 24-h volume (Chen & Shey, Kidney360 2021) and summed over " +
 		"this order, the call's other draft orders and the infusions already running; an infusion runs at its rate for 24 h " +
 		"unless its order states a stop. Rolling 24-h and 48-h windows end now; the projected 24-h total adds the next 24 h " +
-		"to the change already measured in the last 24 h. The projection ignores urine output, insensible and other ongoing " +
-		"losses, fluids it could not identify and drugs; measured sodium is the guide.")
+		"to the change already measured in the last 24 h. That projection ignores urine output, insensible and other ongoing " +
+		"losses, fluids it could not identify and drugs; when urine output and urine sodium and potassium are charted, a second " +
+		"projection counts the urine too. Measured sodium is the guide.")
 	return b.String()
 }
 
@@ -537,6 +576,34 @@ func (r *Ruleset) othersLines(b *strings.Builder, a InfusionAssessment) {
 			}
 			b.WriteString("\n")
 		}
+	}
+}
+
+// urineLines write the urine output and composition read, and the
+// projection with the urine of the next 24 h when both are known.
+func (r *Ruleset) urineLines(b *strings.Builder, a InfusionAssessment) {
+	u := a.Urine
+	if u.RateMlPerHour != nil {
+		fmt.Fprintf(b, "- Urine output: %s mL/h over the last %s h charted (%d period%s)\n", orderRate.of(*u.RateMlPerHour),
+			hoursSpan.of(u.Hours), len(u.Volumes), plural(len(u.Volumes)))
+	}
+	if u.Na != nil {
+		k := "no urine potassium"
+		if u.K != nil {
+			k = "potassium " + show(UrinePotassium, u.K.Value)
+		}
+		fmt.Fprintf(b, "- Urine sodium %s, %s mmol/L (%s)\n", show(UrineSodium, u.Na.Value), k, stamp(u.Na.At))
+	}
+	if u.Osmolality != nil {
+		fmt.Fprintf(b, "- Urine osmolality %s mOsm/kg (%s)\n", show(UrineOsmolality, u.Osmolality.Value), stamp(u.Osmolality.At))
+	}
+	if a.ProjectedChange24hWithUrine != nil {
+		nak, _ := u.NaK()
+		vu, _ := u.Litres24h()
+		fmt.Fprintf(b, "- With the urine counted: %s mmol/L in 24 h, if %s L of urine with Na + K %s mmol/L keeps coming at the charted "+
+			"rate (electrolyte-free water clearance %s L/day); the infusate-only projection assumes no urine at all. Neither counts "+
+			"insensible losses (%s)\n", naChange.signed(*a.ProjectedChange24hWithUrine), volume24h.of(vu), infusateNa.of(nak),
+			bodyWater.of(*a.EFWCLitres), r.policy.UrineLosses.Source)
 	}
 }
 

@@ -95,6 +95,7 @@ type Policy struct {
 	TBW               TBWPolicy               `json:"tbw"`
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 	SameTime          SameTimePolicy          `json:"sameTime"`
+	UrineLosses       UrineLossPolicy         `json:"urineLosses"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -169,6 +170,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.ChartReview.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.UrineLosses.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.SameTime.validate(); err != nil {

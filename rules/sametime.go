@@ -104,7 +104,8 @@ type Conflict struct {
 	Decided string
 }
 
-// ResolveSameTime applies p to one analyte's series (ordered oldest first):
+// ResolveSameTime applies p to one analyte's series (ordered oldest first,
+// and by collection period among equal times):
 // it returns the series with one result per time, the results left out,
 // each with its reason, and a note for every conflict. Results the same as
 // displayed are duplicates: the one precedence prefers is kept, the others
@@ -116,7 +117,10 @@ func ResolveSameTime(series []Measurement, p SameTimePolicy) ([]Measurement, []R
 	var notes []string
 	for i := 0; i < len(series); {
 		j := i + 1
-		for j < len(series) && series[j].At.Sub(series[i].At) <= tol {
+		// Volumes over different periods (urine output) are different
+		// results, whatever their end.
+		for j < len(series) && series[j].At.Sub(series[i].At) <= tol &&
+			math.Abs(series[j].PeriodHours-series[i].PeriodHours)*60 <= p.ToleranceMinutes {
 			j++
 		}
 		kept, rej, note := p.resolveGroup(series[i:j])
