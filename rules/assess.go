@@ -102,6 +102,11 @@ const (
 
 // AssessInfusion works out the assessment of order o on facts f.
 func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment {
+	return r.assess(f, o, r.candidates(f))
+}
+
+// assess is AssessInfusion with the call's balance pool worked out.
+func (r *Ruleset) assess(f Facts, o MedicationOrder, pool balancePool) InfusionAssessment {
 	p := r.policy
 	a := InfusionAssessment{Order: o, Trend: AnalyseSodium(f.Labs[Sodium], f.At)}
 	if c, ok := r.InfusateComposition(o.Medication); ok {
@@ -134,7 +139,7 @@ func (r *Ruleset) AssessInfusion(f Facts, o MedicationOrder) InfusionAssessment 
 	} else {
 		a.Missing = append(a.Missing, fmt.Sprintf("a body weight from the last %s days", orderHours.of(p.Projection.WeightMaxAgeHours/24)))
 	}
-	a.Others = r.otherContributors(f, o)
+	a.Others = pool.besides(o)
 	a.Vaptan = r.vaptanBeside(f, o)
 	a.Urine = ReadUrineLosses(p.UrineLosses, f)
 	if v, basis, ok := Volume24h(o, f.At); ok {
@@ -264,28 +269,32 @@ type Contributor struct {
 	Change24h       *float64 // its share of the combined change
 }
 
-// otherContributors are the orders counted beside o: the call's other
-// draft orders with a known infusate, and the active orders that run at a
-// rate (infusions) or repeat a dose in mL, unless a draft replaces them
-// (priorPrescription). A draft or infusion whose infusate is unknown is
-// kept, without a composition, when it gives a volume (a rate or a dose
-// in mL): it is named, not silently left out.
-func (r *Ruleset) otherContributors(f Facts, o MedicationOrder) []Contributor {
+// balancePool is every order that may count in the balance of the next
+// 24 h, worked out once per call: the draft orders with a known infusate or
+// a volume, and the running orders (see candidates).
+type balancePool []Contributor
+
+// candidates are the orders that may count: the call's draft orders with a
+// known infusate, and the active orders that run at a rate (infusions) or
+// repeat a dose in mL, unless a draft replaces them (priorPrescription). A
+// draft or infusion whose infusate is unknown is kept, without a
+// composition, when it gives a volume: it is named, not silently left out.
+func (r *Ruleset) candidates(f Facts) balancePool {
 	replaced := map[string]bool{}
 	for _, d := range f.DraftOrders {
 		if d.Replaces != "" {
 			replaced[d.Replaces] = true
 		}
 	}
-	var out []Contributor
+	var out balancePool
 	add := func(c MedicationOrder, running bool) {
-		comp, known := r.InfusateComposition(c.Medication)
 		v, basis, hasVolume := Volume24h(c, f.At)
 		repeats := c.RateMlPerHour != nil || (c.Frequency != nil && c.Period != nil)
-		switch {
-		case running && !repeats:
-			return // a single dose already on the chart is not running
-		case !known && !hasVolume:
+		if running && (!repeats || !hasVolume) {
+			return // a single dose, or no volume: not running in the balance
+		}
+		comp, known := r.InfusateComposition(c.Medication)
+		if !known && !hasVolume {
 			return // not a fluid
 		}
 		k := Contributor{Order: c, Running: running, VolumeBasis: basis}
@@ -298,14 +307,25 @@ func (r *Ruleset) otherContributors(f Facts, o MedicationOrder) []Contributor {
 		out = append(out, k)
 	}
 	for _, d := range f.DraftOrders {
-		if d.Reference != o.Reference {
-			add(d, false)
-		}
+		add(d, false)
 	}
 	for _, m := range f.Medications {
-		if !replaced[m.Reference] && m.Reference != o.Replaces && m.Reference != o.Reference {
+		if !replaced[m.Reference] {
 			add(m, true)
 		}
+	}
+	return out
+}
+
+// besides are the pool's orders counted beside o: all but o itself and the
+// running order o replaces.
+func (p balancePool) besides(o MedicationOrder) []Contributor {
+	var out []Contributor
+	for _, c := range p {
+		if c.Order.Reference == o.Reference || c.Running && c.Order.Reference == o.Replaces {
+			continue
+		}
+		out = append(out, c)
 	}
 	return out
 }

@@ -59,11 +59,13 @@ const (
 // infusions counted beside it (AssessInfusion), and the card names them all.
 func (r *Ruleset) infusionFindings(f Facts) []Finding {
 	var lead *InfusionAssessment
-	for _, o := range f.DraftOrders {
-		if !o.Selected {
+	pool := r.candidates(f)
+	for _, c := range pool {
+		o := c.Order
+		if c.Running || !o.Selected || c.Composition == nil {
 			continue
 		}
-		a := r.AssessInfusion(f, o)
+		a := r.assess(f, o, pool)
 		if a.Composition == nil {
 			continue
 		}
