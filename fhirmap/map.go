@@ -94,6 +94,10 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 			}
 		case "Condition":
 			m.condition(r)
+		case "MedicationAdministration":
+			if o, ok := m.medicationAdministration(r); ok {
+				m.facts.Infusing = append(m.facts.Infusing, o)
+			}
 		case "Medication":
 		default:
 			m.unused[[2]string{r.Type, "resource type not read by halite"}]++

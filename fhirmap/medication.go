@@ -2,6 +2,7 @@ package fhirmap
 
 import (
 	"encoding/json"
+	"fmt"
 	"strconv"
 	"strings"
 
@@ -48,7 +49,7 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 			m.note("%s: authoredOn: %v", r.Ref(), err)
 		}
 	}
-	o.Medication = m.medicationOf(r, mr)
+	o.Medication = m.medicationOf(r, mr.MedicationCodeableConcept, mr.MedicationReference)
 	if len(mr.DosageInstruction) > 0 {
 		for _, ignored := range dosage(&o, mr.DosageInstruction[0]) {
 			m.note("%s: %s is not read", r.Ref(), ignored)
@@ -79,12 +80,14 @@ func (m *mapper) medicationRequest(r Resource) (rules.MedicationOrder, bool) {
 	return o, true
 }
 
-func (m *mapper) medicationOf(r Resource, mr medicationRequestFields) rules.Medication {
-	if cs, text := codings(&mr.MedicationCodeableConcept); len(cs) > 0 || text != "" {
+// medicationOf reads what an order or administration is for: its
+// medicationCodeableConcept cc, else its medicationReference mref.
+func (m *mapper) medicationOf(r Resource, cc fhir.CodeableConcept, mref fhir.Reference) rules.Medication {
+	if cs, text := codings(&cc); len(cs) > 0 || text != "" {
 		return rules.Medication{Source: rules.FromCodeableConcept, Codings: cs, Text: text}
 	}
-	ref := str(mr.MedicationReference.Reference)
-	unresolved := rules.Medication{Source: rules.FromUnresolved, Text: str(mr.MedicationReference.Display)}
+	ref := str(mref.Reference)
+	unresolved := rules.Medication{Source: rules.FromUnresolved, Text: str(mref.Display)}
 	if ref == "" {
 		return unresolved
 	}
@@ -197,16 +200,7 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 				o.RateMlPerHour = rateMlPerHour(q.Value, q.Unit)
 			}
 		case dr.RateRatio != nil:
-			num, den := quantity(dr.RateRatio.Numerator), quantity(dr.RateRatio.Denominator)
-			if num != nil && den != nil && den.Value > 0 {
-				o.Rate = formatQuantity(*num) + " per " + formatQuantity(*den)
-				if ml, ok := rules.VolumeMl(*num); ok {
-					if h, ok := rules.DurationHours(*den); ok && h > 0 {
-						v := ml / h
-						o.RateMlPerHour = &v
-					}
-				}
-			}
+			o.Rate, o.RateMlPerHour = ratioRate(dr.RateRatio)
 		}
 	}
 	if d.Timing != nil && d.Timing.Repeat != nil {
@@ -223,6 +217,58 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 	return ignored
 }
 
+// medicationAdministrationFields are the MedicationAdministration elements
+// halite reads.
+type medicationAdministrationFields struct {
+	Status                    string                               `json:"status"`
+	MedicationCodeableConcept fhir.CodeableConcept                 `json:"medicationCodeableConcept"`
+	MedicationReference       fhir.Reference                       `json:"medicationReference"`
+	Subject                   fhir.Reference                       `json:"subject"`
+	Request                   *fhir.Reference                      `json:"request"`
+	Dosage                    *fhir.MedicationAdministrationDosage `json:"dosage"`
+}
+
+// medicationAdministration reads an in-progress MedicationAdministration as
+// an infusion running now: its medication, route and rate (FHIR R4
+// MedicationAdministration.dosage.rate[x]). ok is false, with the reason
+// counted, for one that is not in progress or not the patient's.
+func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, bool) {
+	var ma medicationAdministrationFields
+	if err := DecodeJSON(r.Raw, &ma); err != nil {
+		m.reject(r, "", "invalid resource: "+err.Error())
+		return rules.MedicationOrder{}, false
+	}
+	if ma.Status != "in-progress" {
+		m.unused[[2]string{r.Type, fmt.Sprintf("status %q is not in-progress", ma.Status)}]++
+		return rules.MedicationOrder{}, false
+	}
+	if !m.refersToPatient(str(ma.Subject.Reference), r) {
+		m.reject(r, "", "subject is not the patient in context")
+		return rules.MedicationOrder{}, false
+	}
+	o := rules.MedicationOrder{Reference: r.Ref(), Status: ma.Status}
+	o.Medication = m.medicationOf(r, ma.MedicationCodeableConcept, ma.MedicationReference)
+	if ma.Request != nil && ma.Request.Reference != nil {
+		if t, err := m.refs.Resolve(*ma.Request.Reference, r); err == nil {
+			o.ForRequest = t.Ref()
+		}
+	}
+	if d := ma.Dosage; d != nil {
+		o.Route, o.RouteText = codings(d.Route)
+		o.Dose = quantity(d.Dose)
+		switch {
+		case d.RateQuantity != nil:
+			if q := quantity(d.RateQuantity); q != nil {
+				o.Rate = formatQuantity(*q)
+				o.RateMlPerHour = rateMlPerHour(q.Value, q.Unit)
+			}
+		case d.RateRatio != nil:
+			o.Rate, o.RateMlPerHour = ratioRate(d.RateRatio)
+		}
+	}
+	return o, true
+}
+
 // boundsEnd is the end of the first dosage's timing.repeat.boundsPeriod, if
 // any: the time the order stops.
 func boundsEnd(d fhir.Dosage) string {
@@ -234,6 +280,23 @@ func boundsEnd(d fhir.Dosage) string {
 
 func formatQuantity(q rules.Quantity) string {
 	return strings.TrimSpace(strconv.FormatFloat(q.Value, 'f', -1, 64) + " " + q.Unit)
+}
+
+// ratioRate reads a rate written as a ratio (100 mL per 1 h): as written,
+// and in mL/h when its units allow.
+func ratioRate(r *fhir.Ratio) (string, *float64) {
+	num, den := quantity(r.Numerator), quantity(r.Denominator)
+	if num == nil || den == nil || den.Value <= 0 {
+		return "", nil
+	}
+	text := formatQuantity(*num) + " per " + formatQuantity(*den)
+	if ml, ok := rules.VolumeMl(*num); ok {
+		if h, ok := rules.DurationHours(*den); ok && h > 0 {
+			v := ml / h
+			return text, &v
+		}
+	}
+	return text, nil
 }
 
 // rateMlPerHour normalises a rate written as a single UCUM quantity.

@@ -339,3 +339,27 @@ func TestMapOrderStopAndPrior(t *testing.T) {
 		t.Errorf("a date-only end must not be read as a time: %+v, notes %q", f.DraftOrders, f.Notes)
 	}
 }
+
+// An in-progress MedicationAdministration is what runs now (FHIR R4
+// MedicationAdministration: status, request, dosage.rate[x]).
+func TestMapMedicationAdministration(t *testing.T) {
+	ma := func(id, status, extra string) json.RawMessage {
+		return json.RawMessage(fmt.Sprintf(`{"resourceType":"MedicationAdministration","id":%q,"status":%q,`+
+			`"subject":{"reference":"Patient/p1"},"effectivePeriod":{"start":"2026-11-20T06:00:00Z"},%s%s}`, id, status, nsConcept, extra))
+	}
+	f := mapResources(t,
+		ma("running", "in-progress", `,"request":{"reference":"MedicationRequest/ns"},"dosage":{"rateRatio":{"numerator":{"value":80,"unit":"mL","system":"http://unitsofmeasure.org","code":"mL"},"denominator":{"value":1,"unit":"h","system":"http://unitsofmeasure.org","code":"h"}}}`),
+		ma("done", "completed", `,"dosage":{"rateQuantity":{"value":100,"unit":"mL/h","system":"http://unitsofmeasure.org","code":"mL/h"}}`),
+	)
+	if len(f.Infusing) != 1 {
+		t.Fatalf("infusing %+v", f.Infusing)
+	}
+	o := f.Infusing[0]
+	if o.Reference != "MedicationAdministration/running" || o.ForRequest != "MedicationRequest/ns" || o.RateMlPerHour == nil || *o.RateMlPerHour != 80 ||
+		o.Medication.Source != rules.FromCodeableConcept {
+		t.Errorf("administration %+v", o)
+	}
+	if len(f.Rejected) != 1 || f.Rejected[0].Source != "1 × MedicationAdministration" || f.Rejected[0].Reason != `status "completed" is not in-progress` {
+		t.Errorf("a completed administration is not accounted for: %+v", f.Rejected)
+	}
+}

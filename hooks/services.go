@@ -81,7 +81,7 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"for projections; active MedicationRequests, so that infusions already running are counted with the " +
 				"drafts. Draft orders must be MedicationRequests with coded or described products.",
 			Check:    rules.InfusionCheck,
-			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications},
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications, k.administrations},
 		},
 		{
 			ID:    "sodium-drug-risk",
@@ -112,7 +112,7 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 }
 
 type keySet struct {
-	patient, sodium, chemistry, urine, bodySize, medications, conditions PrefetchKey
+	patient, sodium, chemistry, urine, bodySize, medications, administrations, conditions PrefetchKey
 }
 
 // prefetchKeys builds the templates. They use only the restricted query
@@ -138,6 +138,9 @@ func prefetchKeys(codes *fhirmap.Codes) keySet {
 		medications: PrefetchKey{Key: "medications",
 			Template: "MedicationRequest?patient={{context.patientId}}&status=active",
 			What:     "active medication orders"},
+		administrations: PrefetchKey{Key: "administrations",
+			Template: "MedicationAdministration?patient={{context.patientId}}&status=in-progress",
+			What:     "infusions in progress"},
 		conditions: PrefetchKey{Key: "conditions",
 			Template: "Condition?patient={{context.patientId}}&clinical-status=active",
 			What:     "active conditions"},

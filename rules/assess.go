@@ -275,8 +275,10 @@ type Contributor struct {
 type balancePool []Contributor
 
 // candidates are the orders that may count: the call's draft orders with a
-// known infusate, and the active orders that run at a rate (infusions) or
-// repeat a dose in mL, unless a draft replaces them (priorPrescription). A
+// known infusate, the in-progress administrations that run at a rate, and
+// the active orders that run at a rate (infusions) or repeat a dose in mL,
+// unless a draft replaces them (priorPrescription) or an administration
+// carries them out (its rate is what runs now). A
 // draft or infusion whose infusate is unknown is kept, without a
 // composition, when it gives a volume: it is named, not silently left out.
 func (r *Ruleset) candidates(f Facts) balancePool {
@@ -308,6 +310,12 @@ func (r *Ruleset) candidates(f Facts) balancePool {
 	}
 	for _, d := range f.DraftOrders {
 		add(d, false)
+	}
+	for _, m := range f.Infusing {
+		if !replaced[m.ForRequest] {
+			add(m, true)
+			replaced[m.ForRequest] = true
+		}
 	}
 	for _, m := range f.Medications {
 		if !replaced[m.Reference] {

@@ -210,6 +210,20 @@ func TestAssessCombinedBalance(t *testing.T) {
 			t.Errorf("others %+v, want none: the draft replaces the running order", a.Others)
 		}
 	})
+	t.Run("an administration in progress is what runs, not its order", func(t *testing.T) {
+		f := base()
+		f.Medications = []MedicationOrder{ns("MedicationRequest/running", 100)}
+		given := ns("MedicationAdministration/now", 80)
+		given.Status, given.ForRequest = "in-progress", "MedicationRequest/running"
+		f.Infusing = []MedicationOrder{given}
+		a := rs.AssessInfusion(f, draft)
+		// Saline at the administered 80 mL/h: 1.92 L × 38 = 72.96; with the
+		// 3%: (178.17 + 72.96)/(32 + 0.4488 + 1.92).
+		if len(a.Others) != 1 || a.Others[0].Order.Reference != "MedicationAdministration/now" ||
+			!near(*a.ProjectedChange24h, (0.4488*397+1.92*38)/(32+0.4488+1.92), 1e-9) {
+			t.Errorf("others %+v change %v", a.Others, *a.ProjectedChange24h)
+		}
+	})
 	t.Run("a single dose already on the chart is not running", func(t *testing.T) {
 		f := base()
 		f.Medications = []MedicationOrder{{Reference: "MedicationRequest/bolus", Medication: Medication{Text: "0.9% saline"}, Dose: &Quantity{Value: 500, Unit: "mL"}}}

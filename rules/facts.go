@@ -188,6 +188,9 @@ type MedicationOrder struct {
 	Bounds *Quantity
 	// EndsAt is when the order stops (timing.repeat.boundsPeriod.end).
 	EndsAt *time.Time
+	// ForRequest, for an administration, is the order it carries out
+	// (MedicationAdministration.request).
+	ForRequest string
 	// Replaces is the order this one replaces (priorPrescription, as
 	// "MedicationRequest/id" when the data holds it).
 	Replaces         string
@@ -221,6 +224,8 @@ type Facts struct {
 	Labs        map[Analyte][]Measurement // each series ordered by time, oldest first
 	Rejected    []Rejection
 	Medications []MedicationOrder // active orders already on the chart
+	// Infusing are in-progress MedicationAdministrations: what runs now.
+	Infusing    []MedicationOrder
 	DraftOrders []MedicationOrder // orders being selected or signed
 	Conditions  []Condition
 	Gaps        []DataGap

@@ -624,7 +624,7 @@ func (a InfusionAssessment) contributorAttributes() map[string]any {
 	entry := func(o MedicationOrder, running bool, comp *Composition, vol *float64) map[string]any {
 		e := map[string]any{"reference": o.Reference, "status": "draft"}
 		if running {
-			e["status"] = "active"
+			e["status"] = o.Status // active (an order) or in-progress (an administration)
 		}
 		if vol != nil {
 			e["volume24hLitres"] = Round(*vol, 3)
