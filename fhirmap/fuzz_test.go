@@ -8,6 +8,8 @@ import (
 	"sort"
 	"testing"
 	"time"
+
+	"github.com/halite-cds/halite/rules"
 )
 
 // fuzzSeeds are small hand-written bundles for patient p1.
@@ -135,6 +137,23 @@ func FuzzParseDateTime(f *testing.F) {
 		}
 		if got.Location() != time.UTC || got.Hour() != 0 || got.Minute() != 0 || got.Second() != 0 || got.Nanosecond() != 0 {
 			t.Errorf("ParseDateTime(%q) = %v, want UTC midnight", s, got)
+		}
+	})
+}
+
+// FuzzReadLocalCodes: a site's codes file never panics the reader, and a
+// table it accepts answers lookups.
+func FuzzReadLocalCodes(f *testing.F) {
+	f.Add([]byte(`{"codes":[{"system":"http://lab.example.org/codes","code":"NA","analyte":"sodium","unit":"mmol/L","specimen":"serum","origin":"laboratory"}]}`))
+	f.Add([]byte(`{"codes":[{"system":"lab","code":""}]}`))
+	f.Add([]byte("\xef\xbb\xbf{\"codes\":[]}"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		codes, err := ReadLocalCodes(data)
+		if err != nil {
+			return
+		}
+		for _, a := range rules.Analytes() {
+			codes.SearchTokens(a)
 		}
 	})
 }

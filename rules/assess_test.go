@@ -180,7 +180,9 @@ func TestAssessCombinedBalance(t *testing.T) {
 			t.Errorf("others reach %v over %v max rate %v", a.OthersReachLimit, a.OverLimit, a.MaxRateMlPerHour)
 		}
 		fd := rs.Evaluate(InfusionCheck, Facts{At: f.At, Patient: f.Patient, Labs: f.Labs, Medications: f.Medications, DraftOrders: []MedicationOrder{draft}})
-		if len(fd) != 1 || !strings.HasPrefix(fd[0].Summary, "Other fluids alone bring a rise of 6.0 mmol/L") {
+		// 6.0 − 5.5 = 0.5 beyond what is allowed.
+		if len(fd) != 1 || !strings.HasPrefix(fd[0].Summary, "Other fluids alone bring a rise of 6.0 mmol/L") ||
+			!strings.Contains(fd[0].Detail, "+6.0 mmol/L in 24 h, 0.5 mmol/L beyond the 5.5 mmol/L still allowed") {
 			t.Errorf("findings %+v", fd)
 		}
 		for _, adv := range fd[0].Advice {

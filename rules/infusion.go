@@ -519,8 +519,8 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 	}
 	r.urineLines(&b, a)
 	if a.OthersReachLimit {
-		line("The other fluids alone bring %s mmol/L in 24 h, which uses the %s mmol/L still allowed: no volume of this order fits while they run as ordered",
-			naChange.signed(*a.OthersChange24h), naChange.of(a.Allowed))
+		line("The other fluids alone bring %s mmol/L in 24 h, %s mmol/L beyond the %s mmol/L still allowed: no volume of this order fits while they run as ordered",
+			naChange.signed(*a.OthersChange24h), naChange.of(math.Abs(*a.OthersChange24h)-a.Allowed), naChange.of(a.Allowed))
 	}
 	if a.DeltaPerLitre != nil && !a.LimitReached {
 		line("Still allowed: %s mmol/L, set by %s", naChange.of(a.Allowed), r.describeLimit(a))
