@@ -312,8 +312,10 @@ func (r *Ruleset) candidates(f Facts) balancePool {
 		add(d, false)
 	}
 	for _, m := range f.Infusing {
-		if !replaced[m.ForRequest] {
+		if m.ForRequest == "" || !replaced[m.ForRequest] {
 			add(m, true)
+		}
+		if m.ForRequest != "" {
 			replaced[m.ForRequest] = true
 		}
 	}
@@ -341,7 +343,7 @@ func (p balancePool) besides(o MedicationOrder) []Contributor {
 // vaptanBeside names a vasopressin-receptor antagonist active or drafted
 // other than o, with its reference; "" when there is none.
 func (r *Ruleset) vaptanBeside(f Facts, o MedicationOrder) string {
-	for _, m := range append(append([]MedicationOrder(nil), f.Medications...), f.DraftOrders...) {
+	for _, m := range append(append(append([]MedicationOrder(nil), f.Medications...), f.Infusing...), f.DraftOrders...) {
 		if m.Reference == o.Reference {
 			continue
 		}

@@ -234,3 +234,65 @@ func TestAssessCombinedBalance(t *testing.T) {
 		}
 	})
 }
+
+// Review findings on the whole-patient balance: an order that pulls the
+// other way is judged by what everything counted does; administrations
+// without a known request are each counted; hypertonic saline running only
+// as an administration is seen beside a vaptan; an ended dose gives nothing.
+func TestBalanceReviewFindings(t *testing.T) {
+	rs := loadRuleset(t)
+	rate := func(v float64) *float64 { return &v }
+	hts := func(ref string, mlh float64) MedicationOrder {
+		return MedicationOrder{Reference: ref, Status: "active", Medication: Medication{Text: "3% saline"}, RateMlPerHour: rate(mlh)}
+	}
+	d5w := MedicationOrder{Reference: "MedicationRequest/d5w", Medication: Medication{Text: "D5W"}, RateMlPerHour: rate(20), Draft: true, Selected: true}
+
+	t.Run("a lowering draft while running 3% keeps the rise going past the limit", func(t *testing.T) {
+		// 112 → 124 in 24 h (12 > 10); 3% at 60 mL/h: 1.44 × (513 − 124) = 560.2,
+		// D5W 0.48 × (0 − 124) = −59.5; (560.2 − 59.5)/(30 + 1.92) = +15.7, still rising.
+		f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{20: 112, 2: 124}, nil)
+		f.Medications, f.DraftOrders = []MedicationOrder{hts("MedicationRequest/hts", 60)}, []MedicationOrder{d5w}
+		fs := rs.Evaluate(InfusionCheck, f)
+		if len(fs) != 1 || fs[0].Rule != RuleLimitExceeded || fs[0].Indicator != Critical || !strings.Contains(fs[0].Summary, "+15.7 mmol/L in 24 h") {
+			t.Errorf("findings %+v", fs)
+		}
+	})
+	t.Run("a lowering draft beside running 3% over the limit is not the problem", func(t *testing.T) {
+		f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{20: 112, 2: 116}, nil)
+		f.Medications, f.DraftOrders = []MedicationOrder{hts("MedicationRequest/hts", 60)}, []MedicationOrder{d5w}
+		fs := rs.Evaluate(InfusionCheck, f)
+		if len(fs) != 1 || fs[0].Rule != RuleProjectedOver || !strings.Contains(fs[0].Summary, "this order offsets") ||
+			len(fs[0].Advice) != 1 || fs[0].Advice[0].Kind != AdviseRecheck || strings.Contains(fs[0].Detail, "no volume of this order fits") {
+			t.Errorf("findings %+v", fs)
+		}
+	})
+	t.Run("administrations without a known request are each counted", func(t *testing.T) {
+		f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{2: 116}, nil)
+		a1, a2 := hts("MedicationAdministration/1", 10), hts("MedicationAdministration/2", 10)
+		a1.Status, a2.Status = "in-progress", "in-progress"
+		f.Infusing = []MedicationOrder{a1, a2}
+		if pool := rs.candidates(f); len(pool) != 2 {
+			t.Errorf("pool %+v, want both administrations", pool)
+		}
+	})
+	t.Run("a vaptan draft beside 3% running only as an administration", func(t *testing.T) {
+		f := assessFacts(t, SexFemale, "1986-01-10", 60, map[float64]float64{2: 129}, nil)
+		given := hts("MedicationAdministration/hts", 20)
+		given.Status = "in-progress"
+		f.Infusing = []MedicationOrder{given}
+		f.DraftOrders = []MedicationOrder{{Reference: "MedicationRequest/tv", Medication: Medication{Text: "tolvaptan 15 mg"}, Draft: true, Selected: true}}
+		fs := rs.Evaluate(InfusionCheck, f)
+		if len(fs) != 1 || fs[0].Rule != RuleWaterDrug || !strings.Contains(fs[0].Summary, "hypertonic saline running (MedicationAdministration/hts)") {
+			t.Errorf("findings %+v", fs)
+		}
+	})
+	t.Run("an ended dose order gives nothing", func(t *testing.T) {
+		at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+		past := at.Add(-time.Hour)
+		one := 1
+		o := MedicationOrder{Dose: &Quantity{Value: 500, Unit: "mL"}, Frequency: &one, Period: &Quantity{Value: 8, Unit: "h"}, EndsAt: &past}
+		if v, _, ok := Volume24h(o, at); !ok || v != 0 {
+			t.Errorf("volume %v %v, want 0", v, ok)
+		}
+	})
+}

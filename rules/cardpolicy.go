@@ -255,7 +255,7 @@ func (c ChartReviewPolicy) validate() error {
 		}
 	}
 	if c.Source == "" || c.SIADH.Source == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
-		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || len(c.Restriction.Bands) == 0 {
+		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}
 	for i, b := range c.Restriction.Bands {

@@ -383,7 +383,8 @@ func (r *Ruleset) restrictionWithheld(c chart) string {
 	}
 	for _, o := range append(append([]MedicationOrder(nil), c.f.Medications...), c.f.DraftOrders...) {
 		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && d.RaisesSodium {
-			return fmt.Sprintf("%s is active or ordered (%s): restriction is not combined with it early in treatment", d.Name, o.Reference)
+			return fmt.Sprintf("%s is active or ordered (%s), and fluid restriction early in its treatment can make sodium rise too fast (%s)",
+				d.Name, o.Reference, rs.WithheldSource)
 		}
 	}
 	urea := nearest(c.f.Labs[Urea], *c.latest, r.policy.ChartReview.LabPairHours, c.f)
@@ -434,9 +435,9 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, fig map[string]flo
 	w, okW := latestWithin(c.f.Labs[BodyWeight], c.f.At, p.Projection.WeightMaxAgeHours)
 	h, okH := latestWithin(c.f.Labs[BodyHeight], c.f.At, p.ChartReview.HeightMaxAgeHours)
 	if !okW || !okH {
-		fmt.Fprintf(b, "- Child: a restriction is set from insensible losses (about %g mL/m²/day) plus urine output (%s); the "+
+		fmt.Fprintf(b, "- Child: a restriction is set from insensible losses (about %g mL/m²/day) plus urine output; the "+
 			"body-surface area needs a weight from the last %s days and a height from the last %s days; missing: %s\n",
-			rs.PaediatricInsensibleMlPerM2, rs.PaediatricInsensibleSource, orderHours.of(p.Projection.WeightMaxAgeHours/24),
+			rs.PaediatricInsensibleMlPerM2, orderHours.of(p.Projection.WeightMaxAgeHours/24),
 			orderHours.of(p.ChartReview.HeightMaxAgeHours/24), missingSize(okW, okH))
 		return
 	}
@@ -448,8 +449,8 @@ func (r *Ruleset) paediatricBand(b *strings.Builder, c chart, fig map[string]flo
 	fig["bsaM2"] = Round(bsa, 2)
 	fmt.Fprintf(b, "- Child: body-surface area %s m² (Mosteller; %s cm, %s kg). A child's restriction is set from insensible losses, "+
 		"about %g mL/m²/day (%s mL/day for this child), plus the measured urine output, never below the insensible losses; the adult "+
-		"bands are not scaled down (%s; %s)\n", ratioOrBSA.of(bsa), show(BodyHeight, h.Value), show(BodyWeight, w.Value),
-		rs.PaediatricInsensibleMlPerM2, mlPerDay.of(rs.PaediatricInsensibleMlPerM2*bsa), rs.PaediatricInsensibleSource, rs.PaediatricSource)
+		"bands are not scaled down (%s)\n", ratioOrBSA.of(bsa), show(BodyHeight, h.Value), show(BodyWeight, w.Value),
+		rs.PaediatricInsensibleMlPerM2, mlPerDay.of(rs.PaediatricInsensibleMlPerM2*bsa), rs.PaediatricSource)
 }
 
 func missingSize(haveWeight, haveHeight bool) string {

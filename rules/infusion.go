@@ -36,18 +36,25 @@ const (
 // known. Which rule answers is decided here, in this order; the indicator
 // and re-check interval of each rule are policy data (cards.rules):
 //   - sodium-limit-exceeded: the measured change already exceeds the 24-h
-//     or 48-h limit and the order moves sodium further the same way;
+//     or 48-h limit and the order, or the fluids counted together, move
+//     sodium further the same way;
+//   - sodium-relowering-order: after a rise beyond the limit, an order that
+//     lowers sodium while everything counted lowers it too: the target and
+//     the projected fall (a warning only when the projection passes the
+//     target by more than the policy allows);
 //   - hypertonic-saline-not-hypotonic: a hypertonic order while the
 //     effective osmolality or the glucose-corrected sodium says the sodium
 //     is not a hypotonic hyponatremia (tonicity first);
-//   - sodium-relowering-order: after a rise beyond the limit, an order that
-//     lowers sodium: the target and the projected fall (a warning only when
-//     the projection passes the target by more than the policy allows);
-//   - hypertonic-saline-with-vaptan: a hypertonic order beside an active or
-//     drafted vasopressin-receptor antagonist;
-//   - sodium-projected-over-limit: the projected change exceeds what the
-//     tightest limit still allows (its high-risk indicator applies at high
-//     demyelination risk in hyponatremia);
+//   - hypertonic-saline-with-vaptan: a hypertonic order beside an active,
+//     drafted or running vasopressin-receptor antagonist;
+//   - sodium-projected-over-limit: the projected change of everything
+//     counted exceeds what the tightest limit still allows (its high-risk
+//     indicator applies at high demyelination risk in hyponatremia); for an
+//     order that pulls the other way it says the other fluids are over;
+//   - sodium-aquaresis-watch: a brisk dilute urine during the correction of
+//     hyponatremia;
+//   - saline-desalination: a non-hypertonic saline below the urine's Na + K
+//     in hyponatremia;
 //   - hypertonic-projection-unavailable: a hypertonic order that cannot be
 //     projected because an input is missing;
 //   - hypertonic-saline-projection: any other hypertonic order;
@@ -99,6 +106,18 @@ func (a InfusionAssessment) reloweringTarget() (float64, bool) {
 	return target, !math.IsInf(target, 1)
 }
 
+// movesRestrictedWay reports whether this order's infusate moves sodium
+// the way the limits restrict (up in hyponatremia, down in hypernatremia).
+func (a InfusionAssessment) movesRestrictedWay() bool {
+	if a.DeltaPerLitre == nil {
+		return false
+	}
+	if a.Hypernatremia {
+		return *a.DeltaPerLitre < 0
+	}
+	return *a.DeltaPerLitre > 0
+}
+
 // leads reports whether a's order moves sodium further than b's the way the
 // limits restrict (a rise in hyponatremia, a fall in hypernatremia); an
 // order with a projection leads one without.
@@ -121,11 +140,19 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	}
 	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Attributes: a.contributorAttributes()}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
-	sameWay := a.DeltaPerLitre != nil && sign**a.DeltaPerLitre > 0
+	sameWay := a.movesRestrictedWay()
+	// The fluids counted together may keep moving sodium the restricted way
+	// even when this order pulls the other way.
+	combinedSameWay := a.ProjectedChange24h != nil && sign**a.ProjectedChange24h > 0
+	counteracting := a.DeltaPerLitre != nil && !sameWay
 	target, relowering := a.reloweringTarget()
 	hyponatremic := a.Latest != nil && !a.Hypernatremia && a.Latest.Value < r.policy.ChartReview.HyponatremiaBelow
 	urineNaK, _ := a.Urine.NaK()
 	switch {
+	case a.Latest != nil && exceeded && !sameWay && combinedSameWay:
+		fd.Rule = RuleLimitExceeded
+		fd.Summary = fmt.Sprintf("Sodium already %s beyond the limit; the fluids counted keep it going (%s mmol/L in 24 h with %s)",
+			pastTense(word), naChange.signed(*a.ProjectedChange24h), a.fromWhat())
 	case a.Latest != nil && exceeded && sameWay:
 		fd.Rule = RuleLimitExceeded
 		if a.Achieved24h > a.Limit24h {
@@ -135,7 +162,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 			fd.Summary = fmt.Sprintf("Sodium already rose %s mmol/L in 48 h (limit %g); this order raises it further",
 				naChange.of(a.Achieved48h), a.Limit48h)
 		}
-	case relowering && a.DeltaPerLitre != nil && *a.DeltaPerLitre < 0:
+	case relowering && a.DeltaPerLitre != nil && *a.DeltaPerLitre < 0 && (a.ProjectedChange24h == nil || *a.ProjectedChange24h < 0):
 		fd.Rule = RuleRelowering
 		fd.Figures["relowerTargetSodium"] = Round(target, 1)
 		if a.ProjectedChange24h == nil {
@@ -147,6 +174,23 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Figures["relowerProjectedSodium"] = Round(projected, 1)
 		fd.Summary = fmt.Sprintf("Re-lowering after a rise beyond the limit: target sodium %s; projected %s mmol/L in 24 h (%s)",
 			naChange.of(target), naChange.of(projected), naChange.signed(*a.ProjectedChange24h))
+	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
+		fd.Rule = RuleHypertonicNotHypotonic
+		fd.Summary = notHypotonicSummary(a.Context)
+	case hypertonic && !a.Hypernatremia && a.Vaptan != "":
+		fd.Rule = RuleHypertonicWithVaptan
+		fd.Summary = shorten(fmt.Sprintf("Hypertonic saline with %s: the two together can raise sodium faster than either predicts", a.Vaptan), 139)
+	case a.OverLimit && a.OthersReachLimit && counteracting:
+		fd.Rule = RuleProjectedOver
+		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order offsets %s",
+			word, naChange.of(math.Abs(*a.OthersChange24h)), naChange.of(a.Allowed), naChange.of(math.Abs(*a.OrderChange24h)))
+	case a.OverLimit && a.OthersReachLimit:
+		fd.Rule = RuleProjectedOver
+		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order adds %s",
+			word, naChange.of(math.Abs(*a.OthersChange24h)), naChange.of(a.Allowed), naChange.signed(*a.OrderChange24h))
+	case a.OverLimit:
+		fd.Rule = RuleProjectedOver
+		fd.Summary = r.overSummary(a, word)
 	case hyponatremic && a.Urine.Aquaresis(r.policy.UrineLosses):
 		fd.Rule = RuleAquaresis
 		fd.Summary = fmt.Sprintf("Urine output %s mL/h with urine osmolality %s: an aquaresis can raise sodium fast whatever is infused",
@@ -158,19 +202,6 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		if a.ProjectedChange24hWithUrine != nil {
 			fd.Summary += fmt.Sprintf("; %s mmol/L in 24 h with the urine", naChange.signed(*a.ProjectedChange24hWithUrine))
 		}
-	case hypertonic && !a.Hypernatremia && r.tonicityNotHypotonic(a.Context):
-		fd.Rule = RuleHypertonicNotHypotonic
-		fd.Summary = notHypotonicSummary(a.Context)
-	case hypertonic && !a.Hypernatremia && a.Vaptan != "":
-		fd.Rule = RuleHypertonicWithVaptan
-		fd.Summary = shorten(fmt.Sprintf("Hypertonic saline with %s: the two together can raise sodium faster than either predicts", a.Vaptan), 139)
-	case a.OverLimit && a.OthersReachLimit:
-		fd.Rule = RuleProjectedOver
-		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order adds %s",
-			word, naChange.of(math.Abs(*a.OthersChange24h)), naChange.of(a.Allowed), naChange.signed(*a.OrderChange24h))
-	case a.OverLimit:
-		fd.Rule = RuleProjectedOver
-		fd.Summary = r.overSummary(a, word)
 	case hypertonic && a.ProjectedChange24h == nil:
 		fd.Rule = RuleNoProjection
 		fd.Summary = "Hypertonic sodium order: sodium change not projected; missing " + shorten(a.Missing[0], 70)
@@ -198,6 +229,10 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Indicator = rule.HighRisk
 	}
 	fd.Advice = infusionAdvice(fd.Rule, a, rule.RecheckHours)
+	if fd.Rule == RuleProjectedOver && counteracting {
+		// This order is not the problem: no new rate, no removal.
+		fd.Advice = []Advice{recheckAdvice(rule.RecheckHours)}
+	}
 	fd.Detail = r.detail(a, word, rule.RecheckHours)
 	switch fd.Rule {
 	case RuleAquaresis:
@@ -518,9 +553,14 @@ func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64
 			naChange.signed(*a.ProjectedTotal24h))
 	}
 	r.urineLines(&b, a)
-	if a.OthersReachLimit {
+	switch {
+	case a.OthersReachLimit && a.movesRestrictedWay():
 		line("The other fluids alone bring %s mmol/L in 24 h, %s mmol/L beyond the %s mmol/L still allowed: no volume of this order fits while they run as ordered",
 			naChange.signed(*a.OthersChange24h), naChange.of(math.Abs(*a.OthersChange24h)-a.Allowed), naChange.of(a.Allowed))
+	case a.OthersReachLimit && a.OrderChange24h != nil:
+		line("The other fluids alone bring %s mmol/L in 24 h, %s mmol/L beyond the %s mmol/L still allowed; this order offsets %s mmol/L of it",
+			naChange.signed(*a.OthersChange24h), naChange.of(math.Abs(*a.OthersChange24h)-a.Allowed), naChange.of(a.Allowed),
+			naChange.of(math.Abs(*a.OrderChange24h)))
 	}
 	if a.DeltaPerLitre != nil && !a.LimitReached {
 		line("Still allowed: %s mmol/L, set by %s", naChange.of(a.Allowed), r.describeLimit(a))
@@ -598,6 +638,9 @@ func (r *Ruleset) urineLines(b *strings.Builder, a InfusionAssessment) {
 	}
 	if u.Osmolality != nil {
 		fmt.Fprintf(b, "- Urine osmolality %s mOsm/kg (%s)\n", show(UrineOsmolality, u.Osmolality.Value), stamp(u.Osmolality.At))
+	}
+	if !a.Hypernatremia && u.Aquaresis(r.policy.UrineLosses) {
+		fmt.Fprintf(b, "- Aquaresis: a brisk dilute urine can raise sodium faster than any projection of the infusate\n")
 	}
 	if a.ProjectedChange24hWithUrine != nil {
 		nak, _ := u.NaK()

@@ -41,6 +41,9 @@ type SameTimePolicy struct {
 	OriginPrecedence []Origin              `json:"originPrecedence"`
 	Unresolved       map[Analyte]TieChoice `json:"unresolved"`
 	Source           string                `json:"source"`
+	// byIssued is set, for one group, when every result in it states its
+	// issued time.
+	byIssued bool
 }
 
 // TieChoice is the value that stands for tied results of one analyte.
@@ -96,9 +99,10 @@ func (p SameTimePolicy) validate() error {
 type Conflict struct {
 	// Others are the differing results, as mapped.
 	Others []Measurement
-	// Tied: precedence did not decide; Others are counted wherever they lie
-	// on the safer side (the nadir, the peak, a rise or fall).
-	Tied bool
+	// Tied are those of Others that precedence did not decide against: they
+	// are counted wherever they lie on the safer side (the nadir, the peak,
+	// a rise or fall). Results that ranked lower are not.
+	Tied []Measurement
 	// Decided says, in a clinician's words, why this value stands for the
 	// group: "laboratory over blood gas", "the lower value: …".
 	Decided string
@@ -140,6 +144,9 @@ func (p SameTimePolicy) resolveGroup(group []Measurement) ([]Measurement, []Reje
 		return group, nil, ""
 	}
 	ranked := slices.Clone(group)
+	// Issued times rank only when every result states one, so that the
+	// ranking is an order (a result without one neither wins nor loses).
+	p.byIssued = !slices.ContainsFunc(group, func(m Measurement) bool { return m.Issued == nil })
 	// Best first; among equals, the later taken.
 	slices.SortStableFunc(ranked, func(a, b Measurement) int {
 		if c, _ := p.compare(a, b); c != 0 {
@@ -220,7 +227,7 @@ func (p SameTimePolicy) compare(a, b Measurement) (int, string) {
 		}
 		return sign(ob - oa), fmt.Sprintf("%s over %s", hi, lo)
 	}
-	if a.Issued != nil && b.Issued != nil && !a.Issued.Equal(*b.Issued) {
+	if p.byIssued && !a.Issued.Equal(*b.Issued) {
 		if a.Issued.After(*b.Issued) {
 			return 1, "issued later"
 		}
@@ -295,7 +302,7 @@ func (m *Measurement) addOther(o Measurement, tied bool, decided string) {
 	o.SameTime = nil
 	m.SameTime.Others = append(m.SameTime.Others, o)
 	if tied {
-		m.SameTime.Tied = true
+		m.SameTime.Tied = append(m.SameTime.Tied, o)
 	}
 	if m.SameTime.Decided == "" || tied {
 		m.SameTime.Decided = decided
@@ -320,10 +327,10 @@ func (m Measurement) Highest() Measurement {
 
 func (m Measurement) extreme(better func(a, b float64) bool) Measurement {
 	out := m
-	if m.SameTime == nil || !m.SameTime.Tied {
+	if m.SameTime == nil {
 		return out
 	}
-	for _, o := range m.SameTime.Others {
+	for _, o := range m.SameTime.Tied {
 		if better(o.Value, out.Value) {
 			out = o
 		}
@@ -388,7 +395,7 @@ func sameTimeLine(m Measurement) string {
 func conflictText(m Measurement) string {
 	all := append([]Measurement{m}, m.SameTime.Others...)
 	s := showAll(all) + "; "
-	if m.SameTime.Tied {
+	if len(m.SameTime.Tied) > 0 {
 		return s + show(m.Analyte, m.Value) + " is counted (" + m.SameTime.Decided + "), and the nadir, peak, rise and fall each count the value on their safer side"
 	}
 	return s + show(m.Analyte, m.Value) + " is counted (" + m.SameTime.Decided + ")"

@@ -83,7 +83,7 @@ func TestResolveSameTime(t *testing.T) {
 			if tt.reason != "" && (len(rejected) == 0 || !strings.Contains(rejected[0].Reason, tt.reason)) {
 				t.Errorf("rejected %+v, want a reason with %q", rejected, tt.reason)
 			}
-			if tt.tied != (len(kept) == 1 && kept[0].SameTime != nil && kept[0].SameTime.Tied) {
+			if tt.tied != (len(kept) == 1 && kept[0].SameTime != nil && len(kept[0].SameTime.Tied) > 0) {
 				t.Errorf("tied = %v, want %v (%+v)", !tt.tied, tt.tied, kept)
 			}
 			switch {
@@ -93,6 +93,38 @@ func TestResolveSameTime(t *testing.T) {
 				t.Errorf("notes %q, want one with %q", notes, tt.note)
 			}
 		})
+	}
+}
+
+// Review findings: a result that ranked lower never comes back through a
+// tie, and a result without an issued time does not break the ranking.
+func TestSameTimeRankingIsAnOrder(t *testing.T) {
+	rs, err := Load()
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := rs.Policy().SameTime
+	t0 := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	at := func(min int) *time.Time { v := t0.Add(time.Duration(min) * time.Minute); return &v }
+	na := func(id string, v float64, o Origin, issued *time.Time) Measurement {
+		return Measurement{Analyte: Sodium, Value: v, At: t0, Source: "Observation/" + id, Origin: o, Status: "final", Issued: issued}
+	}
+	// Lab 130 and 133 tie; point of care 120 ranks lower and must not be
+	// the nadir the tie offers.
+	kept, _, _ := ResolveSameTime([]Measurement{na("a", 130, Laboratory, nil), na("b", 133, Laboratory, nil), na("poc", 120, PointOfCare, nil)}, p)
+	if len(kept) != 1 || kept[0].Lowest().Value != 130 || kept[0].Highest().Value != 133 {
+		t.Errorf("kept %+v: lowest %v highest %v, want 130 and 133", kept, kept[0].Lowest().Value, kept[0].Highest().Value)
+	}
+	// Issued 08:30, none, 09:30: issued times do not rank this group (one
+	// lacks it), so the three tie and sodium keeps the value farthest from 140.
+	kept, _, _ = ResolveSameTime([]Measurement{na("x", 125, Laboratory, at(30)), na("y", 131, Laboratory, nil), na("z", 129, Laboratory, at(90))}, p)
+	if len(kept) != 1 || kept[0].Value != 125 || len(kept[0].SameTime.Tied) != 2 {
+		t.Errorf("kept %+v, want 125 standing for a three-way tie", kept)
+	}
+	// With every issued time stated, the latest issued wins outright.
+	kept, _, _ = ResolveSameTime([]Measurement{na("x", 125, Laboratory, at(30)), na("y", 131, Laboratory, at(60)), na("z", 129, Laboratory, at(90))}, p)
+	if len(kept) != 1 || kept[0].Value != 129 || len(kept[0].SameTime.Tied) != 0 {
+		t.Errorf("kept %+v, want 129 (issued last)", kept)
 	}
 }
 
@@ -120,7 +152,7 @@ func TestWindowCountsTiesOnTheSaferSide(t *testing.T) {
 		peak, fallTo       float64
 		latestStandsForTie float64
 	}{
-		{"tie alone: no change", resolve(na("a", 1, 131), na("b", 1, 138)), 0, 0, 138, 138, 131, 131, 131},
+		{"tie alone: no change", resolve(na("a", 1, 131), na("b", 1, 138)), 0, 0, 131, 138, 131, 131, 131},
 		{"tie after a nadir: the rise to the higher", resolve(na("n", 10, 125), na("a", 1, 131), na("b", 1, 138)), 13, 0, 125, 138, 131, 131, 131},
 		{"tie at the nadir: the nadir at the lower", resolve(na("a", 10, 124), na("b", 10, 127), na("l", 1, 130)), 6, 0, 124, 130, 130, 130, 130},
 		{"tie after a peak: the fall to the lower", resolve(na("p", 10, 152), na("a", 1, 146), na("b", 1, 149)), 0, 6, 149, 149, 152, 146, 149},

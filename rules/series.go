@@ -9,10 +9,11 @@ type SodiumWindow struct {
 	// Nadir and Peak are the lowest and highest values in the window, and
 	// Latest the last; RiseFromNadir = Latest − Nadir and FallFromPeak =
 	// Peak − Latest, each ≥ 0. Where results at one time are tied (see
-	// SameTimePolicy), each figure counts the value on its safer side: the
-	// nadir and the latest of a fall at their lowest, the peak and the
-	// latest of a rise at their highest. RiseTo and FallTo are then the
-	// values the rise and the fall were measured to; else both are Latest.
+	// SameTimePolicy), each figure counts the value on its safer side: for
+	// the rise, earlier times at their lowest and the latest at its highest
+	// (RiseTo); for the fall, earlier times at their highest and the latest
+	// at its lowest (FallTo). Without ties RiseTo and FallTo are Latest. A
+	// nadir or peak at the latest time is Latest itself.
 	Nadir, Peak, Latest Measurement
 	RiseTo, FallTo      Measurement
 	RiseFromNadir       float64
@@ -91,19 +92,28 @@ func window(series []Measurement, at time.Time, hours int) *SodiumWindow {
 	// The rise: every earlier value at its lowest, the latest at its
 	// highest; the fall the other way round. Without ties both are the
 	// plain nadir and peak.
+	nadirLast, peakLast := false, false
 	for i, m := range w.Used {
 		lo, hi := m.Lowest(), m.Highest()
 		if i == last {
 			lo, hi = w.RiseTo, w.FallTo
 		}
 		if i == 0 || lo.Value < w.Nadir.Value {
-			w.Nadir = lo
+			w.Nadir, nadirLast = lo, i == last
 		}
 		if i == 0 || hi.Value > w.Peak.Value {
-			w.Peak = hi
+			w.Peak, peakLast = hi, i == last
 		}
 	}
 	w.RiseFromNadir = w.RiseTo.Value - w.Nadir.Value
 	w.FallFromPeak = w.Peak.Value - w.FallTo.Value
+	// A nadir or peak that is the latest time itself is shown as the latest
+	// (the rise or fall is then 0), not as its tied value's other side.
+	if nadirLast {
+		w.Nadir = w.Latest
+	}
+	if peakLast {
+		w.Peak = w.Latest
+	}
 	return w
 }

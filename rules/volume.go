@@ -15,6 +15,9 @@ import (
 // dose that is not positive; nothing is assumed.
 func Volume24h(o MedicationOrder, at time.Time) (litres float64, basis string, ok bool) {
 	window, stop := orderWindow(o, at)
+	if window <= 0 && (o.RateMlPerHour != nil || o.Dose != nil) {
+		return 0, stop, true // the order has ended: nothing more in 24 h
+	}
 	switch {
 	case o.RateMlPerHour != nil && *o.RateMlPerHour <= 0:
 		return 0, "", false
@@ -34,7 +37,7 @@ func Volume24h(o MedicationOrder, at time.Time) (litres float64, basis string, o
 		if o.Frequency != nil && o.Period != nil {
 			if h, known := DurationHours(*o.Period); known && h > 0 {
 				n = math.Max(1, math.Floor(float64(*o.Frequency)*window/h))
-				basis = fmt.Sprintf("%s doses of %s mL in %s h", doseCount.of(n), orderMl.of(dose), orderHours.of(window))
+				basis = fmt.Sprintf("%s dose%s of %s mL in %s h", doseCount.of(n), plural(int(n)), orderMl.of(dose), orderHours.of(window))
 			}
 		}
 		return n * dose / 1000, basis, true
@@ -73,8 +76,10 @@ func InfusionHours(o MedicationOrder, at time.Time) (float64, bool) {
 
 // RunHours is how long the order gives fluid within the 24 h from at, for
 // the hourly limit: a rate-based order for InfusionHours; a dose-based
-// order for its doses times the duration of each (timing.repeat.duration).
-// ok is false when the order does not say (a dose with no duration).
+// order for its doses within the order's window (orderWindow, as
+// Volume24h counts them) times the duration of each
+// (timing.repeat.duration). ok is false when the order does not say (a
+// dose with no duration).
 func RunHours(o MedicationOrder, at time.Time) (float64, bool) {
 	if h, ok := InfusionHours(o, at); ok {
 		return h, true
@@ -86,13 +91,17 @@ func RunHours(o MedicationOrder, at time.Time) (float64, bool) {
 	if !ok || each <= 0 {
 		return 0, false
 	}
+	window, _ := orderWindow(o, at)
+	if window <= 0 {
+		return 0, false
+	}
 	n := 1.0
 	if o.Frequency != nil && o.Period != nil {
 		if h, known := DurationHours(*o.Period); known && h > 0 {
-			n = math.Max(1, math.Floor(float64(*o.Frequency)*24/h))
+			n = math.Max(1, math.Floor(float64(*o.Frequency)*window/h))
 		}
 	}
-	return math.Min(24, n*each), true
+	return math.Min(window, n*each), true
 }
 
 // VolumeMl converts a volume quantity (mL or L) to mL.

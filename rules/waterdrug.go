@@ -231,14 +231,17 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 	return out
 }
 
-// hypertonicBeside names a hypertonic sodium fluid active or drafted
-// ("active, MedicationRequest/x"), or "" when there is none.
+// hypertonicBeside names a hypertonic sodium fluid active, running or
+// drafted ("active (MedicationRequest/x)"), or "" when there is none.
 func (r *Ruleset) hypertonicBeside(f Facts) string {
-	for _, o := range append(append([]MedicationOrder(nil), f.Medications...), f.DraftOrders...) {
+	for _, o := range append(append(append([]MedicationOrder(nil), f.Medications...), f.Infusing...), f.DraftOrders...) {
 		if c, ok := r.InfusateComposition(o.Medication); ok && c.NaK() >= r.policy.Cards.HypertonicNaKAtLeast {
 			status := "active"
-			if o.Draft {
+			switch {
+			case o.Draft:
 				status = "drafted"
+			case o.Status == "in-progress":
+				status = "running"
 			}
 			return fmt.Sprintf("%s (%s)", status, o.Reference)
 		}
