@@ -2,6 +2,7 @@ package rules
 
 import (
 	"cmp"
+	"regexp"
 	"strconv"
 	"strings"
 )
@@ -118,4 +119,48 @@ func orderText(o MedicationOrder) string {
 		}
 	}
 	return product + "; route: " + cmp.Or(route, "not stated")
+}
+
+// Reviewers' curation notes in the policy and drug data (verification
+// marks, note numbers, repository addresses) stay in the data and in
+// `halite rules`; clinicianText takes them out of what clinicians read.
+var curation = []struct {
+	re   *regexp.Regexp
+	with string
+}{
+	{regexp.MustCompile(`\s*\[(?:V|derived)\b[^\]]*\]`), ""},                                           // [V], [V: abstract], [derived, …]
+	{regexp.MustCompile(`\s*\((?:first author )?from memory\)`), ""},                                   // (from memory)
+	{regexp.MustCompile(`\((?:first author )?from memory[:;,]\s*`), "("},                               // (from memory: …
+	{regexp.MustCompile(`\s*[;,]\s*(?:first author )?from memory\b`), ""},                              // …; from memory)
+	{regexp.MustCompile(`\s*\((?:halite's clinical )?reference notes §[\d.]+\)`), ""},                  // (reference notes §3)
+	{regexp.MustCompile(`[;,]?\s*(?:halite's clinical )?reference notes §[\d.]+,?`), ""},               // …; reference notes §9
+	{regexp.MustCompile(`\s*\(extract: [^)]*\)`), ""},                                                  // (extract: github.com/…, commit …)
+	{regexp.MustCompile(`\s*RxNorm codes from the RxNorm [^;]*;\s*re-validate every code[^.]*\.`), ""}, // code provenance: for reviewers
+	{regexp.MustCompile(`\s*ATC codes from the WHO ATC index as extracted in [\w.-]+\.`), ""},
+	{regexp.MustCompile(`\s*\b(?:from memory|github\.com/\S+|commit [0-9a-f]{7,40})`), ""}, // what is left
+	{regexp.MustCompile(`\(\s*[;,]?\s*\)`), ""},                                            // emptied parentheses
+	{regexp.MustCompile(`\(\s*[;,]?\s+`), "("},
+	{regexp.MustCompile(`\s*[;,]\s*\)`), ")"},
+	{regexp.MustCompile(`[ \t]{2,}`), " "},
+}
+
+// clinicianText is s without curation notes.
+func clinicianText(s string) string {
+	for _, c := range curation {
+		s = c.re.ReplaceAllString(s, c.with)
+	}
+	return s
+}
+
+// effectWords names a drug effect for a clinician (not its data code).
+func effectWords(effect string) string {
+	switch effect {
+	case EffectHyponatremia:
+		return "hyponatremia"
+	case EffectNephrogenicDI:
+		return "nephrogenic diabetes insipidus"
+	case EffectRapidRise:
+		return "a rapid rise of sodium"
+	}
+	return effect
 }

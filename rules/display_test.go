@@ -134,3 +134,23 @@ func TestSentValue(t *testing.T) {
 		}
 	}
 }
+
+// Curation notes stay in the data; clinicians read the citation only
+// (issue 20). The inputs are the data's own forms.
+func TestClinicianText(t *testing.T) {
+	for in, want := range map[string]string{
+		"(Verbalis JG et al., Am J Med 2013;126:S1-S42 (from memory))": "(Verbalis JG et al., Am J Med 2013;126:S1-S42)",
+		"513 mEq/L [V] and more": "513 mEq/L and more",
+		"from ingredient strengths ([derived] strength ÷ molar mass)":                                      "from ingredient strengths (strength ÷ molar mass)",
+		"(Verbalis 2013; Spasovski 2014; from memory)":                                                     "(Verbalis 2013; Spasovski 2014)",
+		"(serum reference interval 275-295, from memory)":                                                  "(serum reference interval 275-295)",
+		"labs confirm it (reference notes §3; Verbalis 2013, from memory).":                                "labs confirm it (Verbalis 2013).",
+		"Furst H et al., Am J Med Sci 2000;319:240-244 [V: the paper's opening; cut-offs from memory], in": "Furst H et al., Am J Med Sci 2000;319:240-244, in",
+		"policy. RxNorm codes from the RxNorm Current Prescribable Content of 06-Oct-2025 (extract: github.com/x/y, commit a8fcf13a679fa37073e8fa83e11d5e0d8cc07276); re-validate every code against a current RxNorm release before clinical use. ATC codes from the WHO ATC index as extracted in atc-codes.tsv.": "policy.",
+		"Latest sodium: 116 mmol/L (2026-11-20 05:00 UTC, Observation/a)": "Latest sodium: 116 mmol/L (2026-11-20 05:00 UTC, Observation/a)",
+	} {
+		if got := clinicianText(in); got != want {
+			t.Errorf("clinicianText(%q)\n = %q\nwant %q", in, got, want)
+		}
+	}
+}

@@ -376,7 +376,7 @@ func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, rene
 		if e.Mechanism != "" {
 			mech = " (" + e.Mechanism + ")"
 		}
-		line("Effect: %s%s; evidence %s (%s): %s. %s", e.Effect, mech, e.Evidence, r.EvidenceMeaning(e.Evidence), e.Citation, e.Note)
+		line("Effect: %s%s; evidence %s (%s): %s. %s", effectWords(e.Effect), mech, e.Evidence, r.EvidenceMeaning(e.Evidence), e.Citation, e.Note)
 	}
 	b.WriteString("\n**Patient**\n\n")
 	switch {

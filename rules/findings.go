@@ -89,14 +89,22 @@ const (
 // Evaluate runs the rule families of check c over f and returns the
 // actionable findings. No finding means nothing is actionable, which is
 // answered as an empty card list.
+// Card text carries no reviewers' curation notes (clinicianText).
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
+	var out []Finding
 	switch c {
 	case InfusionCheck:
-		return append(r.infusionFindings(f), r.waterDrugFindings(f)...)
+		out = append(r.infusionFindings(f), r.waterDrugFindings(f)...)
 	case DrugRisk:
-		return r.drugRiskFindings(f)
+		out = r.drugRiskFindings(f)
 	case ChartReview:
-		return r.chartFindings(f)
+		out = r.chartFindings(f)
 	}
-	return nil
+	for i := range out {
+		out[i].Summary, out[i].Detail = clinicianText(out[i].Summary), clinicianText(out[i].Detail)
+		for j := range out[i].Advice {
+			out[i].Advice[j].Label = clinicianText(out[i].Advice[j].Label)
+		}
+	}
+	return out
 }

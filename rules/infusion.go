@@ -238,7 +238,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	case RuleAquaresis:
 		fd.Detail = fmt.Sprintf("**Aquaresis**: urine output of %s mL/h with urine osmolality %s mOsm/kg during the correction of "+
 			"hyponatremia can raise sodium faster than any projection of the infusate; an early re-check is suggested (%s).\n\n",
-			orderRate.of(*a.Urine.RateMlPerHour), show(UrineOsmolality, a.Urine.Osmolality.Value), r.policy.UrineLosses.Source) + fd.Detail
+			orderRate.of(*a.Urine.RateMlPerHour), show(UrineOsmolality, a.Urine.Osmolality.Value), strings.TrimSuffix(r.policy.UrineLosses.Source, ".")) + fd.Detail
 	case RuleDesalination:
 		size := "The projection with the urine below shows the expected change."
 		if a.ProjectedChange24hWithUrine == nil {
@@ -648,7 +648,7 @@ func (r *Ruleset) urineLines(b *strings.Builder, a InfusionAssessment) {
 		fmt.Fprintf(b, "- With the urine counted: %s mmol/L in 24 h, if %s L of urine with Na + K %s mmol/L keeps coming at the charted "+
 			"rate (electrolyte-free water clearance %s L/day); the infusate-only projection assumes no urine at all. Neither counts "+
 			"insensible losses (%s)\n", naChange.signed(*a.ProjectedChange24hWithUrine), volume24h.of(vu), infusateNa.of(nak),
-			bodyWater.of(*a.EFWCLitres), r.policy.UrineLosses.Source)
+			bodyWater.of(*a.EFWCLitres), strings.TrimSuffix(r.policy.UrineLosses.Source, "."))
 	}
 }
 

@@ -648,3 +648,44 @@ func TestEvalLocalLabCodes(t *testing.T) {
 		t.Errorf("serve with a bad lab_codes: %v", err)
 	}
 }
+
+// curationMark matches reviewers' curation notes: verification marks,
+// "from memory", note numbers, repository addresses and commit hashes.
+var curationMark = regexp.MustCompile(`from memory|\[V\b[^\]]*\]|\[derived\b|reference notes|§\d|github\.com|commit [0-9a-f]{7,}|\.tsv\b`)
+
+// TestGoldenCardsCarryNoCurationNotes: no card a clinician reads shows the
+// curation notes that stay in the rules data (issue 20).
+func TestGoldenCardsCarryNoCurationNotes(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join("..", "..", "testdata", "golden", "*.json"))
+	if err != nil || len(files) == 0 {
+		t.Fatalf("no golden files: %v", err)
+	}
+	cards := 0
+	for _, f := range files {
+		data, err := os.ReadFile(f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var all map[string]hooks.Response
+		if err := json.Unmarshal(data, &all); err != nil {
+			t.Fatalf("%s: %v", f, err)
+		}
+		for svc, r := range all {
+			for _, c := range r.Cards {
+				cards++
+				texts := []string{c.Summary, c.Detail}
+				for _, s := range c.Suggestions {
+					texts = append(texts, s.Label)
+				}
+				for _, text := range texts {
+					if m := curationMark.FindString(text); m != "" {
+						t.Errorf("%s %s: card %q shows %q", filepath.Base(f), svc, c.Summary, m)
+					}
+				}
+			}
+		}
+	}
+	if cards < 50 {
+		t.Errorf("only %d golden cards scanned", cards)
+	}
+}
