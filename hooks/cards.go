@@ -42,6 +42,16 @@ func cardExtension(f rules.Finding, revision string) (json.RawMessage, error) {
 	return json.Marshal(map[string]any{"halite": h})
 }
 
+// cardLinks are a finding's source addresses as CDS Hooks links of type
+// absolute (cds-hooks-notes: a Link's type is "absolute" or "smart").
+func cardLinks(ls []rules.SourceLink) []Link {
+	var out []Link
+	for _, l := range ls {
+		out = append(out, Link{Label: l.Label, URL: l.URL, Type: "absolute"})
+	}
+	return out
+}
+
 // renderCards words findings as cards, each with a uuid (so feedback can
 // refer to it), the caution, override reasons, the ruleset revision and its
 // suggestions; the suggestions of a card are alternatives, so at most one
@@ -78,6 +88,7 @@ func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Car
 			Suggestions:       sugg,
 			SelectionBehavior: selection,
 			OverrideReasons:   slices.Clone(overrideReasons),
+			Links:             cardLinks(f.Links),
 			Extension:         extJSON,
 		})
 	}

@@ -42,6 +42,8 @@ type Finding struct {
 	// of its drug, and its detail names each); advice that acts on a draft
 	// (a new rate, removing it) comes only with an Order.
 	Order string
+	// Links are the confirmed addresses of the sources the detail cites.
+	Links []SourceLink
 	// Advice lists the changes the card may suggest, in the order offered;
 	// hooks builds them as FHIR resources. The prescriber chooses.
 	Advice []Advice
@@ -102,6 +104,7 @@ func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	}
 	for i := range out {
 		out[i].Summary, out[i].Detail = clinicianText(out[i].Summary), clinicianText(out[i].Detail)
+		out[i].Links = r.linksFor(out[i].Detail)
 		for j := range out[i].Advice {
 			out[i].Advice[j].Label = clinicianText(out[i].Advice[j].Label)
 		}

@@ -105,6 +105,7 @@ type Ruleset struct {
 	policy   Policy
 	fluids   *fluidTable
 	drugs    *drugKB
+	links    []SourceLink
 }
 
 // Load parses and validates the embedded policy data.
@@ -128,9 +129,12 @@ func LoadWithOverride(override []byte) (*Ruleset, error) {
 	if rs.drugs, err = parseDrugs(embeddedDrugs, embeddedProducts); err != nil {
 		return nil, err
 	}
+	if rs.links, err = parseLinks(embeddedLinks); err != nil {
+		return nil, err
+	}
 	// The revision covers the fluid table and the drug knowledge base too.
 	h := sha256.New()
-	for _, part := range [][]byte{[]byte(rs.revision), embeddedInfusates, embeddedDrugs, embeddedProducts} {
+	for _, part := range [][]byte{[]byte(rs.revision), embeddedInfusates, embeddedDrugs, embeddedProducts, embeddedLinks} {
 		h.Write(part)
 	}
 	sum := h.Sum(nil)

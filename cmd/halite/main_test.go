@@ -20,6 +20,7 @@ import (
 
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/rules"
 )
 
 var uuidPattern = regexp.MustCompile(`"uuid": "[0-9a-f-]{36}"`)
@@ -660,7 +661,7 @@ func TestGoldenCardsCarryNoCurationNotes(t *testing.T) {
 	if err != nil || len(files) == 0 {
 		t.Fatalf("no golden files: %v", err)
 	}
-	cards := 0
+	cards, links := 0, 0
 	for _, f := range files {
 		data, err := os.ReadFile(f)
 		if err != nil {
@@ -682,10 +683,16 @@ func TestGoldenCardsCarryNoCurationNotes(t *testing.T) {
 						t.Errorf("%s %s: card %q shows %q", filepath.Base(f), svc, c.Summary, m)
 					}
 				}
+				for _, l := range c.Links {
+					links++
+					if l.Type != "absolute" || !rules.LinkAddress.MatchString(l.URL) {
+						t.Errorf("%s %s: link %+v is not an absolute PubMed, PubMed Central or DOI address", filepath.Base(f), svc, l)
+					}
+				}
 			}
 		}
 	}
-	if cards < 50 {
-		t.Errorf("only %d golden cards scanned", cards)
+	if cards < 50 || links == 0 {
+		t.Errorf("only %d golden cards and %d links scanned", cards, links)
 	}
 }
