@@ -171,10 +171,14 @@ type DrugRiskPolicy struct {
 	LowSodiumRecheckHours float64 `json:"lowSodiumRecheckHours"`
 	NewStartFollowUpHours float64 `json:"newStartFollowUpHours"`
 	Source                string  `json:"source"`
+	// Clinician-facing citations of the thresholds each kind of card
+	// applies (Source keeps the reviewers' full account).
+	HyponatremiaCitation  string `json:"hyponatremiaCitation"`
+	NephrogenicDICitation string `json:"nephrogenicDiCitation"`
 }
 
 func (d DrugRiskPolicy) validate() error {
-	if d.SodiumMaxAgeHours <= 0 || d.Source == "" || len(d.Bands) == 0 {
+	if d.SodiumMaxAgeHours <= 0 || d.Source == "" || d.HyponatremiaCitation == "" || d.NephrogenicDICitation == "" || len(d.Bands) == 0 {
 		return fmt.Errorf("drugRisk needs sodiumMaxAgeHours, bands and a source")
 	}
 	for i, b := range d.Bands {

@@ -229,6 +229,34 @@ func (c drugContext) lastAgeHours() float64 {
 	return c.at.Sub(c.last.At).Hours()
 }
 
+// drugThresholds states the thresholds that apply to a card for d, and
+// only those.
+func (r *Ruleset) drugThresholds(d DrugIngredient) string {
+	p := r.policy.DrugRisk
+	var parts []string
+	if _, ok := d.Effect(EffectHyponatremia); ok && !d.IntendedToRaiseSodium {
+		var below []string
+		for _, b := range p.Bands {
+			below = append(below, fmt.Sprintf("%g", b.Below))
+		}
+		parts = append(parts, fmt.Sprintf("sodium below %s mmol/L; risk multipliers age %d or more, another hyponatremia-risk drug, "+
+			"a thiazide, or a fall of %g mmol/L in %s days (%s)", strings.Join(below, ", "), p.ElderlyFromAge, p.FallAtLeast,
+			orderHours.of(float64(p.FallWindowHours)/24), p.HyponatremiaCitation))
+	}
+	if _, ok := d.Effect(EffectNephrogenicDI); ok && !d.IntendedToRaiseSodium {
+		parts = append(parts, fmt.Sprintf("sodium above %g mmol/L, or serum osmolality above %g with urine osmolality below %g mOsm/kg "+
+			"within %g h of each other (%s)", p.HypernatremiaAbove, p.SerumOsmolalityAbove, p.UrineOsmolalityBelow, p.LabPairHours,
+			p.NephrogenicDICitation))
+	}
+	if d.IntendedToRaiseSodium {
+		parts = append(parts, fmt.Sprintf("sodium above %g mmol/L", p.HypernatremiaAbove))
+	}
+	if len(parts) == 0 {
+		return ""
+	}
+	return "Thresholds: " + strings.Join(parts, "; ") + "."
+}
+
 // sodiumBand is the indicator the drug-risk bands give a drug that can
 // lower sodium at sodium na (strong: its evidence is strong); ok is false
 // above every band.
@@ -413,6 +441,6 @@ func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, rene
 		fmt.Fprintf(&b, "sodium at baseline and after the first %s days of a new start, when it is most likely to fall, and "+
 			"symptoms of hyponatremia. ", orderHours.of(p.NewStartFollowUpHours/24))
 	}
-	b.WriteString("Thresholds: " + p.Source)
+	b.WriteString(r.drugThresholds(d))
 	return b.String()
 }
