@@ -131,7 +131,7 @@ func (r *Ruleset) commonLines(b *strings.Builder, c chart) {
 	if w := c.trend.Window48h; w != nil {
 		var vals []string
 		for _, m := range w.Used {
-			vals = append(vals, fmt.Sprintf("%s (%s)", show(Sodium, m.Value), m.At.UTC().Format("01-02 15:04")))
+			vals = append(vals, fmt.Sprintf("%s (%s)", show(Sodium, m.Value), stamp(m.At)))
 		}
 		fmt.Fprintf(b, "- Sodium in the last 48 h: %s\n", strings.Join(vals, ", "))
 	}

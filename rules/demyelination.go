@@ -26,14 +26,14 @@ func DemyelinationRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []RiskF
 	for _, m := range f.Labs[Sodium] {
 		if inWindow(m) && m.Value <= p.SodiumAtOrBelow {
 			out = append(out, RiskFactor{"sodium at or below " + fmt.Sprint(p.SodiumAtOrBelow) + " mmol/L",
-				fmt.Sprintf("sodium %s mmol/L at %s", show(Sodium, m.Value), m.At.UTC().Format(time.RFC3339))})
+				fmt.Sprintf("sodium %s mmol/L at %s", show(Sodium, m.Value), stamp(m.At))})
 			break
 		}
 	}
 	for _, m := range f.Labs[Potassium] {
 		if inWindow(m) && m.Value < p.PotassiumBelow {
 			out = append(out, RiskFactor{"hypokalemia",
-				fmt.Sprintf("potassium %s mmol/L at %s", show(Potassium, m.Value), m.At.UTC().Format(time.RFC3339))})
+				fmt.Sprintf("potassium %s mmol/L at %s", show(Potassium, m.Value), stamp(m.At))})
 			break
 		}
 	}

@@ -5,6 +5,7 @@ import (
 	"regexp"
 	"strconv"
 	"strings"
+	"time"
 )
 
 // Card text (summaries, details, advice labels) writes every measured value
@@ -163,4 +164,37 @@ func effectWords(effect string) string {
 		return "a rapid rise of sodium"
 	}
 	return effect
+}
+
+// Display is how card text is shown to people: the zone its times are
+// written in (nil: UTC). It changes no computation, so it is not part of the
+// ruleset revision.
+type Display struct {
+	Zone *time.Location
+}
+
+// WithDisplay returns the ruleset writing card text with d.
+func (r *Ruleset) WithDisplay(d Display) *Ruleset {
+	c := *r
+	c.display = d
+	return &c
+}
+
+// utcStamp matches the times stamp writes.
+var utcStamp = regexp.MustCompile(`\d{4}-\d{2}-\d{2} \d{2}:\d{2} UTC`)
+
+// localTimes rewrites every time in s into the display zone, with its date
+// and the zone's name ("2026-11-20 06:00 CET").
+func (r *Ruleset) localTimes(s string) string {
+	zone := r.display.Zone
+	if zone == nil || zone == time.UTC {
+		return s
+	}
+	return utcStamp.ReplaceAllStringFunc(s, func(m string) string {
+		t, err := time.Parse(stampLayout, m)
+		if err != nil {
+			return m
+		}
+		return t.In(zone).Format("2006-01-02 15:04 MST")
+	})
 }

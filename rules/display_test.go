@@ -154,3 +154,22 @@ func TestClinicianText(t *testing.T) {
 		}
 	}
 }
+
+// Times in card text are written in the display zone with their date and
+// zone (issue 20); computation stays in UTC. Europe/Paris is UTC+1 in
+// November (IANA tz database).
+func TestLocalTimes(t *testing.T) {
+	rs := loadRuleset(t)
+	paris, err := time.LoadLocation("Europe/Paris")
+	if err != nil {
+		t.Skipf("no zone database: %v", err)
+	}
+	in := "Latest sodium: 116 mmol/L (2026-11-20 05:00 UTC, Observation/a); nadir 111.5 (2026-11-19 23:30 UTC)"
+	want := "Latest sodium: 116 mmol/L (2026-11-20 06:00 CET, Observation/a); nadir 111.5 (2026-11-20 00:30 CET)"
+	if got := rs.WithDisplay(Display{Zone: paris}).localTimes(in); got != want {
+		t.Errorf("localTimes\n = %q\nwant %q", got, want)
+	}
+	if got := rs.localTimes(in); got != in {
+		t.Errorf("without a display zone the text changed: %q", got)
+	}
+}

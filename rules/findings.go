@@ -103,7 +103,7 @@ func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 		out = r.chartFindings(f)
 	}
 	for i := range out {
-		out[i].Summary, out[i].Detail = clinicianText(out[i].Summary), clinicianText(out[i].Detail)
+		out[i].Summary, out[i].Detail = r.localTimes(clinicianText(out[i].Summary)), r.localTimes(clinicianText(out[i].Detail))
 		out[i].Links = r.linksFor(out[i].Detail)
 		for j := range out[i].Advice {
 			out[i].Advice[j].Label = clinicianText(out[i].Advice[j].Label)

@@ -475,7 +475,11 @@ func (a InfusionAssessment) figures() map[string]float64 {
 	return fig
 }
 
-func stamp(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") }
+// stamp writes a time for card text, in UTC; Evaluate rewrites every such
+// time into the display zone (Ruleset.WithDisplay).
+func stamp(t time.Time) string { return t.UTC().Format(stampLayout) }
+
+const stampLayout = "2006-01-02 15:04 UTC"
 
 func (r *Ruleset) detail(a InfusionAssessment, word string, recheckHours float64) string {
 	l := r.policy.Limits

@@ -106,6 +106,7 @@ type Ruleset struct {
 	fluids   *fluidTable
 	drugs    *drugKB
 	links    []SourceLink
+	display  Display
 }
 
 // Load parses and validates the embedded policy data.

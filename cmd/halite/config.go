@@ -21,15 +21,18 @@ import (
 // Config is halite serve's configuration: defaults, then the YAML file, then
 // HALITE_* environment variables, then command-line flags.
 type Config struct {
-	ListenAddr      string           `yaml:"listen_addr"`
-	PublicBaseURL   string           `yaml:"public_base_url"`
-	DevelopmentMode bool             `yaml:"development_mode"`
-	MaxBodyBytes    int64            `yaml:"max_body_bytes"`
-	CallTimeout     Duration         `yaml:"call_timeout"`
-	ShutdownGrace   Duration         `yaml:"shutdown_grace"`
-	DrainDelay      Duration         `yaml:"readiness_drain_delay"`
-	CORSOrigins     []string         `yaml:"cors_allowed_origins"`
-	LogLevel        string           `yaml:"log_level"`
+	ListenAddr      string   `yaml:"listen_addr"`
+	PublicBaseURL   string   `yaml:"public_base_url"`
+	DevelopmentMode bool     `yaml:"development_mode"`
+	MaxBodyBytes    int64    `yaml:"max_body_bytes"`
+	CallTimeout     Duration `yaml:"call_timeout"`
+	ShutdownGrace   Duration `yaml:"shutdown_grace"`
+	DrainDelay      Duration `yaml:"readiness_drain_delay"`
+	CORSOrigins     []string `yaml:"cors_allowed_origins"`
+	LogLevel        string   `yaml:"log_level"`
+	// DisplayTimezone is the IANA zone card text writes times in ("UTC"
+	// by default); computation is in UTC whatever it says.
+	DisplayTimezone string           `yaml:"display_timezone"`
 	FHIRClient      FHIRClientConfig `yaml:"fhir_client"`
 	// PolicyOverride is the path of a site's policy override (JSON shaped
 	// like rules/data/policy.json); empty means the embedded policy.
@@ -110,6 +113,7 @@ var envKeys = []struct {
 	{"readiness_drain_delay", func(c *Config, v string) error { return setDuration(&c.DrainDelay, v) }},
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
+	{"display_timezone", func(c *Config, v string) error { c.DisplayTimezone = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
 	{"lab_codes", func(c *Config, v string) error { c.LabCodes = v; return nil }},
 	{"admin_listen_addr", func(c *Config, v string) error { c.AdminAddr = v; return nil }},
@@ -216,6 +220,27 @@ func loadRuleset(path string) (*rules.Ruleset, error) {
 	return rs, nil
 }
 
+// displayZone is the IANA zone name's location; empty means UTC.
+func displayZone(name string) (*time.Location, error) {
+	if name == "" {
+		return time.UTC, nil
+	}
+	loc, err := time.LoadLocation(name)
+	if err != nil {
+		return nil, fmt.Errorf("%q is not an IANA time zone name such as Europe/Paris", name)
+	}
+	return loc, nil
+}
+
+// displayRuleset is rs writing card text in the zone named.
+func displayRuleset(rs *rules.Ruleset, zone string) (*rules.Ruleset, error) {
+	loc, err := displayZone(zone)
+	if err != nil {
+		return nil, err
+	}
+	return rs.WithDisplay(rules.Display{Zone: loc}), nil
+}
+
 // loadLabCodes reads a site's local laboratory codes at path, checking every
 // entry (none if path is empty: the built-in LOINC table).
 func loadLabCodes(path string) (*fhirmap.Codes, error) {
@@ -235,6 +260,9 @@ func loadLabCodes(path string) (*fhirmap.Codes, error) {
 
 // validate checks every key, naming the first that is wrong.
 func (c Config) validate() error {
+	if _, err := displayZone(c.DisplayTimezone); err != nil {
+		return fmt.Errorf("config: display_timezone: %w", err)
+	}
 	if c.AdminPprof {
 		if c.AdminAddr == "" {
 			return errors.New("config: admin_pprof: needs admin_listen_addr (profiles are never served on the main listener)")

@@ -27,12 +27,13 @@ const (
 // eval runs a bundle through the same pipeline as the server and prints the
 // response: a readable report, or with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] BUNDLE", stderr)
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
 	asJSON := fs.Bool("json", false, "print the exact CDS Hooks response (keyed by service id without --service)")
 	policy := fs.String("policy-override", "", "apply a site policy override `file` (JSON shaped like the embedded policy)")
+	zone := fs.String("display-timezone", "", "write the cards' times in this IANA `zone` (as display_timezone does for the server; default UTC)")
 	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
@@ -46,6 +47,9 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	rs, err := loadRuleset(*policy)
 	if err != nil {
 		return err
+	}
+	if rs, err = displayRuleset(rs, *zone); err != nil {
+		return fmt.Errorf("--display-timezone: %w", err)
 	}
 	reg, err := bf.registry()
 	if err != nil {

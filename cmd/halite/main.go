@@ -10,6 +10,7 @@ import (
 	"os"
 	"os/signal"
 	"syscall"
+	_ "time/tzdata" // display_timezone works where the host has no zone database (distroless images)
 )
 
 func main() {

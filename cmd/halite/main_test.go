@@ -696,3 +696,35 @@ func TestGoldenCardsCarryNoCurationNotes(t *testing.T) {
 		t.Errorf("only %d golden cards and %d links scanned", cards, links)
 	}
 }
+
+// TestEvalDisplayTimezone: --display-timezone writes every time on a card in
+// that zone with its date and zone name; a name that is not an IANA zone is
+// refused, by eval and at the server's start-up.
+func TestEvalDisplayTimezone(t *testing.T) {
+	file := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
+	var out bytes.Buffer
+	err := run(context.Background(), []string{"eval", "--hook", "order-sign", "--service", "sodium-infusion-check", "--at", scenarioAt,
+		"--json", "--display-timezone", "America/New_York", file}, &out, io.Discard)
+	var ee *exitError
+	if err != nil && !errors.As(err, &ee) {
+		t.Fatal(err)
+	}
+	var r hooks.Response
+	if err := json.Unmarshal(out.Bytes(), &r); err != nil || len(r.Cards) != 1 {
+		t.Fatalf("%v %s", err, out.String())
+	}
+	// The latest sodium, 2026-11-20 05:00 UTC, is 00:00 in New York (EST, UTC−5, in November).
+	d := r.Cards[0].Detail
+	if !strings.Contains(d, "(2026-11-20 00:00 EST, Observation/obs-nyssa-na-04)") || strings.Contains(d, " UTC") {
+		t.Errorf("times not in the display zone:\n%s", d)
+	}
+	err = run(context.Background(), []string{"eval", "--hook", "order-sign", "--display-timezone", "Mars/Olympus", file}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "IANA time zone") {
+		t.Errorf("bad zone: %v", err)
+	}
+	t.Setenv("HALITE_DISPLAY_TIMEZONE", "Mars/Olympus")
+	if err := run(context.Background(), []string{"serve", "--addr", "127.0.0.1:0"}, io.Discard, io.Discard); err == nil ||
+		!strings.Contains(err.Error(), "display_timezone") {
+		t.Errorf("serve with a bad display_timezone: %v", err)
+	}
+}

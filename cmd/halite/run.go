@@ -18,7 +18,7 @@ const usage = `halite: sodium safety checks as a CDS Hooks 2.0 service.
 
 Usage:
   halite serve   [--config FILE] [--addr HOST:PORT]
-  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] BUNDLE
+  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
   halite healthcheck [--url URL]
