@@ -193,15 +193,7 @@ func dosage(o *rules.MedicationOrder, d fhir.Dosage) (ignored []string) {
 			ignored = append(ignored, "rateRange")
 		}
 		o.Dose = quantity(dr.DoseQuantity)
-		switch {
-		case dr.RateQuantity != nil:
-			if q := quantity(dr.RateQuantity); q != nil {
-				o.Rate = formatQuantity(*q)
-				o.RateMlPerHour = rateMlPerHour(q.Value, q.Unit)
-			}
-		case dr.RateRatio != nil:
-			o.Rate, o.RateMlPerHour = ratioRate(dr.RateRatio)
-		}
+		o.Rate, o.RateMlPerHour = rateOf(dr.RateQuantity, dr.RateRatio)
 	}
 	if d.Timing != nil && d.Timing.Repeat != nil {
 		rep := d.Timing.Repeat
@@ -256,15 +248,7 @@ func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, bo
 	if d := ma.Dosage; d != nil {
 		o.Route, o.RouteText = codings(d.Route)
 		o.Dose = quantity(d.Dose)
-		switch {
-		case d.RateQuantity != nil:
-			if q := quantity(d.RateQuantity); q != nil {
-				o.Rate = formatQuantity(*q)
-				o.RateMlPerHour = rateMlPerHour(q.Value, q.Unit)
-			}
-		case d.RateRatio != nil:
-			o.Rate, o.RateMlPerHour = ratioRate(d.RateRatio)
-		}
+		o.Rate, o.RateMlPerHour = rateOf(d.RateQuantity, d.RateRatio)
 	}
 	return o, true
 }
@@ -280,6 +264,20 @@ func boundsEnd(d fhir.Dosage) string {
 
 func formatQuantity(q rules.Quantity) string {
 	return strings.TrimSpace(strconv.FormatFloat(q.Value, 'f', -1, 64) + " " + q.Unit)
+}
+
+// rateOf reads a dosage's rate[x], as written and in mL/h when its units
+// allow; empty and nil when neither form is given.
+func rateOf(q *fhir.Quantity, ratio *fhir.Ratio) (string, *float64) {
+	switch {
+	case q != nil:
+		if v := quantity(q); v != nil {
+			return formatQuantity(*v), rateMlPerHour(v.Value, v.Unit)
+		}
+	case ratio != nil:
+		return ratioRate(ratio)
+	}
+	return "", nil
 }
 
 // ratioRate reads a rate written as a ratio (100 mL per 1 h): as written,
