@@ -126,29 +126,62 @@ func orderText(o MedicationOrder) string {
 // marks, note numbers, repository addresses) stay in the data and in
 // `halite rules`; clinicianText takes them out of what clinicians read.
 var curation = []struct {
+	trigger string // the pattern can only match where this occurs
+	re      *regexp.Regexp
+	with    string
+}{
+	{"[", regexp.MustCompile(`\s*\[(?:V|derived)\b[^\]]*\]`), ""},                                        // [V], [V: abstract], [derived, …]
+	{"from memory", regexp.MustCompile(`\s*\((?:first author )?from memory\)`), ""},                      // (from memory)
+	{"from memory", regexp.MustCompile(`\((?:first author )?from memory[:;,]\s*`), "("},                  // (from memory: …
+	{"from memory", regexp.MustCompile(`\s*[;,]\s*(?:first author )?from memory\b`), ""},                 // …; from memory)
+	{"reference notes", regexp.MustCompile(`\s*\((?:halite's clinical )?reference notes §[\d.]+\)`), ""}, // (reference notes §3)
+	{"reference notes", regexp.MustCompile(`[;,]?\s*(?:halite's clinical )?reference notes §[\d.]+,?`), ""},
+	{"(extract: ", regexp.MustCompile(`\s*\(extract: [^)]*\)`), ""}, // (extract: github.com/…, commit …)
+	{"RxNorm codes from", regexp.MustCompile(`\s*RxNorm codes from the RxNorm [^;]*;\s*re-validate every code[^.]*\.`), ""},
+	{"ATC codes from", regexp.MustCompile(`\s*ATC codes from the WHO ATC index as extracted in [\w.-]+\.`), ""},
+	{"", regexp.MustCompile(`\s*\b(?:from memory|github\.com/\S+|commit [0-9a-f]{7,40})`), ""}, // what is left
+}
+
+// tidy mends the punctuation a removal leaves.
+var tidy = []struct {
 	re   *regexp.Regexp
 	with string
 }{
-	{regexp.MustCompile(`\s*\[(?:V|derived)\b[^\]]*\]`), ""},                                           // [V], [V: abstract], [derived, …]
-	{regexp.MustCompile(`\s*\((?:first author )?from memory\)`), ""},                                   // (from memory)
-	{regexp.MustCompile(`\((?:first author )?from memory[:;,]\s*`), "("},                               // (from memory: …
-	{regexp.MustCompile(`\s*[;,]\s*(?:first author )?from memory\b`), ""},                              // …; from memory)
-	{regexp.MustCompile(`\s*\((?:halite's clinical )?reference notes §[\d.]+\)`), ""},                  // (reference notes §3)
-	{regexp.MustCompile(`[;,]?\s*(?:halite's clinical )?reference notes §[\d.]+,?`), ""},               // …; reference notes §9
-	{regexp.MustCompile(`\s*\(extract: [^)]*\)`), ""},                                                  // (extract: github.com/…, commit …)
-	{regexp.MustCompile(`\s*RxNorm codes from the RxNorm [^;]*;\s*re-validate every code[^.]*\.`), ""}, // code provenance: for reviewers
-	{regexp.MustCompile(`\s*ATC codes from the WHO ATC index as extracted in [\w.-]+\.`), ""},
-	{regexp.MustCompile(`\s*\b(?:from memory|github\.com/\S+|commit [0-9a-f]{7,40})`), ""}, // what is left
-	{regexp.MustCompile(`\(\s*[;,]?\s*\)`), ""},                                            // emptied parentheses
+	{regexp.MustCompile(`\(\s*[;,]?\s*\)`), ""}, // emptied parentheses
 	{regexp.MustCompile(`\(\s*[;,]?\s+`), "("},
 	{regexp.MustCompile(`\s*[;,]\s*\)`), ")"},
 	{regexp.MustCompile(`[ \t]{2,}`), " "},
 }
 
-// clinicianText is s without curation notes.
+// curationHint is a quick test for any mark at all, so that text without
+// one (most card text) is returned untouched without running the patterns.
+var curationHint = regexp.MustCompile(`\[V|\[derived|from memory|reference notes|extract: |RxNorm codes from|ATC codes from|github\.com|commit [0-9a-f]`)
+
+// clinicianText is s without curation notes. It works a line at a time,
+// so that only the lines that carry a mark (a source's) are rewritten.
 func clinicianText(s string) string {
+	if !strings.Contains(s, "\n") {
+		return cleanLine(s)
+	}
+	lines := strings.Split(s, "\n")
+	for i, l := range lines {
+		lines[i] = cleanLine(l)
+	}
+	return strings.Join(lines, "\n")
+}
+
+// cleanLine is clinicianText on one line.
+func cleanLine(s string) string {
+	if !curationHint.MatchString(s) {
+		return s
+	}
 	for _, c := range curation {
-		s = c.re.ReplaceAllString(s, c.with)
+		if c.trigger == "" || strings.Contains(s, c.trigger) {
+			s = c.re.ReplaceAllString(s, c.with)
+		}
+	}
+	for _, t := range tidy {
+		s = t.re.ReplaceAllString(s, t.with)
 	}
 	return s
 }
