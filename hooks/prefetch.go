@@ -113,16 +113,23 @@ func RenderTemplate(template string, c *Call) (string, bool) {
 // sent, absent ones from the FHIR server when fetch is not nil. It fails with
 // KindPrecondition when a required key can be had neither way.
 //
-// Keys are resolved concurrently, so the call's time budget bounds the
-// slowest key, not the sum; Fetcher implementations must be safe for
-// concurrent use. A budget that runs out is KindUnavailable.
+// Keys are resolved concurrently, required keys first: they have the first
+// claim on the call's byte budget, so optional data (active orders, urine
+// results) can never crowd out the sodium a service needs. Within each round
+// the call's time budget bounds the slowest key, not the sum; Fetcher
+// implementations must be safe for concurrent use. A budget that runs out is
+// KindUnavailable.
 func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limits) ([]Resolved, error) {
 	out := make([]Resolved, len(svc.Prefetch))
-	var wg sync.WaitGroup
-	for i, k := range svc.Prefetch {
-		wg.Go(func() { out[i] = resolveKey(ctx, k, c, fetch, lim) })
+	for _, required := range []bool{true, false} {
+		var wg sync.WaitGroup
+		for i, k := range svc.Prefetch {
+			if k.Required == required {
+				wg.Go(func() { out[i] = resolveKey(ctx, k, c, fetch, lim) })
+			}
+		}
+		wg.Wait()
 	}
-	wg.Wait()
 	if ctx.Err() != nil {
 		if fetch == nil {
 			return out, &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,

@@ -8,6 +8,7 @@ import (
 	"strings"
 	"sync"
 	"testing"
+	"time"
 
 	"github.com/halite-cds/halite/fhirmap"
 )
@@ -182,5 +183,46 @@ func TestResolveRequiredIs412(t *testing.T) {
 	if _, err := Resolve(context.Background(), oneKeyService(true),
 		callWith(map[string]json.RawMessage{"k": json.RawMessage("null")}), nil, Limits{MaxPages: 1}); err != nil {
 		t.Errorf("null required key: %v", err)
+	}
+}
+
+// budgetFetcher serves bodies after a delay each, taking their bytes from
+// one call budget first, as the FHIR client does.
+type budgetFetcher struct {
+	budget *CallBudget
+	bodies map[string]string
+	delay  map[string]time.Duration
+}
+
+func (f *budgetFetcher) Fetch(_ context.Context, ref string) ([]byte, error) {
+	time.Sleep(f.delay[ref])
+	b := f.bodies[ref]
+	if err := f.budget.Take(int64(len(b))); err != nil {
+		return nil, fmt.Errorf("fetch %s: %w", ref, err)
+	}
+	return []byte(b), nil
+}
+
+// TestResolveRequiredKeysClaimTheBudgetFirst: an optional key whose answer
+// would leave too little of the call's byte budget for a required one must
+// not cost the call (the required key is read first; the optional one fails
+// alone). The required key answers later than the optional one, which on a
+// concurrent resolution let the optional one take the budget first.
+func TestResolveRequiredKeysClaimTheBudgetFirst(t *testing.T) {
+	svc := Service{ID: "t", Hooks: []string{HookPatientView}, Prefetch: []PrefetchKey{
+		{Key: "optional", Template: "MedicationRequest?patient={{context.patientId}}", What: "orders"},
+		{Key: "required", Template: "Observation?patient={{context.patientId}}", Required: true, What: "sodium"}}}
+	required := `{"resourceType":"Bundle","type":"searchset","entry":[{"resource":` + obsA + `}]}`
+	optional := `{"resourceType":"Bundle","type":"searchset","entry":[{"resource":` + obsB + `}],"x":"` + strings.Repeat("y", 200) + `"}`
+	budget := NewCallBudget(NewProcessBudget(1<<20), int64(len(optional))+10) // room for either, not both
+	f := &budgetFetcher{budget: budget,
+		bodies: map[string]string{"Observation?patient=p1": required, "MedicationRequest?patient=p1": optional},
+		delay:  map[string]time.Duration{"Observation?patient=p1": 50 * time.Millisecond}}
+	out, err := Resolve(context.Background(), svc, callWith(nil), f, Limits{MaxPages: 1})
+	if err != nil {
+		t.Fatalf("the required key lost the budget to an optional one: %v", err)
+	}
+	if out[1].State != Fetched || out[0].State != Failed || !errors.Is(out[0].Err, ErrCallBudget) {
+		t.Errorf("states: optional %s (%v), required %s", out[0].State, out[0].Err, out[1].State)
 	}
 }
