@@ -179,7 +179,12 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 		fd.Summary = notHypotonicSummary(a.Context)
 	case hypertonic && !a.Hypernatremia && a.Vaptan != "":
 		fd.Rule = RuleHypertonicWithVaptan
-		fd.Summary = shorten(fmt.Sprintf("Hypertonic saline with %s: the two together can raise sodium faster than either predicts", a.Vaptan), 139)
+		name, _, _ := strings.Cut(a.Vaptan, " (")
+		fd.Summary = fmt.Sprintf("Hypertonic saline with %s: together they can raise sodium faster than predicted", name)
+		if a.ProjectedTotal24h != nil {
+			fd.Summary += fmt.Sprintf("; projected 24-h rise %s mmol/L before the vaptan's effect", naChange.of(*a.ProjectedTotal24h))
+		}
+		fd.Summary = shorten(fd.Summary, 139)
 	case a.OverLimit && a.OthersReachLimit && counteracting:
 		fd.Rule = RuleProjectedOver
 		fd.Summary = fmt.Sprintf("Other fluids alone bring a %s of %s mmol/L in 24 h (%s still allowed); this order offsets %s",
