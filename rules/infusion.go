@@ -180,9 +180,9 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	case hypertonic && !a.Hypernatremia && a.Vaptan != "":
 		fd.Rule = RuleHypertonicWithVaptan
 		name, _, _ := strings.Cut(a.Vaptan, " (")
-		fd.Summary = fmt.Sprintf("Hypertonic saline with %s: together they can raise sodium faster than predicted", name)
+		fd.Summary = fmt.Sprintf("Hypertonic saline with %s: sodium can rise faster than projected", name)
 		if a.ProjectedTotal24h != nil {
-			fd.Summary += fmt.Sprintf("; projected 24-h rise %s mmol/L before the vaptan's effect", naChange.of(*a.ProjectedTotal24h))
+			fd.Summary += fmt.Sprintf(" (%s mmol/L in 24 h without the vaptan)", naChange.of(*a.ProjectedTotal24h))
 		}
 		fd.Summary = shorten(fd.Summary, 139)
 	case a.OverLimit && a.OthersReachLimit && counteracting:
