@@ -8,6 +8,7 @@ import (
 	"regexp"
 	"strings"
 	"sync"
+	"time"
 
 	"github.com/halite-cds/halite/fhirmap"
 )
@@ -115,13 +116,15 @@ func RenderTemplate(template string, c *Call) (string, bool) {
 //
 // Keys are resolved concurrently, required keys first: they have the first
 // claim on the call's byte budget, so optional data (active orders, urine
-// results) can never crowd out the sodium a service needs. Within each round
-// the call's time budget bounds the slowest key, not the sum; Fetcher
-// implementations must be safe for concurrent use. A budget that runs out is
-// KindUnavailable.
+// results) can never crowd out the sodium a service needs. The optional
+// round is skipped when a required key already failed, and it ends before
+// the call's deadline, leaving a reserve (optionalReserve) for the rest of
+// the call: an optional key it cuts short is missing data, not a failed
+// call. Fetcher implementations must be safe for concurrent use. A time or
+// byte budget that runs out on a required key is KindUnavailable.
 func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limits) ([]Resolved, error) {
 	out := make([]Resolved, len(svc.Prefetch))
-	for _, required := range []bool{true, false} {
+	round := func(ctx context.Context, required bool) {
 		var wg sync.WaitGroup
 		for i, k := range svc.Prefetch {
 			if k.Required == required {
@@ -130,12 +133,35 @@ func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limit
 		}
 		wg.Wait()
 	}
+	round(ctx, true)
+	if err := requiredOutcome(ctx, out, fetch); err != nil {
+		return out, err
+	}
+	octx, cancel := context.WithCancel(ctx)
+	if deadline, ok := ctx.Deadline(); ok {
+		octx, cancel = context.WithDeadline(ctx, deadline.Add(-optionalReserve(time.Until(deadline))))
+	}
+	defer cancel()
+	round(octx, false)
+	return out, requiredOutcome(ctx, out, fetch)
+}
+
+// optionalReserve is the part of the time left that the optional keys
+// leave to mapping, rules and the card log: a quarter, at most 500 ms.
+func optionalReserve(left time.Duration) time.Duration {
+	return min(left/4, 500*time.Millisecond)
+}
+
+// requiredOutcome is the call's error, if any, once the required keys are
+// resolved: the deadline spent, a byte budget held by other calls, or
+// required data that could not be had.
+func requiredOutcome(ctx context.Context, out []Resolved, fetch Fetcher) error {
 	if ctx.Err() != nil {
 		if fetch == nil {
-			return out, &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,
+			return &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,
 				Message: "the call's time budget ran out", Err: ctx.Err()}
 		}
-		return out, &Error{Kind: KindUnavailable, Reason: ReasonFHIRTimeout,
+		return &Error{Kind: KindUnavailable, Reason: ReasonFHIRTimeout,
 			Message: "the call's time budget ran out while fetching FHIR data", Err: ctx.Err()}
 	}
 	var missing []string
@@ -143,17 +169,17 @@ func Resolve(ctx context.Context, svc Service, c *Call, fetch Fetcher, lim Limit
 		if r.Key.Required && (r.State == Failed || r.State == Unavailable) {
 			if errors.Is(r.Err, ErrProcessBudget) {
 				// Other calls hold the data budget: this call can succeed later.
-				return out, &Error{Kind: KindUnavailable, Reason: ReasonBudget,
+				return &Error{Kind: KindUnavailable, Reason: ReasonBudget,
 					Message: "halite is reading too much data for other calls just now", Err: r.Err}
 			}
 			missing = append(missing, r.Key.Key+" ("+r.Reason+")")
 		}
 	}
 	if len(missing) > 0 {
-		return out, &Error{Kind: KindPrecondition, Field: "prefetch",
+		return &Error{Kind: KindPrecondition, Field: "prefetch",
 			Message: "required data could not be obtained: " + strings.Join(missing, "; ")}
 	}
-	return out, nil
+	return nil
 }
 
 func resolveKey(ctx context.Context, k PrefetchKey, c *Call, fetch Fetcher, lim Limits) Resolved {

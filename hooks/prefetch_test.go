@@ -226,3 +226,35 @@ func TestResolveRequiredKeysClaimTheBudgetFirst(t *testing.T) {
 		t.Errorf("states: optional %s (%v), required %s", out[0].State, out[0].Err, out[1].State)
 	}
 }
+
+// slowFetcher answers each query after a delay, or gives up when ctx ends.
+type slowFetcher struct{ delay time.Duration }
+
+func (f slowFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
+	select {
+	case <-time.After(f.delay):
+		return []byte(`{"resourceType":"Bundle","type":"searchset","entry":[{"resource":` + obsA + `}]}`), nil
+	case <-ctx.Done():
+		return nil, fmt.Errorf("fetch %s: %w", ref, ctx.Err())
+	}
+}
+
+// TestResolveOptionalRoundCannotFailTheCall: read one after the other, an
+// optional key that runs into the deadline is missing data, not a failed
+// call (review finding: a 60-ms required and a 60-ms optional key under a
+// 100-ms deadline); a failed required key skips the optional round.
+func TestResolveOptionalRoundCannotFailTheCall(t *testing.T) {
+	svc := Service{ID: "t", Hooks: []string{HookPatientView}, Prefetch: []PrefetchKey{
+		{Key: "optional", Template: "MedicationRequest?patient={{context.patientId}}", What: "orders"},
+		{Key: "required", Template: "Observation?patient={{context.patientId}}", Required: true, What: "sodium"}}}
+	ctx, cancel := context.WithTimeout(context.Background(), 100*time.Millisecond)
+	defer cancel()
+	out, err := Resolve(ctx, svc, callWith(nil), slowFetcher{60 * time.Millisecond}, Limits{MaxPages: 1})
+	if err != nil || out[1].State != Fetched || out[0].State != Failed {
+		t.Errorf("err %v; required %s, optional %s (%s)", err, out[1].State, out[0].State, out[0].Reason)
+	}
+	f := &mapFetcher{bodies: map[string]string{}}
+	if _, err := Resolve(context.Background(), svc, callWith(nil), f, Limits{MaxPages: 1}); StatusOf(err) != 412 || len(f.asked) != 1 {
+		t.Errorf("err %v, asked %v: want 412 after the required key alone", err, f.asked)
+	}
+}

@@ -1,6 +1,8 @@
 package rules
 
 import (
+	"encoding/json"
+	"os"
 	"regexp"
 	"strings"
 	"testing"
@@ -171,5 +173,44 @@ func TestLocalTimes(t *testing.T) {
 	}
 	if got := rs.localTimes(in); got != in {
 		t.Errorf("without a display zone the text changed: %q", got)
+	}
+}
+
+// Every string of the rules data that can reach a card keeps some text once
+// its curation marks are taken out, unless it was nothing but a mark (a
+// drug citation "(from memory)", which the card then leaves out).
+func TestClinicianTextOnTheData(t *testing.T) {
+	for _, p := range []string{"data/policy.json", "data/drugs.json", "data/infusates.json"} {
+		data, err := os.ReadFile(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var v map[string]any
+		if err := json.Unmarshal(data, &v); err != nil {
+			t.Fatal(err)
+		}
+		delete(v, "note") // each file's own note is for reviewers (halite rules), never on a card
+		var walk func(any)
+		walk = func(v any) {
+			switch x := v.(type) {
+			case map[string]any:
+				for _, e := range x {
+					walk(e)
+				}
+			case []any:
+				for _, e := range x {
+					walk(e)
+				}
+			case string:
+				c := clinicianText(x)
+				if strings.TrimSpace(c) == "" && x != "" && x != "(from memory)" {
+					t.Errorf("%s: %q leaves nothing", p, x)
+				}
+				if curationHint.MatchString(c) {
+					t.Errorf("%s: %q keeps a mark: %q", p, x, c)
+				}
+			}
+		}
+		walk(v)
 	}
 }

@@ -404,7 +404,13 @@ func (r *Ruleset) drugDetail(c drugContext, ds []drafted, vs []drugVerdict, rene
 		if e.Mechanism != "" {
 			mech = " (" + e.Mechanism + ")"
 		}
-		line("Effect: %s%s; evidence %s (%s): %s. %s", effectWords(e.Effect), mech, e.Evidence, r.EvidenceMeaning(e.Evidence), e.Citation, e.Note)
+		// A citation that is only a curation mark is no citation for a
+		// clinician: the line then cites nothing rather than an empty slot.
+		cite := ""
+		if c := clinicianText(e.Citation); strings.TrimSpace(c) != "" {
+			cite = ": " + c
+		}
+		line("Effect: %s%s; evidence %s (%s)%s. %s", effectWords(e.Effect), mech, e.Evidence, r.EvidenceMeaning(e.Evidence), cite, e.Note)
 	}
 	b.WriteString("\n**Patient**\n\n")
 	switch {
