@@ -343,7 +343,7 @@ func (p balancePool) besides(o MedicationOrder) []Contributor {
 // vaptanBeside names a vasopressin-receptor antagonist active or drafted
 // other than o, with its reference; "" when there is none.
 func (r *Ruleset) vaptanBeside(f Facts, o MedicationOrder) string {
-	for _, m := range append(append(append([]MedicationOrder(nil), f.Medications...), f.Infusing...), f.DraftOrders...) {
+	for _, m := range f.everyOrder() {
 		if m.Reference == o.Reference {
 			continue
 		}

@@ -232,6 +232,14 @@ type Facts struct {
 	Notes       []string // data-quality notes that are not rejections
 }
 
+// everyOrder is every order of the facts: active orders, in-progress
+// administrations, then draft orders.
+func (f Facts) everyOrder() []MedicationOrder {
+	out := make([]MedicationOrder, 0, len(f.Medications)+len(f.Infusing)+len(f.DraftOrders))
+	out = append(append(append(out, f.Medications...), f.Infusing...), f.DraftOrders...)
+	return out
+}
+
 // Round rounds v to the given number of decimals, for display.
 func Round(v float64, decimals int) float64 {
 	p := math.Pow(10, float64(decimals))

@@ -234,7 +234,7 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 // hypertonicBeside names a hypertonic sodium fluid active, running or
 // drafted ("active (MedicationRequest/x)"), or "" when there is none.
 func (r *Ruleset) hypertonicBeside(f Facts) string {
-	for _, o := range append(append(append([]MedicationOrder(nil), f.Medications...), f.Infusing...), f.DraftOrders...) {
+	for _, o := range f.everyOrder() {
 		if c, ok := r.InfusateComposition(o.Medication); ok && c.NaK() >= r.policy.Cards.HypertonicNaKAtLeast {
 			status := "active"
 			switch {
