@@ -7,6 +7,7 @@ import (
 	"log/slog"
 	"time"
 
+	"github.com/google/uuid"
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/rules"
 	"go.opentelemetry.io/otel/attribute"
@@ -84,6 +85,8 @@ type Outcome struct {
 	// Dropped counts the resources read but not used, by reason category
 	// (fhirmap.DropCounts); it names no resource and may be logged.
 	Dropped map[string]int
+	// Held are the findings held back as repeats of cards already shown.
+	Held []Held
 }
 
 // Handle answers one call to service id with body, evaluated at time at.
@@ -149,6 +152,11 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	findings := e.ruleset.Evaluate(svc.Check, facts)
 	rspan.SetAttributes(attribute.Int("halite.findings", len(findings)))
 	rspan.End()
+	patientHash := ""
+	if e.recorder != nil {
+		patientHash = e.hash("Patient/" + call.Context.PatientID)
+	}
+	findings, held := e.suppress(ctx, svc.ID, call.Request.Hook, patientHash, findings, at)
 	cards, err := renderCards(findings, e.ruleset.Revision(),
 		suggestionInput{At: at, PatientID: call.Context.PatientID, EncounterID: call.Context.EncounterID, Drafts: draftIndex(call.DraftEntries)})
 	if err != nil {
@@ -158,9 +166,9 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	if err := ValidateResponse(resp); err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}
-	if e.recorder != nil && len(cards) > 0 {
-		wctx, wspan := e.tel.start(ctx, "cardlog.write", attribute.Int("halite.cards", len(cards)))
-		err := e.recorder.LogCards(wctx, e.logged(ctx, svc.ID, call.Context.PatientID, findings, cards, at))
+	if e.recorder != nil && len(cards)+len(held) > 0 {
+		wctx, wspan := e.tel.start(ctx, "cardlog.write", attribute.Int("halite.cards", len(cards)), attribute.Int("halite.cards.suppressed", len(held)))
+		err := e.recorder.LogCards(wctx, e.logged(ctx, svc.ID, call.Request.Hook, patientHash, findings, cards, held, at))
 		if err != nil {
 			fail(wspan, CauseHalite, err)
 		}
@@ -176,13 +184,14 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 		highest = max(highest, f.Indicator)
 	}
 	if span := trace.SpanFromContext(ctx); span.IsRecording() {
-		span.SetAttributes(attribute.Int("halite.cards", len(cards)), attribute.String("halite.indicator.highest", highest.String()))
+		span.SetAttributes(attribute.Int("halite.cards", len(cards)), attribute.Int("halite.cards.suppressed", len(held)),
+			attribute.String("halite.indicator.highest", highest.String()))
 		if t := CallerFrom(ctx).Tenant; t != "" {
 			span.SetAttributes(attribute.String("halite.tenant", t))
 		}
 	}
 	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys,
-		Dropped: fhirmap.DropCounts(facts)}, nil
+		Dropped: fhirmap.DropCounts(facts), Held: held}, nil
 }
 
 // storeError is the answer to a store failure: the store adapter's own
@@ -206,18 +215,29 @@ func causeOf(err error) string {
 	return CauseHalite
 }
 
-// logged is the card-log form of the cards of one response.
-func (e *Engine) logged(ctx context.Context, service, patientID string, fs []rules.Finding, cards []Card, at time.Time) []LoggedCard {
-	out := make([]LoggedCard, len(cards))
-	hash := e.hash("Patient/" + patientID)
+// logged is the card-log form of the cards of one response and of the
+// findings held back.
+func (e *Engine) logged(ctx context.Context, service, hook, patientHash string, fs []rules.Finding, cards []Card, held []Held, at time.Time) []LoggedCard {
+	out := make([]LoggedCard, 0, len(cards)+len(held))
 	caller := CallerFrom(ctx)
+	m := momentOf(hook)
+	record := func(uuid string, f rules.Finding, indicator string, sugg []string) LoggedCard {
+		subject, draft := e.findingKeys(f)
+		return LoggedCard{UUID: uuid, Service: service, Rule: f.Rule, Indicator: indicator, Ruleset: e.ruleset.Revision(),
+			Issuer: caller.Issuer, Tenant: caller.Tenant, PatientHash: patientHash, At: at, Figures: f.Figures, Suggestions: sugg,
+			Moment: m, Subject: subject, Draft: draft}
+	}
 	for i, c := range cards {
 		var sugg []string
 		for _, s := range c.Suggestions {
 			sugg = append(sugg, s.UUID)
 		}
-		out[i] = LoggedCard{UUID: c.UUID, Service: service, Rule: fs[i].Rule, Indicator: c.Indicator, Ruleset: e.ruleset.Revision(),
-			Issuer: caller.Issuer, Tenant: caller.Tenant, PatientHash: hash, At: at, Figures: fs[i].Figures, Suggestions: sugg}
+		out = append(out, record(c.UUID, fs[i], c.Indicator, sugg))
+	}
+	for _, h := range held {
+		r := record(uuid.NewString(), h.Finding, h.Finding.Indicator.String(), nil)
+		r.Suppressed = h.Suppression.Reason
+		out = append(out, r)
 	}
 	return out
 }

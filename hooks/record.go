@@ -5,6 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"time"
+
+	"github.com/halite-cds/halite/rules"
 )
 
 // LoggedCard is a card as the card log keeps it: no patient reference,
@@ -18,6 +20,19 @@ type LoggedCard struct {
 	At             time.Time
 	Figures        map[string]float64
 	Suggestions    []string // suggestion uuids
+	// Moment is when the finding was made (rules.MomentSelect, …); Subject
+	// and Draft are keyed hashes of its product and draft order.
+	Moment         rules.Moment
+	Subject, Draft string
+	// Suppressed is why the finding was held back ("" for a card returned).
+	Suppressed string
+}
+
+// PriorQuery selects the cards shown to one caller, for one patient (by
+// its keyed hash), by one service, from Since up to Until.
+type PriorQuery struct {
+	Service, Issuer, Tenant, PatientHash string
+	Since, Until                         time.Time
 }
 
 // CardOutcome is one feedback entry for a card.
@@ -40,6 +55,9 @@ type Recorder interface {
 	// caller, or a suggestion the card did not offer, is returned as an
 	// *OutcomeError wrapping ErrUnknownCard or ErrUnknownSuggestion.
 	RecordOutcomes(ctx context.Context, entries []CardOutcome) error
+	// PriorCards returns the cards q selects that were returned (not held
+	// back), so a repeat can be recognised on any replica.
+	PriorCards(ctx context.Context, q PriorQuery) ([]rules.ShownCard, error)
 }
 
 // Errors a Recorder returns for feedback about unknown cards.

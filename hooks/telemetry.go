@@ -28,6 +28,7 @@ type Telemetry struct {
 	feedbackOutcomes metric.Int64Counter
 	fetchDuration    metric.Float64Histogram
 	unavailable      metric.Int64Counter
+	suppressed       metric.Int64Counter
 }
 
 // Cause categories of errors on spans.
@@ -59,6 +60,9 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	err = errors.Join(err, e)
 	t.fetchDuration, e = m.Float64Histogram("halite.fhir.fetch.duration", metric.WithUnit("s"),
 		metric.WithDescription("FHIR fetches by outcome cause"))
+	err = errors.Join(err, e)
+	t.suppressed, e = m.Int64Counter("halite.cards.suppressed",
+		metric.WithDescription("Findings held back as repeats, by rule, indicator and reason (select-to-sign, overridden, chart-unchanged)"))
 	err = errors.Join(err, e)
 	t.unavailable, e = m.Int64Counter("halite.unavailable",
 		metric.WithDescription("Calls answered 503, by reason (store-busy, store-timeout, store-queue-full, store-fault, fhir-timeout, call-timeout, budget-exhausted, keys-unavailable)"))

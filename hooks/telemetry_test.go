@@ -14,6 +14,7 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/halite-cds/halite/rules"
 	"go.opentelemetry.io/otel/attribute"
 	sdkmetric "go.opentelemetry.io/otel/sdk/metric"
 	"go.opentelemetry.io/otel/sdk/metric/metricdata"
@@ -29,6 +30,9 @@ func (m *memRecorder) LogCards(_ context.Context, cards []LoggedCard) error {
 	return nil
 }
 func (m *memRecorder) RecordOutcomes(context.Context, []CardOutcome) error { return nil }
+func (m *memRecorder) PriorCards(context.Context, PriorQuery) ([]rules.ShownCard, error) {
+	return nil, nil
+}
 
 type observed struct {
 	spans   *tracetest.InMemoryExporter

@@ -20,13 +20,19 @@ func (i *Indicator) UnmarshalJSON(data []byte) error {
 	if err := json.Unmarshal(data, &s); err != nil {
 		return fmt.Errorf("indicator: %w", err)
 	}
+	var err error
+	*i, err = ParseIndicator(s)
+	return err
+}
+
+// ParseIndicator reads the CDS Hooks indicator code s.
+func ParseIndicator(s string) (Indicator, error) {
 	for _, c := range []Indicator{Info, Warning, Critical} {
 		if c.String() == s {
-			*i = c
-			return nil
+			return c, nil
 		}
 	}
-	return fmt.Errorf("indicator %q is not info, warning or critical", s)
+	return 0, fmt.Errorf("indicator %q is not info, warning or critical", s)
 }
 
 // CardRule is the card policy of one rule: the indicator its card carries

@@ -227,7 +227,7 @@ func (r *Ruleset) hyperTooFast(c chart) (Finding, bool) {
 	summary := fmt.Sprintf("Sodium fell %s mmol/L in %s h from %s, faster than the limits", naChange.of(w.FallFromPeak), hoursSince.of(hours),
 		show(Sodium, w.Peak.Value))
 	return Finding{Rule: RuleHyperTooFast, Summary: summary, Detail: b.String(),
-		Figures: map[string]float64{"fallPerHour": Round(perHour, 2)}}, true
+		Figures: map[string]float64{"fallPerHour": Round(perHour, 2), "fallFromPeak24h": Round(w.FallFromPeak, 1), "sodiumLatest": c.latest.Value}}, true
 }
 
 func (r *Ruleset) profoundOrFalling(c chart) (Finding, bool) {
@@ -258,7 +258,11 @@ func (r *Ruleset) profoundOrFalling(c chart) (Finding, bool) {
 		b.WriteString("- No active hyponatremia-risk drug found in the medication list\n")
 	}
 	fmt.Fprintf(&b, "- Flagged below %g mmol/L or after a fall of %g mmol/L in 48 h (%s)\n", cp.ProfoundBelow, cp.FallIn48hAtLeast, cp.Source)
-	return Finding{Rule: RuleProfoundOrFalling, Summary: shorten(summary, 139), Detail: b.String(), Figures: map[string]float64{}}, true
+	fig := map[string]float64{"sodiumLatest": na, "fallFromPeak48h": Round(fall, 1), "sodiumFalling48h": 0}
+	if falling {
+		fig["sodiumFalling48h"] = 1
+	}
+	return Finding{Rule: RuleProfoundOrFalling, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
 }
 
 // activeDrugs names the active medications with effect e, from the

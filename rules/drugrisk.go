@@ -201,7 +201,7 @@ func (r *Ruleset) judgeDrug(c drugContext, ds []drafted) (Finding, bool) {
 		attrs["otherRiskDrugs"] = others
 	}
 	fd := Finding{Rule: best.rule, Indicator: best.indicator, Summary: shorten(best.summary, 139),
-		Detail: r.drugDetail(c, ds, vs, renewal, multipliers, others), Figures: fig, Attributes: attrs,
+		Detail: r.drugDetail(c, ds, vs, renewal, multipliers, others), Figures: fig, Attributes: attrs, Product: "drug:" + strings.ToLower(d.Name),
 		Advice: []Advice{r.drugRecheck(best.rule)}}
 	if len(ds) == 1 {
 		fd.Order = refs[0]

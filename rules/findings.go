@@ -42,6 +42,11 @@ type Finding struct {
 	// of its drug, and its detail names each); advice that acts on a draft
 	// (a new rate, removing it) comes only with an Order.
 	Order string
+	// Product keys the drug or fluid the finding is about
+	// ("rxnorm:313002", "drug:tolvaptan"), empty for a finding about the
+	// chart; a repeat of the same rule for the same product is what
+	// suppression matches.
+	Product string
 	// Links are the confirmed addresses of the sources the detail cites.
 	Links []SourceLink
 	// Advice lists the changes the card may suggest, in the order offered;

@@ -138,7 +138,8 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	if a.Hypernatremia {
 		word, sign = "fall", -1
 	}
-	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Attributes: a.contributorAttributes()}
+	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Product: ProductKey(a.Order.Medication),
+		Attributes: a.contributorAttributes()}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.movesRestrictedWay()
 	// The fluids counted together may keep moving sodium the restricted way

@@ -96,6 +96,7 @@ type Policy struct {
 	Plausibility      map[Analyte]Bounds      `json:"plausibility"`
 	SameTime          SameTimePolicy          `json:"sameTime"`
 	UrineLosses       UrineLossPolicy         `json:"urineLosses"`
+	Suppression       SuppressionPolicy       `json:"suppression"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -181,6 +182,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.SameTime.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.Suppression.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	for _, a := range Analytes() {

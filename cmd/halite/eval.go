@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"log/slog"
@@ -27,16 +28,21 @@ const (
 // eval runs a bundle through the same pipeline as the server and prints the
 // response: a readable report, or with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE", stderr)
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] [--card-log DSN --hash-key-file FILE] BUNDLE", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
 	asJSON := fs.Bool("json", false, "print the exact CDS Hooks response (keyed by service id without --service)")
 	policy := fs.String("policy-override", "", "apply a site policy override `file` (JSON shaped like the embedded policy)")
 	zone := fs.String("display-timezone", "", "write the cards' times in this IANA `zone` (as display_timezone does for the server; default UTC)")
+	cardLog := fs.String("card-log", "", "log the cards to this card log (`DSN`: sqlite:PATH or a postgres:// URL) and hold back repeats of cards it holds, as the server does")
+	hashKey := fs.String("hash-key-file", "", "the `file` keying patient hashes in --card-log (at least 32 bytes; the same key joins runs)")
 	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
+	}
+	if (*cardLog == "") != (*hashKey == "") {
+		return errors.New("eval: --card-log and --hash-key-file go together: repeats are matched by the keyed patient hash")
 	}
 	when := time.Now()
 	if *at != "" {
@@ -63,9 +69,23 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
+	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))
 	// No fetcher: everything comes from the bundle, through prefetch.
-	engine := hooks.NewEngine(hooks.EngineConfig{Registry: reg, Ruleset: rs, Limits: hooks.Limits{MaxPages: 1},
-		Log: slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))})
+	ec := hooks.EngineConfig{Registry: reg, Ruleset: rs, Limits: hooks.Limits{MaxPages: 1}, Log: log}
+	if *cardLog != "" {
+		sc := defaultStoreConfig()
+		sc.DSN, sc.HashKeyFile = *cardLog, *hashKey
+		if err := sc.validate(false); err != nil {
+			return fmt.Errorf("eval --card-log: %w", err)
+		}
+		st, hash, err := openStore(sc, log, false)
+		if err != nil {
+			return fmt.Errorf("eval --card-log: %w", err)
+		}
+		defer st.Close()
+		ec.Recorder, ec.PatientHash = recorder{st}, hash
+	}
+	engine := hooks.NewEngine(ec)
 	outcomes := map[string]*hooks.Outcome{}
 	unasked := map[string]string{} // by service: the bundle's resources its request does not carry
 	warning := ""
@@ -205,8 +225,12 @@ func writeReport(w io.Writer, hook string, at time.Time, revision, warning strin
 	for _, svc := range svcs {
 		o := outcomes[svc.ID]
 		fmt.Fprintf(tw, "\n== %s\n", svc.ID)
-		if len(o.Response.Cards) == 0 {
+		if len(o.Response.Cards) == 0 && len(o.Held) == 0 {
 			fmt.Fprintln(tw, "no cards: nothing actionable")
+		}
+		for _, h := range o.Held {
+			fmt.Fprintf(tw, "held back\t%s %s: %s (repeats the card of %s)\n", strings.ToUpper(h.Finding.Indicator.String()), h.Finding.Rule,
+				h.Suppression.Reason, h.Suppression.Prior.At.UTC().Format(time.RFC3339))
 		}
 		for _, c := range o.Response.Cards {
 			fmt.Fprintf(tw, "%s\t%s\n", strings.ToUpper(c.Indicator), c.Summary)

@@ -16,6 +16,7 @@ import (
 
 	"github.com/halite-cds/halite/hooks"
 	"github.com/halite-cds/halite/hooks/feedback"
+	"github.com/halite-cds/halite/rules"
 )
 
 // StoreConfig is where the card log and feedback are kept.
@@ -151,12 +152,31 @@ func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error 
 	recs := make([]feedback.CardRecord, len(cards))
 	for i, c := range cards {
 		recs[i] = feedback.CardRecord{UUID: c.UUID, Service: c.Service, Rule: c.Rule, Indicator: c.Indicator, Ruleset: c.Ruleset,
-			Issuer: c.Issuer, Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions}
+			Issuer: c.Issuer, Tenant: c.Tenant, PatientHash: c.PatientHash, At: c.At, Figures: c.Figures, Suggestions: c.Suggestions,
+			Moment: string(c.Moment), Subject: c.Subject, Draft: c.Draft, Suppressed: c.Suppressed}
 	}
 	if err := r.st.LogCards(ctx, recs); err != nil {
 		return storeUnavailable(err, "the card log could not be written")
 	}
 	return nil
+}
+
+func (r recorder) PriorCards(ctx context.Context, q hooks.PriorQuery) ([]rules.ShownCard, error) {
+	prior, err := r.st.PriorCards(ctx, feedback.PriorQuery{Service: q.Service, Issuer: q.Issuer, Tenant: q.Tenant,
+		PatientHash: q.PatientHash, Since: q.Since, Until: q.Until})
+	if err != nil {
+		return nil, err
+	}
+	out := make([]rules.ShownCard, 0, len(prior))
+	for _, p := range prior {
+		ind, err := rules.ParseIndicator(p.Indicator)
+		if err != nil {
+			return nil, fmt.Errorf("prior cards: %w", err)
+		}
+		out = append(out, rules.ShownCard{Rule: p.Rule, Moment: rules.Moment(p.Moment), Subject: p.Subject, Draft: p.Draft,
+			Indicator: ind, Figures: p.Figures, At: p.At, OverriddenAt: p.OverriddenAt})
+	}
+	return out, nil
 }
 
 func (r recorder) RecordOutcomes(ctx context.Context, entries []hooks.CardOutcome) error {

@@ -239,6 +239,87 @@ func TestStoreContract(t *testing.T) {
 	}
 }
 
+// TestPriorCards: the cards one replica logged are found by another, for
+// the same patient, service and caller only, within the period, latest
+// first, with the time of an override that gave a reason; a finding held
+// back is counted but never found, and takes no feedback.
+func TestPriorCards(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends(t) {
+		t.Run(b.name, func(t *testing.T) {
+			a, reopen := b.open(t)
+			defer a.Close()
+			replica := reopen()
+			defer replica.Close()
+			at := func(id string, when time.Time, edit func(*CardRecord)) CardRecord {
+				c := card(id, when)
+				c.Moment, c.Subject, c.Draft = "select", "subj", "draft"
+				if edit != nil {
+					edit(&c)
+				}
+				return c
+			}
+			cards := []CardRecord{
+				at("early", t0.Add(-2*time.Hour), nil),
+				at("late", t0.Add(-time.Hour), func(c *CardRecord) { c.Moment, c.Indicator = "sign", "critical" }),
+				at("quiet", t0.Add(-time.Hour), func(c *CardRecord) {}),
+				at("held", t0.Add(-30*time.Minute), func(c *CardRecord) { c.Suppressed = "select-to-sign" }),
+				at("old", t0.Add(-30*time.Hour), nil),
+				at("future", t0.Add(time.Hour), nil),
+				at("other-patient", t0.Add(-time.Hour), func(c *CardRecord) { c.PatientHash = "h2" }),
+				at("other-tenant", t0.Add(-time.Hour), func(c *CardRecord) { c.Tenant = "t2" }),
+				at("other-service", t0.Add(-time.Hour), func(c *CardRecord) { c.Service = "sodium-drug-risk" }),
+			}
+			if err := a.LogCards(ctx, cards); err != nil {
+				t.Fatal(err)
+			}
+			fb := func(card, outcome, reason string, when time.Time) FeedbackRecord {
+				return FeedbackRecord{Card: card, Service: "sodium-infusion-check", Outcome: outcome, ReasonSystem: "sys", ReasonCode: reason, OutcomeAt: when}
+			}
+			if err := a.RecordFeedback(ctx, []FeedbackRecord{fb("late", Overridden, "local-protocol", t0.Add(-50*time.Minute)),
+				fb("late", Overridden, "already-monitored", t0.Add(-40*time.Minute)), fb("quiet", Overridden, "", t0.Add(-50*time.Minute))}); err != nil {
+				t.Fatal(err)
+			}
+			if err := a.RecordFeedback(ctx, []FeedbackRecord{fb("held", Overridden, "local-protocol", t0)}); !errors.Is(err, ErrUnknownCard) {
+				t.Errorf("feedback on a held-back finding: %v, want ErrUnknownCard", err)
+			}
+			got, err := replica.PriorCards(ctx, PriorQuery{Service: "sodium-infusion-check", PatientHash: "h", Since: t0.Add(-24 * time.Hour), Until: t0})
+			if err != nil {
+				t.Fatal(err)
+			}
+			var ids []string
+			for _, p := range got {
+				ids = append(ids, p.Moment+"/"+p.Indicator)
+			}
+			if len(got) != 3 || got[2].At != t0.Add(-2*time.Hour) || got[0].At != t0.Add(-time.Hour) {
+				t.Fatalf("prior cards %v, want late, quiet (either order at one time) then early", ids)
+			}
+			for _, p := range got {
+				switch {
+				case p.Moment == "sign" && (p.Indicator != "critical" || !p.OverriddenAt.Equal(t0.Add(-40*time.Minute))):
+					t.Errorf("overridden card %+v: want the later override with a reason", p)
+				case p.Moment == "select" && !p.OverriddenAt.IsZero():
+					t.Errorf("%+v: an override without a reason (or none) is not an override to remember", p)
+				}
+				if p.Subject != "subj" || p.Draft != "draft" || p.Figures["limit24h"] != 10 {
+					t.Errorf("keys or figures lost: %+v", p)
+				}
+			}
+			rep, err := replica.Report(ctx, t0.Add(-72*time.Hour), t0.Add(2*time.Hour))
+			if err != nil {
+				t.Fatal(err)
+			}
+			var shown, held int64
+			for _, r := range rep.Rules {
+				shown, held = shown+r.Shown, held+r.Suppressed
+			}
+			if shown != 8 || held != 1 {
+				t.Errorf("report counts %d shown and %d held back, want 8 and 1", shown, held)
+			}
+		})
+	}
+}
+
 // TestPurgeInChunks: a backlog larger than one purge chunk is deleted in
 // full, in several commits.
 func TestPurgeInChunks(t *testing.T) {

@@ -12,6 +12,7 @@ import (
 type RuleStats struct {
 	Service, Rule      string
 	Shown              int64 // cards returned
+	Suppressed         int64 // findings held back as repeats (never returned)
 	Accepted           int64 // cards with an accepted outcome
 	Overridden         int64 // cards with an overridden outcome (and none accepted)
 	TopOverrideReasons []ReasonCount
@@ -52,7 +53,8 @@ func (s *DB) Report(ctx context.Context, from, to time.Time) (Report, error) {
 	// A card's outcome: accepted if any feedback accepted it, else overridden if any overrode it.
 	const outcome = `(SELECT CASE WHEN EXISTS (SELECT 1 FROM feedback f WHERE f.card_uuid = c.card_uuid AND f.outcome = 'accepted') THEN 'accepted'
 		WHEN EXISTS (SELECT 1 FROM feedback f WHERE f.card_uuid = c.card_uuid) THEN 'overridden' ELSE '' END)`
-	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT c.service, c.rule, count(*),
+	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT c.service, c.rule, sum(CASE WHEN c.suppressed = '' THEN 1 ELSE 0 END),
+		sum(CASE WHEN c.suppressed <> '' THEN 1 ELSE 0 END),
 		sum(CASE WHEN `+outcome+` = 'accepted' THEN 1 ELSE 0 END),
 		sum(CASE WHEN `+outcome+` = 'overridden' THEN 1 ELSE 0 END)
 		FROM card_log c WHERE c.created_at >= ? AND c.created_at < ? GROUP BY c.service, c.rule ORDER BY c.service, c.rule`), f, t)
@@ -61,7 +63,7 @@ func (s *DB) Report(ctx context.Context, from, to time.Time) (Report, error) {
 	}
 	for rows.Next() {
 		var r RuleStats
-		if err := rows.Scan(&r.Service, &r.Rule, &r.Shown, &r.Accepted, &r.Overridden); err != nil {
+		if err := rows.Scan(&r.Service, &r.Rule, &r.Shown, &r.Suppressed, &r.Accepted, &r.Overridden); err != nil {
 			rows.Close()
 			return rep, fmt.Errorf("report: %w", err)
 		}
@@ -90,7 +92,7 @@ func (s *DB) Report(ctx context.Context, from, to time.Time) (Report, error) {
 	days, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT substr(c.created_at, 1, 10) AS day, count(*),
 		sum(CASE WHEN `+outcome+` = 'accepted' THEN 1 ELSE 0 END),
 		sum(CASE WHEN `+outcome+` = 'overridden' THEN 1 ELSE 0 END)
-		FROM card_log c WHERE c.created_at >= ? AND c.created_at < ? GROUP BY day ORDER BY day`), f, t)
+		FROM card_log c WHERE c.created_at >= ? AND c.created_at < ? AND c.suppressed = '' GROUP BY day ORDER BY day`), f, t)
 	if err != nil {
 		return rep, fmt.Errorf("report days: %w", err)
 	}

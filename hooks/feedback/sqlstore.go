@@ -618,9 +618,9 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 				return fmt.Errorf("log card %s: %w", c.UUID, err)
 			}
 			sugg, _ := json.Marshal(nonNil(c.Suggestions))
-			if _, err := tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_log (card_uuid, service, rule, indicator, ruleset, issuer, tenant, patient_hash, created_at, figures, suggestions)
-				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`), c.UUID, c.Service, c.Rule, c.Indicator, c.Ruleset, c.Issuer, c.Tenant, c.PatientHash,
-				c.At.UTC().Format(tsFormat), string(fig), string(sugg)); err != nil {
+			if _, err := tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_log (card_uuid, service, rule, indicator, ruleset, issuer, tenant, patient_hash, created_at, figures, suggestions, moment, subject, draft, suppressed)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`), c.UUID, c.Service, c.Rule, c.Indicator, c.Ruleset, c.Issuer, c.Tenant, c.PatientHash,
+				c.At.UTC().Format(tsFormat), string(fig), string(sugg), c.Moment, c.Subject, c.Draft, c.Suppressed); err != nil {
 				return fmt.Errorf("log card %s: %w", c.UUID, err)
 			}
 		}
@@ -653,7 +653,7 @@ func (s *DB) RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
 
 func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error {
 	var raw string
-	err := tx.QueryRowContext(ctx, s.dialect.bind(`SELECT suggestions FROM card_log WHERE card_uuid = ? AND service = ? AND issuer = ? AND tenant = ?`),
+	err := tx.QueryRowContext(ctx, s.dialect.bind(`SELECT suggestions FROM card_log WHERE card_uuid = ? AND service = ? AND issuer = ? AND tenant = ? AND suppressed = ''`),
 		f.Card, f.Service, f.Issuer, f.Tenant).Scan(&raw)
 	if errors.Is(err, sql.ErrNoRows) {
 		return ErrUnknownCard
@@ -680,6 +680,45 @@ func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error 
 		return fmt.Errorf("record feedback: %w", err)
 	}
 	return nil
+}
+
+// PriorCards implements Store. It reads beside the writer, so a card
+// committed by any replica before the lookup is seen.
+func (s *DB) PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error) {
+	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT c.rule, c.moment, c.subject, c.draft, c.indicator, c.figures, c.created_at,
+		(SELECT max(f.outcome_at) FROM feedback f WHERE f.card_uuid = c.card_uuid AND f.outcome = 'overridden' AND f.reason_code <> '')
+		FROM card_log c WHERE c.patient_hash = ? AND c.created_at >= ? AND c.created_at <= ? AND c.service = ? AND c.issuer = ? AND c.tenant = ?
+		AND c.suppressed = '' ORDER BY c.created_at DESC LIMIT `+strconv.Itoa(MaxPriorCards)),
+		q.PatientHash, q.Since.UTC().Format(tsFormat), q.Until.UTC().Format(tsFormat), q.Service, q.Issuer, q.Tenant)
+	if err != nil {
+		return nil, fmt.Errorf("prior cards: %w", err)
+	}
+	defer rows.Close()
+	var out []PriorCard
+	for rows.Next() {
+		var p PriorCard
+		var fig, at string
+		var over sql.NullString
+		if err := rows.Scan(&p.Rule, &p.Moment, &p.Subject, &p.Draft, &p.Indicator, &fig, &at, &over); err != nil {
+			return nil, fmt.Errorf("prior cards: %w", err)
+		}
+		if err := json.Unmarshal([]byte(fig), &p.Figures); err != nil {
+			return nil, fmt.Errorf("prior cards: figures: %w", err)
+		}
+		if p.At, err = time.Parse(tsFormat, at); err != nil {
+			return nil, fmt.Errorf("prior cards: %w", err)
+		}
+		if over.Valid {
+			if p.OverriddenAt, err = time.Parse(tsFormat, over.String); err != nil {
+				return nil, fmt.Errorf("prior cards: %w", err)
+			}
+		}
+		out = append(out, p)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("prior cards: %w", err)
+	}
+	return out, nil
 }
 
 // purgeChunk is how many rows one purge transaction deletes at most, so a

@@ -22,7 +22,33 @@ type CardRecord struct {
 	At          time.Time
 	Figures     map[string]float64
 	Suggestions []string // suggestion uuids
+	// Moment is when the card was found: "select", "sign" or "chart".
+	Moment string
+	// Subject and Draft are keyed hashes of the card's product and draft
+	// order ("" when it has none).
+	Subject, Draft string
+	// Suppressed, when set, is why the finding was held back: the record
+	// counts it, but it was never returned and takes no feedback.
+	Suppressed string
 }
+
+// PriorQuery selects the cards shown to one caller for one patient by one
+// service from Since up to and including Until.
+type PriorQuery struct {
+	Service, Issuer, Tenant, PatientHash string
+	Since, Until                         time.Time
+}
+
+// PriorCard is a card shown earlier, with the time of the latest override
+// that gave a reason (zero when none did).
+type PriorCard struct {
+	Rule, Moment, Subject, Draft, Indicator string
+	Figures                                 map[string]float64
+	At, OverriddenAt                        time.Time
+}
+
+// MaxPriorCards bounds what one PriorCards lookup returns.
+const MaxPriorCards = 200
 
 // Outcomes a card can have.
 const (
@@ -69,6 +95,9 @@ type Store interface {
 	// none; a repeat of the same card, outcome and time is accepted and
 	// stored once.
 	RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
+	// PriorCards returns the cards shown (not held back) that q selects,
+	// the latest first, at most MaxPriorCards of them.
+	PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error)
 	// Purge deletes cards (and their feedback) logged before t, and
 	// expired JWT replay entries.
 	Purge(ctx context.Context, before time.Time) (int64, error)

@@ -1,0 +1,84 @@
+package hooks
+
+import (
+	"context"
+	"time"
+
+	"github.com/halite-cds/halite/rules"
+	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/metric"
+)
+
+// Held is a finding held back as a repeat of a card already shown.
+type Held struct {
+	Finding     rules.Finding
+	Suppression rules.Suppression
+	// Subject and Draft are the keyed hashes it was matched by.
+	Subject, Draft string
+}
+
+// momentOf is the suppression moment of a hook.
+func momentOf(hook string) rules.Moment {
+	switch hook {
+	case HookOrderSelect:
+		return rules.MomentSelect
+	case HookOrderSign:
+		return rules.MomentSign
+	}
+	return rules.MomentChart
+}
+
+// findingKeys are the keyed hashes a finding is matched by: its product
+// and its draft order (a finding about several drafts of one product is
+// matched by the product).
+func (e *Engine) findingKeys(f rules.Finding) (subject, draft string) {
+	if f.Product != "" {
+		subject = e.hash("product:" + f.Product)
+	}
+	draft = subject
+	if f.Order != "" {
+		draft = e.hash("order:" + f.Order)
+	}
+	return subject, draft
+}
+
+// suppress splits findings into those to show and those held back as
+// repeats of cards the card log holds for this patient, service and
+// caller. A failed lookup holds nothing back: the cards are shown.
+func (e *Engine) suppress(ctx context.Context, service, hook, patientHash string, fs []rules.Finding, at time.Time) ([]rules.Finding, []Held) {
+	if e.recorder == nil || len(fs) == 0 {
+		return fs, nil
+	}
+	p := e.ruleset.Suppression()
+	look := max(time.Duration(p.OverrideHours*float64(time.Hour)), time.Duration(p.ChartIntervalHours*float64(time.Hour)),
+		time.Duration(p.SelectToSignMinutes*float64(time.Minute)))
+	caller := CallerFrom(ctx)
+	lctx, span := e.tel.start(ctx, "cardlog.prior")
+	prior, err := e.recorder.PriorCards(lctx, PriorQuery{Service: service, Issuer: caller.Issuer, Tenant: caller.Tenant,
+		PatientHash: patientHash, Since: at.Add(-look), Until: at})
+	if err != nil {
+		fail(span, CauseHalite, err)
+		span.End()
+		if e.log != nil {
+			e.log.WarnContext(ctx, "card log lookup failed; no card held back", "service", service, "error", err.Error())
+		}
+		return fs, nil
+	}
+	span.SetAttributes(attribute.Int("halite.cards.prior", len(prior)))
+	span.End()
+	m := momentOf(hook)
+	var shown []rules.Finding
+	var held []Held
+	for _, f := range fs {
+		subject, draft := e.findingKeys(f)
+		s, ok := p.Suppress(f, m, subject, draft, prior, at)
+		if !ok {
+			shown = append(shown, f)
+			continue
+		}
+		held = append(held, Held{Finding: f, Suppression: s, Subject: subject, Draft: draft})
+		e.tel.suppressed.Add(ctx, 1, metric.WithAttributes(attribute.String("rule", f.Rule),
+			attribute.String("indicator", f.Indicator.String()), attribute.String("reason", s.Reason)))
+	}
+	return shown, held
+}
