@@ -27,6 +27,17 @@ var overrideReasons = []Coding{
 	{System: OverrideReasonSystem, Code: "data-not-current", Display: "The data shown are incomplete or not current"},
 }
 
+// OverrideReasonLabel is the display of an override reason halite offers,
+// or "system|code" for one it does not know.
+func OverrideReasonLabel(system, code string) string {
+	for _, c := range overrideReasons {
+		if c.System == system && c.Code == code {
+			return c.Display
+		}
+	}
+	return system + "|" + code
+}
+
 // cardExtension is the machine-readable part of a card, under "halite":
 // the rule, the ruleset revision, the figures, and the finding's other
 // attributes beside them.

@@ -178,6 +178,11 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 			return nil, storeError(err, "the card log could not be written")
 		}
 	}
+	if e.recorder != nil {
+		caller := CallerFrom(ctx)
+		e.recorder.CountCall(CallCount{At: at, Service: svc.ID, Hook: call.Request.Hook, Issuer: caller.Issuer, Tenant: caller.Tenant,
+			Ruleset: e.ruleset.Revision(), Cards: len(cards), Suppressed: len(held)})
+	}
 	highest := rules.Indicator(0)
 	for _, f := range findings {
 		e.tel.cards.Add(ctx, 1, metric.WithAttributes(attribute.String("rule", f.Rule), attribute.String("indicator", f.Indicator.String())))

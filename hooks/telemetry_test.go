@@ -30,6 +30,7 @@ func (m *memRecorder) LogCards(_ context.Context, cards []LoggedCard) error {
 	return nil
 }
 func (m *memRecorder) RecordOutcomes(context.Context, []CardOutcome) error { return nil }
+func (m *memRecorder) CountCall(CallCount)                                 {}
 func (m *memRecorder) PriorCards(context.Context, PriorQuery) ([]rules.ShownCard, error) {
 	return nil, nil
 }

@@ -161,6 +161,11 @@ func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error 
 	return nil
 }
 
+func (r recorder) CountCall(c hooks.CallCount) {
+	r.st.CountCall(feedback.CallRecord{At: c.At, Service: c.Service, Hook: c.Hook, Issuer: c.Issuer, Tenant: c.Tenant,
+		Ruleset: c.Ruleset, Cards: c.Cards, Suppressed: c.Suppressed})
+}
+
 func (r recorder) PriorCards(ctx context.Context, q hooks.PriorQuery) ([]rules.ShownCard, error) {
 	prior, err := r.st.PriorCards(ctx, feedback.PriorQuery{Service: q.Service, Issuer: q.Issuer, Tenant: q.Tenant,
 		PatientHash: q.PatientHash, Since: q.Since, Until: q.Until})

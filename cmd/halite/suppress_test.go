@@ -86,8 +86,10 @@ func TestEvalHoldsBackRepeats(t *testing.T) {
 		t.Fatal(err)
 	}
 	held := map[string]int64{}
-	for _, r := range rep.Rules {
-		held[r.Rule] += r.Suppressed
+	for _, g := range rep.Cards {
+		if g.Suppressed != "" {
+			held[g.Rule] += g.Count
+		}
 	}
 	if held["sodium-profound-or-falling"] != 1 || held["siadh-lab-pattern"] != 1 || held["sodium-projected-over-limit"] != 1 || held["hyponatremia-overcorrected"] != 0 {
 		t.Errorf("held back in the card log: %v", held)

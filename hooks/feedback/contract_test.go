@@ -186,15 +186,23 @@ func TestStoreContract(t *testing.T) {
 				t.Errorf("counts %d cards %d feedback %v; want 2 and 2 (no entry of a refused call stored)", c, f, err)
 			}
 			rep, err := s.Report(ctx, t0.Add(-72*time.Hour), t0.Add(time.Hour))
-			if err != nil || len(rep.Rules) != 1 || len(rep.Days) != 2 {
+			if err != nil || len(rep.Cards) != 2 {
 				t.Fatalf("report %+v %v", rep, err)
 			}
-			if r := rep.Rules[0]; r.Shown != 2 || r.Accepted != 1 || r.Overridden != 0 || r.AcceptanceRate() != 1 ||
-				len(r.TopOverrideReasons) != 1 || r.TopOverrideReasons[0].Code != "local-protocol" {
-				t.Errorf("rule stats %+v", r)
+			for _, g := range rep.Cards {
+				want := ""
+				if g.Hour.Equal(t0) {
+					want = Accepted // accepted, then overridden: accepted counts
+				}
+				if g.Count != 1 || !g.Offered || g.Outcome != want || g.Rule != "sodium-projected-over-limit" {
+					t.Errorf("card group %+v, want outcome %q", g, want)
+				}
 			}
-			if d := rep.Days[1]; d.Day != "2026-11-20" || d.Shown != 1 || d.Accepted != 1 {
-				t.Errorf("day %+v", d)
+			if len(rep.Reasons) != 1 || rep.Reasons[0].Code != "local-protocol" || rep.Reasons[0].Count != 1 {
+				t.Errorf("reasons %+v", rep.Reasons)
+			}
+			if len(rep.Responses) != 1 || rep.Responses[0].After != 0 {
+				t.Errorf("response times %+v, want c1's first feedback at its own time", rep.Responses)
 			}
 			if n, err := s.Purge(ctx, t0.Add(-24*time.Hour)); err != nil || n != 1 {
 				t.Errorf("purge removed %d (%v), want 1", n, err)
@@ -310,12 +318,65 @@ func TestPriorCards(t *testing.T) {
 				t.Fatal(err)
 			}
 			var shown, held int64
-			for _, r := range rep.Rules {
-				shown, held = shown+r.Shown, held+r.Suppressed
+			for _, g := range rep.Cards {
+				if g.Suppressed == "" {
+					shown += g.Count
+				} else {
+					held += g.Count
+				}
 			}
 			if shown != 8 || held != 1 {
 				t.Errorf("report counts %d shown and %d held back, want 8 and 1", shown, held)
 			}
+		})
+	}
+}
+
+// TestCallCounts: calls counted by two replicas add up in one row per
+// hour and key; counts still in memory are written at Close; the purge
+// removes old hours.
+func TestCallCounts(t *testing.T) {
+	ctx := context.Background()
+	for _, b := range backends(t) {
+		t.Run(b.name, func(t *testing.T) {
+			a, reopen := b.open(t)
+			replica := reopen()
+			call := func(at time.Time, cards, held int) CallRecord {
+				return CallRecord{At: at, Service: "sodium-infusion-check", Hook: "order-sign", Tenant: "ward", Ruleset: "r1", Cards: cards, Suppressed: held}
+			}
+			a.CountCall(call(t0, 2, 0))
+			a.CountCall(call(t0.Add(10*time.Minute), 0, 1))
+			a.CountCall(call(t0.Add(-30*time.Hour), 1, 0))
+			if err := a.(*DB).FlushCounts(ctx); err != nil {
+				t.Fatal(err)
+			}
+			replica.CountCall(call(t0.Add(20*time.Minute), 0, 0))
+			replica.CountCall(call(t0.Add(59*time.Minute), 1, 0))
+			if err := replica.Close(); err != nil { // writes what it holds
+				t.Fatal(err)
+			}
+			rep, err := a.Report(ctx, t0.Add(-48*time.Hour), t0.Add(time.Hour))
+			if err != nil {
+				t.Fatal(err)
+			}
+			if len(rep.Calls) != 2 {
+				t.Fatalf("call groups %+v, want one per hour", rep.Calls)
+			}
+			for _, g := range rep.Calls {
+				switch {
+				case g.Hour.Equal(t0) && (g.Calls != 4 || g.WithCards != 2 || g.Cards != 3 || g.Suppressed != 1 || g.Tenant != "ward"):
+					t.Errorf("hour of t0: %+v, want 4 calls, 2 with cards, 3 cards, 1 held back", g)
+				case !g.Hour.Equal(t0) && g.Calls != 1:
+					t.Errorf("earlier hour: %+v", g)
+				}
+			}
+			if _, err := a.Purge(ctx, t0.Add(-24*time.Hour)); err != nil {
+				t.Fatal(err)
+			}
+			if rep, err = a.Report(ctx, t0.Add(-48*time.Hour), t0.Add(time.Hour)); err != nil || len(rep.Calls) != 1 {
+				t.Errorf("after the purge: %+v %v", rep.Calls, err)
+			}
+			a.Close()
 		})
 	}
 }

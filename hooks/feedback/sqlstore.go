@@ -63,6 +63,13 @@ type DB struct {
 	// exclusively while closing the queue.
 	mu     sync.RWMutex
 	closed bool
+	// countMu guards counts, the call counts not yet written; countLoop
+	// writes them until stopCounts is closed, then closes countsDone.
+	countMu    sync.Mutex
+	counts     map[callKey]callTally
+	stopCounts chan struct{}
+	countsDone chan struct{}
+	stopOnce   sync.Once
 }
 
 // Errors of the write path.
@@ -202,8 +209,10 @@ type Options struct {
 	CheckpointEvery  time.Duration
 	WALRestartFrames int
 	NoCheckpointer   bool
-	// Log receives checkpoint failures; nil discards them.
+	// Log receives checkpoint and call-count failures; nil discards them.
 	Log *slog.Logger
+	// CountEvery is how often the call counts are written (default 10 s).
+	CountEvery time.Duration
 }
 
 // SQLite synchronous settings (https://sqlite.org/pragma.html#pragma_synchronous).
@@ -365,6 +374,9 @@ func (o Options) withDefaults() Options {
 	if o.WALRestartFrames <= 0 {
 		o.WALRestartFrames = 8192
 	}
+	if o.CountEvery <= 0 {
+		o.CountEvery = 10 * time.Second
+	}
 	return o
 }
 
@@ -376,8 +388,10 @@ func start(db *sql.DB, d dialect, opt Options, name string) (*DB, error) {
 		db.Close()
 		return nil, fmt.Errorf("open store %s: %w", name, err)
 	}
-	s := &DB{db: db, dialect: d, opt: opt, jobs: make(chan job, opt.QueueSize), done: make(chan struct{})}
+	s := &DB{db: db, dialect: d, opt: opt, jobs: make(chan job, opt.QueueSize), done: make(chan struct{}),
+		counts: map[callKey]callTally{}, stopCounts: make(chan struct{}), countsDone: make(chan struct{})}
 	go s.writer()
+	go s.countLoop()
 	return s, nil
 }
 
@@ -734,6 +748,10 @@ func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
 	if err != nil {
 		return cards, fmt.Errorf("purge: %w", err)
 	}
+	if _, err := s.deleteChunks(ctx, `DELETE FROM call_counts WHERE (hour, service, hook, issuer, tenant, ruleset) IN
+		(SELECT hour, service, hook, issuer, tenant, ruleset FROM call_counts WHERE hour < ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(hourFormat)); err != nil {
+		return cards, fmt.Errorf("purge call counts: %w", err)
+	}
 	if _, err := s.deleteChunks(ctx, `DELETE FROM jwt_replay WHERE (iss, jti) IN
 		(SELECT iss, jti FROM jwt_replay WHERE until <= ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, time.Now().UTC().Format(tsFormat)); err != nil {
 		return cards, fmt.Errorf("purge replay cache: %w", err)
@@ -790,6 +808,11 @@ func (s *DB) Counts(ctx context.Context) (cards, feedback int64, err error) {
 
 // Close stops the writer after the queued records are committed.
 func (s *DB) Close() error {
+	// The last call counts are written while the writer still runs.
+	s.stopOnce.Do(func() {
+		close(s.stopCounts)
+		<-s.countsDone
+	})
 	s.mu.Lock()
 	if s.closed {
 		s.mu.Unlock()

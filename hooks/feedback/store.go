@@ -98,6 +98,9 @@ type Store interface {
 	// PriorCards returns the cards shown (not held back) that q selects,
 	// the latest first, at most MaxPriorCards of them.
 	PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error)
+	// CountCall counts one hook call answered; it never waits for the
+	// database (see DB.CountCall).
+	CountCall(c CallRecord)
 	// Purge deletes cards (and their feedback) logged before t, and
 	// expired JWT replay entries.
 	Purge(ctx context.Context, before time.Time) (int64, error)
