@@ -2,6 +2,7 @@ package rules
 
 import (
 	"cmp"
+	"fmt"
 	"regexp"
 	"strconv"
 	"strings"
@@ -200,10 +201,122 @@ func effectWords(effect string) string {
 }
 
 // Display is how card text is shown to people: the zone its times are
-// written in (nil: UTC). It changes no computation, so it is not part of the
-// ruleset revision.
+// written in (nil: UTC) and the units of its concentrations. It changes no
+// computation (figures stay in the canonical units), so it is not part of
+// the ruleset revision.
 type Display struct {
-	Zone *time.Location
+	Zone  *time.Location
+	Units DisplayUnits
+}
+
+// DisplayUnits are the units card text writes concentrations in; an empty
+// member is the canonical unit.
+type DisplayUnits struct {
+	// Electrolytes is "mmol/L" or "mEq/L" for sodium and potassium (and
+	// their changes, limits and sums), equal in value for these monovalent
+	// ions.
+	Electrolytes string
+	// Glucose is "mmol/L" or "mg/dL".
+	Glucose string
+	// Urea is "mmol/L" (urea) or "mg/dL" (as urea nitrogen, BUN).
+	Urea string
+	// Creatinine is "umol/L" or "mg/dL".
+	Creatinine string
+}
+
+// Validate names the first member that is not a unit halite writes.
+func (u DisplayUnits) Validate() error {
+	for _, m := range []struct{ name, v, si, mass string }{
+		{"electrolytes", u.Electrolytes, "mmol/L", "mEq/L"}, {"glucose", u.Glucose, "mmol/L", "mg/dL"},
+		{"urea", u.Urea, "mmol/L", "mg/dL"}, {"creatinine", u.Creatinine, "umol/L", "mg/dL"},
+	} {
+		if m.v != "" && m.v != m.si && m.v != m.mass {
+			return fmt.Errorf("%s: %q is not %q or %q", m.name, m.v, m.si, m.mass)
+		}
+	}
+	return nil
+}
+
+// Concentrations whose display unit is not the electrolytes' are written
+// into card text as tokens, resolved into the display unit by displayUnits
+// after the electrolyte unit is set; a kept token is text written as sent
+// (a result's original unit), which no unit rewrite touches.
+const (
+	tokenOpen, tokenSep, tokenClose = "\uE000", "\uE001", "\uE002"
+	keptToken                       = "kept"
+)
+
+var unitToken = regexp.MustCompile(tokenOpen + `([a-z-]+)` + tokenSep + `([^` + tokenClose + `]*)` + tokenClose)
+
+// quantity writes v of analyte a with its unit: glucose, urea and
+// creatinine as tokens for their display unit, the others as is.
+func quantity(a Analyte, v float64) string {
+	switch a {
+	case Glucose, Urea, Creatinine:
+		return tokenOpen + string(a) + tokenSep + strconv.FormatFloat(v, 'g', -1, 64) + tokenClose
+	}
+	return show(a, v) + " " + CanonicalUnit(a)
+}
+
+// kept is s, written as sent: no unit rewrite touches it.
+func kept(s string) string { return tokenOpen + keptToken + tokenSep + s + tokenClose }
+
+// Mass-unit conversions from the canonical units, with the molar masses
+// fhirmap converts with (IUPAC 2021 atomic weights): glucose 180.156 g/mol,
+// urea nitrogen 2 × 14.007 g/mol, creatinine 113.12 g/mol.
+const (
+	ureaNitrogenMgPerDLPerMmol   = 2 * 14.007 / 10
+	creatinineMgPerDLPerMicromol = 113.12 / 10000
+)
+
+// plainUnits is s with its concentrations in the canonical units, for text
+// that is not card text (data notes and rejection reasons).
+func plainUnits(s string) string {
+	var canonical Ruleset
+	return canonical.displayUnits(s)
+}
+
+// displayUnits writes s's concentrations in the display units: the
+// electrolyte unit in the text between tokens, each token in its own.
+func (r *Ruleset) displayUnits(s string) string {
+	electrolytes := func(text string) string {
+		if r.display.Units.Electrolytes == "mEq/L" {
+			return strings.ReplaceAll(text, "mmol/L", "mEq/L")
+		}
+		return text
+	}
+	var b strings.Builder
+	last := 0
+	for _, m := range unitToken.FindAllStringSubmatchIndex(s, -1) {
+		b.WriteString(electrolytes(s[last:m[0]]))
+		b.WriteString(r.resolveToken(s[m[2]:m[3]], s[m[4]:m[5]]))
+		last = m[1]
+	}
+	b.WriteString(electrolytes(s[last:]))
+	return b.String()
+}
+
+// resolveToken writes a token's text: a kept text as is, a concentration
+// in its display unit.
+func (r *Ruleset) resolveToken(name, text string) string {
+	u := r.display.Units
+	if name == keptToken {
+		return text
+	}
+	v, err := strconv.ParseFloat(text, 64)
+	if err != nil {
+		return text
+	}
+	a := Analyte(name)
+	switch {
+	case a == Glucose && u.Glucose == "mg/dL":
+		return precision{0, false}.of(v*glucoseMgPerDLPerMmol) + " mg/dL"
+	case a == Urea && u.Urea == "mg/dL":
+		return precision{0, false}.of(v*ureaNitrogenMgPerDLPerMmol) + " mg/dL (urea nitrogen)"
+	case a == Creatinine && u.Creatinine == "mg/dL":
+		return precision{2, false}.of(v*creatinineMgPerDLPerMicromol) + " mg/dL"
+	}
+	return show(a, v) + " " + CanonicalUnit(a)
 }
 
 // WithDisplay returns the ruleset writing card text with d.

@@ -214,3 +214,34 @@ func TestClinicianTextOnTheData(t *testing.T) {
 		walk(v)
 	}
 }
+
+// TestDisplayUnits: card text in the site's units, computation unchanged.
+// Check values are the usual conversion factors (common practice; from
+// memory, and consistent with the molar masses fhirmap converts with):
+// glucose 1 mmol/L = 18.0 mg/dL, urea 1 mmol/L = 2.8 mg/dL urea nitrogen,
+// creatinine 88.4 µmol/L = 1.00 mg/dL; for sodium and potassium 1 mmol/L =
+// 1 mEq/L (monovalent ions).
+func TestDisplayUnits(t *testing.T) {
+	text := "Sodium 120 mmol/L, rose 9 mmol/L in 24 h; glucose " + quantity(Glucose, 10) + "; urea " + quantity(Urea, 10) +
+		" (sent as " + kept("3.0 mmol/L") + "); creatinine " + quantity(Creatinine, 88.4) + "; potassium " + quantity(Potassium, 3.1)
+	for _, c := range []struct {
+		units DisplayUnits
+		want  string
+	}{
+		{DisplayUnits{}, "Sodium 120 mmol/L, rose 9 mmol/L in 24 h; glucose 10 mmol/L; urea 10 mmol/L (sent as 3.0 mmol/L); creatinine 88 umol/L; potassium 3.1 mmol/L"},
+		{DisplayUnits{Electrolytes: "mEq/L"}, "Sodium 120 mEq/L, rose 9 mEq/L in 24 h; glucose 10 mmol/L; urea 10 mmol/L (sent as 3.0 mmol/L); creatinine 88 umol/L; potassium 3.1 mEq/L"},
+		{DisplayUnits{Electrolytes: "mEq/L", Glucose: "mg/dL", Urea: "mg/dL", Creatinine: "mg/dL"},
+			"Sodium 120 mEq/L, rose 9 mEq/L in 24 h; glucose 180 mg/dL; urea 28 mg/dL (urea nitrogen) (sent as 3.0 mmol/L); creatinine 1 mg/dL; potassium 3.1 mEq/L"},
+	} {
+		r := (&Ruleset{}).WithDisplay(Display{Units: c.units})
+		if got := r.displayUnits(text); got != c.want {
+			t.Errorf("%+v:\n got %s\nwant %s", c.units, got, c.want)
+		}
+	}
+	if plainUnits(text) != "Sodium 120 mmol/L, rose 9 mmol/L in 24 h; glucose 10 mmol/L; urea 10 mmol/L (sent as 3.0 mmol/L); creatinine 88 umol/L; potassium 3.1 mmol/L" {
+		t.Errorf("plain text: %s", plainUnits(text))
+	}
+	if err := (DisplayUnits{Glucose: "mEq/L"}).Validate(); err == nil || !strings.Contains(err.Error(), "glucose") {
+		t.Errorf("glucose in mEq/L accepted: %v", err)
+	}
+}

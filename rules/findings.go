@@ -96,7 +96,8 @@ const (
 // Evaluate runs the rule families of check c over f and returns the
 // actionable findings. No finding means nothing is actionable, which is
 // answered as an empty card list.
-// Card text carries no reviewers' curation notes (clinicianText).
+// Card text carries no reviewers' curation notes and is written in the
+// display zone and units (forPeople).
 func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	var out []Finding
 	switch c {
@@ -108,11 +109,18 @@ func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 		out = r.chartFindings(f)
 	}
 	for i := range out {
-		out[i].Summary, out[i].Detail = r.localTimes(clinicianText(out[i].Summary)), r.localTimes(clinicianText(out[i].Detail))
+		out[i].Summary, out[i].Detail = r.forPeople(out[i].Summary), r.forPeople(out[i].Detail)
 		out[i].Links = r.linksFor(out[i].Detail)
 		for j := range out[i].Advice {
-			out[i].Advice[j].Label = clinicianText(out[i].Advice[j].Label)
+			out[i].Advice[j].Label = r.forPeople(out[i].Advice[j].Label)
 		}
 	}
 	return out
+}
+
+// forPeople is card text as people read it: no curation notes
+// (clinicianText), times in the display zone, concentrations in the
+// display units.
+func (r *Ruleset) forPeople(s string) string {
+	return r.displayUnits(r.localTimes(clinicianText(s)))
 }

@@ -701,7 +701,7 @@ func asSent(m Measurement) string {
 	if m.Original == "" || m.Original == fmt.Sprintf("%g %s", m.Value, CanonicalUnit(m.Analyte)) {
 		return ""
 	}
-	return " (sent as " + sentValue(m.Original) + ")"
+	return " (sent as " + kept(sentValue(m.Original)) + ")"
 }
 
 // sentValue is an "as sent" value and unit as sent, unless its number has
@@ -751,7 +751,7 @@ func (r *Ruleset) contextLines(b *strings.Builder, c TonicityContext) {
 		fmt.Fprintf(b, "- Measured osmolality: %s mOsm/kg\n", show(SerumOsmolality, *c.MeasuredOsmolality))
 	}
 	for _, m := range c.Inputs {
-		fmt.Fprintf(b, "- Used: %s %s %s (%s%s, %s)%s\n", m.Analyte, show(m.Analyte, m.Value), CanonicalUnit(m.Analyte), measuredBy(m), stamp(m.At), m.Source, asSent(m))
+		fmt.Fprintf(b, "- Used: %s %s (%s%s, %s)%s\n", m.Analyte, quantity(m.Analyte, m.Value), measuredBy(m), stamp(m.At), m.Source, asSent(m))
 		b.WriteString(sameTimeLine(m))
 	}
 }

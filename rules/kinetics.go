@@ -170,9 +170,7 @@ func EffectiveOsmolality(na, glucose float64) float64 {
 // per urea), creatinine mg/dL = µmol/L × 113.12 g/mol ÷ 10,000 (IUPAC 2021
 // atomic weights, as fhirmap converts them).
 func BUNCreatinineRatio(ureaMmol, creatinineUmol float64) float64 {
-	bun := ureaMmol * 2 * 14.007 / 10
-	cr := creatinineUmol * 113.12 / 10000
-	return bun / cr
+	return ureaMmol * ureaNitrogenMgPerDLPerMmol / (creatinineUmol * creatinineMgPerDLPerMicromol)
 }
 
 // MostellerBSA is body-surface area in m², √(height cm × weight kg / 3600)

@@ -156,7 +156,7 @@ func (p SameTimePolicy) resolveGroup(group []Measurement) ([]Measurement, []Reje
 	})
 	var rejected []Rejection
 	reject := func(m Measurement, reason string) {
-		rejected = append(rejected, Rejection{Source: m.Source, Analyte: m.Analyte, Reason: reason})
+		rejected = append(rejected, Rejection{Source: m.Source, Analyte: m.Analyte, Reason: plainUnits(reason)})
 	}
 	// One result per displayed value: the best ranked of each.
 	var distinct []Measurement
@@ -182,7 +182,7 @@ func (p SameTimePolicy) resolveGroup(group []Measurement) ([]Measurement, []Reje
 		tied = append(tied, m)
 	}
 	if len(tied) == 1 {
-		return []Measurement{best}, rejected, conflictNote(best)
+		return []Measurement{best}, rejected, plainUnits(conflictNote(best))
 	}
 	choice, ok := p.Unresolved[best.Analyte]
 	if !ok {
@@ -190,8 +190,8 @@ func (p SameTimePolicy) resolveGroup(group []Measurement) ([]Measurement, []Reje
 			reject(m, fmt.Sprintf("differs from another %s result at the same time (%s) and neither ranks higher; none is used",
 				m.Analyte, showAll(tied)))
 		}
-		return nil, rejected, fmt.Sprintf("%s results taken at the same time (%s) differ: %s, and neither ranks higher; none is used",
-			best.Analyte, stamp(best.At), showAll(tied))
+		return nil, rejected, plainUnits(fmt.Sprintf("%s results taken at the same time (%s) differ: %s, and neither ranks higher; none is used",
+			best.Analyte, stamp(best.At), showAll(tied)))
 	}
 	k := choice.pick(tied)
 	stand := tied[k]
@@ -207,7 +207,7 @@ func (p SameTimePolicy) resolveGroup(group []Measurement) ([]Measurement, []Reje
 			stand.Source, showPair(m, stand), stand.Source))
 		stand.addOther(m, true, choice.describe()+": "+choice.Why)
 	}
-	return []Measurement{stand}, rejected, conflictNote(stand)
+	return []Measurement{stand}, rejected, plainUnits(conflictNote(stand))
 }
 
 // compare ranks a against b: 1 when a has precedence, −1 when b has, 0
@@ -344,7 +344,7 @@ func sameShown(a, b Measurement) bool { return show(a.Analyte, a.Value) == show(
 // describeResult is one result as a note names it: value, unit, origin and
 // resource.
 func describeResult(m Measurement) string {
-	s := show(m.Analyte, m.Value) + " " + CanonicalUnit(m.Analyte)
+	s := quantity(m.Analyte, m.Value)
 	if m.Origin != "" {
 		s += ", " + string(m.Origin)
 	}
@@ -352,6 +352,10 @@ func describeResult(m Measurement) string {
 }
 
 func showPair(a, b Measurement) string {
+	switch a.Analyte {
+	case Glucose, Urea, Creatinine: // each with its display unit
+		return quantity(a.Analyte, a.Value) + " vs " + quantity(b.Analyte, b.Value)
+	}
 	return show(a.Analyte, a.Value) + " vs " + show(b.Analyte, b.Value) + " " + CanonicalUnit(a.Analyte)
 }
 

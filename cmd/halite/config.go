@@ -32,8 +32,11 @@ type Config struct {
 	LogLevel        string   `yaml:"log_level"`
 	// DisplayTimezone is the IANA zone card text writes times in ("UTC"
 	// by default); computation is in UTC whatever it says.
-	DisplayTimezone string           `yaml:"display_timezone"`
-	FHIRClient      FHIRClientConfig `yaml:"fhir_client"`
+	DisplayTimezone string `yaml:"display_timezone"`
+	// DisplayUnits are the units card text writes concentrations in (the
+	// canonical units by default); computation is in canonical units.
+	DisplayUnits DisplayUnitsConfig `yaml:"display_units"`
+	FHIRClient   FHIRClientConfig   `yaml:"fhir_client"`
 	// PolicyOverride is the path of a site's policy override (JSON shaped
 	// like rules/data/policy.json); empty means the embedded policy.
 	PolicyOverride string `yaml:"policy_override"`
@@ -114,6 +117,10 @@ var envKeys = []struct {
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"display_timezone", func(c *Config, v string) error { c.DisplayTimezone = v; return nil }},
+	{"display_units.electrolytes", func(c *Config, v string) error { c.DisplayUnits.Electrolytes = v; return nil }},
+	{"display_units.glucose", func(c *Config, v string) error { c.DisplayUnits.Glucose = v; return nil }},
+	{"display_units.urea", func(c *Config, v string) error { c.DisplayUnits.Urea = v; return nil }},
+	{"display_units.creatinine", func(c *Config, v string) error { c.DisplayUnits.Creatinine = v; return nil }},
 	{"policy_override", func(c *Config, v string) error { c.PolicyOverride = v; return nil }},
 	{"lab_codes", func(c *Config, v string) error { c.LabCodes = v; return nil }},
 	{"admin_listen_addr", func(c *Config, v string) error { c.AdminAddr = v; return nil }},
@@ -232,13 +239,47 @@ func displayZone(name string) (*time.Location, error) {
 	return loc, nil
 }
 
-// displayRuleset is rs writing card text in the zone named.
-func displayRuleset(rs *rules.Ruleset, zone string) (*rules.Ruleset, error) {
+// DisplayUnitsConfig names the units card text writes concentrations in.
+type DisplayUnitsConfig struct {
+	Electrolytes string `yaml:"electrolytes"` // mmol/L or mEq/L (sodium, potassium)
+	Glucose      string `yaml:"glucose"`      // mmol/L or mg/dL
+	Urea         string `yaml:"urea"`         // mmol/L (urea) or mg/dL (urea nitrogen)
+	Creatinine   string `yaml:"creatinine"`   // umol/L or mg/dL
+}
+
+func (u DisplayUnitsConfig) units() rules.DisplayUnits {
+	return rules.DisplayUnits{Electrolytes: u.Electrolytes, Glucose: u.Glucose, Urea: u.Urea, Creatinine: u.Creatinine}
+}
+
+// parseDisplayUnits reads "electrolytes=mEq/L,glucose=mg/dL" (the
+// members of display_units, each at most once).
+func parseDisplayUnits(list string) (DisplayUnitsConfig, error) {
+	var u DisplayUnitsConfig
+	fields := map[string]*string{"electrolytes": &u.Electrolytes, "glucose": &u.Glucose, "urea": &u.Urea, "creatinine": &u.Creatinine}
+	seen := map[string]bool{}
+	for _, item := range splitList(list) {
+		name, unit, ok := strings.Cut(item, "=")
+		name = strings.TrimSpace(name)
+		dst, known := fields[name]
+		if !ok || !known || seen[name] {
+			return u, fmt.Errorf("%q is not one of electrolytes=, glucose=, urea=, creatinine= given once", item)
+		}
+		seen[name], *dst = true, strings.TrimSpace(unit)
+	}
+	return u, u.units().Validate()
+}
+
+// displayRuleset is rs writing card text in the zone named and the units
+// given.
+func displayRuleset(rs *rules.Ruleset, zone string, units DisplayUnitsConfig) (*rules.Ruleset, error) {
 	loc, err := displayZone(zone)
 	if err != nil {
 		return nil, err
 	}
-	return rs.WithDisplay(rules.Display{Zone: loc}), nil
+	if err := units.units().Validate(); err != nil {
+		return nil, fmt.Errorf("display_units: %w", err)
+	}
+	return rs.WithDisplay(rules.Display{Zone: loc, Units: units.units()}), nil
 }
 
 // loadLabCodes reads a site's local laboratory codes at path, checking every
@@ -262,6 +303,9 @@ func loadLabCodes(path string) (*fhirmap.Codes, error) {
 func (c Config) validate() error {
 	if _, err := displayZone(c.DisplayTimezone); err != nil {
 		return fmt.Errorf("config: display_timezone: %w", err)
+	}
+	if err := c.DisplayUnits.units().Validate(); err != nil {
+		return fmt.Errorf("config: display_units.%w", err)
 	}
 	if c.AdminPprof {
 		if c.AdminAddr == "" {

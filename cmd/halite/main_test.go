@@ -728,3 +728,68 @@ func TestEvalDisplayTimezone(t *testing.T) {
 		t.Errorf("serve with a bad display_timezone: %v", err)
 	}
 }
+
+// TestEvalDisplayUnits: with every display unit set to the mass or
+// equivalent unit, no card of any scenario writes mmol/L except where a
+// result is quoted as sent, no unit token reaches the text, and the
+// figures (what is computed) are those of the canonical run.
+func TestEvalDisplayUnits(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join("..", "..", "testdata", "scenarios", "*.json"))
+	if err != nil || len(files) < 30 {
+		t.Fatalf("scenarios: %v", err)
+	}
+	evalJSON := func(hook, file string, extra ...string) map[string]hooks.Response {
+		var out bytes.Buffer
+		args := append([]string{"eval", "--hook", hook, "--at", scenarioAt, "--json"}, extra...)
+		err := run(context.Background(), append(args, file), &out, io.Discard)
+		var ee *exitError
+		if err != nil && !errors.As(err, &ee) {
+			t.Fatalf("%s %s: %v", filepath.Base(file), hook, err)
+		}
+		var all map[string]hooks.Response
+		if err := json.Unmarshal(out.Bytes(), &all); err != nil {
+			t.Fatalf("%s: %v", filepath.Base(file), err)
+		}
+		return all
+	}
+	sentAs := regexp.MustCompile(`\(sent as [^)]*\)`)
+	mass, cards := 0, 0
+	for _, f := range files {
+		for _, hook := range []string{"patient-view", "order-select", "order-sign"} {
+			plain := evalJSON(hook, f)
+			shown := evalJSON(hook, f, "--display-units", "electrolytes=mEq/L,glucose=mg/dL,urea=mg/dL,creatinine=mg/dL")
+			for svc, r := range shown {
+				for i, c := range r.Cards {
+					cards++
+					text := c.Summary + "\n" + c.Detail
+					if strings.ContainsAny(text, "\uE000\uE001\uE002") {
+						t.Errorf("%s %s %s: a unit token reached the card", filepath.Base(f), hook, svc)
+					}
+					if strings.Contains(sentAs.ReplaceAllString(text, ""), "mmol/L") {
+						t.Errorf("%s %s %s: mmol/L outside a quoted result:\n%s", filepath.Base(f), hook, svc, text)
+					}
+					if strings.Contains(text, "mg/dL (urea nitrogen)") || regexp.MustCompile(`glucose \d+ mg/dL`).MatchString(text) {
+						mass++
+					}
+					if !bytes.Equal(plain[svc].Cards[i].Extension, c.Extension) {
+						t.Errorf("%s %s %s: the figures changed with the display units", filepath.Base(f), hook, svc)
+					}
+				}
+			}
+		}
+	}
+	if cards < 80 || mass == 0 {
+		t.Errorf("%d cards checked, %d with a mass unit: the scenarios no longer exercise the units", cards, mass)
+	}
+	for _, bad := range []string{"glucose=mEq/L", "sodium=mEq/L", "electrolytes=mEq/L,electrolytes=mmol/L", "electrolytes"} {
+		err := run(context.Background(), []string{"eval", "--hook", "order-sign", "--display-units", bad, files[0]}, io.Discard, io.Discard)
+		if err == nil || !strings.Contains(err.Error(), "--display-units") {
+			t.Errorf("%s: %v", bad, err)
+		}
+	}
+	t.Setenv("HALITE_DISPLAY_UNITS_UREA", "mmol/kg")
+	if err := run(context.Background(), []string{"serve", "--addr", "127.0.0.1:0"}, io.Discard, io.Discard); err == nil ||
+		!strings.Contains(err.Error(), "display_units.urea") {
+		t.Errorf("serve with a bad display_units.urea: %v", err)
+	}
+}

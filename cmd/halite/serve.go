@@ -45,7 +45,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	if rs, err = displayRuleset(rs, cfg.DisplayTimezone); err != nil {
+	if rs, err = displayRuleset(rs, cfg.DisplayTimezone, cfg.DisplayUnits); err != nil {
 		return fmt.Errorf("display_timezone: %w", err)
 	}
 	codes, err := loadLabCodes(cfg.LabCodes)
