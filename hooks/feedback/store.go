@@ -95,8 +95,9 @@ type Store interface {
 	// none; a repeat of the same card, outcome and time is accepted and
 	// stored once.
 	RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
-	// PriorCards returns the cards shown (not held back) that q selects,
-	// the latest first, at most MaxPriorCards of them.
+	// PriorCards returns, of the cards shown (not held back) that q
+	// selects, the latest of each rule, subject and moment and every one
+	// overridden with a reason, the latest first, at most MaxPriorCards.
 	PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error)
 	// CountCall counts one hook call answered; it never waits for the
 	// database (see DB.CountCall).
