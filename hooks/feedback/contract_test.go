@@ -639,11 +639,11 @@ func TestSQLiteRestartWithAReader(t *testing.T) {
 
 // BenchmarkPriorCards measures the suppression lookup on a call's path:
 // a card log of 20,000 cards over 1,000 patients, the patient looked up
-// holding `held` cards of the last day (one card per call of a patient
-// seen all day; 300 is a load test's single patient).
+// holding `held` cards of the last day (a patient seen all day; 5,000 is
+// a load test's single patient).
 func BenchmarkPriorCards(b *testing.B) {
 	for _, be := range backends(b) {
-		for _, held := range []int{5, 300} {
+		for _, held := range []int{5, 300, 5000} {
 			b.Run(fmt.Sprintf("%s/%d-cards", be.name, held), func(b *testing.B) {
 				s, _ := be.open(b)
 				defer s.Close()
@@ -663,7 +663,7 @@ func BenchmarkPriorCards(b *testing.B) {
 					}
 				}
 				for i := range held {
-					c := card(fmt.Sprintf("me-%d", i), t0.Add(-time.Duration(i)*4*time.Minute))
+					c := card(fmt.Sprintf("me-%d", i), t0.Add(-time.Duration(i)*17*time.Second))
 					c.PatientHash, c.Moment, c.Subject = "me", "sign", "s"
 					if batch = append(batch, c); len(batch) == 500 {
 						flush()

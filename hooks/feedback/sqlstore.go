@@ -702,13 +702,15 @@ func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error 
 // committed by any replica before the lookup is seen.
 func (s *DB) PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error) {
 	// Only the latest card of each rule, product and moment, and every card
-	// overridden with a reason, can decide a suppression.
+	// overridden with a reason, can decide a suppression; only the patient's
+	// latest MaxPriorScan cards are read, so the lookup stays bounded.
 	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT rule, moment, subject, draft, indicator, figures, created_at, overridden_at FROM (
-		SELECT c.rule, c.moment, c.subject, c.draft, c.indicator, c.figures, c.created_at,
-			(SELECT max(f.outcome_at) FROM feedback f WHERE f.card_uuid = c.card_uuid AND f.outcome = 'overridden' AND f.reason_code <> '') AS overridden_at,
-			row_number() OVER (PARTITION BY c.rule, c.subject, c.moment ORDER BY c.created_at DESC) AS latest
-		FROM card_log c WHERE c.patient_hash = ? AND c.created_at >= ? AND c.created_at <= ? AND c.service = ? AND c.issuer = ? AND c.tenant = ?
-		AND c.suppressed = '') AS x
+		SELECT y.rule, y.moment, y.subject, y.draft, y.indicator, y.figures, y.created_at,
+			(SELECT max(f.outcome_at) FROM feedback f WHERE f.card_uuid = y.card_uuid AND f.outcome = 'overridden' AND f.reason_code <> '') AS overridden_at,
+			row_number() OVER (PARTITION BY y.rule, y.subject, y.moment ORDER BY y.created_at DESC) AS latest
+		FROM (SELECT c.card_uuid, c.rule, c.moment, c.subject, c.draft, c.indicator, c.figures, c.created_at FROM card_log c
+			WHERE c.patient_hash = ? AND c.created_at >= ? AND c.created_at <= ? AND c.service = ? AND c.issuer = ? AND c.tenant = ?
+			AND c.suppressed = '' ORDER BY c.created_at DESC LIMIT `+strconv.Itoa(MaxPriorScan)+`) AS y) AS x
 		WHERE latest = 1 OR overridden_at IS NOT NULL ORDER BY created_at DESC LIMIT `+strconv.Itoa(MaxPriorCards)),
 		q.PatientHash, q.Since.UTC().Format(tsFormat), q.Until.UTC().Format(tsFormat), q.Service, q.Issuer, q.Tenant)
 	if err != nil {

@@ -47,8 +47,13 @@ type PriorCard struct {
 	At, OverriddenAt                        time.Time
 }
 
-// MaxPriorCards bounds what one PriorCards lookup returns.
-const MaxPriorCards = 200
+// MaxPriorCards bounds what one PriorCards lookup returns, and MaxPriorScan
+// how many of the patient's latest cards it reads (a patient shown more
+// cards than that within the look-back has older overrides forgotten).
+const (
+	MaxPriorCards = 200
+	MaxPriorScan  = 500
+)
 
 // Outcomes a card can have.
 const (
@@ -97,7 +102,8 @@ type Store interface {
 	RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
 	// PriorCards returns, of the cards shown (not held back) that q
 	// selects, the latest of each rule, subject and moment and every one
-	// overridden with a reason, the latest first, at most MaxPriorCards.
+	// overridden with a reason, the latest first, at most MaxPriorCards,
+	// from the latest MaxPriorScan cards.
 	PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error)
 	// CountCall counts one hook call answered; it never waits for the
 	// database (see DB.CountCall).
