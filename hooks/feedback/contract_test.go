@@ -275,7 +275,7 @@ func TestPriorCards(t *testing.T) {
 				at("quiet", t0.Add(-time.Hour), func(c *CardRecord) {}),
 				at("held", t0.Add(-30*time.Minute), func(c *CardRecord) { c.Suppressed = "select-to-sign" }),
 				at("old", t0.Add(-30*time.Hour), nil),
-				at("future", t0.Add(time.Hour), nil),
+				at("future", t0.Add(time.Hour), func(c *CardRecord) { c.Subject = "later" }),
 				at("other-patient", t0.Add(-time.Hour), func(c *CardRecord) { c.PatientHash = "h2" }),
 				at("other-tenant", t0.Add(-time.Hour), func(c *CardRecord) { c.Tenant = "t2" }),
 				at("other-service", t0.Add(-time.Hour), func(c *CardRecord) { c.Service = "sodium-drug-risk" }),

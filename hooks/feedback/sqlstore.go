@@ -637,6 +637,16 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 				c.At.UTC().Format(tsFormat), string(fig), string(sugg), c.Moment, c.Subject, c.Draft, c.Suppressed); err != nil {
 				return fmt.Errorf("log card %s: %w", c.UUID, err)
 			}
+			if c.Suppressed != "" {
+				continue
+			}
+			if _, err := tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_latest (patient_hash, service, issuer, tenant, rule, subject, moment, draft, indicator, figures, created_at)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT (patient_hash, service, issuer, tenant, rule, subject, moment) DO UPDATE SET
+				draft = excluded.draft, indicator = excluded.indicator, figures = excluded.figures, created_at = excluded.created_at
+				WHERE excluded.created_at >= card_latest.created_at`),
+				c.PatientHash, c.Service, c.Issuer, c.Tenant, c.Rule, c.Subject, c.Moment, c.Draft, c.Indicator, string(fig), c.At.UTC().Format(tsFormat)); err != nil {
+				return fmt.Errorf("log card %s: latest: %w", c.UUID, err)
+			}
 		}
 		return nil
 	})
@@ -667,8 +677,11 @@ func (s *DB) RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
 
 func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error {
 	var raw string
-	err := tx.QueryRowContext(ctx, s.dialect.bind(`SELECT suggestions FROM card_log WHERE card_uuid = ? AND service = ? AND issuer = ? AND tenant = ? AND suppressed = ''`),
-		f.Card, f.Service, f.Issuer, f.Tenant).Scan(&raw)
+	var c CardRecord
+	var fig, at string
+	err := tx.QueryRowContext(ctx, s.dialect.bind(`SELECT suggestions, patient_hash, rule, subject, moment, draft, indicator, figures, created_at
+		FROM card_log WHERE card_uuid = ? AND service = ? AND issuer = ? AND tenant = ? AND suppressed = ''`),
+		f.Card, f.Service, f.Issuer, f.Tenant).Scan(&raw, &c.PatientHash, &c.Rule, &c.Subject, &c.Moment, &c.Draft, &c.Indicator, &fig, &at)
 	if errors.Is(err, sql.ErrNoRows) {
 		return ErrUnknownCard
 	}
@@ -693,55 +706,87 @@ func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error 
 	if err != nil {
 		return fmt.Errorf("record feedback: %w", err)
 	}
+	if f.Outcome != Overridden || f.ReasonCode == "" {
+		return nil
+	}
+	// An override with a reason is what the repeat lookup remembers (the
+	// latest one per rule, product and moment).
+	when := f.OutcomeAt.UTC().Format(tsFormat)
+	_, err = tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_latest (patient_hash, service, issuer, tenant, rule, subject, moment, draft, indicator, figures, created_at,
+		override_at, override_draft, override_indicator, override_figures, override_shown_at)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT (patient_hash, service, issuer, tenant, rule, subject, moment) DO UPDATE SET
+		override_at = excluded.override_at, override_draft = excluded.override_draft, override_indicator = excluded.override_indicator,
+		override_figures = excluded.override_figures, override_shown_at = excluded.override_shown_at
+		WHERE excluded.override_at > card_latest.override_at`),
+		c.PatientHash, f.Service, f.Issuer, f.Tenant, c.Rule, c.Subject, c.Moment, c.Draft, c.Indicator, fig, at, when, c.Draft, c.Indicator, fig, at)
+	if err != nil {
+		return fmt.Errorf("record feedback: latest: %w", err)
+	}
 	return nil
 }
 
-// PriorCards implements Store: of the cards q selects, the latest of each
-// rule, subject and moment and every one overridden with a reason (what
-// rules.SuppressionPolicy reads). It reads beside the writer, so a card
-// committed by any replica before the lookup is seen.
+// PriorCards implements Store from card_latest, which LogCards and
+// RecordFeedback keep: per rule, product and moment, the latest card shown
+// and the latest card overridden with a reason. It reads beside the
+// writer, so a card committed by any replica before the lookup is seen.
 func (s *DB) PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error) {
-	// Only the latest card of each rule, product and moment, and every card
-	// overridden with a reason, can decide a suppression; only the patient's
-	// latest MaxPriorScan cards are read, so the lookup stays bounded.
-	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT rule, moment, subject, draft, indicator, figures, created_at, overridden_at FROM (
-		SELECT y.rule, y.moment, y.subject, y.draft, y.indicator, y.figures, y.created_at,
-			(SELECT max(f.outcome_at) FROM feedback f WHERE f.card_uuid = y.card_uuid AND f.outcome = 'overridden' AND f.reason_code <> '') AS overridden_at,
-			row_number() OVER (PARTITION BY y.rule, y.subject, y.moment ORDER BY y.created_at DESC) AS latest
-		FROM (SELECT c.card_uuid, c.rule, c.moment, c.subject, c.draft, c.indicator, c.figures, c.created_at FROM card_log c
-			WHERE c.patient_hash = ? AND c.created_at >= ? AND c.created_at <= ? AND c.service = ? AND c.issuer = ? AND c.tenant = ?
-			AND c.suppressed = '' ORDER BY c.created_at DESC LIMIT `+strconv.Itoa(MaxPriorScan)+`) AS y) AS x
-		WHERE latest = 1 OR overridden_at IS NOT NULL ORDER BY created_at DESC LIMIT `+strconv.Itoa(MaxPriorCards)),
-		q.PatientHash, q.Since.UTC().Format(tsFormat), q.Until.UTC().Format(tsFormat), q.Service, q.Issuer, q.Tenant)
+	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT rule, subject, moment, draft, indicator, figures, created_at,
+		override_at, override_draft, override_indicator, override_figures, override_shown_at
+		FROM card_latest WHERE patient_hash = ? AND service = ? AND issuer = ? AND tenant = ?`),
+		q.PatientHash, q.Service, q.Issuer, q.Tenant)
 	if err != nil {
 		return nil, fmt.Errorf("prior cards: %w", err)
 	}
 	defer rows.Close()
+	since, until := q.Since.UTC().Format(tsFormat), q.Until.UTC().Format(tsFormat)
 	var out []PriorCard
 	for rows.Next() {
-		var p PriorCard
-		var fig, at string
-		var over sql.NullString
-		if err := rows.Scan(&p.Rule, &p.Moment, &p.Subject, &p.Draft, &p.Indicator, &fig, &at, &over); err != nil {
+		var latest, over PriorCard
+		var fig, at, overAt, overFig, overShown string
+		if err := rows.Scan(&latest.Rule, &latest.Subject, &latest.Moment, &latest.Draft, &latest.Indicator, &fig, &at,
+			&overAt, &over.Draft, &over.Indicator, &overFig, &overShown); err != nil {
 			return nil, fmt.Errorf("prior cards: %w", err)
 		}
-		if err := json.Unmarshal([]byte(fig), &p.Figures); err != nil {
-			return nil, fmt.Errorf("prior cards: figures: %w", err)
+		over.Rule, over.Subject, over.Moment = latest.Rule, latest.Subject, latest.Moment
+		overridden := overAt != "" && overAt >= since && overShown <= until
+		if overridden && overShown == at && over.Draft == latest.Draft {
+			at = "" // the latest card is the one overridden: one entry
 		}
-		if p.At, err = time.Parse(tsFormat, at); err != nil {
-			return nil, fmt.Errorf("prior cards: %w", err)
-		}
-		if over.Valid {
-			if p.OverriddenAt, err = time.Parse(tsFormat, over.String); err != nil {
-				return nil, fmt.Errorf("prior cards: %w", err)
+		if at != "" && at >= since && at <= until {
+			if err := readPrior(&latest, fig, at, ""); err != nil {
+				return nil, err
 			}
+			out = append(out, latest)
 		}
-		out = append(out, p)
+		if overridden {
+			if err := readPrior(&over, overFig, overShown, overAt); err != nil {
+				return nil, err
+			}
+			out = append(out, over)
+		}
 	}
 	if err := rows.Err(); err != nil {
 		return nil, fmt.Errorf("prior cards: %w", err)
 	}
-	return out, nil
+	slices.SortFunc(out, func(a, b PriorCard) int { return b.At.Compare(a.At) })
+	return out[:min(len(out), MaxPriorCards)], nil
+}
+
+// readPrior fills p's figures and times from their stored forms.
+func readPrior(p *PriorCard, fig, at, overAt string) error {
+	if err := json.Unmarshal([]byte(fig), &p.Figures); err != nil {
+		return fmt.Errorf("prior cards: figures: %w", err)
+	}
+	var err error
+	if p.At, err = time.Parse(tsFormat, at); err != nil {
+		return fmt.Errorf("prior cards: %w", err)
+	}
+	if overAt != "" {
+		if p.OverriddenAt, err = time.Parse(tsFormat, overAt); err != nil {
+			return fmt.Errorf("prior cards: %w", err)
+		}
+	}
+	return nil
 }
 
 // purgeChunk is how many rows one purge transaction deletes at most, so a
@@ -757,6 +802,11 @@ func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
 	if err != nil {
 		return cards, fmt.Errorf("purge: %w", err)
 	}
+	if _, err := s.deleteChunks(ctx, `DELETE FROM card_latest WHERE (patient_hash, service, issuer, tenant, rule, subject, moment) IN
+		(SELECT patient_hash, service, issuer, tenant, rule, subject, moment FROM card_latest WHERE created_at < ? AND override_shown_at < ?
+		LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(tsFormat), before.UTC().Format(tsFormat)); err != nil {
+		return cards, fmt.Errorf("purge latest cards: %w", err)
+	}
 	if _, err := s.deleteChunks(ctx, `DELETE FROM call_counts WHERE (hour, service, hook, issuer, tenant, ruleset) IN
 		(SELECT hour, service, hook, issuer, tenant, ruleset FROM call_counts WHERE hour < ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(hourFormat)); err != nil {
 		return cards, fmt.Errorf("purge call counts: %w", err)
@@ -770,12 +820,12 @@ func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
 
 // deleteChunks runs a chunked DELETE until a chunk deletes fewer than
 // purgeChunk rows, returning the total deleted.
-func (s *DB) deleteChunks(ctx context.Context, query string, arg string) (int64, error) {
+func (s *DB) deleteChunks(ctx context.Context, query string, args ...any) (int64, error) {
 	var total int64
 	for {
 		var n int64
 		err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
-			res, err := tx.ExecContext(ctx, s.dialect.bind(query), arg)
+			res, err := tx.ExecContext(ctx, s.dialect.bind(query), args...)
 			if err != nil {
 				return err
 			}

@@ -47,13 +47,8 @@ type PriorCard struct {
 	At, OverriddenAt                        time.Time
 }
 
-// MaxPriorCards bounds what one PriorCards lookup returns, and MaxPriorScan
-// how many of the patient's latest cards it reads (a patient shown more
-// cards than that within the look-back has older overrides forgotten).
-const (
-	MaxPriorCards = 200
-	MaxPriorScan  = 500
-)
+// MaxPriorCards bounds what one PriorCards lookup returns.
+const MaxPriorCards = 200
 
 // Outcomes a card can have.
 const (
@@ -100,10 +95,11 @@ type Store interface {
 	// none; a repeat of the same card, outcome and time is accepted and
 	// stored once.
 	RecordFeedback(ctx context.Context, entries []FeedbackRecord) error
-	// PriorCards returns, of the cards shown (not held back) that q
-	// selects, the latest of each rule, subject and moment and every one
-	// overridden with a reason, the latest first, at most MaxPriorCards,
-	// from the latest MaxPriorScan cards.
+	// PriorCards returns, for the patient, service and caller of q, the
+	// latest card shown (not held back) of each rule, subject and moment
+	// and the latest one overridden with a reason, when they fall between
+	// q.Since and q.Until (an override by its time), the latest first, at
+	// most MaxPriorCards.
 	PriorCards(ctx context.Context, q PriorQuery) ([]PriorCard, error)
 	// CountCall counts one hook call answered; it never waits for the
 	// database (see DB.CountCall).
