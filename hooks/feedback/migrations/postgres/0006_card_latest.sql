@@ -23,3 +23,5 @@ CREATE TABLE card_latest (
   override_shown_at  TEXT NOT NULL DEFAULT '',
   PRIMARY KEY (patient_hash, service, issuer, tenant, rule, subject, moment)
 );
+-- The repeat lookup no longer reads card_log by patient.
+DROP INDEX card_log_patient;
