@@ -74,6 +74,27 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(tw, "concentrating defect\tsodium > %g or serum osmolality > %g with urine osmolality < %g\n",
 		cr.ConcentratingDefect.SodiumAbove, cr.ConcentratingDefect.SerumOsmolalityAbove, cr.ConcentratingDefect.UrineOsmolalityBelow)
+	sp := p.Suppression
+	fmt.Fprintf(tw, "\n== repeats held back (suppression)\n")
+	fmt.Fprintf(tw, "selection, then signing	within %g min, unchanged (%g + %g × value) and no higher indicator\n",
+		sp.SelectToSignMinutes, sp.Unchanged.Absolute, sp.Unchanged.Relative)
+	fmt.Fprintf(tw, "after an override with a reason	%g h unless worse\n", sp.OverrideHours)
+	fmt.Fprintf(tw, "between chart openings	%g h unless worse\n", sp.ChartIntervalHours)
+	fmt.Fprintf(tw, "critical findings	%s\n", map[bool]string{false: "never held back", true: "held back too (suppressCritical)"}[sp.SuppressCritical])
+	watched := make([]string, 0, len(sp.Watch))
+	for id := range sp.Watch {
+		watched = append(watched, id)
+	}
+	sort.Strings(watched)
+	for _, id := range watched {
+		w := sp.Watch[id]
+		always := ""
+		if w.AlwaysWhen != "" {
+			always = "; always shown when " + w.AlwaysWhen + " is set"
+		}
+		fmt.Fprintf(tw, "  %s	worse when %s is %g or more %s%s\n", id, w.Figure, w.Margin, w.Worse, always)
+	}
+	fmt.Fprintf(tw, "source\t%s\n", sp.Source)
 	d := p.DrugRisk
 	fmt.Fprintf(tw, "\n== drug-risk thresholds\n")
 	for _, b := range d.Bands {
