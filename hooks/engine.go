@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"strings"
 	"time"
 
 	"github.com/google/uuid"
@@ -101,15 +102,18 @@ func (e *Engine) Handle(ctx context.Context, id string, body []byte, at time.Tim
 func (e *Engine) newCallBudget() *CallBudget { return NewCallBudget(e.budget, e.callBytes) }
 
 // handle answers a call whose FHIR reads are taken from budget.
-func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Time, budget *CallBudget) (*Outcome, error) {
+func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Time, budget *CallBudget) (out *Outcome, err error) {
 	svc, ok := e.registry.Lookup(id)
-	if !ok {
+	if !ok { // not counted: the id is the caller's, of any length
 		return nil, &Error{Kind: KindUnknownService, Message: "no CDS service with id " + quote(id)}
 	}
+	hook := ""
+	defer func() { e.countCall(ctx, svc.ID, hook, at, out, err) }()
 	call, err := DecodeCall(svc, body)
 	if err != nil {
 		return nil, err
 	}
+	hook = call.Request.Hook
 	if span := trace.SpanFromContext(ctx); span.IsRecording() {
 		span.SetAttributes(attribute.String("halite.hook", call.Request.Hook), attribute.String("halite.service", svc.ID))
 	}
@@ -154,7 +158,7 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	rspan.End()
 	patientHash := ""
 	if e.recorder != nil {
-		patientHash = e.hash("Patient/" + call.Context.PatientID)
+		patientHash = e.hash(patientKey(call.Request.FHIRServer, call.Context.PatientID))
 	}
 	findings, held := e.suppress(ctx, svc.ID, call.Request.Hook, patientHash, findings, at)
 	cards, err := renderCards(findings, e.ruleset.Revision(),
@@ -178,10 +182,9 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 			return nil, storeError(err, "the card log could not be written")
 		}
 	}
-	if e.recorder != nil {
-		caller := CallerFrom(ctx)
-		e.recorder.CountCall(CallCount{At: at, Service: svc.ID, Hook: call.Request.Hook, Issuer: caller.Issuer, Tenant: caller.Tenant,
-			Ruleset: e.ruleset.Revision(), Cards: len(cards), Suppressed: len(held)})
+	for _, h := range held {
+		e.tel.suppressed.Add(ctx, 1, metric.WithAttributes(attribute.String("rule", h.Finding.Rule),
+			attribute.String("indicator", h.Finding.Indicator.String()), attribute.String("reason", h.Suppression.Reason)))
 	}
 	highest := rules.Indicator(0)
 	for _, f := range findings {
@@ -197,6 +200,32 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	}
 	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys,
 		Dropped: fhirmap.DropCounts(facts), Held: held}, nil
+}
+
+// countCall counts a call to a service for the burden report: answered
+// (with the cards it returned and held back) or failed.
+func (e *Engine) countCall(ctx context.Context, service, hook string, at time.Time, out *Outcome, err error) {
+	if e.recorder == nil {
+		return
+	}
+	caller := CallerFrom(ctx)
+	c := CallCount{At: at, Service: service, Hook: hook, Issuer: caller.Issuer, Tenant: caller.Tenant, Ruleset: e.ruleset.Revision(), Failed: err != nil}
+	if out != nil {
+		c.Cards, c.Suppressed = len(out.Response.Cards), len(out.Held)
+	}
+	e.recorder.CountCall(c)
+}
+
+// patientKey names the patient for the card log's keyed hash: its FHIR
+// server (normalised) with its id, so that two patients of one caller with
+// the same id on different servers are never taken for one another; the
+// id alone when the call named no server.
+func patientKey(server, id string) string {
+	server = strings.TrimRight(strings.ToLower(strings.TrimSpace(server)), "/")
+	if server == "" {
+		return "Patient/" + id
+	}
+	return server + "/Patient/" + id
 }
 
 // storeError is the answer to a store failure: the store adapter's own

@@ -58,16 +58,18 @@ type Recorder interface {
 	// PriorCards returns the cards q selects that were returned (not held
 	// back), so a repeat can be recognised on any replica.
 	PriorCards(ctx context.Context, q PriorQuery) ([]rules.ShownCard, error)
-	// CountCall counts a call answered, for the burden report; it must not
-	// wait for the database.
+	// CountCall counts a call to a service (answered or failed), for the
+	// burden report; it must not wait for the database.
 	CountCall(c CallCount)
 }
 
-// CallCount is one hook call answered, with no patient data.
+// CallCount is one hook call to a service, answered or failed, with no
+// patient data.
 type CallCount struct {
 	At                                     time.Time
 	Service, Hook, Issuer, Tenant, Ruleset string
 	Cards, Suppressed                      int
+	Failed                                 bool
 }
 
 // Errors a Recorder returns for feedback about unknown cards.

@@ -6,7 +6,6 @@ import (
 
 	"github.com/halite-cds/halite/rules"
 	"go.opentelemetry.io/otel/attribute"
-	"go.opentelemetry.io/otel/metric"
 )
 
 // Held is a finding held back as a repeat of a card already shown.
@@ -28,19 +27,22 @@ func momentOf(hook string) rules.Moment {
 	return rules.MomentChart
 }
 
-// findingKeys are the keyed hashes a finding is matched by: its product
-// and its draft order (a finding about several drafts of one product is
-// matched by the product).
+// findingKeys are the keyed hashes a finding is matched by: its product,
+// and its draft order by identity and content (none for a finding about
+// several drafts or a draft without an id: no selection-to-signing match).
 func (e *Engine) findingKeys(f rules.Finding) (subject, draft string) {
 	if f.Product != "" {
 		subject = e.hash("product:" + f.Product)
 	}
-	draft = subject
-	if f.Order != "" {
-		draft = e.hash("order:" + f.Order)
+	if f.Draft != "" {
+		draft = e.hash("draft:" + f.Draft)
 	}
 	return subject, draft
 }
+
+// priorLookupTimeout bounds the repeat lookup, so a slow card log costs
+// the call at most this before the cards are shown without it.
+const priorLookupTimeout = 300 * time.Millisecond
 
 // suppress splits findings into those to show and those held back as
 // repeats of cards the card log holds for this patient, service and
@@ -57,6 +59,8 @@ func (e *Engine) suppress(ctx context.Context, service, hook, patientHash string
 	}
 	caller := CallerFrom(ctx)
 	lctx, span := e.tel.start(ctx, "cardlog.prior")
+	lctx, cancel := context.WithTimeout(lctx, priorLookupTimeout)
+	defer cancel()
 	prior, err := e.recorder.PriorCards(lctx, PriorQuery{Service: service, Issuer: caller.Issuer, Tenant: caller.Tenant,
 		PatientHash: patientHash, Since: at.Add(-look), Until: at})
 	if err != nil {
@@ -80,8 +84,6 @@ func (e *Engine) suppress(ctx context.Context, service, hook, patientHash string
 			continue
 		}
 		held = append(held, Held{Finding: f, Suppression: s, Subject: subject, Draft: draft})
-		e.tel.suppressed.Add(ctx, 1, metric.WithAttributes(attribute.String("rule", f.Rule),
-			attribute.String("indicator", f.Indicator.String()), attribute.String("reason", s.Reason)))
 	}
 	return shown, held
 }

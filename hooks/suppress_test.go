@@ -58,3 +58,44 @@ func TestSuppressFailsOpen(t *testing.T) {
 		})
 	}
 }
+
+// countingRecorder keeps the calls counted.
+type countingRecorder struct {
+	memRecorder
+	counts []CallCount
+}
+
+func (c *countingRecorder) CountCall(n CallCount) { c.counts = append(c.counts, n) }
+
+// TestCallsCounted: an answered call is counted with its cards, a failed
+// one as failed, a call to an unknown service not at all.
+func TestCallsCounted(t *testing.T) {
+	e := testEngine(t, nil)
+	rec := &countingRecorder{}
+	e.recorder, e.hash = rec, func(string) string { return "h" }
+	req, err := BuildRequest(loadScenario(t, "09-rapid-correction-high-risk.json"), mustService(t, "sodium-chart-review"), RequestOptions{Hook: HookPatientView, UserID: "Practitioner/test-user"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	out, err := e.Handle(context.Background(), "sodium-chart-review", mustMarshal(t, req), at)
+	if err != nil || len(out.Response.Cards) == 0 {
+		t.Fatalf("%v", err)
+	}
+	if _, err := e.Handle(context.Background(), "sodium-chart-review", []byte(`{"hook":"patient-view"}`), at); err == nil {
+		t.Fatal("a bad request was answered")
+	}
+	if _, err := e.Handle(context.Background(), "no-such-service", []byte(`{}`), at); err == nil {
+		t.Fatal("an unknown service was answered")
+	}
+	if len(rec.counts) != 2 {
+		t.Fatalf("counted %+v, want two calls", rec.counts)
+	}
+	ok, bad := rec.counts[0], rec.counts[1]
+	if ok.Failed || ok.Cards != len(out.Response.Cards) || ok.Hook != HookPatientView || ok.Service != "sodium-chart-review" || ok.Ruleset == "" {
+		t.Errorf("answered call counted as %+v", ok)
+	}
+	if !bad.Failed || bad.Cards != 0 || bad.Hook != "" {
+		t.Errorf("failed call counted as %+v", bad)
+	}
+}

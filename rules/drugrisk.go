@@ -204,7 +204,7 @@ func (r *Ruleset) judgeDrug(c drugContext, ds []drafted) (Finding, bool) {
 		Detail: r.drugDetail(c, ds, vs, renewal, multipliers, others), Figures: fig, Attributes: attrs, Product: "drug:" + strings.ToLower(d.Name),
 		Advice: []Advice{r.drugRecheck(best.rule)}}
 	if len(ds) == 1 {
-		fd.Order = refs[0]
+		fd.Order, fd.Draft = refs[0], DraftKey(ds[0].o)
 		fd.Advice = append(fd.Advice, Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"})
 	}
 	return fd, true

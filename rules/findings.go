@@ -42,6 +42,10 @@ type Finding struct {
 	// of its drug, and its detail names each); advice that acts on a draft
 	// (a new rate, removing it) comes only with an Order.
 	Order string
+	// Draft keys that draft order by its identity and content (DraftKey),
+	// empty without an Order: a card shown at selection is matched at
+	// signing only to the same draft, unedited.
+	Draft string
 	// Product keys the drug or fluid the finding is about
 	// ("rxnorm:313002", "drug:tolvaptan"), empty for a finding about the
 	// chart; a repeat of the same rule for the same product is what

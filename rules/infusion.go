@@ -138,7 +138,7 @@ func (r *Ruleset) judge(a InfusionAssessment) (Finding, bool) {
 	if a.Hypernatremia {
 		word, sign = "fall", -1
 	}
-	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Product: ProductKey(a.Order.Medication),
+	fd := Finding{Figures: a.figures(), Order: a.Order.Reference, Draft: DraftKey(a.Order), Product: ProductKey(a.Order.Medication),
 		Attributes: a.contributorAttributes()}
 	exceeded := a.Achieved24h > a.Limit24h || (a.Limit48h > 0 && a.Achieved48h > a.Limit48h)
 	sameWay := a.movesRestrictedWay()

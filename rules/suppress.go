@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 )
@@ -76,6 +77,9 @@ type WatchedFigure struct {
 	AlwaysWhen string `json:"alwaysWhen,omitempty"`
 }
 
+// clockFigureNames are the figures that move with the clock alone.
+var clockFigureNames = []string{"sodiumAgeHours"}
+
 // ruleIDs are every rule a card can come from.
 func ruleIDs() []string {
 	return append(cardRules[:], RuleDrugHyponatremia, RuleDrugNewStart, RuleDrugNDI, RuleLithiumNoSodium, RuleRaiserHypernatremia)
@@ -89,8 +93,16 @@ func (p SuppressionPolicy) validate() error {
 	if p.Unchanged.Absolute < 0 || p.Unchanged.Relative < 0 || p.Unchanged.Relative >= 1 || p.Source == "" {
 		return fmt.Errorf("suppression needs a non-negative unchanged tolerance (relative below 1) and a source")
 	}
+	for _, c := range p.ClockFigures {
+		if !slices.Contains(clockFigureNames, c) {
+			return fmt.Errorf("suppression.clockFigures: %q is not a figure that moves with the clock alone (%s)", c, strings.Join(clockFigureNames, ", "))
+		}
+	}
 	ids := ruleIDs()
 	for id, w := range p.Watch {
+		if slices.Contains(p.ClockFigures, w.Figure) || slices.Contains(p.ClockFigures, w.AlwaysWhen) {
+			return fmt.Errorf("suppression.watch.%s watches a clock figure", id)
+		}
 		if !slices.Contains(ids, id) {
 			return fmt.Errorf("suppression.watch.%s is not a rule halite has", id)
 		}
@@ -129,7 +141,9 @@ type Suppression struct {
 // (see SuppressionPolicy). It returns the suppression and true, or false
 // when f is to be shown.
 func (p SuppressionPolicy) Suppress(f Finding, m Moment, subject, draft string, shown []ShownCard, at time.Time) (Suppression, bool) {
-	if f.Indicator >= Critical && !p.SuppressCritical {
+	// A drug or fluid finding whose product has no key cannot be matched
+	// to its own earlier cards: shown.
+	if (f.Indicator >= Critical && !p.SuppressCritical) || p.alwaysShown(f) || (f.Order != "" && f.Product == "") {
 		return Suppression{}, false
 	}
 	var same []ShownCard
@@ -153,22 +167,23 @@ func (p SuppressionPolicy) Suppress(f Finding, m Moment, subject, draft string, 
 	case m == MomentSign && last.Moment == MomentSelect && draft != "" && last.Draft == draft &&
 		within(at, last.At, p.SelectToSignMinutes/60) && f.Indicator <= last.Indicator && p.unchanged(f.Figures, last.Figures):
 		return Suppression{Reason: SuppressedSelectToSign, Prior: last}, true
-	case m == MomentChart && last.Moment == MomentChart && within(at, last.At, p.ChartIntervalHours) &&
-		!p.worse(f, last) && !p.alwaysShown(f):
+	case m == MomentChart && last.Moment == MomentChart && within(at, last.At, p.ChartIntervalHours) && !p.worse(f, last):
 		return Suppression{Reason: SuppressedChartUnchanged, Prior: last}, true
 	}
 	return Suppression{}, false
 }
 
-// within reports whether at is no more than hours after t.
+// within reports whether at is no more than hours after t (never for a
+// period of zero: that suppression is off).
 func within(at, t time.Time, hours float64) bool {
 	d := at.Sub(t)
-	return d >= 0 && d.Hours() <= hours
+	return hours > 0 && d >= 0 && d.Hours() <= hours
 }
 
 // worse reports whether f is worse than the card s: a higher indicator,
-// its watched figure moved the worse way by at least the margin (or newly
-// present), or, for a rule without a watched figure, any figure changed.
+// its watched figure moved the worse way by at least the margin, or missing
+// from either (nothing to compare: shown), or, for a rule without a watched
+// figure, any figure changed.
 func (p SuppressionPolicy) worse(f Finding, s ShownCard) bool {
 	if f.Indicator > s.Indicator {
 		return true
@@ -180,9 +195,7 @@ func (p SuppressionPolicy) worse(f Finding, s ShownCard) bool {
 	now, has := f.Figures[w.Figure]
 	before, had := s.Figures[w.Figure]
 	switch {
-	case !has:
-		return false
-	case !had:
+	case !has || !had:
 		return true
 	case w.Worse == "higher":
 		return now-before >= w.Margin
@@ -219,7 +232,7 @@ func (p SuppressionPolicy) unchanged(a, b map[string]float64) bool {
 func (r *Ruleset) Suppression() SuppressionPolicy { return r.policy.Suppression }
 
 // ProductKey keys a medication for suppression: its RxNorm code, else its
-// first coding, else its text.
+// first coding, else its text; empty when it has none of them.
 func ProductKey(m Medication) string {
 	for _, c := range m.Codings {
 		if c.System == SystemRxNorm && c.Code != "" {
@@ -231,5 +244,33 @@ func ProductKey(m Medication) string {
 			return c.System + "|" + c.Code
 		}
 	}
-	return "text:" + strings.ToLower(strings.TrimSpace(m.Text))
+	if t := strings.ToLower(strings.TrimSpace(m.Text)); t != "" {
+		return "text:" + t
+	}
+	return ""
+}
+
+// DraftKey keys a draft order for suppression by its identity and content
+// (product, dose, rate, route, timing), so an edited draft is a new one;
+// empty for an order without an id.
+func DraftKey(o MedicationOrder) string {
+	if strings.HasSuffix(o.Reference, "/") || o.Reference == "" {
+		return ""
+	}
+	q := func(x *Quantity) string {
+		if x == nil {
+			return "-"
+		}
+		return strconv.FormatFloat(x.Value, 'g', -1, 64) + " " + x.Unit
+	}
+	var route []string
+	for _, c := range o.Route {
+		route = append(route, c.System+"|"+c.Code)
+	}
+	freq := "-"
+	if o.Frequency != nil {
+		freq = strconv.Itoa(*o.Frequency)
+	}
+	return strings.Join([]string{o.Reference, ProductKey(o.Medication), q(o.Dose), o.Rate, strings.Join(route, ","), o.RouteText,
+		q(o.Duration), q(o.Bounds), freq, q(o.Period)}, "\x1f")
 }

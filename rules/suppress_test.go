@@ -94,6 +94,25 @@ func TestSuppress(t *testing.T) {
 		{"shown and not overridden: a new order is shown", drug(128, 3), MomentSign, "p", "new",
 			[]ShownCard{{Rule: RuleDrugHyponatremia, Moment: MomentSign, Subject: "p", Draft: "x", Indicator: Warning,
 				Figures: drug(128, 4).Figures, At: ago(time.Hour)}}, ""},
+		{"overridden, and the sodium is falling: shown", profound(124.5, 1), MomentChart, "", "",
+			[]ShownCard{{Rule: RuleProfoundOrFalling, Moment: MomentChart, Indicator: Warning, Figures: profound(125, 1).Figures,
+				At: ago(2 * time.Hour), OverriddenAt: ago(2 * time.Hour)}}, ""},
+		{"overridden, then it starts falling: shown", profound(124.5, 1), MomentChart, "", "",
+			[]ShownCard{{Rule: RuleProfoundOrFalling, Moment: MomentChart, Indicator: Warning, Figures: profound(125, 0).Figures,
+				At: ago(2 * time.Hour), OverriddenAt: ago(2 * time.Hour)}}, ""},
+		{"overridden, the watched figure now missing: shown", Finding{Rule: RuleDrugHyponatremia, Indicator: Warning, Product: "drug:sertraline",
+			Figures: map[string]float64{}}, MomentSign, "p", "new",
+			[]ShownCard{overridden(drug(128, 4), ago(5*time.Hour), ago(5*time.Hour))}, ""},
+		{"select then sign, info became a warning", Finding{Rule: RuleWaterDrug, Indicator: Warning, Figures: map[string]float64{"sodiumLatest": 130}},
+			MomentSign, "p", "d", []ShownCard{{Rule: RuleWaterDrug, Moment: MomentSelect, Subject: "p", Draft: "d", Indicator: Info,
+				Figures: map[string]float64{"sodiumLatest": 130}, At: ago(time.Minute)}}, ""},
+		{"a draft whose product has no key", Finding{Rule: RuleProjectedOver, Indicator: Warning, Order: "MedicationRequest/d1",
+			Figures: map[string]float64{"projectedChange24h": 9}}, MomentSign, "", "d",
+			[]ShownCard{{Rule: RuleProjectedOver, Moment: MomentSelect, Draft: "d", Indicator: Warning,
+				Figures: map[string]float64{"projectedChange24h": 9}, At: ago(time.Minute)}}, ""},
+		{"select then sign, info unchanged", Finding{Rule: RuleWaterDrug, Indicator: Info, Figures: map[string]float64{"sodiumLatest": 130}},
+			MomentSign, "p", "d", []ShownCard{{Rule: RuleWaterDrug, Moment: MomentSelect, Subject: "p", Draft: "d", Indicator: Info,
+				Figures: map[string]float64{"sodiumLatest": 130}, At: ago(time.Minute)}}, SuppressedSelectToSign},
 		{"a card from after the call's time is not counted", profound(123, 0), MomentChart, "", "",
 			[]ShownCard{atChart(profound(123, 0), at.Add(time.Hour))}, ""},
 	}
@@ -142,6 +161,8 @@ func TestSuppressionPolicyRefusals(t *testing.T) {
 		{`{"suppression": {"watch": {"no-such-rule": {"figure": "x", "worse": "higher", "margin": 1}}}}`, "not a rule"},
 		{`{"suppression": {"watch": {"hyponatremia-overcorrected": {"figure": "x", "worse": "up", "margin": 1}}}}`, "worse"},
 		{`{"suppression": {"watch": {"hyponatremia-overcorrected": {"figure": "x", "worse": "higher", "margin": 0}}}}`, "margin"},
+		{`{"suppression": {"clockFigures": ["sodiumLatest"]}}`, "clock alone"},
+		{`{"suppression": {"watch": {"drug-hyponatremia-risk": {"figure": "sodiumAgeHours", "worse": "higher", "margin": 1}}}}`, "clock figure"},
 	} {
 		_, err := LoadWithOverride([]byte(c.override))
 		if err == nil || !strings.Contains(err.Error(), c.want) {
@@ -158,9 +179,28 @@ func TestProductKey(t *testing.T) {
 		{Medication{Codings: []Coding{{System: "http://snomed.info/sct", Code: "1"}, {System: SystemRxNorm, Code: "313002"}}}, "rxnorm:313002"},
 		{Medication{Codings: []Coding{{System: "urn:local", Code: "NS3"}}, Text: "x"}, "urn:local|NS3"},
 		{Medication{Text: " Sodium Chloride 3% "}, "text:sodium chloride 3%"},
+		{Medication{Text: "  "}, ""},
 	} {
 		if got := ProductKey(c.m); got != c.want {
 			t.Errorf("ProductKey = %q, want %q", got, c.want)
 		}
+	}
+}
+
+func TestDraftKey(t *testing.T) {
+	rate := func(v float64) *float64 { return &v }
+	o := MedicationOrder{Reference: "MedicationRequest/d1", Medication: Medication{Codings: []Coding{{System: SystemRxNorm, Code: "1"}}},
+		RateMlPerHour: rate(30), Rate: "30 mL/h"}
+	edited := o
+	edited.Rate = "40 mL/h"
+	noID := o
+	noID.Reference = "MedicationRequest/"
+	switch {
+	case DraftKey(o) == "" || DraftKey(o) != DraftKey(o):
+		t.Error("a draft needs a stable key")
+	case DraftKey(edited) == DraftKey(o):
+		t.Error("an edited rate kept the draft's key")
+	case DraftKey(noID) != "":
+		t.Error("a draft without an id has a key")
 	}
 }

@@ -224,7 +224,7 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 		fd := Finding{Rule: id, Indicator: indicator, Summary: shorten(summary, 139), Detail: b.String(),
 			Figures: fig, Product: "drug:" + strings.ToLower(drug.Name), Advice: []Advice{recheckAdvice(rule.RecheckHours)}}
 		if ds := selected[drug.Name]; len(ds) == 1 {
-			fd.Order = ds[0].o.Reference
+			fd.Order, fd.Draft = ds[0].o.Reference, DraftKey(ds[0].o)
 		}
 		out = append(out, fd)
 	}

@@ -35,11 +35,14 @@ type burden struct {
 
 // volume is calls and cards for one site, service, indicator or in all.
 type volume struct {
-	Name                          string
-	Calls, WithCards, Cards       int64
-	Held                          int64
-	Critical, Warning, Info       int64
-	Offered, Accepted, Overridden int64
+	Name                            string
+	Calls, WithCards, Failed, Cards int64
+	Held                            int64
+	Critical, Warning, Info         int64
+	// Overridden counts every card overridden; Offered, Accepted and
+	// offeredOverridden only cards with a suggestion (for acceptance).
+	Overridden                           int64
+	Offered, Accepted, offeredOverridden int64
 }
 
 // Per100 is cards per 100 calls, "n/a" without calls.
@@ -50,7 +53,7 @@ func (v volume) HeldPer100() string { return per100(v.Held, v.Calls) }
 
 // Acceptance is accepted over accepted and overridden among cards that
 // offered a suggestion: "n/a" when none offered one.
-func (v volume) Acceptance() string { return acceptance(v.Offered, v.Accepted, v.Overridden) }
+func (v volume) Acceptance() string { return acceptance(v.Offered, v.Accepted, v.offeredOverridden) }
 
 // ruleRow is one rule's burden and outcomes.
 type ruleRow struct {
@@ -146,10 +149,11 @@ func readBurden(rep feedback.Report, from, to time.Time, loc *time.Location) bur
 		return r
 	}
 	for _, c := range rep.Calls {
-		day := c.Hour.In(loc).Format("2006-01-02")
+		day := c.Period.In(loc).Format("2006-01-02")
 		for _, v := range []*volume{&b.Total, get(sites, siteOf(c.Issuer, c.Tenant)), get(services, c.Service), &revision(c.Ruleset, day).volume} {
 			v.Calls += c.Calls
 			v.WithCards += c.WithCards
+			v.Failed += c.Failed
 		}
 		if d := days[day]; d != nil {
 			d.Calls += c.Calls
@@ -157,7 +161,7 @@ func readBurden(rep feedback.Report, from, to time.Time, loc *time.Location) bur
 	}
 	heldBy := map[string]int64{}
 	for _, g := range rep.Cards {
-		day := g.Hour.In(loc).Format("2006-01-02")
+		day := g.Period.In(loc).Format("2006-01-02")
 		key := [2]string{g.Service, g.Rule}
 		if ruleRows[key] == nil {
 			ruleRows[key] = &ruleRow{volume: volume{Name: g.Rule}, Service: g.Service, Rule: g.Rule}
@@ -185,13 +189,16 @@ func readBurden(rep feedback.Report, from, to time.Time, loc *time.Location) bur
 			default:
 				v.Info += g.Count
 			}
+			if g.Outcome == feedback.Overridden {
+				v.Overridden += g.Count
+			}
 			if g.Offered {
 				v.Offered += g.Count
 				switch g.Outcome {
 				case feedback.Accepted:
 					v.Accepted += g.Count
 				case feedback.Overridden:
-					v.Overridden += g.Count
+					v.offeredOverridden += g.Count
 				}
 			}
 		}

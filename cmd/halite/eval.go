@@ -80,6 +80,9 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if *cardLog != "" {
 		sc := defaultStoreConfig()
 		sc.DSN, sc.HashKeyFile = *cardLog, *hashKey
+		if sc.postgres() {
+			return errors.New("eval --card-log: a sqlite:PATH card log only (eval's cards come from no caller; keep them out of a service's store)")
+		}
 		if err := sc.validate(false); err != nil {
 			return fmt.Errorf("eval --card-log: %w", err)
 		}

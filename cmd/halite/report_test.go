@@ -81,21 +81,22 @@ func burdenFixture(t *testing.T, db string) {
 		}
 	}
 	calls := []struct {
-		tenant, ruleset string
-		at              time.Time
-		n, cards, held  int
+		tenant, ruleset  string
+		at               time.Time
+		n, cards, failed int
 	}{
 		{"ward-a", "r1", day(14, 9, 0), 40, 0, 0}, {"ward-a", "r1", day(14, 10, 0), 2, 1, 0},
-		{"ward-b", "r1", day(17, 11, 0), 10, 1, 0}, {"ward-a", "r2", day(20, 8, 0), 36, 0, 0},
-		{"ward-a", "r2", day(20, 8, 2), 2, 0, 1}, {"ward-a", "r2", day(20, 0, 30), 2, 1, 0},
+		{"ward-b", "r1", day(17, 11, 0), 10, 1, 1}, {"ward-a", "r2", day(20, 8, 0), 36, 0, 0},
+		{"ward-a", "r2", day(20, 8, 2), 2, 0, 0}, {"ward-a", "r2", day(20, 0, 30), 2, 1, 0},
 	}
 	for _, c := range calls {
 		for i := range c.n {
-			cards, held := 0, 0
+			cards := 0
 			if i == 0 {
-				cards, held = c.cards, c.held
+				cards = c.cards
 			}
-			st.CountCall(feedback.CallRecord{At: c.at, Service: "sodium-infusion-check", Hook: "order-sign", Tenant: c.tenant, Ruleset: c.ruleset, Cards: cards, Suppressed: held})
+			st.CountCall(feedback.CallRecord{At: c.at, Service: "sodium-infusion-check", Hook: "order-sign", Tenant: c.tenant, Ruleset: c.ruleset,
+				Cards: cards, Failed: i > 0 && i <= c.failed})
 		}
 	}
 	if err := st.Close(); err != nil {
@@ -121,10 +122,10 @@ func TestReport(t *testing.T) {
 	}
 	text := strings.Join(strings.Fields(out.String()), " ")
 	for _, want := range []string{
-		// 92 calls, 5 cards shown (a, b, c, d, e): 5.4 per 100; 2 held back: 2.2 per 100.
-		"calls 92, with cards 3, cards 5 (5.4 per 100 calls), held back as repeats 2 (2.2 per 100 calls)",
-		// ward-a: 82 calls, 4 cards (4.9 per 100); ward-b: 10 calls, 1 critical card (10.0).
-		"ward-a 82 4 4.9 0 3 1 2", "ward-b 10 1 10.0 1 0 0 0",
+		// 92 calls (one failed), 5 cards shown (a, b, c, d, e): 5.4 per 100; 2 held back: 2.2 per 100.
+		"calls 92 (failed 1), with cards 3, cards 5 (5.4 per 100 calls), held back as repeats 2 (2.2 per 100 calls)",
+		// ward-a: 82 calls, 4 cards (4.9 per 100); ward-b: 10 calls, 1 critical card (10.0), one call failed.
+		"ward-a 82 4 4.9 0 3 1 2 0", "ward-b 10 1 10.0 1 0 0 0 1",
 		// The info rule offers nothing to accept: n/a, not 0%.
 		"sodium-infusion-check hyponatremia-urine-studies-missing 1 1.1 0 n/a 0 - -",
 		// a accepted, b and c overridden: 1 of 3 = 33%; feedback after 2, 6 and 64 min: median 6.0 min.
@@ -236,3 +237,24 @@ func pixelsNear(img image.Image, c color.RGBA) int {
 }
 
 func near(a uint32, b uint8) bool { return a+6 >= uint32(b) && a <= uint32(b)+6 }
+
+// TestBurdenDaysInAHalfHourZone: days are counted in the display zone by
+// quarter hour, so in India (UTC+05:30) a card at 18:30 UTC is on the next
+// day and one at 18:15 UTC on the same day, calls alike.
+func TestBurdenDaysInAHalfHourZone(t *testing.T) {
+	kolkata, err := time.LoadLocation("Asia/Kolkata")
+	if err != nil {
+		t.Fatal(err)
+	}
+	q := func(h, m int) time.Time { return time.Date(2026, 11, 19, h, m, 0, 0, time.UTC) }
+	rep := feedback.Report{
+		Cards: []feedback.CardGroup{{Period: q(18, 15), Service: "s", Rule: "r", Indicator: "info", Count: 1},
+			{Period: q(18, 30), Service: "s", Rule: "r", Indicator: "info", Count: 2}},
+		Calls: []feedback.CallGroup{{Period: q(18, 15), Service: "s", Calls: 10}, {Period: q(18, 30), Service: "s", Calls: 20}},
+	}
+	from := time.Date(2026, 11, 19, 0, 0, 0, 0, kolkata)
+	b := readBurden(rep, from, from.AddDate(0, 0, 1), kolkata)
+	if len(b.Days) != 2 || b.Days[0].Shown() != 1 || b.Days[0].Calls != 10 || b.Days[1].Shown() != 2 || b.Days[1].Calls != 20 {
+		t.Errorf("days %+v, want 19 Nov 1 card of 10 calls, 20 Nov 2 cards of 20 calls", b.Days)
+	}
+}

@@ -103,12 +103,12 @@ func reportCmd(ctx context.Context, args []string, stdout, stderr io.Writer) err
 func writeBurdenText(w io.Writer, b burden) error {
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	fmt.Fprintf(tw, "burden report %s to %s (days in %s)\n", b.From, b.To, b.Zone)
-	fmt.Fprintf(tw, "calls %d, with cards %d, cards %d (%s per 100 calls), held back as repeats %d (%s per 100 calls)\n",
-		b.Total.Calls, b.Total.WithCards, b.Total.Cards, b.Total.Per100(), b.Total.Held, b.Total.HeldPer100())
+	fmt.Fprintf(tw, "calls %d (failed %d), with cards %d, cards %d (%s per 100 calls), held back as repeats %d (%s per 100 calls)\n",
+		b.Total.Calls, b.Total.Failed, b.Total.WithCards, b.Total.Cards, b.Total.Per100(), b.Total.Held, b.Total.HeldPer100())
 	section := func(title, head string) { fmt.Fprintf(tw, "\n%s\n%s\n", title, head) }
-	section("by site", "site\tcalls\tcards\tper 100 calls\tcritical\twarning\tinfo\theld back")
+	section("by site", "site\tcalls\tcards\tper 100 calls\tcritical\twarning\tinfo\theld back\tfailed calls")
 	for _, v := range b.Sites {
-		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%d\t%d\t%d\t%d\n", v.Name, v.Calls, v.Cards, v.Per100(), v.Critical, v.Warning, v.Info, v.Held)
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%d\t%d\t%d\t%d\t%d\n", v.Name, v.Calls, v.Cards, v.Per100(), v.Critical, v.Warning, v.Info, v.Held, v.Failed)
 	}
 	section("by service", "service\tcalls\tcards\tper 100 calls\theld back\tacceptance")
 	for _, v := range b.Services {
@@ -315,13 +315,13 @@ var burdenPage = template.Must(template.New("report").Parse(`<!DOCTYPE html>
 td,th{border:1px solid #999;padding:3px 8px;text-align:left}td.n{text-align:right}figure{margin:1em 0}
 .summary{font-size:1.15em}caption{text-align:left;font-weight:bold;padding:.3em 0}</style></head><body>
 <h1>Card burden, {{.B.From}} to {{.B.To}}</h1>
-<p class="summary" id="summary">{{.B.Total.Calls}} calls, {{.B.Total.Cards}} cards: <strong>{{.B.Total.Per100}} cards per 100 calls</strong>;
+<p class="summary" id="summary">{{.B.Total.Calls}} calls ({{.B.Total.Failed}} failed), {{.B.Total.Cards}} cards: <strong>{{.B.Total.Per100}} cards per 100 calls</strong>;
 {{.B.Total.Held}} findings held back as repeats ({{.B.Total.HeldPer100}} per 100 calls). Days are counted in {{.B.Zone}}.</p>
 <figure id="outcomes-chart" role="img" aria-label="Cards per day by outcome: accepted, overridden, no feedback, held back as repeats; the table by day below gives the figures.">{{.Outcomes}}</figure>
 <figure id="rate-chart" role="img" aria-label="Cards per 100 calls per day.">{{.Rates}}</figure>
-<table id="sites"><caption>By site (most cards first)</caption><tr><th>site</th><th>calls</th><th>cards</th><th>per 100 calls</th><th>critical</th><th>warning</th><th>info</th><th>held back</th></tr>
-{{range .B.Sites}}<tr><td>{{.Name}}</td><td class="n">{{.Calls}}</td><td class="n">{{.Cards}}</td><td class="n">{{.Per100}}</td><td class="n">{{.Critical}}</td><td class="n">{{.Warning}}</td><td class="n">{{.Info}}</td><td class="n">{{.Held}}</td></tr>
-{{else}}<tr><td colspan="8">no calls in the period</td></tr>{{end}}</table>
+<table id="sites"><caption>By site (most cards first)</caption><tr><th>site</th><th>calls</th><th>cards</th><th>per 100 calls</th><th>critical</th><th>warning</th><th>info</th><th>held back</th><th>failed calls</th></tr>
+{{range .B.Sites}}<tr><td>{{.Name}}</td><td class="n">{{.Calls}}</td><td class="n">{{.Cards}}</td><td class="n">{{.Per100}}</td><td class="n">{{.Critical}}</td><td class="n">{{.Warning}}</td><td class="n">{{.Info}}</td><td class="n">{{.Held}}</td><td class="n">{{.Failed}}</td></tr>
+{{else}}<tr><td colspan="9">no calls in the period</td></tr>{{end}}</table>
 <table id="services"><caption>By service</caption><tr><th>service</th><th>calls</th><th>cards</th><th>per 100 calls</th><th>held back</th><th>acceptance</th></tr>
 {{range .B.Services}}<tr><td>{{.Name}}</td><td class="n">{{.Calls}}</td><td class="n">{{.Cards}}</td><td class="n">{{.Per100}}</td><td class="n">{{.Held}}</td><td class="n">{{.Acceptance}}</td></tr>
 {{end}}</table>

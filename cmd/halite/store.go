@@ -163,7 +163,7 @@ func (r recorder) LogCards(ctx context.Context, cards []hooks.LoggedCard) error 
 
 func (r recorder) CountCall(c hooks.CallCount) {
 	r.st.CountCall(feedback.CallRecord{At: c.At, Service: c.Service, Hook: c.Hook, Issuer: c.Issuer, Tenant: c.Tenant,
-		Ruleset: c.Ruleset, Cards: c.Cards, Suppressed: c.Suppressed})
+		Ruleset: c.Ruleset, Cards: c.Cards, Failed: c.Failed})
 }
 
 func (r recorder) PriorCards(ctx context.Context, q hooks.PriorQuery) ([]rules.ShownCard, error) {

@@ -191,7 +191,7 @@ func TestStoreContract(t *testing.T) {
 			}
 			for _, g := range rep.Cards {
 				want := ""
-				if g.Hour.Equal(t0) {
+				if g.Period.Equal(t0) {
 					want = Accepted // accepted, then overridden: accepted counts
 				}
 				if g.Count != 1 || !g.Offered || g.Outcome != want || g.Rule != "sodium-projected-over-limit" {
@@ -340,47 +340,50 @@ func TestPriorCards(t *testing.T) {
 }
 
 // TestCallCounts: calls counted by two replicas add up in one row per
-// hour and key; counts still in memory are written at Close; the purge
-// removes old hours.
+// quarter hour and key, failed ones apart; counts still in memory are
+// written at Close; the purge removes old quarters.
 func TestCallCounts(t *testing.T) {
 	ctx := context.Background()
 	for _, b := range backends(t) {
 		t.Run(b.name, func(t *testing.T) {
 			a, reopen := b.open(t)
 			replica := reopen()
-			call := func(at time.Time, cards, held int) CallRecord {
-				return CallRecord{At: at, Service: "sodium-infusion-check", Hook: "order-sign", Tenant: "ward", Ruleset: "r1", Cards: cards, Suppressed: held}
+			call := func(at time.Time, cards int, failed bool) CallRecord {
+				return CallRecord{At: at, Service: "sodium-infusion-check", Hook: "order-sign", Tenant: "ward", Ruleset: "r1", Cards: cards, Failed: failed}
 			}
-			a.CountCall(call(t0, 2, 0))
-			a.CountCall(call(t0.Add(10*time.Minute), 0, 1))
-			a.CountCall(call(t0.Add(-30*time.Hour), 1, 0))
+			a.CountCall(call(t0, 2, false))
+			a.CountCall(call(t0.Add(10*time.Minute), 0, true))
+			a.CountCall(call(t0.Add(-30*time.Hour), 1, false))
 			if err := a.(*DB).FlushCounts(ctx); err != nil {
 				t.Fatal(err)
 			}
-			replica.CountCall(call(t0.Add(20*time.Minute), 0, 0))
-			replica.CountCall(call(t0.Add(59*time.Minute), 1, 0))
-			if err := replica.Close(); err != nil { // writes what it holds
+			replica.CountCall(call(t0.Add(5*time.Minute), 0, false))
+			replica.CountCall(call(t0.Add(14*time.Minute), 1, false))
+			replica.CountCall(call(t0.Add(15*time.Minute), 1, false)) // the next quarter hour
+			if err := replica.Close(); err != nil {                   // writes what it holds
 				t.Fatal(err)
 			}
 			rep, err := a.Report(ctx, t0.Add(-48*time.Hour), t0.Add(time.Hour))
 			if err != nil {
 				t.Fatal(err)
 			}
-			if len(rep.Calls) != 2 {
-				t.Fatalf("call groups %+v, want one per hour", rep.Calls)
+			if len(rep.Calls) != 3 {
+				t.Fatalf("call groups %+v, want one per quarter hour", rep.Calls)
 			}
 			for _, g := range rep.Calls {
 				switch {
-				case g.Hour.Equal(t0) && (g.Calls != 4 || g.WithCards != 2 || g.Cards != 3 || g.Suppressed != 1 || g.Tenant != "ward"):
-					t.Errorf("hour of t0: %+v, want 4 calls, 2 with cards, 3 cards, 1 held back", g)
-				case !g.Hour.Equal(t0) && g.Calls != 1:
-					t.Errorf("earlier hour: %+v", g)
+				case g.Period.Equal(t0) && (g.Calls != 4 || g.WithCards != 2 || g.Failed != 1 || g.Tenant != "ward"):
+					t.Errorf("quarter of t0: %+v, want 4 calls, 2 with cards, 1 failed", g)
+				case g.Period.Equal(t0.Add(15*time.Minute)) && g.Calls != 1:
+					t.Errorf("next quarter: %+v", g)
+				case g.Period.Before(t0) && g.Calls != 1:
+					t.Errorf("earlier quarter: %+v", g)
 				}
 			}
 			if _, err := a.Purge(ctx, t0.Add(-24*time.Hour)); err != nil {
 				t.Fatal(err)
 			}
-			if rep, err = a.Report(ctx, t0.Add(-48*time.Hour), t0.Add(time.Hour)); err != nil || len(rep.Calls) != 1 {
+			if rep, err = a.Report(ctx, t0.Add(-48*time.Hour), t0.Add(time.Hour)); err != nil || len(rep.Calls) != 2 {
 				t.Errorf("after the purge: %+v %v", rep.Calls, err)
 			}
 			a.Close()
@@ -448,6 +451,58 @@ func TestStoreStalled(t *testing.T) {
 			}
 			if err := s.Close(); err != nil {
 				t.Fatal(err)
+			}
+		})
+	}
+}
+
+// TestStalledCardsAreNotReturned: a write whose caller stopped waiting
+// (the call is answered 503) but which commits afterwards is marked not
+// returned: the repeat lookup never sees it, the report does not count it,
+// and it takes no feedback.
+func TestStalledCardsAreNotReturned(t *testing.T) {
+	for _, b := range backends(t) {
+		t.Run(b.name, func(t *testing.T) {
+			s, release := b.stalled(t, Options{CommitTimeout: 3 * time.Second})
+			defer s.Close()
+			c := card("late-commit", t0)
+			c.Moment, c.Subject = "select", "subj"
+			ctx, cancel := context.WithTimeout(context.Background(), 150*time.Millisecond)
+			err := s.LogCards(ctx, []CardRecord{c})
+			cancel()
+			if !errors.Is(err, ErrStalled) {
+				t.Fatalf("write under a held lock: %v, want ErrStalled", err)
+			}
+			release()
+			// The writer is FIFO: once a later write is acknowledged, the
+			// marking queued behind the stalled one has run.
+			time.Sleep(50 * time.Millisecond)
+			if err := s.LogCards(context.Background(), []CardRecord{card("after", t0.Add(-48*time.Hour))}); err != nil {
+				t.Fatal(err)
+			}
+			db := s.(*DB)
+			var state string
+			// The stalled write either never ran (its caller left before its
+			// batch began: SQLite here) or committed and was marked.
+			switch err := db.db.QueryRow(db.dialect.bind(`SELECT suppressed FROM card_log WHERE card_uuid = ?`), c.UUID).Scan(&state); {
+			case errors.Is(err, sql.ErrNoRows):
+				t.Logf("%s: the stalled write never ran", b.name)
+			case err != nil:
+				t.Fatal(err)
+			case state != NotReturned:
+				t.Fatalf("the late-committed card is %q, want %q", state, NotReturned)
+			}
+			prior, err := s.PriorCards(context.Background(), PriorQuery{Service: c.Service, PatientHash: c.PatientHash, Since: t0.Add(-time.Hour), Until: t0.Add(time.Hour)})
+			if err != nil || len(prior) != 0 {
+				t.Errorf("prior cards %+v %v, want none", prior, err)
+			}
+			rep, err := s.Report(context.Background(), t0.Add(-time.Hour), t0.Add(time.Hour))
+			if err != nil || len(rep.Cards) != 0 {
+				t.Errorf("report cards %+v %v, want none", rep.Cards, err)
+			}
+			err = s.RecordFeedback(context.Background(), []FeedbackRecord{{Card: c.UUID, Service: c.Service, Outcome: Overridden, OutcomeAt: t0}})
+			if !errors.Is(err, ErrUnknownCard) {
+				t.Errorf("feedback on a card never returned: %v", err)
 			}
 		})
 	}

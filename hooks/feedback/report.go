@@ -6,10 +6,10 @@ import (
 	"time"
 )
 
-// CardGroup counts the cards logged in one UTC hour with the same caller,
+// CardGroup counts the cards logged in one quarter hour with the same caller,
 // service, rule, indicator, ruleset revision, offer and outcome.
 type CardGroup struct {
-	Hour                                              time.Time
+	Period                                            time.Time // its quarter hour's start
 	Issuer, Tenant, Service, Rule, Indicator, Ruleset string
 	// Offered is set for cards with suggestions (something to accept).
 	Offered bool
@@ -22,12 +22,13 @@ type CardGroup struct {
 	Count      int64
 }
 
-// CallGroup counts the hook calls answered in one UTC hour by caller,
-// service, hook and ruleset revision.
+// CallGroup counts the hook calls in one quarter hour by caller, service,
+// hook and ruleset revision: all of them, those that returned cards, and
+// those that failed.
 type CallGroup struct {
-	Hour                                   time.Time
+	Period                                 time.Time // its quarter hour's start
 	Issuer, Tenant, Service, Hook, Ruleset string
-	Calls, WithCards, Cards, Suppressed    int64
+	Calls, WithCards, Failed               int64
 }
 
 // ReasonGroup counts the cards of one rule overridden with one reason.
@@ -58,31 +59,34 @@ type Report struct {
 const outcomeOf = `(SELECT CASE WHEN EXISTS (SELECT 1 FROM feedback f WHERE f.card_uuid = c.card_uuid AND f.outcome = 'accepted') THEN 'accepted'
 	WHEN EXISTS (SELECT 1 FROM feedback f WHERE f.card_uuid = c.card_uuid) THEN 'overridden' ELSE '' END)`
 
-// Report groups the cards logged and calls counted in [from, to). Call
-// counts still in memory are written first.
+// Report groups the cards logged and calls counted in [from, to), which
+// should fall on quarter hours (calls are counted by quarter hour). Call
+// counts this process still holds are written first. Cards never returned
+// (NotReturned) are left out.
 func (s *DB) Report(ctx context.Context, from, to time.Time) (Report, error) {
 	rep := Report{From: from, To: to}
 	if err := s.FlushCounts(ctx); err != nil {
 		return rep, fmt.Errorf("report: %w", err)
 	}
 	f, t := from.UTC().Format(tsFormat), to.UTC().Format(tsFormat)
-	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT hour, issuer, tenant, service, rule, indicator, ruleset, offered, outcome, suppressed, count(*)
-		FROM (SELECT substr(c.created_at, 1, 13) AS hour, c.issuer, c.tenant, c.service, c.rule, c.indicator, c.ruleset,
+	rows, err := s.db.QueryContext(ctx, s.dialect.bind(`SELECT period, issuer, tenant, service, rule, indicator, ruleset, offered, outcome, suppressed, count(*)
+		FROM (SELECT substr(c.created_at, 1, 14) || CASE WHEN substr(c.created_at, 15, 2) < '15' THEN '00'
+				WHEN substr(c.created_at, 15, 2) < '30' THEN '15' WHEN substr(c.created_at, 15, 2) < '45' THEN '30' ELSE '45' END AS period, c.issuer, c.tenant, c.service, c.rule, c.indicator, c.ruleset,
 			CASE WHEN c.suggestions <> '[]' THEN 1 ELSE 0 END AS offered, `+outcomeOf+` AS outcome, c.suppressed
-			FROM card_log c WHERE c.created_at >= ? AND c.created_at < ?) AS x
-		GROUP BY hour, issuer, tenant, service, rule, indicator, ruleset, offered, outcome, suppressed`), f, t)
+			FROM card_log c WHERE c.created_at >= ? AND c.created_at < ? AND c.suppressed <> '`+NotReturned+`') AS x
+		GROUP BY period, issuer, tenant, service, rule, indicator, ruleset, offered, outcome, suppressed`), f, t)
 	if err != nil {
 		return rep, fmt.Errorf("report cards: %w", err)
 	}
 	for rows.Next() {
 		var g CardGroup
-		var hour string
+		var period string
 		var offered int
-		if err := rows.Scan(&hour, &g.Issuer, &g.Tenant, &g.Service, &g.Rule, &g.Indicator, &g.Ruleset, &offered, &g.Outcome, &g.Suppressed, &g.Count); err != nil {
+		if err := rows.Scan(&period, &g.Issuer, &g.Tenant, &g.Service, &g.Rule, &g.Indicator, &g.Ruleset, &offered, &g.Outcome, &g.Suppressed, &g.Count); err != nil {
 			rows.Close()
 			return rep, fmt.Errorf("report cards: %w", err)
 		}
-		if g.Hour, err = time.Parse(hourFormat, hour); err != nil {
+		if g.Period, err = time.Parse(periodFormat, period); err != nil {
 			rows.Close()
 			return rep, fmt.Errorf("report cards: %w", err)
 		}
@@ -93,20 +97,19 @@ func (s *DB) Report(ctx context.Context, from, to time.Time) (Report, error) {
 	if err := rows.Err(); err != nil {
 		return rep, fmt.Errorf("report cards: %w", err)
 	}
-	hf, ht := from.UTC().Format(hourFormat), to.UTC().Format(hourFormat)
-	rows, err = s.db.QueryContext(ctx, s.dialect.bind(`SELECT hour, issuer, tenant, service, hook, ruleset, sum(calls), sum(with_cards), sum(cards), sum(suppressed)
-		FROM call_counts WHERE hour >= ? AND hour < ? GROUP BY hour, issuer, tenant, service, hook, ruleset`), hf, ht)
+	rows, err = s.db.QueryContext(ctx, s.dialect.bind(`SELECT period, issuer, tenant, service, hook, ruleset, sum(calls), sum(with_cards), sum(failed)
+		FROM call_counts WHERE period >= ? AND period < ? GROUP BY period, issuer, tenant, service, hook, ruleset`), periodOf(from), periodOf(to))
 	if err != nil {
 		return rep, fmt.Errorf("report calls: %w", err)
 	}
 	for rows.Next() {
 		var g CallGroup
-		var hour string
-		if err := rows.Scan(&hour, &g.Issuer, &g.Tenant, &g.Service, &g.Hook, &g.Ruleset, &g.Calls, &g.WithCards, &g.Cards, &g.Suppressed); err != nil {
+		var period string
+		if err := rows.Scan(&period, &g.Issuer, &g.Tenant, &g.Service, &g.Hook, &g.Ruleset, &g.Calls, &g.WithCards, &g.Failed); err != nil {
 			rows.Close()
 			return rep, fmt.Errorf("report calls: %w", err)
 		}
-		if g.Hour, err = time.Parse(hourFormat, hour); err != nil {
+		if g.Period, err = time.Parse(periodFormat, period); err != nil {
 			rows.Close()
 			return rep, fmt.Errorf("report calls: %w", err)
 		}

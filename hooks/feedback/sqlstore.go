@@ -625,6 +625,45 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 	if len(cards) == 0 {
 		return nil
 	}
+	err := s.logCards(ctx, cards)
+	if errors.Is(err, ErrStalled) {
+		// The caller answers 503 without these cards, but the write may
+		// still commit: mark them not returned once it has, so no later
+		// call takes them for cards the clinician saw.
+		go s.forget(cards)
+	}
+	return err
+}
+
+// NotReturned marks, in the card log, cards whose write outlived the call
+// that made them (answered 503): never shown, they hold nothing back.
+const NotReturned = "not-returned"
+
+// forget marks cards not returned and removes them from card_latest,
+// queued behind the stalled write that logged them (the writer is FIFO).
+func (s *DB) forget(cards []CardRecord) {
+	ctx, cancel := context.WithTimeout(context.Background(), 4*s.opt.CommitTimeout)
+	defer cancel()
+	err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
+		for _, c := range cards {
+			if _, err := tx.ExecContext(ctx, s.dialect.bind(`UPDATE card_log SET suppressed = ? WHERE card_uuid = ? AND suppressed = ''`), NotReturned, c.UUID); err != nil {
+				return err
+			}
+			if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM card_latest WHERE patient_hash = ? AND service = ? AND issuer = ? AND tenant = ?
+				AND rule = ? AND subject = ? AND moment = ? AND created_at = ?`),
+				c.PatientHash, c.Service, c.Issuer, c.Tenant, c.Rule, c.Subject, c.Moment, c.At.UTC().Format(tsFormat)); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil && s.opt.Log != nil {
+		s.opt.Log.Warn("cards of a stalled write not marked as not returned", "cards", len(cards), "error", err.Error())
+	}
+}
+
+// logCards writes cards and their card_latest entries in one commit.
+func (s *DB) logCards(ctx context.Context, cards []CardRecord) error {
 	return s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
 		for _, c := range cards {
 			fig, err := json.Marshal(c.Figures)
@@ -711,7 +750,14 @@ func (s *DB) recordOne(ctx context.Context, tx *sql.Tx, f FeedbackRecord) error 
 	}
 	// An override with a reason is what the repeat lookup remembers (the
 	// latest one per rule, product and moment).
-	when := f.OutcomeAt.UTC().Format(tsFormat)
+	// The EHR's outcome time, but never later than now (a clock ahead, or
+	// local time sent as UTC, must not stretch the override period) nor
+	// earlier than the card.
+	overAt := f.OutcomeAt
+	if now := time.Now(); overAt.After(now) {
+		overAt = now
+	}
+	when := max(overAt.UTC().Format(tsFormat), at) // nor before the card was shown
 	_, err = tx.ExecContext(ctx, s.dialect.bind(`INSERT INTO card_latest (patient_hash, service, issuer, tenant, rule, subject, moment, draft, indicator, figures, created_at,
 		override_at, override_draft, override_indicator, override_figures, override_shown_at)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT (patient_hash, service, issuer, tenant, rule, subject, moment) DO UPDATE SET
@@ -802,13 +848,18 @@ func (s *DB) Purge(ctx context.Context, before time.Time) (int64, error) {
 	if err != nil {
 		return cards, fmt.Errorf("purge: %w", err)
 	}
-	if _, err := s.deleteChunks(ctx, `DELETE FROM card_latest WHERE (patient_hash, service, issuer, tenant, rule, subject, moment) IN
-		(SELECT patient_hash, service, issuer, tenant, rule, subject, moment FROM card_latest WHERE created_at < ? AND override_shown_at < ?
-		LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(tsFormat), before.UTC().Format(tsFormat)); err != nil {
+	// The conditions are repeated outside the chunk's subquery, so a row
+	// another replica refreshed meanwhile is not deleted.
+	b := before.UTC().Format(tsFormat)
+	if _, err := s.deleteChunks(ctx, `DELETE FROM card_latest WHERE created_at < ? AND override_at < ?
+		AND (patient_hash, service, issuer, tenant, rule, subject, moment) IN
+		(SELECT patient_hash, service, issuer, tenant, rule, subject, moment FROM card_latest WHERE created_at < ? AND override_at < ?
+		LIMIT `+strconv.Itoa(purgeChunk)+`)`, b, b, b, b); err != nil {
 		return cards, fmt.Errorf("purge latest cards: %w", err)
 	}
-	if _, err := s.deleteChunks(ctx, `DELETE FROM call_counts WHERE (hour, service, hook, issuer, tenant, ruleset) IN
-		(SELECT hour, service, hook, issuer, tenant, ruleset FROM call_counts WHERE hour < ? LIMIT `+strconv.Itoa(purgeChunk)+`)`, before.UTC().Format(hourFormat)); err != nil {
+	if _, err := s.deleteChunks(ctx, `DELETE FROM call_counts WHERE period < ? AND (period, service, hook, issuer, tenant, ruleset) IN
+		(SELECT period, service, hook, issuer, tenant, ruleset FROM call_counts WHERE period < ? LIMIT `+strconv.Itoa(purgeChunk)+`)`,
+		periodOf(before), periodOf(before)); err != nil {
 		return cards, fmt.Errorf("purge call counts: %w", err)
 	}
 	if _, err := s.deleteChunks(ctx, `DELETE FROM jwt_replay WHERE (iss, jti) IN

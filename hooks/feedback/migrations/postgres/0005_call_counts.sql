@@ -1,8 +1,9 @@
--- Every hook call answered, counted by hour (UTC, YYYY-MM-DDTHH), service,
--- hook, caller and ruleset revision: the denominator of the burden report.
--- No patient data.
+-- Every hook call to a service, counted by quarter hour (UTC,
+-- YYYY-MM-DDTHH:MM, the minute 00, 15, 30 or 45, so days in any time zone
+-- are whole), service, hook, caller and ruleset revision: the denominator
+-- of the burden report. No patient data.
 CREATE TABLE call_counts (
-  hour       TEXT NOT NULL,
+  period     TEXT NOT NULL,
   service    TEXT NOT NULL,
   hook       TEXT NOT NULL,
   issuer     TEXT NOT NULL,
@@ -10,7 +11,6 @@ CREATE TABLE call_counts (
   ruleset    TEXT NOT NULL,
   calls      BIGINT NOT NULL,
   with_cards BIGINT NOT NULL,
-  cards      BIGINT NOT NULL,
-  suppressed BIGINT NOT NULL,
-  PRIMARY KEY (hour, service, hook, issuer, tenant, ruleset)
+  failed     BIGINT NOT NULL,
+  PRIMARY KEY (period, service, hook, issuer, tenant, ruleset)
 );
