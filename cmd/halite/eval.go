@@ -28,7 +28,7 @@ const (
 // eval runs a bundle through the same pipeline as the server and prints the
 // response: a readable report, or with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] [--display-units LIST] [--card-log DSN --hash-key-file FILE] BUNDLE", stderr)
+	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] [--display-units LIST] [--card-log sqlite:PATH --hash-key-file FILE] BUNDLE", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
@@ -36,7 +36,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	policy := fs.String("policy-override", "", "apply a site policy override `file` (JSON shaped like the embedded policy)")
 	zone := fs.String("display-timezone", "", "write the cards' times in this IANA `zone` (as display_timezone does for the server; default UTC)")
 	unitList := fs.String("display-units", "", "write the cards' concentrations in these units (`list` such as electrolytes=mEq/L,glucose=mg/dL,urea=mg/dL,creatinine=mg/dL; as display_units does for the server)")
-	cardLog := fs.String("card-log", "", "log the cards to this card log (`DSN`: sqlite:PATH or a postgres:// URL) and hold back repeats of cards it holds, as the server does")
+	cardLog := fs.String("card-log", "", "log the cards to this local card log (`DSN` sqlite:PATH) and hold back repeats of cards it holds, as the server does")
 	hashKey := fs.String("hash-key-file", "", "the `file` keying patient hashes in --card-log (at least 32 bytes; the same key joins runs)")
 	path, err := parseBundleArgs(fs, args)
 	if err != nil {
