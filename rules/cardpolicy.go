@@ -104,7 +104,7 @@ type WaterDrugPolicy struct {
 // and chart review; the drug-risk check has its own severity table).
 var cardRules = [...]string{RuleLimitExceeded, RuleRelowering, RuleAquaresis, RuleDesalination, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
 	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
-	RuleSIADHPattern, RuleUrineStudiesMissing, RuleConcentratingDefect}
+	RuleSIADHPattern, RuleUrineStudiesMissing, RuleDiluteUrine, RuleConcentratingDefect}
 
 func (c CardPolicy) validate() error {
 	if c.HypertonicNaKAtLeast <= 154 || c.Source == "" {
@@ -226,6 +226,13 @@ type ChartReviewPolicy struct {
 		UrineSodiumAbove         float64 `json:"urineSodiumAbove"`
 		Source                   string  `json:"source"`
 	} `json:"siadh"`
+	// DiluteUrine: hypotonic hyponatremia with urine osmolality below
+	// UrineOsmolalityBelow is urine diluted as far as it goes (vasopressin
+	// suppressed): water taken in beyond what can be excreted.
+	DiluteUrine struct {
+		UrineOsmolalityBelow float64 `json:"urineOsmolalityBelow"`
+		Source               string  `json:"source"`
+	} `json:"diluteUrine"`
 	ConcentratingDefect struct {
 		SerumOsmolalityAbove float64 `json:"serumOsmolalityAbove"`
 		SodiumAbove          float64 `json:"sodiumAbove"`
@@ -257,14 +264,15 @@ func (c ChartReviewPolicy) validate() error {
 		"nearLimitWithin": c.NearLimitWithin, "profoundBelow": c.ProfoundBelow, "fallIn48hAtLeast": c.FallIn48hAtLeast,
 		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
-		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
-		"restriction.adultBSA": c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
+		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "diluteUrine.urineOsmolalityBelow": c.DiluteUrine.UrineOsmolalityBelow,
+		"concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
+		"restriction.adultBSA":                     c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
 		"restriction.hypovolaemiaBunCreatinineAbove": c.Restriction.HypovolaemiaBUNCreatinineAbove} {
 		if v <= 0 {
 			return fmt.Errorf("chartReview.%s must be positive", name)
 		}
 	}
-	if c.Source == "" || c.SIADH.Source == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
+	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
 		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}

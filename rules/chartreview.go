@@ -18,6 +18,7 @@ const (
 	RuleNotHypotonic        = "hyponatremia-not-hypotonic"
 	RuleSIADHPattern        = "siadh-lab-pattern"
 	RuleUrineStudiesMissing = "hyponatremia-urine-studies-missing"
+	RuleDiluteUrine         = "hyponatremia-dilute-urine"
 	RuleConcentratingDefect = "concentrating-defect-pattern"
 )
 
@@ -82,7 +83,7 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 // instead, or nothing.
 func recheckNatural(rule string) bool {
 	switch rule {
-	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling:
+	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleDiluteUrine:
 		return true
 	}
 	return false
@@ -314,6 +315,9 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 	b.WriteString("**Figures**\n\n")
 	r.commonLines(&b, c)
 	r.contextLines(&b, t)
+	if c.urineOs != nil && c.urineOs.Value < cp.DiluteUrine.UrineOsmolalityBelow {
+		return r.diluteUrine(c, &b), true
+	}
 	if c.urineOs == nil || c.urineNa == nil {
 		fmt.Fprintf(&b, "- Urine osmolality and urine sodium within %g h of the sodium: %s\n", cp.LabPairHours,
 			missingUrine(c.urineOs, c.urineNa))
@@ -360,6 +364,26 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		fmt.Fprintf(&b, " Active drugs that can cause it: %s.", strings.Join(drugs, ", "))
 	}
 	return Finding{Rule: RuleSIADHPattern, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
+}
+
+// diluteUrine is the finding for a hypotonic hyponatremia whose urine is
+// diluted as far as it goes; b holds the common figure lines.
+func (r *Ruleset) diluteUrine(c chart, b *strings.Builder) Finding {
+	cp := r.policy.ChartReview
+	t := c.context
+	fmt.Fprintf(b, "- Urine osmolality %s mOsm/kg (%s%s, %s), below %g mOsm/kg\n", show(UrineOsmolality, c.urineOs.Value),
+		measuredBy(*c.urineOs), stamp(c.urineOs.At), c.urineOs.Source, cp.DiluteUrine.UrineOsmolalityBelow)
+	fmt.Fprintf(b, "- Reading: urine this dilute means vasopressin is suppressed, as it should be in hypotonicity; the sodium is low "+
+		"because water is taken in faster than the kidneys can excrete it (%s)\n", cp.DiluteUrine.Source)
+	fmt.Fprintf(b, "- Once the intake falls, urine this dilute can raise sodium quickly: the correction limits apply "+
+		"(%g mmol/L in 24 h; %s)\n", r.policy.Limits.HyponatremiaRise24h.Value, r.policy.Limits.HyponatremiaRise24h.Source)
+	b.WriteString("\n**Labs cannot show**: the intake behind it — primary polydipsia, or a low solute intake (little protein and " +
+		"salt, much beer or tea) that limits how much water can be excreted — nor whether the urine was collected after a large " +
+		"drink or a diuretic. The intake history and the clinical assessment decide; the treating team judges what applies.")
+	summary := fmt.Sprintf("Hypotonic hyponatremia (sodium %s) with maximally dilute urine (osmolality %s): water intake beyond excretion",
+		show(Sodium, c.latest.Value), show(UrineOsmolality, c.urineOs.Value))
+	return Finding{Rule: RuleDiluteUrine, Summary: shorten(summary, 139), Detail: b.String(),
+		Figures: map[string]float64{"urineOsmolality": c.urineOs.Value, "effectiveOsmolality": Round(*t.EffectiveOsmolality, 1)}}
 }
 
 func missingUrine(osm, na *Measurement) string {

@@ -171,6 +171,22 @@ func TestChartReview(t *testing.T) {
 					t.Errorf("%s", fs[0].Detail)
 				}
 			}},
+		// Urine osmolality below 100 mOsm/kg in a hypotonic hyponatremia:
+		// vasopressin suppressed (Milionis HJ et al., CMAJ 2002;166:1056-1062).
+		// Effective osmolality 2 × 128 + 90/18.0156 = 261.0.
+		{"maximally dilute urine", RuleDiluteUrine, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(90), lab(Urea, 2.5, 2),
+			lab(UrineOsmolality, 72, 1)), func(t *testing.T, fs []Finding) {
+			if fs[0].Figures["urineOsmolality"] != 72 || !near(fs[0].Figures["effectiveOsmolality"], 261.0, 0.05) || len(fs) != 1 ||
+				len(fs[0].Advice) != 1 || fs[0].Advice[0].Kind != AdviseRecheck {
+				t.Errorf("%+v", fs)
+			}
+		}},
+		{"urine osmolality 99: dilute", RuleDiluteUrine, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(90), lab(Urea, 2.5, 2),
+			lab(UrineOsmolality, 99, 1), lab(UrineSodium, 40, 1)), nil},
+		{"urine osmolality 100 with urine sodium 40: neither dilute nor the SIADH pattern", "", chartFacts(t, adult, map[float64]float64{2: 128},
+			glucose(90), lab(Urea, 2.5, 2), lab(UrineOsmolality, 100, 1), lab(UrineSodium, 40, 1)), nil},
+		{"dilute urine but not hypotonic", RuleNotHypotonic, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(612), lab(Urea, 6, 2),
+			lab(UrineOsmolality, 72, 1)), nil},
 		{"concentrating defect", RuleConcentratingDefect, chartFacts(t, adult, map[float64]float64{2: 149}, lab(SerumOsmolality, 305, 2), lab(UrineOsmolality, 180, 1)), nil},
 		{"concentrated urine", "", chartFacts(t, adult, map[float64]float64{2: 147}, lab(UrineOsmolality, 650, 1)), nil},
 		{"normal chart", "", chartFacts(t, adult, map[float64]float64{30: 139, 2: 140}, normalK), nil},
