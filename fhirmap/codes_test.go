@@ -79,14 +79,18 @@ func TestLOINCTable(t *testing.T) {
 		{"21232-4", "Creatinine [Mass/volume] in Arterial blood", rules.Creatinine, "arterial blood", 113.120, rules.BloodGas},                    // VSAC
 		{"101475-2", "Creatinine [Moles/volume] in Venous blood", rules.Creatinine, "venous blood", 113.120, rules.BloodGas},                      // VSAC
 
-		{"2692-2", "Osmolality of Serum or Plasma", rules.SerumOsmolality, "serum or plasma", 0, rules.Laboratory}, // §8
-		{"2695-5", "Osmolality of Urine", rules.UrineOsmolality, "urine", 0, rules.Laboratory},                     // §8
-		{"2955-3", "Sodium [Moles/volume] in Urine", rules.UrineSodium, "urine", 0, rules.Laboratory},              // §8
-		{"2828-2", "Potassium [Moles/volume] in Urine", rules.UrinePotassium, "urine", 0, rules.Laboratory},        // §8
-		{"9187-6", "Urine output", rules.UrineVolume, "urine", 0, rules.Laboratory},                                // OMOP concept table (LOINC concept 3014315)
-		{"3167-4", "Volume of 24 hour Urine", rules.UrineVolume, "24 hour urine", 0, rules.Laboratory},             // HL7 Order Catalog IG example
-		{"29463-7", "Body weight", rules.BodyWeight, "", 0, ""},                                                    // §8
-		{"8302-2", "Body height", rules.BodyHeight, "", 0, ""},                                                     // §8
+		{"2692-2", "Osmolality of Serum or Plasma", rules.SerumOsmolality, "serum or plasma", 0, rules.Laboratory},              // §8
+		{"2695-5", "Osmolality of Urine", rules.UrineOsmolality, "urine", 0, rules.Laboratory},                                  // §8
+		{"2955-3", "Sodium [Moles/volume] in Urine", rules.UrineSodium, "urine", 0, rules.Laboratory},                           // §8
+		{"2828-2", "Potassium [Moles/volume] in Urine", rules.UrinePotassium, "urine", 0, rules.Laboratory},                     // §8
+		{"9187-6", "Urine output", rules.UrineVolume, "urine", 0, rules.Laboratory},                                             // OMOP concept table (LOINC concept 3014315)
+		{"3167-4", "Volume of 24 hour Urine", rules.UrineVolume, "24 hour urine", 0, rules.Laboratory},                          // HL7 Order Catalog IG example
+		{"29463-7", "Body weight", rules.BodyWeight, "", 0, ""},                                                                 // §8
+		{"8302-2", "Body height", rules.BodyHeight, "", 0, ""},                                                                  // §8
+		{"3084-1", "Urate [Mass/volume] in Serum or Plasma", rules.Urate, "serum or plasma", 168.112, rules.Laboratory},         // §8 (V-A)
+		{"14933-6", "Urate [Moles/volume] in Serum or Plasma", rules.Urate, "serum or plasma", 168.112, rules.Laboratory},       // §8 (V-A)
+		{"4544-3", "Hematocrit [Volume Fraction] of Blood by Automated count", rules.Haematocrit, "blood", 0, rules.Laboratory}, // §8 (V-B, LOINC's older name)
+		{"20570-8", "Hematocrit [Volume Fraction] of Blood", rules.Haematocrit, "blood", 0, rules.Laboratory},                   // §8 (V-B)
 	}
 	seen := map[string]bool{}
 	for _, tt := range tests {

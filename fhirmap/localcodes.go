@@ -109,6 +109,8 @@ func (l LocalCode) measure() (measure, error) {
 		m.analyte, m.molarMass = rules.Urea, molarMassUreaN
 	case rules.Creatinine:
 		m.molarMass = molarMassCreatinine
+	case rules.Urate:
+		m.molarMass = molarMassUrate
 	case rules.BodyWeight, rules.BodyHeight:
 		return measure{}, fmt.Errorf("analyte %q: body measurements are read by their LOINC codes only", l.Analyte)
 	}

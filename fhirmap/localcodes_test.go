@@ -62,6 +62,7 @@ func TestMapLocalCodes(t *testing.T) {
 	codes, err := NewCodes([]LocalCode{
 		{System: siteSystem, Code: "NA-GAS", Analyte: "sodium", Unit: "mmol/L", Specimen: "arterial blood", Origin: "blood gas"},
 		{System: siteSystem, Code: "BUN", Analyte: "urea-nitrogen", Unit: "mg/dL", Specimen: "serum or plasma", Origin: "laboratory"},
+		{System: siteSystem, Code: "URIC", Analyte: "urate", Unit: "mg/dL", Specimen: "serum or plasma", Origin: "laboratory"},
 	})
 	if err != nil {
 		t.Fatal(err)
@@ -70,7 +71,8 @@ func TestMapLocalCodes(t *testing.T) {
 	bun := obsSpec{id: "bun", system: siteSystem, code: "BUN", value: vq("14", "mg/dL")}.raw()
 	// The same coding under another system is not the site's code.
 	other := obsSpec{id: "other", system: "http://other.example.org", code: "NA-GAS", value: vq("120", "mmol/L")}.raw()
-	in := Input{At: testAt, PatientID: testPatient, Entries: raws(gas, bun, other), Codes: codes}
+	uric := obsSpec{id: "uric", system: siteSystem, code: "URIC", value: vq("4", "mg/dL")}.raw()
+	in := Input{At: testAt, PatientID: testPatient, Entries: raws(gas, bun, other, uric), Codes: codes}
 	f := Map(in, ruleset(t))
 
 	na := f.Labs[rules.Sodium]
@@ -82,6 +84,11 @@ func TestMapLocalCodes(t *testing.T) {
 	// does; units_test.go): 14 mg/dL × 10 / 28.014 = 4.998 mmol/L urea.
 	if u := f.Labs[rules.Urea]; len(u) != 1 || !near(u[0].Value, 14*10/28.014, 1e-9) {
 		t.Errorf("urea %+v, want 4.998 mmol/L", u)
+	}
+	// Uric acid converts on urate's molar mass (168.112 g/mol, units_test.go):
+	// 4 mg/dL = 237.9 µmol/L.
+	if u := f.Labs[rules.Urate]; len(u) != 1 || !near(u[0].Value, 4*10/168.112*1000, 1e-6) {
+		t.Errorf("urate %+v, want 237.9 µmol/L", u)
 	}
 	// Without the table, none of them is read.
 	in.Codes = nil

@@ -26,6 +26,7 @@ func TestMolarMassesMatchIUPAC(t *testing.T) {
 		{"urea CH4N2O", molarMassUrea, awC + 4*awH + 2*awN + awO},     // IUPAC 2021 abridged weights
 		{"urea nitrogen 2 N", molarMassUreaN, 2 * awN},                // 2 N per urea molecule, IUPAC 2021 = 28.014
 		{"creatinine C4H7N3O", molarMassCreatinine, 4*awC + 7*awH + 3*awN + awO},
+		{"urate C5H4N4O3", molarMassUrate, 5*awC + 4*awH + 4*awN + 3*awO},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -61,6 +62,8 @@ func TestLOINCMolarMass(t *testing.T) {
 		{"38483-4", 113.120}, // creatinine in blood, IUPAC 2021 (C4H7N3O)
 		{"2160-0", 113.120},  // creatinine, IUPAC 2021 (C4H7N3O)
 		{"14682-9", 113.120}, // creatinine, IUPAC 2021
+		{"3084-1", 168.112},  // urate, IUPAC 2021 (C5H4N4O3)
+		{"14933-6", 168.112}, // urate, IUPAC 2021
 		{"2951-2", 0},        // sodium: no mass-unit form (codes.go contract)
 	}
 	for _, tt := range tests {
@@ -97,5 +100,33 @@ func TestSearchTokens(t *testing.T) {
 	}
 	if got := codes.SearchTokens(rules.Sodium); strings.Join(got, ",") != strings.Join(want, ",") {
 		t.Fatalf("SearchTokens(sodium) = %v, want %v", got, want)
+	}
+}
+
+// TestUrateAndHaematocritUnits: uric acid 4 mg/dL is 0.24 mmol/L, the
+// pair in the SIADH supplemental criteria (NDT Plus 2009;2(Suppl 3):iii5,
+// Table 1, as in the reference notes §4.3), and 238 µmol/L by the molar
+// mass; a haematocrit of 0.45 L/L is 45 %.
+func TestUrateAndHaematocritUnits(t *testing.T) {
+	for _, c := range []struct {
+		code, unit string
+		v, want    float64
+	}{
+		{"3084-1", "mg/dL", 4, 237.94},
+		{"14933-6", "umol/L", 240, 240},
+		{"14933-6", "mmol/L", 0.24, 240},
+		{"20570-8", "%", 45, 45},
+		{"4544-3", "L/L", 0.45, 45},
+	} {
+		got, err := toCanonical(loinc[c.code], c.v, c.unit)
+		if err != nil || !near(got, c.want, 0.01) {
+			t.Errorf("%s %g %s: %g %v, want %g", c.code, c.v, c.unit, got, err, c.want)
+		}
+	}
+	if near(4*10/molarMassUrate, 0.24, 0.005) == false {
+		t.Errorf("4 mg/dL of uric acid is %.3f mmol/L, the criteria pair it with 0.24", 4*10/molarMassUrate)
+	}
+	if _, err := toCanonical(loinc["20570-8"], 45, "mmol/L"); err == nil {
+		t.Error("a haematocrit in mmol/L was accepted")
 	}
 }

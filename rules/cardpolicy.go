@@ -226,6 +226,17 @@ type ChartReviewPolicy struct {
 		UrineSodiumAbove         float64 `json:"urineSodiumAbove"`
 		Source                   string  `json:"source"`
 	} `json:"siadh"`
+	// VolumeStatus: the results that bear on SIADH against salt wasting,
+	// shown on the SIADH pattern card: a uric acid below UrateBelow
+	// (µmol/L) is a supplemental SIADH criterion; a haematocrit rising by
+	// HaematocritRiseAtLeast (percentage points) within the look-back
+	// leans towards volume depletion.
+	VolumeStatus struct {
+		UrateBelow             float64 `json:"urateBelow"`
+		UrateSource            string  `json:"urateSource"`
+		HaematocritRiseAtLeast float64 `json:"haematocritRiseAtLeast"`
+		HaematocritSource      string  `json:"haematocritSource"`
+	} `json:"volumeStatus"`
 	// DiluteUrine: hypotonic hyponatremia with urine osmolality below
 	// UrineOsmolalityBelow is urine diluted as far as it goes (vasopressin
 	// suppressed): water taken in beyond what can be excreted.
@@ -265,6 +276,7 @@ func (c ChartReviewPolicy) validate() error {
 		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
 		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "diluteUrine.urineOsmolalityBelow": c.DiluteUrine.UrineOsmolalityBelow,
+		"volumeStatus.urateBelow": c.VolumeStatus.UrateBelow, "volumeStatus.haematocritRiseAtLeast": c.VolumeStatus.HaematocritRiseAtLeast,
 		"concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
 		"restriction.adultBSA":                     c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
 		"restriction.hypovolaemiaBunCreatinineAbove": c.Restriction.HypovolaemiaBUNCreatinineAbove} {
@@ -272,7 +284,7 @@ func (c ChartReviewPolicy) validate() error {
 			return fmt.Errorf("chartReview.%s must be positive", name)
 		}
 	}
-	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
+	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.VolumeStatus.UrateSource == "" || c.VolumeStatus.HaematocritSource == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
 		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}

@@ -357,6 +357,7 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 	} else {
 		b.WriteString("- Urine potassium not available: the urine-to-plasma electrolyte ratio was not computed\n")
 	}
+	r.volumeStatusLines(&b, c, fig)
 	b.WriteString("\n**Labs cannot show**: volume status (clinical euvolaemia is a criterion), thyroid and adrenal function, " +
 		"recent diuretic use, and the differential with renal or cerebral salt wasting; these must be assessed clinically " +
 		"before the pattern is called SIADH.")
@@ -364,6 +365,48 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		fmt.Fprintf(&b, " Active drugs that can cause it: %s.", strings.Join(drugs, ", "))
 	}
 	return Finding{Rule: RuleSIADHPattern, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
+}
+
+// volumeStatusLines writes the uric acid and haematocrit results near the
+// sodium that bear on SIADH against salt wasting, and what they lean to.
+func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]float64) {
+	cp := r.policy.ChartReview
+	vs := cp.VolumeStatus
+	if u := nearest(c.f.Labs[Urate], *c.latest, cp.LabPairHours, c.f); u != nil {
+		fig["urate"] = Round(u.Value, 1)
+		lean := "not below"
+		if u.Value < vs.UrateBelow {
+			lean = "below"
+		}
+		fmt.Fprintf(b, "- Uric acid %s umol/L (%s%s, %s): %s %g umol/L, a supplemental SIADH criterion (%s)\n", show(Urate, u.Value),
+			measuredBy(*u), stamp(u.At), u.Source, lean, vs.UrateBelow, vs.UrateSource)
+	} else {
+		fmt.Fprintf(b, "- Uric acid: no result within %g h of the sodium\n", cp.LabPairHours)
+	}
+	hcts := c.f.Labs[Haematocrit]
+	latest, ok := latestWithin(hcts, c.f.At, cp.LabPairHours*2)
+	if !ok {
+		fmt.Fprintf(b, "- Haematocrit: no result within %g h\n", cp.LabPairHours*2)
+		return
+	}
+	fig["haematocrit"] = latest.Value
+	line := fmt.Sprintf("- Haematocrit %s%% (%s%s, %s)", show(Haematocrit, latest.Value), measuredBy(latest), stamp(latest.At), latest.Source)
+	var lowest *Measurement
+	for i, h := range hcts {
+		if h.At.Before(latest.At) && latest.At.Sub(h.At).Hours() <= 48 && (lowest == nil || h.Value < lowest.Value) {
+			lowest = &hcts[i]
+		}
+	}
+	if lowest != nil {
+		rise := latest.Value - lowest.Value
+		fig["haematocritRise48h"] = Round(rise, 1)
+		line += fmt.Sprintf(", from %s%% (%s)", show(Haematocrit, lowest.Value), stamp(lowest.At))
+		if rise >= vs.HaematocritRiseAtLeast {
+			line += fmt.Sprintf(": a rise of %s points, which leans towards volume depletion (salt wasting) rather than SIADH (%s)",
+				show(Haematocrit, rise), vs.HaematocritSource)
+		}
+	}
+	b.WriteString(line + "\n")
 }
 
 // diluteUrine is the finding for a hypotonic hyponatremia whose urine is

@@ -119,6 +119,24 @@ func TestChartReview(t *testing.T) {
 				t.Errorf("%v", fs[0].Figures)
 			}
 		}},
+		// Uric acid 180 µmol/L < 240 (supplemental SIADH criterion, NDT Plus
+		// 2009 Table 1); haematocrit 38 % → 42 % in a day: a rise of 4 ≥ 3
+		// points leans towards volume depletion (Maesaka JK et al., 2009).
+		{"SIADH pattern with uric acid and a rising haematocrit", RuleSIADHPattern, chartFacts(t, adult, map[float64]float64{2: 128},
+			append(siadh(92, 48), lab(Urate, 180, 2), lab(Haematocrit, 38, 26), lab(Haematocrit, 42, 2))...), func(t *testing.T, fs []Finding) {
+			f := fs[0].Figures
+			if f["urate"] != 180 || f["haematocrit"] != 42 || f["haematocritRise48h"] != 4 ||
+				!strings.Contains(fs[0].Detail, "Uric acid 180 umol/L") || !strings.Contains(fs[0].Detail, ": below 240 umol/L") ||
+				!strings.Contains(fs[0].Detail, "a rise of 4 points, which leans towards volume depletion") {
+				t.Errorf("%v\n%s", f, fs[0].Detail)
+			}
+		}},
+		{"SIADH pattern, uric acid 300 and a steady haematocrit", RuleSIADHPattern, chartFacts(t, adult, map[float64]float64{2: 128},
+			append(siadh(92, 48), lab(Urate, 300, 2), lab(Haematocrit, 40, 26), lab(Haematocrit, 41, 2))...), func(t *testing.T, fs []Finding) {
+			if d := fs[0].Detail; !strings.Contains(d, ": not below 240 umol/L") || strings.Contains(d, "leans towards volume depletion") {
+				t.Errorf("%s", d)
+			}
+		}},
 		// (30 + 20)/128 = 0.39 < 0.5.
 		{"SIADH pattern, ratio below 0.5", RuleSIADHPattern, chartFacts(t, adult, map[float64]float64{2: 128}, siadh(32, 18)...), func(t *testing.T, fs []Finding) {
 			if !strings.Contains(fs[0].Detail, "about 1,000 mL/day") {

@@ -38,7 +38,7 @@ type precision struct {
 //	body height                                                   cm       1 decimal
 func analytePrecision(a Analyte) precision {
 	switch a {
-	case Creatinine, SerumOsmolality, UrineOsmolality:
+	case Creatinine, SerumOsmolality, UrineOsmolality, Urate:
 		return precision{0, false}
 	default:
 		return precision{1, false}

@@ -28,11 +28,16 @@ const (
 	UrineVolume Analyte = "urine-volume"
 	BodyWeight  Analyte = "body-weight"
 	BodyHeight  Analyte = "body-height"
+	// Urate is serum or plasma uric acid; Haematocrit the blood's volume
+	// fraction of red cells: both bear on volume status (SIADH against
+	// salt wasting).
+	Urate       Analyte = "urate"
+	Haematocrit Analyte = "haematocrit"
 )
 
 // analyteOrder is the order Analytes reports.
 var analyteOrder = [...]Analyte{Sodium, Potassium, Glucose, Urea, Creatinine, SerumOsmolality,
-	UrineOsmolality, UrineSodium, UrinePotassium, UrineVolume, BodyWeight, BodyHeight}
+	UrineOsmolality, UrineSodium, UrinePotassium, UrineVolume, BodyWeight, BodyHeight, Urate, Haematocrit}
 
 // Analytes returns every analyte halite maps, in a stable order.
 func Analytes() []Analyte { return analyteOrder[:] }
@@ -40,8 +45,10 @@ func Analytes() []Analyte { return analyteOrder[:] }
 // CanonicalUnit is the UCUM unit in which values of a are held.
 func CanonicalUnit(a Analyte) string {
 	switch a {
-	case Creatinine:
+	case Creatinine, Urate:
 		return "umol/L"
+	case Haematocrit:
+		return "%"
 	case SerumOsmolality, UrineOsmolality:
 		return "mosm/kg"
 	case BodyWeight:
