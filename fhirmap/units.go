@@ -51,15 +51,6 @@ func toCanonical(m measure, v float64, u string) (float64, error) {
 			// mg/dL → mg/L (×10) → mmol/L (÷ g/mol)
 			return v * 10 / m.molarMass, nil
 		}
-	case rules.Urate:
-		switch u {
-		case "umol/L":
-			return v, nil
-		case "mmol/L":
-			return v * 1000, nil
-		case "mg/dL":
-			return v * 10 / m.molarMass * 1000, nil
-		}
 	case rules.Haematocrit:
 		switch u {
 		case "%":
@@ -67,7 +58,7 @@ func toCanonical(m measure, v float64, u string) (float64, error) {
 		case "L/L", "1":
 			return v * 100, nil
 		}
-	case rules.Creatinine:
+	case rules.Creatinine, rules.Urate:
 		switch u {
 		case "umol/L":
 			return v, nil
