@@ -8,7 +8,6 @@ import (
 	"strings"
 	"time"
 
-	"github.com/google/uuid"
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/rules"
 	"go.opentelemetry.io/otel/attribute"
@@ -255,9 +254,8 @@ func (e *Engine) logged(ctx context.Context, service, hook, patientHash string, 
 	out := make([]LoggedCard, 0, len(cards)+len(held))
 	caller := CallerFrom(ctx)
 	m := momentOf(hook)
-	record := func(uuid string, f rules.Finding, indicator string, sugg []string) LoggedCard {
-		subject, draft := e.findingKeys(f)
-		return LoggedCard{UUID: uuid, Service: service, Rule: f.Rule, Indicator: indicator, Ruleset: e.ruleset.Revision(),
+	record := func(id string, f rules.Finding, indicator string, sugg []string, subject, draft string) LoggedCard {
+		return LoggedCard{UUID: id, Service: service, Rule: f.Rule, Indicator: indicator, Ruleset: e.ruleset.Revision(),
 			Issuer: caller.Issuer, Tenant: caller.Tenant, PatientHash: patientHash, At: at, Figures: f.Figures, Suggestions: sugg,
 			Moment: m, Subject: subject, Draft: draft}
 	}
@@ -266,10 +264,11 @@ func (e *Engine) logged(ctx context.Context, service, hook, patientHash string, 
 		for _, s := range c.Suggestions {
 			sugg = append(sugg, s.UUID)
 		}
-		out = append(out, record(c.UUID, fs[i], c.Indicator, sugg))
+		subject, draft := e.findingKeys(fs[i])
+		out = append(out, record(c.UUID, fs[i], c.Indicator, sugg, subject, draft))
 	}
 	for _, h := range held {
-		r := record(uuid.NewString(), h.Finding, h.Finding.Indicator.String(), nil)
+		r := record(h.ID, h.Finding, h.Finding.Indicator.String(), nil, h.Subject, h.Draft)
 		r.Suppressed = h.Suppression.Reason
 		out = append(out, r)
 	}

@@ -10,6 +10,8 @@ import (
 
 // Held is a finding held back as a repeat of a card already shown.
 type Held struct {
+	// ID is the card-log record's id (a UUIDv7, as a card's).
+	ID          string
 	Finding     rules.Finding
 	Suppression rules.Suppression
 	// Subject and Draft are the keyed hashes it was matched by.
@@ -79,11 +81,18 @@ func (e *Engine) suppress(ctx context.Context, service, hook, patientHash string
 	for _, f := range fs {
 		subject, draft := e.findingKeys(f)
 		s, ok := p.Suppress(f, m, subject, draft, prior, at)
+		var id string
+		if ok {
+			var err error
+			if id, err = newRecordID(); err != nil {
+				ok = false // without a record id it could not be counted: shown
+			}
+		}
 		if !ok {
 			shown = append(shown, f)
 			continue
 		}
-		held = append(held, Held{Finding: f, Suppression: s, Subject: subject, Draft: draft})
+		held = append(held, Held{ID: id, Finding: f, Suppression: s, Subject: subject, Draft: draft})
 	}
 	return shown, held
 }
