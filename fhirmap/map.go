@@ -94,6 +94,8 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 			}
 		case "Condition":
 			m.condition(r)
+		case "Procedure":
+			m.procedure(r)
 		case "MedicationAdministration":
 			if o, ok := m.medicationAdministration(r); ok {
 				m.facts.Infusing = append(m.facts.Infusing, o)

@@ -25,7 +25,7 @@ func TestEngineFetchesReferencedMedication(t *testing.T) {
 				"resourceType": "MedicationRequest", "id": "d1", "status": "draft", "intent": "order",
 				"subject":             map[string]any{"reference": "Patient/p1"},
 				"medicationReference": map[string]any{"reference": "Medication/med-x"}}}}}},
-		"prefetch": map[string]any{"patient": nil, "sodium": nil, "chemistry": nil, "urine": nil, "bodySize": nil, "conditions": nil, "medications": nil, "administrations": nil},
+		"prefetch": map[string]any{"patient": nil, "sodium": nil, "chemistry": nil, "urine": nil, "bodySize": nil, "conditions": nil, "medications": nil, "administrations": nil, "procedures": nil},
 	}
 	for _, tc := range []struct {
 		name    string

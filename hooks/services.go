@@ -81,7 +81,7 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"for projections; active MedicationRequests, so that infusions already running are counted with the " +
 				"drafts. Draft orders must be MedicationRequests with coded or described products.",
 			Check:    rules.InfusionCheck,
-			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications, k.administrations},
+			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications, k.administrations, k.procedures},
 		},
 		{
 			ID:    "sodium-drug-risk",
@@ -106,13 +106,13 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"body size, active medications and conditions improve the review.",
 			Check: rules.ChartReview,
 			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize,
-				k.medications, k.conditions},
+				k.medications, k.conditions, k.procedures},
 		},
 	}}
 }
 
 type keySet struct {
-	patient, sodium, chemistry, urine, bodySize, medications, administrations, conditions PrefetchKey
+	patient, sodium, chemistry, urine, bodySize, medications, administrations, conditions, procedures PrefetchKey
 }
 
 // prefetchKeys builds the templates. They use only the restricted query
@@ -141,6 +141,9 @@ func prefetchKeys(codes *fhirmap.Codes) keySet {
 		administrations: PrefetchKey{Key: "administrations",
 			Template: "MedicationAdministration?patient={{context.patientId}}&status=in-progress",
 			What:     "infusions in progress"},
+		procedures: PrefetchKey{Key: "procedures",
+			Template: "Procedure?patient={{context.patientId}}&status=completed",
+			What:     "completed procedures (pituitary surgery, craniotomy)"},
 		conditions: PrefetchKey{Key: "conditions",
 			Template: "Condition?patient={{context.patientId}}&clinical-status=active",
 			What:     "active conditions"},

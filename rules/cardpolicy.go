@@ -103,7 +103,7 @@ type WaterDrugPolicy struct {
 // cardRules are the rule ids the card policy must cover (infusion check
 // and chart review; the drug-risk check has its own severity table).
 var cardRules = [...]string{RuleLimitExceeded, RuleRelowering, RuleAquaresis, RuleDesalination, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
-	RuleWaterDrugNoSodium, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
+	RuleWaterDrugNoSodium, RuleDesmopressinAfterNeurosurgery, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
 	RuleSIADHPattern, RuleUrineStudiesMissing, RuleDiluteUrine, RuleConcentratingDefect}
 
 func (c CardPolicy) validate() error {

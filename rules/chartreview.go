@@ -59,7 +59,7 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 	c.urineNa = nearest(f.Labs[UrineSodium], l, cp.LabPairHours, f)
 	c.urineK = nearest(f.Labs[UrinePotassium], l, cp.LabPairHours, f)
 	var out []Finding
-	for _, judge := range []func(chart) (Finding, bool){r.overcorrection, r.hyperTooFast, r.profoundOrFalling,
+	for _, judge := range []func(chart) (Finding, bool){r.desmopressinAfterNeurosurgery, r.overcorrection, r.hyperTooFast, r.profoundOrFalling,
 		r.notHypotonic, r.siadhPattern, r.concentratingDefect} {
 		if fd, ok := judge(c); ok {
 			rule := r.cardRule(fd.Rule)
@@ -83,7 +83,7 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 // instead, or nothing.
 func recheckNatural(rule string) bool {
 	switch rule {
-	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleDiluteUrine:
+	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleDiluteUrine, RuleDesmopressinAfterNeurosurgery:
 		return true
 	}
 	return false

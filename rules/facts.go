@@ -217,6 +217,15 @@ type Condition struct {
 	VerificationStatus string
 }
 
+// Procedure is a completed Procedure reduced to what the rules read: its
+// codes and when it was performed (a date alone is midnight UTC).
+type Procedure struct {
+	Reference string
+	Codings   []Coding
+	Text      string
+	At        time.Time
+}
+
 // DataGap records a source of facts halite could not read, so findings can
 // say what they could not check.
 type DataGap struct {
@@ -235,6 +244,7 @@ type Facts struct {
 	Infusing    []MedicationOrder
 	DraftOrders []MedicationOrder // orders being selected or signed
 	Conditions  []Condition
+	Procedures  []Procedure
 	Gaps        []DataGap
 	Notes       []string // data-quality notes that are not rejections
 }

@@ -97,6 +97,7 @@ type Policy struct {
 	SameTime          SameTimePolicy          `json:"sameTime"`
 	UrineLosses       UrineLossPolicy         `json:"urineLosses"`
 	Suppression       SuppressionPolicy       `json:"suppression"`
+	Neurosurgery      NeurosurgeryPolicy      `json:"neurosurgery"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -182,6 +183,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.SameTime.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.Neurosurgery.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.Suppression.validate(); err != nil {

@@ -149,6 +149,23 @@ func (r *Ruleset) waterDrugFindings(f Facts) []Finding {
 				fig["limit24h"] = l.Limit24h
 			}
 		}
+		if !drug.RaisesSodium && !relowering {
+			if ctx, ok := r.recentNeurosurgery(f); ok {
+				if why, nfig, ok := r.retentionSigns(f); ok {
+					var what []string
+					for _, d := range selected[drug.Name] {
+						what = append(what, fmt.Sprintf("%s (%s, being ordered)", d.o.Reference, orderText(d.o)))
+					}
+					fd := r.neurosurgeryFinding(f, strings.Join(what, "; "), ctx, why, nfig)
+					if ds := selected[drug.Name]; len(ds) == 1 {
+						fd.Order, fd.Draft = ds[0].o.Reference, DraftKey(ds[0].o)
+						fd.Advice = append(fd.Advice, Advice{Kind: AdviseWithdraw, Label: "Remove this draft order"})
+					}
+					out = append(out, fd)
+					continue
+				}
+			}
+		}
 		id, orders, them := RuleWaterDrug, "order", "it"
 		if len(selected[drug.Name]) > 1 {
 			orders, them = "orders", "them"

@@ -1,0 +1,172 @@
+package rules
+
+import (
+	"fmt"
+	"math"
+	"strings"
+	"time"
+)
+
+// RuleDesmopressinAfterNeurosurgery flags desmopressin active or drafted
+// within the policy window after pituitary surgery or a craniotomy while
+// sodium is low or falling: continued into the water-retention phase that
+// can follow the early polyuria, it causes severe hyponatremia.
+const RuleDesmopressinAfterNeurosurgery = "desmopressin-after-neurosurgery"
+
+// NeurosurgeryPolicy names the procedures after which the course of water
+// balance is watched, the window, and when the sodium counts as low or
+// falling.
+type NeurosurgeryPolicy struct {
+	Procedures       []ConditionCodes `json:"procedures"`
+	WindowDays       float64          `json:"windowDays"`
+	SodiumBelow      float64          `json:"sodiumBelow"`
+	FallIn24hAtLeast float64          `json:"fallIn24hAtLeast"`
+	Source           string           `json:"source"`
+}
+
+func (n NeurosurgeryPolicy) validate() error {
+	if n.WindowDays <= 0 || n.SodiumBelow <= 0 || n.FallIn24hAtLeast <= 0 || n.Source == "" || len(n.Procedures) == 0 {
+		return fmt.Errorf("neurosurgery needs a window, a sodium threshold, a fall, procedures and a source")
+	}
+	for i, p := range n.Procedures {
+		if p.Factor == "" || p.System == "" || p.Source == "" || len(p.Codes)+len(p.Prefixes) == 0 {
+			return fmt.Errorf("neurosurgery.procedures[%d] needs a name (factor), a system, codes and a source", i)
+		}
+	}
+	return nil
+}
+
+// neurosurgicalContext is the latest listed procedure within the window
+// before the evaluation time, with what it is.
+type neurosurgicalContext struct {
+	Procedure Procedure
+	What      string
+	Days      float64
+}
+
+// recentNeurosurgery finds the latest listed procedure within the window.
+func (r *Ruleset) recentNeurosurgery(f Facts) (neurosurgicalContext, bool) {
+	n := r.policy.Neurosurgery
+	var best neurosurgicalContext
+	found := false
+	for _, p := range f.Procedures {
+		days := f.At.Sub(p.At).Hours() / 24
+		if days < 0 || days > n.WindowDays || (found && !p.At.After(best.Procedure.At)) {
+			continue
+		}
+		for _, c := range n.Procedures {
+			if codesMatch(c, p.Codings) {
+				best, found = neurosurgicalContext{Procedure: p, What: c.Factor, Days: days}, true
+				break
+			}
+		}
+	}
+	return best, found
+}
+
+// codesMatch reports whether any coding is one of c's codes or prefixes.
+func codesMatch(c ConditionCodes, cs []Coding) bool {
+	for _, x := range cs {
+		if x.System != c.System {
+			continue
+		}
+		for _, code := range c.Codes {
+			if x.Code == code {
+				return true
+			}
+		}
+		for _, pre := range c.Prefixes {
+			if strings.HasPrefix(x.Code, pre) {
+				return true
+			}
+		}
+	}
+	return false
+}
+
+// retentionSigns says why the sodium is a concern after neurosurgery: below
+// the threshold, or fallen by the policy amount in 24 h; with the figures.
+func (r *Ruleset) retentionSigns(f Facts) (string, map[string]float64, bool) {
+	n := r.policy.Neurosurgery
+	latest, ok := latestWithin(f.Labs[Sodium], f.At, r.policy.Projection.SodiumMaxAgeHours)
+	if !ok {
+		return "", nil, false
+	}
+	fig := map[string]float64{"sodiumLatest": latest.Value}
+	fall := 0.0
+	if w := AnalyseSodium(f.Labs[Sodium], f.At).Window24h; w != nil {
+		fall = w.FallFromPeak
+		fig["fallFromPeak24h"] = Round(fall, 1)
+	}
+	var why []string
+	if latest.Value < n.SodiumBelow {
+		why = append(why, fmt.Sprintf("sodium %s mmol/L, below %g", show(Sodium, latest.Value), n.SodiumBelow))
+	}
+	if fall >= n.FallIn24hAtLeast {
+		why = append(why, fmt.Sprintf("a fall of %s mmol/L in 24 h", naChange.of(fall)))
+	}
+	if len(why) == 0 {
+		return "", nil, false
+	}
+	return strings.Join(why, " and "), fig, true
+}
+
+// neurosurgeryFinding words the finding for the desmopressin orders named
+// (what), in context ctx, for the reasons given.
+func (r *Ruleset) neurosurgeryFinding(f Facts, what string, ctx neurosurgicalContext, why string, fig map[string]float64) Finding {
+	n := r.policy.Neurosurgery
+	// The postoperative day clinicians count: calendar days since the
+	// procedure's date (UTC), the day of surgery being day 0.
+	y1, m1, d1 := ctx.Procedure.At.UTC().Date()
+	y2, m2, d2 := ctx.Procedure.At.UTC().Add(time.Duration(ctx.Days * float64(24*time.Hour))).Date()
+	days := math.Round(time.Date(y2, m2, d2, 0, 0, 0, 0, time.UTC).Sub(time.Date(y1, m1, d1, 0, 0, 0, 0, time.UTC)).Hours() / 24)
+	fig["daysSinceProcedure"] = days
+	rule := r.cardRule(RuleDesmopressinAfterNeurosurgery)
+	var b strings.Builder
+	b.WriteString("**Figures**\n\n")
+	fmt.Fprintf(&b, "- Desmopressin: %s\n", what)
+	fmt.Fprintf(&b, "- %s on %s (%s), day %g after it\n", capitalise(ctx.What), ctx.Procedure.At.UTC().Format("2006-01-02"), ctx.Procedure.Reference, days)
+	fmt.Fprintf(&b, "- Now: %s\n", why)
+	if u, ok := latestWithin(f.Labs[UrineOsmolality], f.At, r.policy.ChartReview.LabPairHours); ok {
+		fig["urineOsmolality"] = u.Value
+		fmt.Fprintf(&b, "- Urine osmolality %s mOsm/kg (%s, %s)\n", show(UrineOsmolality, u.Value), stamp(u.At), u.Source)
+	} else {
+		fmt.Fprintf(&b, "- No urine osmolality within %g h\n", r.policy.ChartReview.LabPairHours)
+	}
+	fmt.Fprintf(&b, "- Flagged within %g days of the procedure when sodium is below %g mmol/L or falls %g mmol/L in 24 h\n",
+		n.WindowDays, n.SodiumBelow, n.FallIn24hAtLeast)
+	fmt.Fprintf(&b, "\n**The course**: %s\n\n**Labs cannot show**: which phase this is for certain; urine output and urine "+
+		"osmolality help (concentrated urine with a falling sodium fits the retention phase). The treating team decides whether "+
+		"desmopressin continues.", n.Source)
+	trend := ""
+	if fall := fig["fallFromPeak24h"]; fall >= n.FallIn24hAtLeast {
+		trend = fmt.Sprintf(", down %s in 24 h", naChange.of(fall))
+	}
+	summary := fmt.Sprintf("Desmopressin on day %g after %s, sodium %s%s: the water-retention phase may have begun", days, ctx.What,
+		show(Sodium, fig["sodiumLatest"]), trend)
+	return Finding{Rule: RuleDesmopressinAfterNeurosurgery, Indicator: rule.Indicator, Summary: shorten(summary, 139), Detail: b.String(),
+		Figures: fig, Product: "drug:desmopressin", Advice: []Advice{recheckAdvice(rule.RecheckHours)}}
+}
+
+// desmopressinAfterNeurosurgery is the chart review's finding for active
+// desmopressin in that window.
+func (r *Ruleset) desmopressinAfterNeurosurgery(c chart) (Finding, bool) {
+	ctx, ok := r.recentNeurosurgery(c.f)
+	if !ok {
+		return Finding{}, false
+	}
+	var orders []string
+	for _, o := range c.f.Medications {
+		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && !d.RaisesSodium {
+			orders = append(orders, fmt.Sprintf("%s (%s, active)", o.Reference, orderText(o)))
+		}
+	}
+	if len(orders) == 0 {
+		return Finding{}, false
+	}
+	why, fig, ok := r.retentionSigns(c.f)
+	if !ok {
+		return Finding{}, false
+	}
+	return r.neurosurgeryFinding(c.f, strings.Join(orders, "; "), ctx, why, fig), true
+}
