@@ -250,6 +250,10 @@ type ChartReviewPolicy struct {
 		UrineOsmolalityBelow float64 `json:"urineOsmolalityBelow"`
 		Evaluation           string  `json:"evaluation"`
 		Source               string  `json:"source"`
+		// PolyuriaAdultMlPerDay: an adult's urine output above it (at the
+		// recent charted rate) is polyuria.
+		PolyuriaAdultMlPerDay float64 `json:"polyuriaAdultMlPerDay"`
+		PolyuriaSource        string  `json:"polyuriaSource"`
 	} `json:"concentratingDefect"`
 	Restriction struct {
 		Scheme           string            `json:"scheme"`
@@ -276,7 +280,7 @@ func (c ChartReviewPolicy) validate() error {
 		"hourlyFallMinHours": c.HourlyFallMinHours, "labPairHours": c.LabPairHours, "heightMaxAgeHours": c.HeightMaxAgeHours,
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
 		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "diluteUrine.urineOsmolalityBelow": c.DiluteUrine.UrineOsmolalityBelow,
-		"volumeStatus.urateBelow": c.VolumeStatus.UrateBelow, "volumeStatus.haematocritRiseAtLeast": c.VolumeStatus.HaematocritRiseAtLeast,
+		"volumeStatus.urateBelow": c.VolumeStatus.UrateBelow, "concentratingDefect.polyuriaAdultMlPerDay": c.ConcentratingDefect.PolyuriaAdultMlPerDay, "volumeStatus.haematocritRiseAtLeast": c.VolumeStatus.HaematocritRiseAtLeast,
 		"concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
 		"restriction.adultBSA":                     c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
 		"restriction.hypovolaemiaBunCreatinineAbove": c.Restriction.HypovolaemiaBUNCreatinineAbove} {
@@ -284,7 +288,8 @@ func (c ChartReviewPolicy) validate() error {
 			return fmt.Errorf("chartReview.%s must be positive", name)
 		}
 	}
-	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.VolumeStatus.UrateSource == "" || c.VolumeStatus.HaematocritSource == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
+	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.VolumeStatus.UrateSource == "" || c.VolumeStatus.HaematocritSource == "" ||
+		c.ConcentratingDefect.PolyuriaSource == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
 		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}

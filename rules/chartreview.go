@@ -548,16 +548,55 @@ func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
 	}
 	fmt.Fprintf(&b, "- Urine osmolality %s mOsm/kg (%s): dilute urine despite a high sodium or osmolality (%s)\n",
 		show(UrineOsmolality, c.urineOs.Value), stamp(c.urineOs.At), cd.Source)
+	fig := map[string]float64{"urineOsmolality": c.urineOs.Value}
+	r.polyuriaLine(&b, c, fig)
 	drugs := r.activeDrugs(c.f, EffectNephrogenicDI)
 	if len(drugs) > 0 {
 		fmt.Fprintf(&b, "- Active drugs that can cause nephrogenic DI: %s\n", strings.Join(drugs, ", "))
 	}
-	fmt.Fprintf(&b, "\n**Evaluation the policy suggests**: %s.", cd.Evaluation)
+	ctx, neuro := r.recentNeurosurgery(c.f)
+	switch {
+	case neuro && len(drugs) > 0:
+		fmt.Fprintf(&b, "- Which way the data lean: both ways — %s on %s points to a central cause (vasopressin deficiency), "+
+			"the drugs above to a nephrogenic one\n", ctx.What, ctx.Procedure.At.UTC().Format("2006-01-02"))
+	case neuro:
+		fmt.Fprintf(&b, "- Which way the data lean: %s on %s points to a central cause (vasopressin deficiency)\n",
+			ctx.What, ctx.Procedure.At.UTC().Format("2006-01-02"))
+	case len(drugs) > 0:
+		b.WriteString("- Which way the data lean: the drugs above point to a nephrogenic cause (vasopressin resistance)\n")
+	default:
+		b.WriteString("- Which way the data lean: no neurosurgical procedure and no nephrogenic-DI drug found in the data\n")
+	}
+	fmt.Fprintf(&b, "\n**What tells them apart, and the evaluation the policy suggests**: %s.", cd.Evaluation)
 	summary := fmt.Sprintf("Dilute urine (%s mOsm/kg) with sodium %s: pattern of a urinary concentrating defect",
 		show(UrineOsmolality, c.urineOs.Value), show(Sodium, c.latest.Value))
 	if len(drugs) > 0 {
 		summary += "; on " + strings.Join(drugs, ", ")
 	}
-	return Finding{Rule: RuleConcentratingDefect, Summary: shorten(summary, 139), Detail: b.String(),
-		Figures: map[string]float64{"urineOsmolality": c.urineOs.Value}}, true
+	return Finding{Rule: RuleConcentratingDefect, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
+}
+
+// polyuriaLine writes the recent charted urine output and, for an adult,
+// whether it is polyuria by the policy definition.
+func (r *Ruleset) polyuriaLine(b *strings.Builder, c chart, fig map[string]float64) {
+	cd := r.policy.ChartReview.ConcentratingDefect
+	u := ReadUrineLosses(r.policy.UrineLosses, c.f)
+	if u.RateMlPerHour == nil {
+		b.WriteString("- Urine output: not charted in the last hours (polyuria cannot be judged)\n")
+		return
+	}
+	perDay := *u.RateMlPerHour * 24
+	fig["urineOutputMlPerHour"] = Round(*u.RateMlPerHour, 0)
+	line := fmt.Sprintf("- Urine output %s mL/h over the last %s h, about %s mL/day", orderRate.of(*u.RateMlPerHour), hoursSpan.of(u.Hours), mlPerDay.of(perDay))
+	child, known := r.isChild(c.f)
+	switch {
+	case !known || child:
+		line += "; the adult polyuria definition is not applied (a child's is per body-surface area, or the age is unknown)"
+	case perDay > cd.PolyuriaAdultMlPerDay:
+		fig["polyuria"] = 1
+		line += fmt.Sprintf(": polyuria, above %g mL/day (%s)", cd.PolyuriaAdultMlPerDay, cd.PolyuriaSource)
+	default:
+		line += fmt.Sprintf(": not polyuria (%g mL/day or less; %s)", cd.PolyuriaAdultMlPerDay, cd.PolyuriaSource)
+	}
+	b.WriteString(line + "\n")
 }

@@ -8,6 +8,12 @@ import (
 
 var chartAt = time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
 
+// urineVolume is ml of urine collected over hours, the period ending
+// endedHoursAgo before the chart time.
+func urineVolume(ml, hours, endedHoursAgo float64) Measurement {
+	return Measurement{Analyte: UrineVolume, Value: ml, PeriodHours: hours, At: chartAt.Add(-time.Duration(endedHoursAgo * float64(time.Hour)))}
+}
+
 func lab(a Analyte, v, hoursAgo float64) Measurement {
 	return Measurement{Analyte: a, Value: v, At: chartAt.Add(-time.Duration(hoursAgo * float64(time.Hour)))}
 }
@@ -205,6 +211,26 @@ func TestChartReview(t *testing.T) {
 			glucose(90), lab(Urea, 2.5, 2), lab(UrineOsmolality, 100, 1), lab(UrineSodium, 40, 1)), nil},
 		{"dilute urine but not hypotonic", RuleNotHypotonic, chartFacts(t, adult, map[float64]float64{2: 128}, glucose(612), lab(Urea, 6, 2),
 			lab(UrineOsmolality, 72, 1)), nil},
+		// 450 + 450 mL over two 3-h periods: 150 mL/h, 3,600 mL/day, above the
+		// adult 3 L/day polyuria definition (common practice; from memory).
+		{"concentrating defect with polyuria, no context", RuleConcentratingDefect, chartFacts(t, adult, map[float64]float64{2: 149},
+			lab(UrineOsmolality, 180, 1), urineVolume(450, 3, 0.5), urineVolume(450, 3, 3.5)), func(t *testing.T, fs []Finding) {
+			f, d := fs[0].Figures, fs[0].Detail
+			if f["urineOutputMlPerHour"] != 150 || f["polyuria"] != 1 || !strings.Contains(d, "about 3600 mL/day: polyuria") ||
+				!strings.Contains(d, "no neurosurgical procedure and no nephrogenic-DI drug") {
+				t.Errorf("%v\n%s", f, d)
+			}
+		}},
+		{"concentrating defect after pituitary surgery", RuleConcentratingDefect, func() Facts {
+			f := chartFacts(t, adult, map[float64]float64{2: 149}, lab(UrineOsmolality, 180, 1), urineVolume(300, 3, 0.5), urineVolume(300, 3, 3.5))
+			f.Procedures = []Procedure{{Reference: "Procedure/p", Codings: []Coding{{System: "http://snomed.info/sct", Code: "45368001"}}, At: chartAt.Add(-30 * time.Hour)}}
+			return f
+		}(), func(t *testing.T, fs []Finding) {
+			if d := fs[0].Detail; !strings.Contains(d, "pituitary surgery on ") || !strings.Contains(d, "central cause") ||
+				!strings.Contains(d, "not polyuria") {
+				t.Errorf("%s", d)
+			}
+		}},
 		{"concentrating defect", RuleConcentratingDefect, chartFacts(t, adult, map[float64]float64{2: 149}, lab(SerumOsmolality, 305, 2), lab(UrineOsmolality, 180, 1)), nil},
 		{"concentrated urine", "", chartFacts(t, adult, map[float64]float64{2: 147}, lab(UrineOsmolality, 650, 1)), nil},
 		{"normal chart", "", chartFacts(t, adult, map[float64]float64{30: 139, 2: 140}, normalK), nil},
