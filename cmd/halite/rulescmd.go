@@ -74,6 +74,13 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(tw, "concentrating defect\tsodium > %g or serum osmolality > %g with urine osmolality < %g\n",
 		cr.ConcentratingDefect.SodiumAbove, cr.ConcentratingDefect.SerumOsmolalityAbove, cr.ConcentratingDefect.UrineOsmolalityBelow)
+	ns := p.Neurosurgery
+	fmt.Fprintf(tw, "\n== after neurosurgery\n")
+	for _, c := range ns.Procedures {
+		fmt.Fprintf(tw, "%s\t%s %s (%s)\n", c.Factor, c.System, strings.Join(append(append([]string{}, c.Codes...), c.Prefixes...), ", "), c.Source)
+	}
+	fmt.Fprintf(tw, "desmopressin flagged\twithin %g days, sodium below %g or a fall of %g in 24 h\n", ns.WindowDays, ns.SodiumBelow, ns.FallIn24hAtLeast)
+	fmt.Fprintf(tw, "source\t%s\n", ns.Source)
 	sp := p.Suppression
 	fmt.Fprintf(tw, "\n== repeats held back (suppression)\n")
 	fmt.Fprintf(tw, "selection, then signing	within %g min, unchanged (%g + %g × value) and no higher indicator\n",
