@@ -17,6 +17,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"time"
 
@@ -70,6 +71,13 @@ type DB struct {
 	stopCounts chan struct{}
 	countsDone chan struct{}
 	stopOnce   sync.Once
+	// forgetMu guards toForget: the cards of writes that outlived their
+	// calls, marked not returned at the end of the next batch (so after
+	// the write, the writer being FIFO); wakePending is set while a job to
+	// run such a batch is on its way.
+	forgetMu    sync.Mutex
+	toForget    []CardRecord
+	wakePending atomic.Bool
 }
 
 // Errors of the write path.
@@ -554,11 +562,30 @@ func (s *DB) commit(batch []job) {
 				break
 			}
 		}
+		// The cards of writes that outlived their calls, after this batch's
+		// own records (one of them may be such a write).
+		forget := s.takeForget()
+		if err == nil && len(forget) > 0 {
+			if _, err = tx.ExecContext(ctx, `SAVEPOINT forget`); err == nil {
+				if ferr := s.markNotReturned(ctx, tx, forget); ferr != nil {
+					_, err = tx.ExecContext(ctx, `ROLLBACK TO SAVEPOINT forget`)
+					if s.opt.Log != nil {
+						s.opt.Log.Warn("cards of a stalled write not yet marked as not returned", "cards", len(forget), "error", ferr.Error())
+					}
+					s.putBackForget(forget)
+					forget = nil
+				}
+				if err == nil {
+					_, err = tx.ExecContext(ctx, `RELEASE SAVEPOINT forget`)
+				}
+			}
+		}
 		if err == nil {
 			err = tx.Commit()
 		}
 		if err != nil {
 			tx.Rollback()
+			s.putBackForget(forget)
 		}
 	}
 	err = stalled(ctx, err)
@@ -630,7 +657,10 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 		// The caller answers 503 without these cards, but the write may
 		// still commit: mark them not returned once it has, so no later
 		// call takes them for cards the clinician saw.
-		go s.forget(cards)
+		s.forgetMu.Lock()
+		s.toForget = append(s.toForget, cards...)
+		s.forgetMu.Unlock()
+		s.wakeForForget()
 	}
 	return err
 }
@@ -639,27 +669,54 @@ func (s *DB) LogCards(ctx context.Context, cards []CardRecord) error {
 // that made them (answered 503): never shown, they hold nothing back.
 const NotReturned = "not-returned"
 
-// forget marks cards not returned and removes them from card_latest,
-// queued behind the stalled write that logged them (the writer is FIFO).
-func (s *DB) forget(cards []CardRecord) {
-	ctx, cancel := context.WithTimeout(context.Background(), 4*s.opt.CommitTimeout)
-	defer cancel()
-	err := s.do(ctx, func(ctx context.Context, tx *sql.Tx) error {
-		for _, c := range cards {
-			if _, err := tx.ExecContext(ctx, s.dialect.bind(`UPDATE card_log SET suppressed = ? WHERE card_uuid = ? AND suppressed = ''`), NotReturned, c.UUID); err != nil {
-				return err
-			}
-			if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM card_latest WHERE patient_hash = ? AND service = ? AND issuer = ? AND tenant = ?
-				AND rule = ? AND subject = ? AND moment = ? AND created_at = ?`),
-				c.PatientHash, c.Service, c.Issuer, c.Tenant, c.Rule, c.Subject, c.Moment, c.At.UTC().Format(tsFormat)); err != nil {
-				return err
-			}
-		}
-		return nil
-	})
-	if err != nil && s.opt.Log != nil {
-		s.opt.Log.Warn("cards of a stalled write not marked as not returned", "cards", len(cards), "error", err.Error())
+// wakeForForget queues one empty job, so that a batch runs and marks the
+// cards waiting in toForget even when no call writes; one at a time, and
+// none needed if a batch runs first anyway.
+func (s *DB) wakeForForget() {
+	if !s.wakePending.CompareAndSwap(false, true) {
+		return
 	}
+	go func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 4*s.opt.CommitTimeout)
+		defer cancel()
+		if err := s.do(ctx, func(context.Context, *sql.Tx) error { return nil }); err != nil {
+			s.wakePending.Store(false) // the next stalled write tries again
+		}
+	}()
+}
+
+// takeForget empties toForget.
+func (s *DB) takeForget() []CardRecord {
+	s.forgetMu.Lock()
+	defer s.forgetMu.Unlock()
+	cards := s.toForget
+	s.toForget = nil
+	s.wakePending.Store(false)
+	return cards
+}
+
+// putBackForget returns cards to toForget after a batch that could not
+// mark them.
+func (s *DB) putBackForget(cards []CardRecord) {
+	s.forgetMu.Lock()
+	s.toForget = append(s.toForget, cards...)
+	s.forgetMu.Unlock()
+}
+
+// markNotReturned marks cards not returned and removes them from
+// card_latest, in tx.
+func (s *DB) markNotReturned(ctx context.Context, tx *sql.Tx, cards []CardRecord) error {
+	for _, c := range cards {
+		if _, err := tx.ExecContext(ctx, s.dialect.bind(`UPDATE card_log SET suppressed = ? WHERE card_uuid = ? AND suppressed = ''`), NotReturned, c.UUID); err != nil {
+			return err
+		}
+		if _, err := tx.ExecContext(ctx, s.dialect.bind(`DELETE FROM card_latest WHERE patient_hash = ? AND service = ? AND issuer = ? AND tenant = ?
+			AND rule = ? AND subject = ? AND moment = ? AND created_at = ?`),
+			c.PatientHash, c.Service, c.Issuer, c.Tenant, c.Rule, c.Subject, c.Moment, c.At.UTC().Format(tsFormat)); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // logCards writes cards and their card_latest entries in one commit.
@@ -922,6 +979,14 @@ func (s *DB) Close() error {
 	s.stopOnce.Do(func() {
 		close(s.stopCounts)
 		<-s.countsDone
+		s.forgetMu.Lock()
+		pending := len(s.toForget) > 0
+		s.forgetMu.Unlock()
+		if pending { // a last batch marks them
+			ctx, cancel := context.WithTimeout(context.Background(), 2*s.opt.CommitTimeout)
+			s.do(ctx, func(context.Context, *sql.Tx) error { return nil })
+			cancel()
+		}
 	})
 	s.mu.Lock()
 	if s.closed {
