@@ -558,10 +558,10 @@ func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
 	switch {
 	case neuro && len(drugs) > 0:
 		fmt.Fprintf(&b, "- Which way the data lean: both ways — %s on %s points to a central cause (vasopressin deficiency), "+
-			"the drugs above to a nephrogenic one\n", ctx.What, ctx.Procedure.At.UTC().Format("2006-01-02"))
+			"the drugs above to a nephrogenic one\n", ctx.What, ctx.Procedure.At.In(r.displayZone()).Format("2006-01-02"))
 	case neuro:
 		fmt.Fprintf(&b, "- Which way the data lean: %s on %s points to a central cause (vasopressin deficiency)\n",
-			ctx.What, ctx.Procedure.At.UTC().Format("2006-01-02"))
+			ctx.What, ctx.Procedure.At.In(r.displayZone()).Format("2006-01-02"))
 	case len(drugs) > 0:
 		b.WriteString("- Which way the data lean: the drugs above point to a nephrogenic cause (vasopressin resistance)\n")
 	default:

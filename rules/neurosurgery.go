@@ -115,17 +115,18 @@ func (r *Ruleset) retentionSigns(f Facts) (string, map[string]float64, bool) {
 // (what), in context ctx, for the reasons given.
 func (r *Ruleset) neurosurgeryFinding(f Facts, what string, ctx neurosurgicalContext, why string, fig map[string]float64) Finding {
 	n := r.policy.Neurosurgery
-	// The postoperative day clinicians count: calendar days since the
-	// procedure's date (UTC), the day of surgery being day 0.
-	y1, m1, d1 := ctx.Procedure.At.UTC().Date()
-	y2, m2, d2 := ctx.Procedure.At.UTC().Add(time.Duration(ctx.Days * float64(24*time.Hour))).Date()
+	// The postoperative day clinicians count: calendar days, in the display
+	// zone, since the procedure's date, the day of surgery being day 0.
+	zone := r.displayZone()
+	y1, m1, d1 := ctx.Procedure.At.In(zone).Date()
+	y2, m2, d2 := ctx.Procedure.At.Add(time.Duration(ctx.Days * float64(24*time.Hour))).In(zone).Date()
 	days := math.Round(time.Date(y2, m2, d2, 0, 0, 0, 0, time.UTC).Sub(time.Date(y1, m1, d1, 0, 0, 0, 0, time.UTC)).Hours() / 24)
 	fig["daysSinceProcedure"] = days
 	rule := r.cardRule(RuleDesmopressinAfterNeurosurgery)
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
 	fmt.Fprintf(&b, "- Desmopressin: %s\n", what)
-	fmt.Fprintf(&b, "- %s on %s (%s), day %g after it\n", capitalise(ctx.What), ctx.Procedure.At.UTC().Format("2006-01-02"), ctx.Procedure.Reference, days)
+	fmt.Fprintf(&b, "- %s on %s (%s), day %g after it\n", capitalise(ctx.What), ctx.Procedure.At.In(zone).Format("2006-01-02"), ctx.Procedure.Reference, days)
 	fmt.Fprintf(&b, "- Now: %s\n", why)
 	if u, ok := latestWithin(f.Labs[UrineOsmolality], f.At, r.policy.ChartReview.LabPairHours); ok {
 		fig["urineOsmolality"] = u.Value
@@ -169,4 +170,12 @@ func (r *Ruleset) desmopressinAfterNeurosurgery(c chart) (Finding, bool) {
 		return Finding{}, false
 	}
 	return r.neurosurgeryFinding(c.f, strings.Join(orders, "; "), ctx, why, fig), true
+}
+
+// displayZone is the zone card text writes dates in (UTC unless set).
+func (r *Ruleset) displayZone() *time.Location {
+	if r.display.Zone == nil {
+		return time.UTC
+	}
+	return r.display.Zone
 }

@@ -80,3 +80,30 @@ func TestDesmopressinAfterNeurosurgery(t *testing.T) {
 		})
 	}
 }
+
+// TestPostoperativeDayInTheDisplayZone: the day after surgery is counted
+// in calendar days of the display zone: surgery at 02:00 UTC on 14 Nov is
+// 21:00 on 13 Nov in New York, so 20 Nov 08:00 UTC is day 6 in UTC and
+// day 7 there.
+func TestPostoperativeDayInTheDisplayZone(t *testing.T) {
+	ny, err := time.LoadLocation("America/New_York")
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := chartFacts(t, "1981-05-20", map[float64]float64{26: 139, 2: 133})
+	f.Procedures = []Procedure{{Reference: "Procedure/p", Codings: []Coding{{System: "http://snomed.info/sct", Code: "45368001"}},
+		At: time.Date(2026, 11, 14, 2, 0, 0, 0, time.UTC)}}
+	f.Medications = []MedicationOrder{{Reference: "MedicationRequest/d", Status: "active", Medication: Medication{Text: "desmopressin 0.1 mg tablet"}}}
+	for zone, want := range map[*time.Location]float64{nil: 6, ny: 7} {
+		rs := loadRuleset(t).WithDisplay(Display{Zone: zone})
+		var got float64
+		for _, fd := range rs.Evaluate(ChartReview, f) {
+			if fd.Rule == RuleDesmopressinAfterNeurosurgery {
+				got = fd.Figures["daysSinceProcedure"]
+			}
+		}
+		if got != want {
+			t.Errorf("zone %v: day %g, want %g", zone, got, want)
+		}
+	}
+}
