@@ -331,14 +331,22 @@ func (r *Ruleset) WithDisplay(d Display) *Ruleset {
 	return &c
 }
 
+// displayZone is the zone card text writes dates in (UTC unless set).
+func (r *Ruleset) displayZone() *time.Location {
+	if r.display.Zone == nil {
+		return time.UTC
+	}
+	return r.display.Zone
+}
+
 // utcStamp matches the times stamp writes.
 var utcStamp = regexp.MustCompile(`\d{4}-\d{2}-\d{2} \d{2}:\d{2} UTC`)
 
 // localTimes rewrites every time in s into the display zone, with its date
 // and the zone's name ("2026-11-20 06:00 CET").
 func (r *Ruleset) localTimes(s string) string {
-	zone := r.display.Zone
-	if zone == nil || zone == time.UTC {
+	zone := r.displayZone()
+	if zone == time.UTC {
 		return s
 	}
 	return utcStamp.ReplaceAllStringFunc(s, func(m string) string {

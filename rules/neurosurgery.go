@@ -171,11 +171,3 @@ func (r *Ruleset) desmopressinAfterNeurosurgery(c chart) (Finding, bool) {
 	}
 	return r.neurosurgeryFinding(c.f, strings.Join(orders, "; "), ctx, why, fig), true
 }
-
-// displayZone is the zone card text writes dates in (UTC unless set).
-func (r *Ruleset) displayZone() *time.Location {
-	if r.display.Zone == nil {
-		return time.UTC
-	}
-	return r.display.Zone
-}
