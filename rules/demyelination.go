@@ -73,6 +73,11 @@ func UncheckedRisk(p DemyelinationRiskPolicy, f Facts, at time.Time) []string {
 	return out
 }
 
+// complete reports whether c names its factor, system, codes and source.
+func (c ConditionCodes) complete() bool {
+	return c.Factor != "" && c.System != "" && c.Source != "" && len(c.Codes)+len(c.Prefixes) > 0
+}
+
 func (c ConditionCodes) matches(code string) bool {
 	for _, x := range c.Codes {
 		if code == x {

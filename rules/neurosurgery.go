@@ -29,7 +29,7 @@ func (n NeurosurgeryPolicy) validate() error {
 		return fmt.Errorf("neurosurgery needs a window, a sodium threshold, a fall, procedures and a source")
 	}
 	for i, p := range n.Procedures {
-		if p.Factor == "" || p.System == "" || p.Source == "" || len(p.Codes)+len(p.Prefixes) == 0 {
+		if !p.complete() {
 			return fmt.Errorf("neurosurgery.procedures[%d] needs a name (factor), a system, codes and a source", i)
 		}
 	}
@@ -64,21 +64,12 @@ func (r *Ruleset) recentNeurosurgery(f Facts) (neurosurgicalContext, bool) {
 	return best, found
 }
 
-// codesMatch reports whether any coding is one of c's codes or prefixes.
+// codesMatch reports whether any coding is one of c's codes or prefixes
+// in c's system.
 func codesMatch(c ConditionCodes, cs []Coding) bool {
 	for _, x := range cs {
-		if x.System != c.System {
-			continue
-		}
-		for _, code := range c.Codes {
-			if x.Code == code {
-				return true
-			}
-		}
-		for _, pre := range c.Prefixes {
-			if strings.HasPrefix(x.Code, pre) {
-				return true
-			}
+		if x.System == c.System && c.matches(x.Code) {
+			return true
 		}
 	}
 	return false

@@ -271,7 +271,7 @@ func (p Policy) validateKinetics() error {
 		return fmt.Errorf("demyelinationRisk needs positive thresholds, a window and a source")
 	}
 	for i, c := range d.Conditions {
-		if c.Factor == "" || c.System == "" || c.Source == "" || len(c.Codes)+len(c.Prefixes) == 0 {
+		if !c.complete() {
 			return fmt.Errorf("demyelinationRisk.conditions[%d] needs a factor, a system, codes or prefixes, and a source", i)
 		}
 	}
