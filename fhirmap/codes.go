@@ -38,6 +38,7 @@ const (
 	molarMassUreaN      = 28.014  // the two N atoms of one urea molecule: BUN is reported as nitrogen mass
 	molarMassCreatinine = 113.120 // C4H7N3O
 	molarMassUrate      = 168.112 // C5H4N4O3
+	molarMassCortisol   = 362.466 // C21H30O5
 )
 
 // Sources of the codes and long names below, as noted beside each entry:
@@ -123,12 +124,21 @@ var loinc = map[string]measure{
 	"2828-2": {rules.UrinePotassium, "urine", 0, "Potassium [Moles/volume] in Urine", rules.Laboratory},        // §8
 	// Urine volumes over a collection period (the Observation's
 	// effectivePeriod; 3167-4 is 24 h by its name).
-	"9187-6":  {rules.UrineVolume, "urine", 0, "Urine output", rules.Laboratory},                                             // OMOP vocabulary (concept 3014315 "Urine output", LOINC), as mapped in a public concept table; from memory otherwise
-	"3167-4":  {rules.UrineVolume, "24 hour urine", 0, "Volume of 24 hour Urine", rules.Laboratory},                          // HL7 Order Catalog IG, example ObservationDefinition (code loinc#3167-4 "Volume of 24 hour Urine")
-	"3084-1":  {rules.Urate, "serum or plasma", molarMassUrate, "Urate [Mass/volume] in Serum or Plasma", rules.Laboratory},  // §8 (V-A)
-	"14933-6": {rules.Urate, "serum or plasma", molarMassUrate, "Urate [Moles/volume] in Serum or Plasma", rules.Laboratory}, // §8 (V-A)
-	"4544-3":  {rules.Haematocrit, "blood", 0, "Hematocrit [Volume Fraction] of Blood by Automated count", rules.Laboratory}, // §8 (V-B; LOINC's older name)
-	"20570-8": {rules.Haematocrit, "blood", 0, "Hematocrit [Volume Fraction] of Blood", rules.Laboratory},                    // §8 (V-B)
-	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                                                  // §8
-	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                                                  // §8
+	"9187-6":  {rules.UrineVolume, "urine", 0, "Urine output", rules.Laboratory},                                                      // OMOP vocabulary (concept 3014315 "Urine output", LOINC), as mapped in a public concept table; from memory otherwise
+	"3167-4":  {rules.UrineVolume, "24 hour urine", 0, "Volume of 24 hour Urine", rules.Laboratory},                                   // HL7 Order Catalog IG, example ObservationDefinition (code loinc#3167-4 "Volume of 24 hour Urine")
+	"3084-1":  {rules.Urate, "serum or plasma", molarMassUrate, "Urate [Mass/volume] in Serum or Plasma", rules.Laboratory},           // §8 (V-A)
+	"14933-6": {rules.Urate, "serum or plasma", molarMassUrate, "Urate [Moles/volume] in Serum or Plasma", rules.Laboratory},          // §8 (V-A)
+	"4544-3":  {rules.Haematocrit, "blood", 0, "Hematocrit [Volume Fraction] of Blood by Automated count", rules.Laboratory},          // §8 (V-B; LOINC's older name)
+	"20570-8": {rules.Haematocrit, "blood", 0, "Hematocrit [Volume Fraction] of Blood", rules.Laboratory},                             // §8 (V-B)
+	"3086-6":  {rules.UrineUrate, "urine", molarMassUrate, "Urate [Mass/volume] in Urine", rules.Laboratory},                          // §8 (V-A/V-C)
+	"14934-4": {rules.UrineUrate, "urine", molarMassUrate, "Urate [Moles/volume] in Urine", rules.Laboratory},                         // §8 (V-A pair of 3086-6)
+	"2161-8":  {rules.UrineCreatinine, "urine", molarMassCreatinine, "Creatinine [Mass/volume] in Urine", rules.Laboratory},           // §8 (V-B)
+	"14683-7": {rules.UrineCreatinine, "urine", molarMassCreatinine, "Creatinine [Moles/volume] in Urine", rules.Laboratory},          // MIRACUM conversion.tsv pair of 2161-8 (factor 11.31)
+	"2965-2":  {rules.UrineSpecificGravity, "urine", 0, "Specific gravity of Urine", rules.Laboratory},                                // several public lab-code tables (unit "1")
+	"5811-5":  {rules.UrineSpecificGravity, "urine", 0, "Specific gravity of Urine by Test strip", rules.PointOfCare},                 // a public urinalysis code table ("Specific Gravity"); long name from memory
+	"3016-3":  {rules.TSH, "serum or plasma", 0, "Thyrotropin [Units/volume] in Serum or Plasma", rules.Laboratory},                   // several public LOINC mappings agree on the long name
+	"2143-6":  {rules.Cortisol, "serum or plasma", molarMassCortisol, "Cortisol [Mass/volume] in Serum or Plasma", rules.Laboratory},  // MIRACUM conversion.tsv (pair 14675-3) and several public mappings
+	"14675-3": {rules.Cortisol, "serum or plasma", molarMassCortisol, "Cortisol [Moles/volume] in Serum or Plasma", rules.Laboratory}, // MIRACUM conversion.tsv pair of 2143-6; long name from memory
+	"29463-7": {rules.BodyWeight, "", 0, "Body weight", ""},                                                                           // §8
+	"8302-2":  {rules.BodyHeight, "", 0, "Body height", ""},                                                                           // §8
 }

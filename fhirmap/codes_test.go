@@ -91,6 +91,15 @@ func TestLOINCTable(t *testing.T) {
 		{"14933-6", "Urate [Moles/volume] in Serum or Plasma", rules.Urate, "serum or plasma", 168.112, rules.Laboratory},       // §8 (V-A)
 		{"4544-3", "Hematocrit [Volume Fraction] of Blood by Automated count", rules.Haematocrit, "blood", 0, rules.Laboratory}, // §8 (V-B, LOINC's older name)
 		{"20570-8", "Hematocrit [Volume Fraction] of Blood", rules.Haematocrit, "blood", 0, rules.Laboratory},                   // §8 (V-B)
+		{"3086-6", "Urate [Mass/volume] in Urine", rules.UrineUrate, "urine", 168.112, rules.Laboratory},                        // §8 (V-A/V-C)
+		{"14934-4", "Urate [Moles/volume] in Urine", rules.UrineUrate, "urine", 168.112, rules.Laboratory},                      // §8 (V-A pair)
+		{"2161-8", "Creatinine [Mass/volume] in Urine", rules.UrineCreatinine, "urine", 113.120, rules.Laboratory},              // §8 (V-B)
+		{"14683-7", "Creatinine [Moles/volume] in Urine", rules.UrineCreatinine, "urine", 113.120, rules.Laboratory},            // MIRACUM loinc-conversion data/conversion.tsv pair of 2161-8
+		{"2965-2", "Specific gravity of Urine", rules.UrineSpecificGravity, "urine", 0, rules.Laboratory},                       // public lab-code tables (several)
+		{"5811-5", "Specific gravity of Urine by Test strip", rules.UrineSpecificGravity, "urine", 0, rules.PointOfCare},        // a public urinalysis table; long name from memory
+		{"3016-3", "Thyrotropin [Units/volume] in Serum or Plasma", rules.TSH, "serum or plasma", 0, rules.Laboratory},          // several public LOINC mappings
+		{"2143-6", "Cortisol [Mass/volume] in Serum or Plasma", rules.Cortisol, "serum or plasma", 362.466, rules.Laboratory},   // MIRACUM pair 14675-3; public mappings
+		{"14675-3", "Cortisol [Moles/volume] in Serum or Plasma", rules.Cortisol, "serum or plasma", 362.466, rules.Laboratory}, // MIRACUM pair of 2143-6; long name from memory
 	}
 	seen := map[string]bool{}
 	for _, tt := range tests {

@@ -109,8 +109,12 @@ func (l LocalCode) measure() (measure, error) {
 		m.analyte, m.molarMass = rules.Urea, molarMassUreaN
 	case rules.Creatinine:
 		m.molarMass = molarMassCreatinine
-	case rules.Urate:
+	case rules.Urate, rules.UrineUrate:
 		m.molarMass = molarMassUrate
+	case rules.UrineCreatinine:
+		m.molarMass = molarMassCreatinine
+	case rules.Cortisol:
+		m.molarMass = molarMassCortisol
 	case rules.BodyWeight, rules.BodyHeight:
 		return measure{}, fmt.Errorf("analyte %q: body measurements are read by their LOINC codes only", l.Analyte)
 	}

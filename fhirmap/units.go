@@ -29,6 +29,14 @@ var unitSynonyms = map[string]string{
 	"mOsm/kg":      "mosm/kg",
 	"mosm/kg{H2O}": "mosm/kg",
 	"mOsm/kg{H2O}": "mosm/kg",
+	"mIU/L":        "m[IU]/L",
+	"mU/L":         "m[IU]/L",
+	"uIU/mL":       "u[IU]/mL",
+	"µIU/mL":       "u[IU]/mL",
+	"μIU/mL":       "u[IU]/mL",
+	"ug/dl":        "ug/dL",
+	"µg/dL":        "ug/dL",
+	"μg/dL":        "ug/dL",
 }
 
 // toCanonical converts value v in UCUM unit u, for LOINC measure m, to the
@@ -58,7 +66,39 @@ func toCanonical(m measure, v float64, u string) (float64, error) {
 		case "L/L", "1":
 			return v * 100, nil
 		}
-	case rules.Creatinine, rules.Urate:
+	case rules.UrineCreatinine:
+		switch u {
+		case "mmol/L":
+			return v, nil
+		case "umol/L":
+			return v / 1000, nil
+		case "mg/dL":
+			return v * 10 / m.molarMass, nil
+		}
+	case rules.UrineSpecificGravity:
+		switch u {
+		case "1", "{SG}", "":
+			return v, nil
+		}
+	case rules.TSH:
+		switch u {
+		case "m[IU]/L", "u[IU]/mL":
+			return v, nil
+		}
+	case rules.Cortisol:
+		switch u {
+		case "nmol/L":
+			return v, nil
+		case "ug/dL":
+			// µg/dL → µg/L (×10) → µmol/L (÷ g/mol) → nmol/L (×1000)
+			return v * 10 / m.molarMass * 1000, nil
+		}
+	case rules.Copeptin:
+		switch u {
+		case "pmol/L":
+			return v, nil
+		}
+	case rules.Creatinine, rules.Urate, rules.UrineUrate:
 		switch u {
 		case "umol/L":
 			return v, nil

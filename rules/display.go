@@ -36,10 +36,17 @@ type precision struct {
 //	serum and urine osmolality                                    mOsm/kg  whole
 //	body weight                                                   kg       1 decimal
 //	body height                                                   cm       1 decimal
+//	uric acid (serum, urine), cortisol                            µmol/L, nmol/L  whole
+//	urine specific gravity                                        1        3 decimals
+//	TSH                                                           mIU/L    2 decimals
 func analytePrecision(a Analyte) precision {
 	switch a {
-	case Creatinine, SerumOsmolality, UrineOsmolality, Urate:
+	case Creatinine, SerumOsmolality, UrineOsmolality, Urate, UrineUrate, Cortisol:
 		return precision{0, false}
+	case UrineSpecificGravity:
+		return precision{3, true}
+	case TSH:
+		return precision{2, false}
 	default:
 		return precision{1, false}
 	}

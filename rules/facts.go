@@ -33,11 +33,24 @@ const (
 	// salt wasting).
 	Urate       Analyte = "urate"
 	Haematocrit Analyte = "haematocrit"
+	// UrineUrate and UrineCreatinine, with their serum values, give the
+	// fractional excretion of urate.
+	UrineUrate      Analyte = "urine-urate"
+	UrineCreatinine Analyte = "urine-creatinine"
+	// UrineSpecificGravity is dimensionless (water = 1.000).
+	UrineSpecificGravity Analyte = "urine-specific-gravity"
+	// TSH and Cortisol are the thyroid and adrenal results the SIADH
+	// criteria ask for; Copeptin the vasopressin surrogate (read only
+	// through a site's own codes: no LOINC code for it was verified).
+	TSH      Analyte = "tsh"
+	Cortisol Analyte = "cortisol"
+	Copeptin Analyte = "copeptin"
 )
 
 // analyteOrder is the order Analytes reports.
 var analyteOrder = [...]Analyte{Sodium, Potassium, Glucose, Urea, Creatinine, SerumOsmolality,
-	UrineOsmolality, UrineSodium, UrinePotassium, UrineVolume, BodyWeight, BodyHeight, Urate, Haematocrit}
+	UrineOsmolality, UrineSodium, UrinePotassium, UrineVolume, BodyWeight, BodyHeight, Urate, Haematocrit,
+	UrineUrate, UrineCreatinine, UrineSpecificGravity, TSH, Cortisol, Copeptin}
 
 // Analytes returns every analyte halite maps, in a stable order.
 func Analytes() []Analyte { return analyteOrder[:] }
@@ -45,8 +58,16 @@ func Analytes() []Analyte { return analyteOrder[:] }
 // CanonicalUnit is the UCUM unit in which values of a are held.
 func CanonicalUnit(a Analyte) string {
 	switch a {
-	case Creatinine, Urate:
+	case Creatinine, Urate, UrineUrate:
 		return "umol/L"
+	case UrineSpecificGravity:
+		return "1"
+	case TSH:
+		return "m[IU]/L"
+	case Cortisol:
+		return "nmol/L"
+	case Copeptin:
+		return "pmol/L"
 	case Haematocrit:
 		return "%"
 	case SerumOsmolality, UrineOsmolality:
