@@ -331,6 +331,18 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		return Finding{}, false
 	}
 	fig := map[string]float64{"urineOsmolality": c.urineOs.Value, "urineSodium": c.urineNa.Value}
+	// The volume-status lines come after the ratio, but a brain-injury
+	// context whose data lean towards salt wasting withholds the
+	// restriction volume the ratio would give.
+	var vol strings.Builder
+	haematocritRising := r.volumeStatusLines(&vol, c, fig)
+	context := r.brainInjuryContext(c.f)
+	r.feUrate(&vol, c, fig, len(context) > 0)
+	r.endocrineLines(&vol, c, fig)
+	var lean volumeLean
+	if len(context) > 0 {
+		lean = r.brainInjuryLines(&vol, c, fig, context, haematocritRising)
+	}
 	fmt.Fprintf(&b, "- Urine osmolality %s mOsm/kg (%s), urine sodium %s mmol/L (%s)\n", show(UrineOsmolality, c.urineOs.Value),
 		stamp(c.urineOs.At), show(UrineSodium, c.urineNa.Value), stamp(c.urineNa.At))
 	fmt.Fprintf(&b, "- Criteria: effective osmolality < %g, urine osmolality > %g, urine sodium > %g (%s)\n",
@@ -344,7 +356,12 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		ratioText := fmt.Sprintf("- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s", show(UrineSodium, c.urineNa.Value),
 			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio))
 		child, _ := r.isChild(c.f)
-		switch why := r.restrictionWithheld(c); {
+		why := r.restrictionWithheld(c)
+		if why == "" && lean.saltWasting() {
+			why = "in a brain-injury context the data lean towards salt wasting, where restricting fluid can deepen the volume depletion (" +
+				r.policy.BrainInjury.RestrictionCautionSrc + ")"
+		}
+		switch {
 		case why != "":
 			fmt.Fprintf(&b, "%s (%s); no restriction volume is given: %s\n", ratioText, cp.Restriction.Scheme, why)
 		case child:
@@ -357,9 +374,13 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 	} else {
 		b.WriteString("- Urine potassium not available: the urine-to-plasma electrolyte ratio was not computed\n")
 	}
-	r.volumeStatusLines(&b, c, fig)
-	b.WriteString("\n**Labs cannot show**: volume status (clinical euvolaemia is a criterion), thyroid and adrenal function, " +
-		"recent diuretic use, and the differential with renal or cerebral salt wasting; these must be assessed clinically " +
+	b.WriteString(vol.String())
+	if lean.saltWasting() {
+		summary = fmt.Sprintf("SIADH-like labs after brain injury (sodium %s, urine sodium %s), but the data lean towards salt wasting",
+			show(Sodium, c.latest.Value), show(UrineSodium, c.urineNa.Value))
+	}
+	b.WriteString("\n**Labs cannot show**: volume status (clinical euvolaemia is a criterion), whether the thyroid and adrenal " +
+		"results are normal for this patient, recent diuretic use, and the differential with renal or cerebral salt wasting; these must be assessed clinically " +
 		"before the pattern is called SIADH.")
 	if drugs := r.activeDrugs(c.f, EffectHyponatremia); len(drugs) > 0 {
 		fmt.Fprintf(&b, " Active drugs that can cause it: %s.", strings.Join(drugs, ", "))
@@ -369,7 +390,8 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 
 // volumeStatusLines writes the uric acid and haematocrit results near the
 // sodium that bear on SIADH against salt wasting, and what they lean to.
-func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]float64) {
+// It reports whether the haematocrit rose by the policy amount.
+func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]float64) bool {
 	cp := r.policy.ChartReview
 	vs := cp.VolumeStatus
 	if u := nearest(c.f.Labs[Urate], *c.latest, cp.LabPairHours, c.f); u != nil {
@@ -387,7 +409,7 @@ func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]
 	latest, ok := latestWithin(hcts, c.f.At, cp.LabPairHours*2)
 	if !ok {
 		fmt.Fprintf(b, "- Haematocrit: no result within %g h\n", cp.LabPairHours*2)
-		return
+		return false
 	}
 	fig["haematocrit"] = latest.Value
 	line := fmt.Sprintf("- Haematocrit %s%% (%s%s, %s)", show(Haematocrit, latest.Value), measuredBy(latest), stamp(latest.At), latest.Source)
@@ -404,9 +426,12 @@ func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]
 		if rise >= vs.HaematocritRiseAtLeast {
 			line += fmt.Sprintf(": a rise of %s points, which leans towards volume depletion (salt wasting) rather than SIADH (%s)",
 				show(Haematocrit, rise), vs.HaematocritSource)
+			b.WriteString(line + "\n")
+			return true
 		}
 	}
 	b.WriteString(line + "\n")
+	return false
 }
 
 // diluteUrine is the finding for a hypotonic hyponatremia whose urine is

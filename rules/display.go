@@ -72,6 +72,7 @@ var (
 	orderMl    = precision{1, false} // an ordered volume or dose, mL
 	infusateNa = precision{1, false} // an infusate's sodium or potassium, mmol/L
 	doseCount  = precision{0, false} // a number of doses
+	percent    = precision{1, true}  // a fractional excretion or a relative change, %
 )
 
 // show writes a measured value of analyte a.

@@ -98,6 +98,7 @@ type Policy struct {
 	UrineLosses       UrineLossPolicy         `json:"urineLosses"`
 	Suppression       SuppressionPolicy       `json:"suppression"`
 	Neurosurgery      NeurosurgeryPolicy      `json:"neurosurgery"`
+	BrainInjury       BrainInjuryPolicy       `json:"brainInjury"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -186,6 +187,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.Neurosurgery.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.BrainInjury.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.Suppression.validate(); err != nil {

@@ -81,6 +81,15 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(tw, "desmopressin flagged\twithin %g days, sodium below %g or a fall of %g in 24 h\n", ns.WindowDays, ns.SodiumBelow, ns.FallIn24hAtLeast)
 	fmt.Fprintf(tw, "source\t%s\n", ns.Source)
+	bi := p.BrainInjury
+	fmt.Fprintf(tw, "\n== brain-injury context (SIADH against salt wasting)\n")
+	for _, c := range bi.Conditions {
+		fmt.Fprintf(tw, "%s\t%s %s (%s)\n", c.Factor, c.System, strings.Join(append(append([]string{}, c.Codes...), c.Prefixes...), ", "), c.Source)
+	}
+	fmt.Fprintf(tw, "weight against sodium\t%g kg over %g h (%s)\n", bi.WeightChangeAtLeastKg, bi.WeightWindowHours, bi.WeightSource)
+	fmt.Fprintf(tw, "fractional excretion of urate\tnormal %g-%g %%, serum within %g h of the urine (%s)\n", bi.FEUrateNormalAbove,
+		bi.FEUrateNormalBelow, bi.UrinePairHours, bi.FEUrateSource)
+	fmt.Fprintf(tw, "thyroid and adrenal results\twithin %g days (%s)\n", bi.EndocrineMaxAgeDays, bi.EndocrineSource)
 	sp := p.Suppression
 	fmt.Fprintf(tw, "\n== repeats held back (suppression)\n")
 	fmt.Fprintf(tw, "selection, then signing	within %g min, unchanged (%g + %g × value) and no higher indicator\n",
