@@ -97,8 +97,8 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 		case "Procedure":
 			m.procedure(r)
 		case "MedicationAdministration":
-			if o, ok := m.medicationAdministration(r); ok {
-				m.facts.Infusing = append(m.facts.Infusing, o)
+			if o, list := m.medicationAdministration(r); list != nil {
+				*list = append(*list, o)
 			}
 		case "Medication":
 		default:

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"strconv"
 	"strings"
+	"time"
 
 	"github.com/halite-cds/halite/rules"
 	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
@@ -218,27 +219,49 @@ type medicationAdministrationFields struct {
 	Subject                   fhir.Reference                       `json:"subject"`
 	Request                   *fhir.Reference                      `json:"request"`
 	Dosage                    *fhir.MedicationAdministrationDosage `json:"dosage"`
+	EffectiveDateTime         *string                              `json:"effectiveDateTime"`
+	EffectivePeriod           *fhir.Period                         `json:"effectivePeriod"`
 }
 
-// medicationAdministration reads an in-progress MedicationAdministration as
-// an infusion running now: its medication, route and rate (FHIR R4
-// MedicationAdministration.dosage.rate[x]). ok is false, with the reason
-// counted, for one that is not in progress or not the patient's.
-func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, bool) {
+// medicationAdministration reads a MedicationAdministration: an in-progress
+// one as an infusion running now, with its medication, route and rate (FHIR
+// R4 MedicationAdministration.dosage.rate[x]); a completed one as a dose
+// given, with its time (effectiveDateTime, or the end of effectivePeriod).
+// It returns the order and the list it belongs to; none, with the reason
+// counted, for another status, one that is not the patient's, or a given
+// dose without a time.
+func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, *[]rules.MedicationOrder) {
 	var ma medicationAdministrationFields
 	if err := DecodeJSON(r.Raw, &ma); err != nil {
 		m.reject(r, "", "invalid resource: "+err.Error())
-		return rules.MedicationOrder{}, false
+		return rules.MedicationOrder{}, nil
 	}
-	if ma.Status != "in-progress" {
-		m.unused[[2]string{r.Type, fmt.Sprintf("status %q is not in-progress", ma.Status)}]++
-		return rules.MedicationOrder{}, false
+	list := &m.facts.Infusing
+	switch ma.Status {
+	case "in-progress":
+	case "completed":
+		list = &m.facts.Given
+	default:
+		m.unused[[2]string{r.Type, fmt.Sprintf("status %q is neither in-progress nor completed", ma.Status)}]++
+		return rules.MedicationOrder{}, nil
 	}
 	if !m.refersToPatient(str(ma.Subject.Reference), r) {
 		m.reject(r, "", "subject is not the patient in context")
-		return rules.MedicationOrder{}, false
+		return rules.MedicationOrder{}, nil
 	}
 	o := rules.MedicationOrder{Reference: r.Ref(), Status: ma.Status}
+	if ma.Status == "completed" {
+		at, err := givenAt(ma)
+		if err != nil {
+			m.reject(r, "", err.Error())
+			return rules.MedicationOrder{}, nil
+		}
+		if at.After(m.in.At) {
+			m.reject(r, "", "given after the evaluation time")
+			return rules.MedicationOrder{}, nil
+		}
+		o.GivenAt = &at
+	}
 	o.Medication = m.medicationOf(r, ma.MedicationCodeableConcept, ma.MedicationReference)
 	if ma.Request != nil && ma.Request.Reference != nil {
 		if t, err := m.refs.Resolve(*ma.Request.Reference, r); err == nil {
@@ -250,7 +273,29 @@ func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, bo
 		o.Dose = quantity(d.Dose)
 		o.Rate, o.RateMlPerHour = rateOf(d.RateQuantity, d.RateRatio)
 	}
-	return o, true
+	return o, list
+}
+
+// givenAt is when a completed administration was given: its
+// effectiveDateTime, or the end of its effectivePeriod (the start when it
+// has no end); a full date and time is required.
+func givenAt(ma medicationAdministrationFields) (time.Time, error) {
+	var s string
+	switch p := ma.EffectivePeriod; {
+	case ma.EffectiveDateTime != nil:
+		s = *ma.EffectiveDateTime
+	case p != nil && p.End != nil:
+		s = *p.End
+	case p != nil && p.Start != nil:
+		s = *p.Start
+	default:
+		return time.Time{}, fmt.Errorf("a completed administration has no effective time")
+	}
+	t, hasTime, err := ParseDateTime(s)
+	if err != nil || !hasTime {
+		return time.Time{}, fmt.Errorf("effective time %q is not a date and time", s)
+	}
+	return t, nil
 }
 
 // boundsEnd is the end of the first dosage's timing.repeat.boundsPeriod, if

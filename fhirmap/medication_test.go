@@ -3,6 +3,7 @@ package fhirmap
 import (
 	"encoding/json"
 	"fmt"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -359,7 +360,27 @@ func TestMapMedicationAdministration(t *testing.T) {
 		o.Medication.Source != rules.FromCodeableConcept {
 		t.Errorf("administration %+v", o)
 	}
-	if len(f.Rejected) != 1 || f.Rejected[0].Source != "1 × MedicationAdministration" || f.Rejected[0].Reason != `status "completed" is not in-progress` {
-		t.Errorf("a completed administration is not accounted for: %+v", f.Rejected)
+	// The completed one is a dose given, at the end of its period (its
+	// start when it has none); another status is counted as unused.
+	if len(f.Given) != 1 || f.Given[0].Reference != "MedicationAdministration/done" || f.Given[0].GivenAt == nil ||
+		!f.Given[0].GivenAt.Equal(time.Date(2026, 11, 20, 6, 0, 0, 0, time.UTC)) {
+		t.Errorf("given %+v", f.Given)
+	}
+	f = mapResources(t, ma("stopped", "stopped", ""),
+		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"notime","status":"completed","subject":{"reference":"Patient/p1"},`+nsConcept+`}`),
+		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"dateonly","status":"completed","subject":{"reference":"Patient/p1"},"effectiveDateTime":"2026-11-19",`+nsConcept+`}`),
+		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"later","status":"completed","subject":{"reference":"Patient/p1"},"effectivePeriod":{"start":"2026-11-19T06:00:00Z","end":"2026-11-30T06:00:00Z"},`+nsConcept+`}`))
+	var reasons []string
+	for _, r := range f.Rejected {
+		reasons = append(reasons, r.Source+": "+r.Reason)
+	}
+	want := []string{`1 × MedicationAdministration: status "stopped" is neither in-progress nor completed`,
+		"MedicationAdministration/notime: a completed administration has no effective time",
+		`MedicationAdministration/dateonly: effective time "2026-11-19" is not a date and time`,
+		"MedicationAdministration/later: given after the evaluation time"}
+	slices.Sort(reasons)
+	slices.Sort(want)
+	if len(f.Given) != 0 || !slices.Equal(reasons, want) {
+		t.Errorf("given %+v, rejected %q, want %q", f.Given, reasons, want)
 	}
 }

@@ -209,7 +209,9 @@ func (s *BundleStore) match(ref string) (out []stored, read bool, err error) {
 		case "_sort":
 			sortBy = strings.TrimPrefix(v, "-")
 			sortDesc = strings.HasPrefix(v, "-")
-			if sortBy != "date" {
+			// "effective-time" is MedicationAdministration's date (FHIR R4
+			// search parameters); both sort by the resource's effective time.
+			if sortBy != "date" && sortBy != "effective-time" {
 				return nil, false, fmt.Errorf("query %s: _sort %q is not supported", typ, v)
 			}
 		default:

@@ -106,13 +106,13 @@ func NewRegistry(codes *fhirmap.Codes) *Registry {
 				"body size, active medications and conditions improve the review.",
 			Check: rules.ChartReview,
 			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize,
-				k.medications, k.conditions, k.procedures},
+				k.medications, k.conditions, k.procedures, k.givenDoses},
 		},
 	}}
 }
 
 type keySet struct {
-	patient, sodium, chemistry, urine, bodySize, medications, administrations, conditions, procedures PrefetchKey
+	patient, sodium, chemistry, urine, bodySize, medications, administrations, conditions, procedures, givenDoses PrefetchKey
 }
 
 // prefetchKeys builds the templates. They use only the restricted query
@@ -144,6 +144,9 @@ func prefetchKeys(codes *fhirmap.Codes) keySet {
 		administrations: PrefetchKey{Key: "administrations",
 			Template: "MedicationAdministration?patient={{context.patientId}}&status=in-progress",
 			What:     "infusions in progress"},
+		givenDoses: PrefetchKey{Key: "givenDoses",
+			Template: "MedicationAdministration?patient={{context.patientId}}&status=completed&_sort=-effective-time&_count=100",
+			What:     "doses given (completed administrations), for the desmopressin of a water deprivation test"},
 		procedures: PrefetchKey{Key: "procedures",
 			Template: "Procedure?patient={{context.patientId}}&status=completed",
 			What:     "completed procedures (pituitary surgery, craniotomy)"},

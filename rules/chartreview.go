@@ -59,9 +59,17 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 	c.urineNa = nearest(f.Labs[UrineSodium], l, cp.LabPairHours, f)
 	c.urineK = nearest(f.Labs[UrinePotassium], l, cp.LabPairHours, f)
 	var out []Finding
+	testRead := false
 	for _, judge := range []func(chart) (Finding, bool){r.desmopressinAfterNeurosurgery, r.overcorrection, r.hyperTooFast, r.profoundOrFalling,
-		r.notHypotonic, r.siadhPattern, r.concentratingDefect} {
-		if fd, ok := judge(c); ok {
+		r.notHypotonic, r.siadhPattern, r.waterDeprivationTest, r.concentratingDefect} {
+		fd, ok := judge(c)
+		// A water deprivation test read supersedes the concentrating-defect
+		// pattern its own results would show.
+		testRead = testRead || (ok && fd.Rule == RuleWaterDeprivationTest)
+		if ok && fd.Rule == RuleConcentratingDefect && testRead {
+			continue
+		}
+		if ok {
 			rule := r.cardRule(fd.Rule)
 			fd.Indicator = rule.Indicator
 			if fd.Figures == nil {

@@ -219,6 +219,8 @@ type MedicationOrder struct {
 	// ForRequest, for an administration, is the order it carries out
 	// (MedicationAdministration.request).
 	ForRequest string
+	// GivenAt, for a completed administration, is when the dose was given.
+	GivenAt *time.Time
 	// Replaces is the order this one replaces (priorPrescription, as
 	// "MedicationRequest/id" when the data holds it).
 	Replaces         string
@@ -262,7 +264,10 @@ type Facts struct {
 	Rejected    []Rejection
 	Medications []MedicationOrder // active orders already on the chart
 	// Infusing are in-progress MedicationAdministrations: what runs now.
-	Infusing    []MedicationOrder
+	Infusing []MedicationOrder
+	// Given are completed MedicationAdministrations: doses given, each
+	// with its time.
+	Given       []MedicationOrder
 	DraftOrders []MedicationOrder // orders being selected or signed
 	Conditions  []Condition
 	Procedures  []Procedure

@@ -99,6 +99,7 @@ type Policy struct {
 	Suppression       SuppressionPolicy       `json:"suppression"`
 	Neurosurgery      NeurosurgeryPolicy      `json:"neurosurgery"`
 	BrainInjury       BrainInjuryPolicy       `json:"brainInjury"`
+	WaterDeprivation  WaterDeprivationPolicy  `json:"waterDeprivation"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -190,6 +191,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.BrainInjury.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.WaterDeprivation.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.Suppression.validate(); err != nil {

@@ -90,6 +90,17 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	fmt.Fprintf(tw, "fractional excretion of urate\tnormal %g-%g %%, serum within %g h of the urine (%s)\n", bi.FEUrateNormalAbove,
 		bi.FEUrateNormalBelow, bi.UrinePairHours, bi.FEUrateSource)
 	fmt.Fprintf(tw, "thyroid and adrenal results\twithin %g days (%s)\n", bi.EndocrineMaxAgeDays, bi.EndocrineSource)
+	wd := p.WaterDeprivation
+	fmt.Fprintf(tw, "\n== water deprivation test\n")
+	fmt.Fprintf(tw, "a test is\tdesmopressin given in the last %g days after %d or more urine osmolalities in the %g h before it\n",
+		wd.ShowDays, wd.MinUrineResultsBefore, wd.DeprivationHours)
+	fmt.Fprintf(tw, "response\tthe highest urine osmolality within %g h of the dose\n", wd.AfterDoseHours)
+	fmt.Fprintf(tw, "adequate dehydration\tserum osmolality %g or sodium %g, or urine %g x serum (%s)\n", wd.AdequateSerumOsmolalityAtLeast,
+		wd.AdequateSodiumAtLeast, wd.ConcentratedRatio, wd.AdequateSource)
+	fmt.Fprintf(tw, "ranges of the rise\tunder %g %%, %g-%g %%, above %g %% (%s)\n", wd.NoResponseRiseBelow, wd.PartialCentralRiseAtLeast,
+		wd.CentralRiseAbove, wd.CentralRiseAbove, wd.CriteriaSource)
+	fmt.Fprintf(tw, "copeptin\tabove %g pmol/L at sodium %g or more (%s); unstimulated above %g (%s)\n", wd.Copeptin.PrimaryPolydipsiaAbove,
+		wd.Copeptin.StimulatedSodiumAtLeast, wd.Copeptin.StimulatedSource, wd.Copeptin.BaselineNephrogenicAbove, wd.Copeptin.BaselineSource)
 	sp := p.Suppression
 	fmt.Fprintf(tw, "\n== repeats held back (suppression)\n")
 	fmt.Fprintf(tw, "selection, then signing	within %g min, unchanged (%g + %g × value) and no higher indicator\n",
