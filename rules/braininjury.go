@@ -270,5 +270,8 @@ func (r *Ruleset) brainInjuryLines(b *strings.Builder, c chart, fig map[string]f
 		fmt.Fprintf(b, " (%s)", strings.Join(signs, ", "))
 	}
 	fmt.Fprintf(b, ". Salt wasting is treated with salt and water, SIADH with restriction (%s)\n", bi.SaltWastingSource)
+	if ctx, ok := r.recentNeurosurgery(c.f); ok {
+		b.WriteString(r.phaseLine(c.f, ctx, phaseRetention))
+	}
 	return lean
 }

@@ -254,6 +254,19 @@ type ChartReviewPolicy struct {
 		// recent charted rate) is polyuria.
 		PolyuriaAdultMlPerDay float64 `json:"polyuriaAdultMlPerDay"`
 		PolyuriaSource        string  `json:"polyuriaSource"`
+		// A child's polyuria is per body-surface area.
+		PolyuriaChildMlPerM2PerDay float64 `json:"polyuriaChildMlPerM2PerDay"`
+		// After neurosurgery: output above PostoperativeMlPerHourAbove in
+		// every charted period of the last PostoperativeHours.
+		PostoperativeMlPerHourAbove float64 `json:"postoperativeMlPerHourAbove"`
+		PostoperativeHours          float64 `json:"postoperativeHours"`
+		PostoperativeSource         string  `json:"postoperativeSource"`
+		// Without a urine osmolality, a specific gravity below this is
+		// dilute urine.
+		SpecificGravityBelow float64 `json:"specificGravityBelow"`
+		// A sodium that rose this much in 24 h counts as rising, when the
+		// urine is dilute and the output is polyuria.
+		SodiumRiseIn24hAtLeast float64 `json:"sodiumRiseIn24hAtLeast"`
 	} `json:"concentratingDefect"`
 	Restriction struct {
 		Scheme           string            `json:"scheme"`
@@ -281,8 +294,13 @@ func (c ChartReviewPolicy) validate() error {
 		"siadh.effectiveOsmolalityBelow": c.SIADH.EffectiveOsmolalityBelow, "siadh.urineOsmolalityAbove": c.SIADH.UrineOsmolalityAbove,
 		"siadh.urineSodiumAbove": c.SIADH.UrineSodiumAbove, "diluteUrine.urineOsmolalityBelow": c.DiluteUrine.UrineOsmolalityBelow,
 		"volumeStatus.urateBelow": c.VolumeStatus.UrateBelow, "concentratingDefect.polyuriaAdultMlPerDay": c.ConcentratingDefect.PolyuriaAdultMlPerDay, "volumeStatus.haematocritRiseAtLeast": c.VolumeStatus.HaematocritRiseAtLeast,
-		"concentratingDefect.urineOsmolalityBelow": c.ConcentratingDefect.UrineOsmolalityBelow,
-		"restriction.adultBSA":                     c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
+		"concentratingDefect.urineOsmolalityBelow":        c.ConcentratingDefect.UrineOsmolalityBelow,
+		"concentratingDefect.polyuriaChildMlPerM2PerDay":  c.ConcentratingDefect.PolyuriaChildMlPerM2PerDay,
+		"concentratingDefect.postoperativeMlPerHourAbove": c.ConcentratingDefect.PostoperativeMlPerHourAbove,
+		"concentratingDefect.postoperativeHours":          c.ConcentratingDefect.PostoperativeHours,
+		"concentratingDefect.specificGravityBelow":        c.ConcentratingDefect.SpecificGravityBelow,
+		"concentratingDefect.sodiumRiseIn24hAtLeast":      c.ConcentratingDefect.SodiumRiseIn24hAtLeast,
+		"restriction.adultBSA":                            c.Restriction.AdultBSA, "restriction.paediatricInsensibleMlPerM2": c.Restriction.PaediatricInsensibleMlPerM2,
 		"restriction.hypovolaemiaBunCreatinineAbove": c.Restriction.HypovolaemiaBUNCreatinineAbove} {
 		if v <= 0 {
 			return fmt.Errorf("chartReview.%s must be positive", name)
@@ -290,6 +308,7 @@ func (c ChartReviewPolicy) validate() error {
 	}
 	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.VolumeStatus.UrateSource == "" || c.VolumeStatus.HaematocritSource == "" ||
 		c.ConcentratingDefect.PolyuriaSource == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
+		c.ConcentratingDefect.PostoperativeSource == "" ||
 		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}

@@ -22,11 +22,21 @@ type NeurosurgeryPolicy struct {
 	SodiumBelow      float64          `json:"sodiumBelow"`
 	FallIn24hAtLeast float64          `json:"fallIn24hAtLeast"`
 	Source           string           `json:"source"`
+	// Course gives the postoperative days in which each phase of the
+	// classic sequence typically falls.
+	Course struct {
+		PolyuricUntilDay  float64 `json:"polyuricUntilDay"`
+		RetentionUntilDay float64 `json:"retentionUntilDay"`
+		Source            string  `json:"source"`
+	} `json:"course"`
 }
 
 func (n NeurosurgeryPolicy) validate() error {
 	if n.WindowDays <= 0 || n.SodiumBelow <= 0 || n.FallIn24hAtLeast <= 0 || n.Source == "" || len(n.Procedures) == 0 {
 		return fmt.Errorf("neurosurgery needs a window, a sodium threshold, a fall, procedures and a source")
+	}
+	if c := n.Course; c.PolyuricUntilDay <= 0 || c.RetentionUntilDay <= c.PolyuricUntilDay || c.Source == "" {
+		return fmt.Errorf("neurosurgery.course needs polyuricUntilDay < retentionUntilDay and a source")
 	}
 	for i, p := range n.Procedures {
 		if !p.complete() {
@@ -102,16 +112,91 @@ func (r *Ruleset) retentionSigns(f Facts) (string, map[string]float64, bool) {
 	return strings.Join(why, " and "), fig, true
 }
 
+// isDesmopressin reports whether o is for the antidiuretic of the
+// water-drug policy (the one drug there that does not raise sodium).
+func (r *Ruleset) isDesmopressin(o MedicationOrder) bool {
+	d, _, ok := r.policy.WaterDrugs.match(o.Medication)
+	return ok && !d.RaisesSodium
+}
+
+// postoperativeDay is the day clinicians count: calendar days, in the
+// display zone, since the procedure's date, the day of surgery being day 0.
+func (r *Ruleset) postoperativeDay(ctx neurosurgicalContext) float64 {
+	zone := r.displayZone()
+	y1, m1, d1 := ctx.Procedure.At.In(zone).Date()
+	y2, m2, d2 := ctx.Procedure.At.Add(time.Duration(ctx.Days * float64(24*time.Hour))).In(zone).Date()
+	return math.Round(time.Date(y2, m2, d2, 0, 0, 0, 0, time.UTC).Sub(time.Date(y1, m1, d1, 0, 0, 0, 0, time.UTC)).Hours() / 24)
+}
+
+// The patterns of the data that the course after neurosurgery reads.
+type coursePattern int
+
+const (
+	phasePolyuric  coursePattern = iota // dilute urine with a high or rising sodium
+	phaseRetention                      // a low or falling sodium
+)
+
+// phaseLine says which phase of the classic sequence the data fit on this
+// postoperative day, and what may come next.
+func (r *Ruleset) phaseLine(f Facts, ctx neurosurgicalContext, p coursePattern) string {
+	n := r.policy.Neurosurgery
+	c := n.Course
+	day := r.postoperativeDay(ctx)
+	// A sodium below the threshold after the polyuric days and more than a
+	// day ago is a retention phase already passed.
+	var retained *Measurement
+	for i, m := range f.Labs[Sodium] {
+		d := m.At.Sub(ctx.Procedure.At).Hours() / 24
+		if d > c.PolyuricUntilDay && f.At.Sub(m.At).Hours() > 24 && m.Value < n.SodiumBelow && (retained == nil || m.Value < retained.Value) {
+			retained = &f.Labs[Sodium][i]
+		}
+	}
+	var fit string
+	switch {
+	case p == phasePolyuric && retained != nil:
+		fit = fmt.Sprintf("dilute urine on day %g, after a sodium of %s on %s, fits the third phase: diabetes insipidus after the "+
+			"retention phase, which may last", day, show(Sodium, retained.Value), retained.At.In(r.displayZone()).Format("2006-01-02"))
+	case p == phasePolyuric && day <= c.PolyuricUntilDay:
+		fit = fmt.Sprintf("dilute urine on day %g fits the first, polyuric phase (vasopressin deficiency); a phase of water retention "+
+			"can follow, typically up to about day %g, when desmopressin given for the polyuria can cause severe hyponatremia", day, c.RetentionUntilDay)
+	case p == phasePolyuric && day > c.RetentionUntilDay:
+		fit = fmt.Sprintf("dilute urine on day %g, after the days of the retention phase, fits the third phase: diabetes insipidus that may last", day)
+	case p == phasePolyuric:
+		fit = fmt.Sprintf("dilute urine on day %g falls in the days when water retention typically occurs: the first phase lasting longer, "+
+			"or the third phase after a short retention", day)
+	case day > c.PolyuricUntilDay && day <= c.RetentionUntilDay:
+		fit = fmt.Sprintf("a low or falling sodium on day %g fits the second phase, water retention (vasopressin released from the "+
+			"injured gland), typically days %g to %g; lasting diabetes insipidus may follow it", day, c.PolyuricUntilDay, c.RetentionUntilDay)
+	default:
+		fit = fmt.Sprintf("a low or falling sodium on day %g, outside the days of the typical retention phase (days %g to %g)", day,
+			c.PolyuricUntilDay, c.RetentionUntilDay)
+	}
+	given := ""
+	var doses []MedicationOrder
+	for _, o := range f.Given {
+		if r.isDesmopressin(o) && o.GivenAt != nil && o.GivenAt.After(ctx.Procedure.At) {
+			doses = append(doses, o)
+		}
+	}
+	if len(doses) > 0 {
+		last := doses[0]
+		for _, o := range doses {
+			if o.GivenAt.After(*last.GivenAt) {
+				last = o
+			}
+		}
+		given = fmt.Sprintf("; desmopressin doses given since: %d, the last %s", len(doses), stamp(*last.GivenAt))
+	}
+	return fmt.Sprintf("- Course after %s (%s, day %g%s): %s (%s)\n", ctx.What, ctx.Procedure.At.In(r.displayZone()).Format("2006-01-02"), day,
+		given, fit, c.Source)
+}
+
 // neurosurgeryFinding words the finding for the desmopressin orders named
 // (what), in context ctx, for the reasons given.
 func (r *Ruleset) neurosurgeryFinding(f Facts, what string, ctx neurosurgicalContext, why string, fig map[string]float64) Finding {
 	n := r.policy.Neurosurgery
-	// The postoperative day clinicians count: calendar days, in the display
-	// zone, since the procedure's date, the day of surgery being day 0.
 	zone := r.displayZone()
-	y1, m1, d1 := ctx.Procedure.At.In(zone).Date()
-	y2, m2, d2 := ctx.Procedure.At.Add(time.Duration(ctx.Days * float64(24*time.Hour))).In(zone).Date()
-	days := math.Round(time.Date(y2, m2, d2, 0, 0, 0, 0, time.UTC).Sub(time.Date(y1, m1, d1, 0, 0, 0, 0, time.UTC)).Hours() / 24)
+	days := r.postoperativeDay(ctx)
 	fig["daysSinceProcedure"] = days
 	rule := r.cardRule(RuleDesmopressinAfterNeurosurgery)
 	var b strings.Builder
@@ -125,6 +210,7 @@ func (r *Ruleset) neurosurgeryFinding(f Facts, what string, ctx neurosurgicalCon
 	} else {
 		fmt.Fprintf(&b, "- No urine osmolality within %g h\n", r.policy.ChartReview.LabPairHours)
 	}
+	b.WriteString(r.phaseLine(f, ctx, phaseRetention))
 	fmt.Fprintf(&b, "- Flagged within %g days of the procedure when sodium is below %g mmol/L or falls %g mmol/L in 24 h\n",
 		n.WindowDays, n.SodiumBelow, n.FallIn24hAtLeast)
 	fmt.Fprintf(&b, "\n**The course**: %s\n\n**Labs cannot show**: which phase this is for certain; urine output and urine "+
@@ -149,7 +235,7 @@ func (r *Ruleset) desmopressinAfterNeurosurgery(c chart) (Finding, bool) {
 	}
 	var orders []string
 	for _, o := range c.f.Medications {
-		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && !d.RaisesSodium {
+		if r.isDesmopressin(o) {
 			orders = append(orders, fmt.Sprintf("%s (%s, active)", o.Reference, orderText(o)))
 		}
 	}

@@ -104,7 +104,7 @@ func (r *Ruleset) ReadWaterDeprivationTest(f Facts) (WaterDeprivationReading, bo
 		if o.GivenAt == nil || f.At.Sub(*o.GivenAt).Hours() > p.ShowDays*24 || (best != nil && !o.GivenAt.After(*best.GivenAt)) {
 			continue
 		}
-		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && !d.RaisesSodium {
+		if r.isDesmopressin(o) {
 			best = &f.Given[i]
 		}
 	}

@@ -81,6 +81,10 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(tw, "desmopressin flagged\twithin %g days, sodium below %g or a fall of %g in 24 h\n", ns.WindowDays, ns.SodiumBelow, ns.FallIn24hAtLeast)
 	fmt.Fprintf(tw, "source\t%s\n", ns.Source)
+	fmt.Fprintf(tw, "course\tpolyuric phase to day %g, retention to day %g (%s)\n", ns.Course.PolyuricUntilDay, ns.Course.RetentionUntilDay, ns.Course.Source)
+	cd := cr.ConcentratingDefect
+	fmt.Fprintf(tw, "polyuria\tadult above %g mL/day, child above %g mL/m²/day (%s); after neurosurgery above %g mL/h for %g h (%s)\n",
+		cd.PolyuriaAdultMlPerDay, cd.PolyuriaChildMlPerM2PerDay, cd.PolyuriaSource, cd.PostoperativeMlPerHourAbove, cd.PostoperativeHours, cd.PostoperativeSource)
 	bi := p.BrainInjury
 	fmt.Fprintf(tw, "\n== brain-injury context (SIADH against salt wasting)\n")
 	for _, c := range bi.Conditions {
