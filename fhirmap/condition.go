@@ -2,6 +2,7 @@ package fhirmap
 
 import (
 	"fmt"
+	"time"
 
 	"github.com/halite-cds/halite/rules"
 	fhir "github.com/samply/golang-fhir-models/fhir-models/fhir"
@@ -37,5 +38,29 @@ func (m *mapper) condition(r Resource) {
 		m.unused[[2]string{r.Type, fmt.Sprintf("verificationStatus is %q", cond.VerificationStatus)}]++
 		return
 	}
+	cond.Onset = conditionOnset(c)
 	m.facts.Conditions = append(m.facts.Conditions, cond)
+}
+
+// conditionOnset is when a condition began as the resource says it:
+// onsetDateTime or onsetPeriod.start, else recordedDate; nil when neither
+// is a readable date (a date alone is midnight UTC).
+func conditionOnset(c fhir.Condition) *time.Time {
+	var s *string
+	switch {
+	case c.OnsetDateTime != nil:
+		s = c.OnsetDateTime
+	case c.OnsetPeriod != nil && c.OnsetPeriod.Start != nil:
+		s = c.OnsetPeriod.Start
+	default:
+		s = c.RecordedDate
+	}
+	if s == nil {
+		return nil
+	}
+	t, _, err := ParseDateTime(*s)
+	if err != nil {
+		return nil
+	}
+	return &t
 }

@@ -226,7 +226,7 @@ type medicationAdministrationFields struct {
 // medicationAdministration reads a MedicationAdministration: an in-progress
 // one as an infusion running now, with its medication, route and rate (FHIR
 // R4 MedicationAdministration.dosage.rate[x]); a completed one as a dose
-// given, with its time (effectiveDateTime, or the end of effectivePeriod).
+// given, with its time (effectiveDateTime, or the start of effectivePeriod).
 // It returns the order and the list it belongs to; none, with the reason
 // counted, for another status, one that is not the patient's, or a given
 // dose without a time.
@@ -277,17 +277,18 @@ func (m *mapper) medicationAdministration(r Resource) (rules.MedicationOrder, *[
 }
 
 // givenAt is when a completed administration was given: its
-// effectiveDateTime, or the end of its effectivePeriod (the start when it
-// has no end); a full date and time is required.
+// effectiveDateTime, or the start of its effectivePeriod (the end when it
+// has no start), as the search parameter effective-time sorts it; a full
+// date and time is required.
 func givenAt(ma medicationAdministrationFields) (time.Time, error) {
 	var s string
 	switch p := ma.EffectivePeriod; {
 	case ma.EffectiveDateTime != nil:
 		s = *ma.EffectiveDateTime
-	case p != nil && p.End != nil:
-		s = *p.End
 	case p != nil && p.Start != nil:
 		s = *p.Start
+	case p != nil && p.End != nil:
+		s = *p.End
 	default:
 		return time.Time{}, fmt.Errorf("a completed administration has no effective time")
 	}

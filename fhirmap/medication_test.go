@@ -360,8 +360,8 @@ func TestMapMedicationAdministration(t *testing.T) {
 		o.Medication.Source != rules.FromCodeableConcept {
 		t.Errorf("administration %+v", o)
 	}
-	// The completed one is a dose given, at the end of its period (its
-	// start when it has none); another status is counted as unused.
+	// The completed one is a dose given, at the start of its period;
+	// another status is counted as unused.
 	if len(f.Given) != 1 || f.Given[0].Reference != "MedicationAdministration/done" || f.Given[0].GivenAt == nil ||
 		!f.Given[0].GivenAt.Equal(time.Date(2026, 11, 20, 6, 0, 0, 0, time.UTC)) {
 		t.Errorf("given %+v", f.Given)
@@ -369,7 +369,7 @@ func TestMapMedicationAdministration(t *testing.T) {
 	f = mapResources(t, ma("stopped", "stopped", ""),
 		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"notime","status":"completed","subject":{"reference":"Patient/p1"},`+nsConcept+`}`),
 		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"dateonly","status":"completed","subject":{"reference":"Patient/p1"},"effectiveDateTime":"2026-11-19",`+nsConcept+`}`),
-		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"later","status":"completed","subject":{"reference":"Patient/p1"},"effectivePeriod":{"start":"2026-11-19T06:00:00Z","end":"2026-11-30T06:00:00Z"},`+nsConcept+`}`))
+		json.RawMessage(`{"resourceType":"MedicationAdministration","id":"later","status":"completed","subject":{"reference":"Patient/p1"},"effectivePeriod":{"start":"2026-11-29T06:00:00Z","end":"2026-11-30T06:00:00Z"},`+nsConcept+`}`))
 	var reasons []string
 	for _, r := range f.Rejected {
 		reasons = append(reasons, r.Source+": "+r.Reason)

@@ -39,7 +39,7 @@ func TestPrefetchFetchEquivalence(t *testing.T) {
 		store := NewBundleStore(b)
 		store.PageSize, store.Token = 3, token
 		fhir := httptest.NewServer(store)
-		for _, svc := range NewRegistry(nil).Services() {
+		for _, svc := range NewRegistry(nil, nil).Services() {
 			for _, hook := range svc.Hooks {
 				name := filepath.Base(file) + "/" + svc.ID + "/" + hook
 				opt := RequestOptions{Hook: hook, UserID: "Practitioner/test-user"}

@@ -24,7 +24,7 @@ func FuzzHandle(f *testing.F) {
 		if err != nil {
 			continue
 		}
-		for _, svc := range NewRegistry(nil).Services() {
+		for _, svc := range NewRegistry(nil, nil).Services() {
 			for _, hook := range svc.Hooks {
 				if req, err := BuildRequest(b, svc, RequestOptions{Hook: hook, UserID: "Practitioner/u1"}); err == nil {
 					raw, _ := json.Marshal(req)

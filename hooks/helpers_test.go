@@ -30,7 +30,7 @@ func loadScenario(t testing.TB, name string) *fhirmap.Bundle {
 
 func mustService(t testing.TB, id string) Service {
 	t.Helper()
-	s, ok := NewRegistry(nil).Lookup(id)
+	s, ok := NewRegistry(nil, nil).Lookup(id)
 	if !ok {
 		t.Fatalf("no service %s", id)
 	}
@@ -72,5 +72,5 @@ func testEngine(t testing.TB, f FetcherFactory) *Engine {
 	if err != nil {
 		t.Fatal(err)
 	}
-	return NewEngine(EngineConfig{Registry: NewRegistry(nil), Ruleset: rs, NewFetcher: f, Limits: Limits{MaxPages: 5}})
+	return NewEngine(EngineConfig{Registry: NewRegistry(nil, nil), Ruleset: rs, NewFetcher: f, Limits: Limits{MaxPages: 5}})
 }

@@ -41,10 +41,14 @@ type stored struct {
 
 // searchFields are the elements the supported search parameters read.
 type searchFields struct {
-	Status         string       `json:"status"`
-	Subject        *refField    `json:"subject"`
-	Patient        *refField    `json:"patient"`
-	Code           *codeField   `json:"code"`
+	Status  string     `json:"status"`
+	Subject *refField  `json:"subject"`
+	Patient *refField  `json:"patient"`
+	Code    *codeField `json:"code"`
+	// MedicationCC is what the code parameter searches on medication
+	// resources (FHIR R4: MedicationAdministration.medication as
+	// CodeableConcept).
+	MedicationCC   *codeField   `json:"medicationCodeableConcept"`
 	ClinicalStatus *codeField   `json:"clinicalStatus"`
 	EffDateTime    string       `json:"effectiveDateTime"`
 	EffInstant     string       `json:"effectiveInstant"`
@@ -197,7 +201,7 @@ func (s *BundleStore) match(ref string) (out []stored, read bool, err error) {
 		case "patient", "subject":
 			filters = append(filters, func(r stored) bool { return s.refMatches(r, v) })
 		case "code":
-			filters = append(filters, func(r stored) bool { return tokenMatches(r.fields.Code, v) })
+			filters = append(filters, func(r stored) bool { return tokenMatches(r.fields.Code, v) || tokenMatches(r.fields.MedicationCC, v) })
 		case "clinical-status":
 			filters = append(filters, func(r stored) bool { return tokenMatches(r.fields.ClinicalStatus, v) })
 		case "status":

@@ -153,7 +153,7 @@ func TestRenderTemplate(t *testing.T) {
 func TestTemplatesUseRestrictedSyntax(t *testing.T) {
 	allowed := map[string]bool{"patient": true, "code": true, "status": true, "clinical-status": true,
 		"_sort": true, "_count": true}
-	for _, s := range NewRegistry(nil).Services() {
+	for _, s := range NewRegistry(nil, nil).Services() {
 		for _, k := range s.Prefetch {
 			path, query, isSearch := strings.Cut(k.Template, "?")
 			if !isSearch {

@@ -64,11 +64,18 @@ type Registry struct {
 
 // NewRegistry returns halite's services reading results by codes (nil: the
 // built-in LOINC table); their prefetch queries ask for every such code.
-func NewRegistry(codes *fhirmap.Codes) *Registry {
+//
+// rs gives the desmopressin codes the givenDoses template asks for; a nil
+// rs (tests of other keys) leaves the template without them.
+func NewRegistry(codes *fhirmap.Codes, rs *rules.Ruleset) *Registry {
 	if codes == nil {
 		codes = fhirmap.BuiltinCodes()
 	}
-	k := prefetchKeys(codes)
+	var doseTokens []string
+	if rs != nil {
+		doseTokens = rs.DesmopressinTokens()
+	}
+	k := prefetchKeys(codes, doseTokens)
 	return &Registry{codes: codes, services: []Service{
 		{
 			ID:    "sodium-infusion-check",
@@ -119,7 +126,11 @@ type keySet struct {
 // syntax of CDS Hooks 2.0 §Prefetch query restrictions: instance reads, a
 // resource reference, token parameters by equality (comma = OR), _sort and
 // _count.
-func prefetchKeys(codes *fhirmap.Codes) keySet {
+func prefetchKeys(codes *fhirmap.Codes, doseTokens []string) keySet {
+	doses := "MedicationAdministration?patient={{context.patientId}}&status=completed"
+	if len(doseTokens) > 0 {
+		doses += "&code=" + strings.Join(doseTokens, ",")
+	}
 	obs := func(analytes ...rules.Analyte) string {
 		return "Observation?patient={{context.patientId}}&code=" + strings.Join(codes.SearchTokens(analytes...), ",") + "&_sort=-date&_count=200"
 	}
@@ -145,8 +156,8 @@ func prefetchKeys(codes *fhirmap.Codes) keySet {
 			Template: "MedicationAdministration?patient={{context.patientId}}&status=in-progress",
 			What:     "infusions in progress"},
 		givenDoses: PrefetchKey{Key: "givenDoses",
-			Template: "MedicationAdministration?patient={{context.patientId}}&status=completed&_sort=-effective-time&_count=100",
-			What:     "doses given (completed administrations), for the desmopressin of a water deprivation test"},
+			Template: doses + "&_sort=-effective-time&_count=50",
+			What:     "desmopressin doses given (completed administrations coded as desmopressin), for a water deprivation test"},
 		procedures: PrefetchKey{Key: "procedures",
 			Template: "Procedure?patient={{context.patientId}}&status=completed",
 			What:     "completed procedures (pituitary surgery, craniotomy)"},

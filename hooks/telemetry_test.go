@@ -133,7 +133,7 @@ func TestNoPHIInTelemetry(t *testing.T) {
 	for _, f := range files {
 		name := filepath.Base(f)
 		secrets = append(secrets, phiOf(t, f)...)
-		for _, svc := range NewRegistry(nil).services {
+		for _, svc := range NewRegistry(nil, nil).services {
 			for _, hook := range svc.Hooks {
 				o.post(t, name, svc.ID, hook)
 			}

@@ -17,9 +17,17 @@ type BrainInjuryPolicy struct {
 	// context; a neurosurgical procedure within the neurosurgery window
 	// does too.
 	Conditions []ConditionCodes `json:"conditions"`
+	// ConditionWithinDays: a listed condition counts when its onset (or
+	// recorded date) is this recent; one without a date counts, said so.
+	ConditionWithinDays float64 `json:"conditionWithinDays"`
+	// NoRestriction lists conditions after which fluid restriction is
+	// advised against whatever the labs show (subarachnoid haemorrhage).
+	NoRestriction []ConditionCodes `json:"noRestriction"`
 	// WeightWindowHours is how far back the weight and the sodium are
-	// compared; WeightChangeAtLeastKg the change that counts.
+	// compared; WeightChangeAtLeastKg the change that counts; the sodium
+	// compared with the first weight is one within WeightSodiumPairHours.
 	WeightWindowHours     float64 `json:"weightWindowHours"`
+	WeightSodiumPairHours float64 `json:"weightSodiumPairHours"`
 	WeightChangeAtLeastKg float64 `json:"weightChangeAtLeastKg"`
 	WeightSource          string  `json:"weightSource"`
 	// UrinePairHours bounds the time between the urine and serum results of
@@ -32,20 +40,23 @@ type BrainInjuryPolicy struct {
 	EndocrineSource       string  `json:"endocrineSource"`
 	SaltWastingSource     string  `json:"saltWastingSource"`
 	RestrictionCautionSrc string  `json:"restrictionCautionSource"`
+	NoRestrictionSource   string  `json:"noRestrictionSource"`
 }
 
 func (p BrainInjuryPolicy) validate() error {
 	if len(p.Conditions) == 0 || p.WeightWindowHours <= 0 || p.WeightChangeAtLeastKg <= 0 || p.UrinePairHours <= 0 ||
+		p.ConditionWithinDays <= 0 || p.WeightSodiumPairHours <= 0 ||
 		p.FEUrateNormalAbove <= 0 || p.FEUrateNormalBelow <= p.FEUrateNormalAbove || p.EndocrineMaxAgeDays <= 0 {
 		return fmt.Errorf("brainInjury needs conditions, a weight window and change, a urine pairing interval, the normal " +
 			"fractional urate excretion range (above < below) and an age for thyroid and adrenal results")
 	}
-	if p.WeightSource == "" || p.FEUrateSource == "" || p.EndocrineSource == "" || p.SaltWastingSource == "" || p.RestrictionCautionSrc == "" {
+	if p.WeightSource == "" || p.FEUrateSource == "" || p.EndocrineSource == "" || p.SaltWastingSource == "" || p.RestrictionCautionSrc == "" ||
+		p.NoRestrictionSource == "" || len(p.NoRestriction) == 0 {
 		return fmt.Errorf("brainInjury needs every source")
 	}
-	for i, c := range p.Conditions {
+	for i, c := range append(append([]ConditionCodes(nil), p.Conditions...), p.NoRestriction...) {
 		if !c.complete() {
-			return fmt.Errorf("brainInjury.conditions[%d] needs a name (factor), a system, codes and a source", i)
+			return fmt.Errorf("brainInjury condition list entry %d needs a name (factor), a system, codes and a source", i)
 		}
 	}
 	return nil
@@ -59,16 +70,33 @@ func (r *Ruleset) brainInjuryContext(f Facts) []string {
 	if ctx, ok := r.recentNeurosurgery(f); ok {
 		out = append(out, fmt.Sprintf("%s on %s (%s)", ctx.What, ctx.Procedure.At.In(r.displayZone()).Format("2006-01-02"), ctx.Procedure.Reference))
 	}
+	for _, c := range r.recentConditions(f, r.policy.BrainInjury.Conditions) {
+		out = append(out, c)
+	}
+	return out
+}
+
+// recentConditions names the active conditions of f in lists whose onset
+// (or recorded date) is within the policy's days, or undated.
+func (r *Ruleset) recentConditions(f Facts, lists []ConditionCodes) []string {
+	bi := r.policy.BrainInjury
+	var out []string
 	seen := map[string]bool{}
 	for _, c := range f.Conditions {
-		if c.ClinicalStatus != "" && c.ClinicalStatus != "active" {
+		if seen[c.Reference] || (c.Onset != nil && f.At.Sub(*c.Onset).Hours() > bi.ConditionWithinDays*24) {
 			continue
 		}
-		for _, list := range r.policy.BrainInjury.Conditions {
-			if !seen[c.Reference] && codesMatch(list, c.Codings) {
-				seen[c.Reference] = true
-				out = append(out, fmt.Sprintf("%s (%s)", list.Factor, c.Reference))
+		for _, list := range lists {
+			if !codesMatch(list, c.Codings) {
+				continue
 			}
+			seen[c.Reference] = true
+			when := "no onset or recorded date"
+			if c.Onset != nil {
+				when = "since " + c.Onset.In(r.displayZone()).Format("2006-01-02")
+			}
+			out = append(out, fmt.Sprintf("%s (%s, %s)", list.Factor, c.Reference, when))
+			break
 		}
 	}
 	return out
@@ -115,24 +143,27 @@ func (r *Ruleset) weightAndSodium(b *strings.Builder, c chart, fig map[string]fl
 		fmt.Fprintf(b, "- Weight against sodium: fewer than two weights in the last %s h\n", hoursSince.of(bi.WeightWindowHours))
 		return
 	}
-	naThen := nearest(c.f.Labs[Sodium], *first, r.policy.ChartReview.LabPairHours, c.f)
+	naThen := nearest(c.f.Labs[Sodium], *first, bi.WeightSodiumPairHours, c.f)
 	if naThen == nil {
-		fmt.Fprintf(b, "- Weight against sodium: no sodium near the weight of %s\n", stamp(first.At))
+		fmt.Fprintf(b, "- Weight against sodium: no sodium within %g h of the weight of %s\n", bi.WeightSodiumPairHours, stamp(first.At))
 		return
 	}
 	dW, dNa := last.Value-first.Value, c.latest.Value-naThen.Value
 	fig["weightChangeKg"], fig["sodiumChangeWithWeight"] = Round(dW, 1), Round(dNa, 1)
-	line := fmt.Sprintf("- Weight %s → %s kg (%s → %s) while sodium went %s → %s mmol/L", show(BodyWeight, first.Value), show(BodyWeight, last.Value),
-		stamp(first.At), stamp(last.At), show(Sodium, naThen.Value), show(Sodium, c.latest.Value))
+	line := fmt.Sprintf("- Weight %s → %s kg (%s → %s) while sodium went %s (%s) → %s mmol/L (%s)", show(BodyWeight, first.Value),
+		show(BodyWeight, last.Value), stamp(first.At), stamp(last.At), show(Sodium, naThen.Value), stamp(naThen.At), show(Sodium, c.latest.Value),
+		stamp(c.latest.At))
 	switch {
-	case dNa < 0 && dW <= -bi.WeightChangeAtLeastKg:
+	case dNa >= 0:
+		line += ": the sodium did not fall over these weights, so they do not bear on the difference"
+	case dW <= -bi.WeightChangeAtLeastKg:
 		lean.depletion = append(lean.depletion, "weight and sodium falling together")
 		line += fmt.Sprintf(": both falling, which leans towards salt and water loss (salt wasting) (%s)", bi.WeightSource)
-	case dNa < 0 && dW >= bi.WeightChangeAtLeastKg:
+	case dW >= bi.WeightChangeAtLeastKg:
 		lean.retention = append(lean.retention, "weight rising as sodium falls")
 		line += fmt.Sprintf(": weight rising as sodium falls, which leans towards water retention (SIADH) (%s)", bi.WeightSource)
 	default:
-		line += fmt.Sprintf(": no change of %g kg or more against a falling sodium", bi.WeightChangeAtLeastKg)
+		line += fmt.Sprintf(": the weight changed less than %g kg while the sodium fell", bi.WeightChangeAtLeastKg)
 	}
 	b.WriteString(line + "\n")
 }
@@ -168,15 +199,22 @@ func (r *Ruleset) feUrate(b *strings.Builder, c chart, fig map[string]float64, s
 		return
 	}
 	fe := FractionalExcretion(uu.Value, su.Value, uc.Value*1000, sc.Value)
+	if math.IsNaN(fe) || math.IsInf(fe, 0) {
+		return
+	}
 	fig["feUrate"] = Round(fe, 1)
 	line := fmt.Sprintf("- Fractional excretion of urate %s%% = (urine %s × serum creatinine %s) / (serum %s × urine creatinine %s mmol/L) × 100, "+
 		"urine of %s", percent.of(fe), show(UrineUrate, uu.Value), show(Creatinine, sc.Value), show(Urate, su.Value),
 		show(UrineCreatinine, uc.Value), stamp(uu.At))
-	if fe > bi.FEUrateNormalBelow {
+	switch {
+	case fe > bi.FEUrateNormalBelow:
 		line += fmt.Sprintf(": above the normal %g–%g%%, as in both SIADH and salt wasting; a repeat once the sodium is corrected "+
 			"tells them apart — it returns to normal in SIADH and stays high in salt wasting (%s)", bi.FEUrateNormalAbove, bi.FEUrateNormalBelow, bi.FEUrateSource)
-	} else {
-		line += fmt.Sprintf(": not above the normal %g–%g%% (%s)", bi.FEUrateNormalAbove, bi.FEUrateNormalBelow, bi.FEUrateSource)
+	case fe < bi.FEUrateNormalAbove:
+		line += fmt.Sprintf(": below the normal %g–%g%%, which fits neither SIADH nor salt wasting, where it is raised (%s)", bi.FEUrateNormalAbove,
+			bi.FEUrateNormalBelow, bi.FEUrateSource)
+	default:
+		line += fmt.Sprintf(": within the normal %g–%g%% (%s)", bi.FEUrateNormalAbove, bi.FEUrateNormalBelow, bi.FEUrateSource)
 	}
 	b.WriteString(line + "\n")
 }
@@ -210,8 +248,9 @@ func (r *Ruleset) endocrineLines(b *strings.Builder, c chart, fig map[string]flo
 		fig[e.fig] = Round(m.Value, analytePrecision(e.a).decimals)
 		parts = append(parts, fmt.Sprintf("%s %s %s (%s, %s)", e.name, show(e.a, m.Value), unitText(e.a), stamp(m.At), m.Source))
 	}
-	fmt.Fprintf(b, "- Thyroid and adrenal function: %s. Both must be normal before the label SIADH applies, judged against "+
-		"the laboratory's reference range, which halite does not read (%s)\n", strings.Join(parts, "; "), bi.EndocrineSource)
+	fmt.Fprintf(b, "- Thyroid and adrenal function: %s. Both must be normal before the label SIADH applies (%s); halite does not "+
+		"judge whether they are: a cortisol depends on its timing and on any glucocorticoid given, and in pituitary disease a TSH "+
+		"alone misses central hypothyroidism (a free T4 is needed)\n", strings.Join(parts, "; "), bi.EndocrineSource)
 }
 
 // unitText is how an analyte's canonical unit is written for people.
@@ -223,6 +262,15 @@ func unitText(a Analyte) string {
 		return ""
 	}
 	return CanonicalUnit(a)
+}
+
+// noRestrictionAfter names a recent condition after which fluid
+// restriction is advised against, or "".
+func (r *Ruleset) noRestrictionAfter(f Facts) string {
+	if cs := r.recentConditions(f, r.policy.BrainInjury.NoRestriction); len(cs) > 0 {
+		return cs[0]
+	}
+	return ""
 }
 
 // brainInjuryLines writes, for a brain-injury context, the signs that bear
@@ -255,7 +303,7 @@ func (r *Ruleset) brainInjuryLines(b *strings.Builder, c chart, fig map[string]f
 		line := fmt.Sprintf("- Urine output %s mL/h over the last %s h, about %s mL/day", orderRate.of(*u.RateMlPerHour), hoursSpan.of(u.Hours), mlPerDay.of(perDay))
 		if child, known := r.isChild(c.f); known && !child && perDay > r.policy.ChartReview.ConcentratingDefect.PolyuriaAdultMlPerDay {
 			lean.depletion = append(lean.depletion, "a large urine output with a high urine sodium")
-			line += ", with the high urine sodium: a natriuresis large enough to deplete volume"
+			line += ", with the high urine sodium: a natriuresis that depletes volume if intake is lower (halite does not read the fluid balance)"
 		}
 		b.WriteString(line + "\n")
 	} else {
@@ -269,7 +317,8 @@ func (r *Ruleset) brainInjuryLines(b *strings.Builder, c chart, fig map[string]f
 	if signs := append(append([]string(nil), lean.depletion...), lean.retention...); len(signs) > 0 {
 		fmt.Fprintf(b, " (%s)", strings.Join(signs, ", "))
 	}
-	fmt.Fprintf(b, ". Salt wasting is treated with salt and water, SIADH with restriction (%s)\n", bi.SaltWastingSource)
+	fmt.Fprintf(b, ". The two are managed differently: salt wasting by replacing salt and water, where fluid restriction can harm; "+
+		"the treating team decides (%s)\n", bi.SaltWastingSource)
 	if ctx, ok := r.recentNeurosurgery(c.f); ok {
 		b.WriteString(r.phaseLine(c.f, ctx, phaseRetention))
 	}

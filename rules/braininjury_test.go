@@ -4,13 +4,14 @@ import (
 	"math"
 	"strings"
 	"testing"
+	"time"
 )
 
-// TestFractionalExcretion checks the clearance-ratio formula on a hand
-// computation (common practice: FE_x = U_x·P_cr / (P_x·U_cr) × 100) and
-// on the FENa check value of the reference notes' SIADH criteria (§4.3:
-// FENa above 1 %): urine sodium 80, plasma 125, urine creatinine 8,000 and
-// plasma 80 µmol/L give 80·80/(125·8000)·100 = 0.64 %.
+// TestFractionalExcretion checks the clearance-ratio formula (common
+// practice: FE_x = U_x·P_cr / (P_x·U_cr) × 100) on hand computations with
+// invented values: urate 2400·70/(180·7000)·100 = 13.33 %, and a FENa of
+// 80·80/(125·8000)·100 = 0.64 %, below the 1 % of the SIADH supplemental
+// criteria (reference notes §4.3).
 func TestFractionalExcretion(t *testing.T) {
 	for _, c := range []struct{ ux, px, ucr, pcr, want float64 }{
 		{2400, 180, 7000, 70, 13.333}, // urate: 168000/1260000 × 100
@@ -27,20 +28,22 @@ func TestFractionalExcretion(t *testing.T) {
 }
 
 // TestSIADHInBrainInjury reads the SIADH pattern card in a brain-injury
-// context (an active ICD-10-CM I60 subarachnoid haemorrhage) on invented
+// context (an active ICD-10-CM S06 intracranial injury of 5 days) on invented
 // facts: the weight and sodium moving together or apart, a rising
 // haematocrit and a high urea-to-creatinine ratio lean towards salt
 // wasting (Maesaka 2009; reference notes §4.5), and then no restriction
-// volume is given.
+// volume is given; after a subarachnoid haemorrhage none is given at all
+// (AHA/ASA aSAH guideline 2023, from memory).
 func TestSIADHInBrainInjury(t *testing.T) {
 	rs := loadRuleset(t)
 	const adult = "1970-01-10"
-	sah := Condition{Reference: "Condition/sah", ClinicalStatus: "active", Codings: []Coding{{System: "http://hl7.org/fhir/sid/icd-10-cm", Code: "I60.7"}}}
+	onset := chartAt.Add(-5 * 24 * time.Hour)
+	tbi := Condition{Reference: "Condition/tbi", ClinicalStatus: "active", Onset: &onset, Codings: []Coding{{System: "http://hl7.org/fhir/sid/icd-10-cm", Code: "S06.5X0A"}}}
 	base := func(extra ...Measurement) Facts {
 		labs := append([]Measurement{lab(Glucose, 5, 2), lab(Urea, 3, 2), lab(Creatinine, 60, 2), lab(UrineOsmolality, 480, 1),
 			lab(UrineSodium, 80, 1), lab(UrinePotassium, 30, 1)}, extra...)
 		f := chartFacts(t, adult, map[float64]float64{60: 134, 30: 131, 2: 127}, labs...)
-		f.Conditions = []Condition{sah}
+		f.Conditions = []Condition{tbi}
 		return f
 	}
 	for _, tc := range []struct {
@@ -79,15 +82,36 @@ func TestSIADHInBrainInjury(t *testing.T) {
 			if (card.Figures["leansSaltWasting"] == 1) != tc.saltLean || strings.Contains(card.Summary, "salt wasting") != tc.saltLean {
 				t.Errorf("salt-wasting lean %v, want %v: %q %v", card.Figures["leansSaltWasting"], tc.saltLean, card.Summary, card.Figures)
 			}
-			for _, w := range append(tc.wantDetail, "Brain-injury context: subarachnoid haemorrhage (Condition/sah)", "TSH: no result") {
+			for _, w := range append(tc.wantDetail, "Brain-injury context: traumatic brain injury (Condition/tbi, since 2026-11-15)", "TSH: no result") {
 				if !strings.Contains(card.Detail, w) {
 					t.Errorf("detail lacks %q:\n%s", w, card.Detail)
 				}
 			}
 		})
 	}
+	// After a subarachnoid haemorrhage no restriction volume is given, even
+	// when the data lean towards SIADH.
+	f := base(lab(BodyWeight, 70, 60), lab(BodyWeight, 71.4, 3))
+	f.Conditions = []Condition{{Reference: "Condition/sah", ClinicalStatus: "active", Onset: &onset,
+		Codings: []Coding{{System: "http://hl7.org/fhir/sid/icd-10-cm", Code: "I60.7"}}}}
+	for _, fd := range rs.Evaluate(ChartReview, f) {
+		if fd.Rule == RuleSIADHPattern && (!strings.Contains(fd.Detail, "no restriction volume is given: after subarachnoid haemorrhage") ||
+			strings.Contains(fd.Detail, "the ratio implies")) {
+			t.Errorf("a restriction volume after SAH:\n%s", fd.Detail)
+		}
+	}
+	// A condition that began 40 days ago is no longer a brain-injury context.
+	old := chartAt.Add(-40 * 24 * time.Hour)
+	f = base(lab(BodyWeight, 72, 60), lab(BodyWeight, 70.5, 3))
+	f.Conditions = []Condition{tbi}
+	f.Conditions[0].Onset = &old
+	for _, fd := range rs.Evaluate(ChartReview, f) {
+		if fd.Rule == RuleSIADHPattern && strings.Contains(fd.Detail, "Brain-injury") {
+			t.Errorf("a 40-day-old injury read as the context:\n%s", fd.Detail)
+		}
+	}
 	// Without the condition there is no brain-injury reading.
-	f := base(lab(BodyWeight, 72, 60), lab(BodyWeight, 70.5, 3))
+	f = base(lab(BodyWeight, 72, 60), lab(BodyWeight, 70.5, 3))
 	f.Conditions = nil
 	for _, fd := range rs.Evaluate(ChartReview, f) {
 		if fd.Rule == RuleSIADHPattern && (strings.Contains(fd.Detail, "Brain-injury") || fd.Figures["leansSaltWasting"] == 1) {
@@ -109,7 +133,7 @@ func TestSIADHEndocrineAndFEUrate(t *testing.T) {
 		if fd.Rule != RuleSIADHPattern {
 			continue
 		}
-		for _, w := range []string{"TSH 1.8 mIU/L", "cortisol 410 nmol/L", "Fractional excretion of urate 8.0%", "not above the normal 4–11%"} {
+		for _, w := range []string{"TSH 1.8 mIU/L", "cortisol 410 nmol/L", "Fractional excretion of urate 8.0%", "within the normal 4–11%"} {
 			if !strings.Contains(fd.Detail, w) {
 				t.Errorf("detail lacks %q:\n%s", w, fd.Detail)
 			}

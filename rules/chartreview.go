@@ -46,27 +46,17 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 	if !ok {
 		return nil
 	}
-	c := chart{f: f, latest: &l, trend: AnalyseSodium(f.Labs[Sodium], f.At), risk: DemyelinationRisk(p.DemyelinationRisk, f, f.At)}
-	// A sodium that was below the hyponatremia threshold in the last 48 h is
-	// the correction of a hyponatremia, even if it has overshot above 145.
-	correcting := c.trend.Window48h != nil && c.trend.Window48h.Nadir.Value < cp.HyponatremiaBelow
-	c.limits = InfusionAssessment{Trend: c.trend, Risk: c.risk, Latest: &l,
-		Hypernatremia: l.Value > p.Projection.HypernatremiaAbove && !correcting}
-	c.limits.setLimits(p.Limits)
-	c.context = Tonicity(f, l, cp.LabPairHours)
-	c.serumOs = nearest(f.Labs[SerumOsmolality], l, cp.LabPairHours, f)
-	c.urineOs = nearest(f.Labs[UrineOsmolality], l, cp.LabPairHours, f)
-	c.urineNa = nearest(f.Labs[UrineSodium], l, cp.LabPairHours, f)
-	c.urineK = nearest(f.Labs[UrinePotassium], l, cp.LabPairHours, f)
+	c := r.newChart(f, l)
 	var out []Finding
 	testRead := false
 	for _, judge := range []func(chart) (Finding, bool){r.desmopressinAfterNeurosurgery, r.overcorrection, r.hyperTooFast, r.profoundOrFalling,
 		r.notHypotonic, r.siadhPattern, r.waterDeprivationTest, r.concentratingDefect} {
 		fd, ok := judge(c)
 		// A water deprivation test read supersedes the concentrating-defect
-		// pattern its own results would show.
+		// pattern its own results would show (a urine osmolality from the
+		// test); a later one is a new finding.
 		testRead = testRead || (ok && fd.Rule == RuleWaterDeprivationTest)
-		if ok && fd.Rule == RuleConcentratingDefect && testRead {
+		if ok && fd.Rule == RuleConcentratingDefect && testRead && r.fromTheTest(c) {
 			continue
 		}
 		if ok {
@@ -84,6 +74,26 @@ func (r *Ruleset) chartFindings(f Facts) []Finding {
 	}
 	sortByIndicator(out)
 	return out
+}
+
+// newChart computes what the chart review and the restriction check read
+// once per call, around the latest sodium l.
+func (r *Ruleset) newChart(f Facts, l Measurement) chart {
+	p := r.policy
+	cp := p.ChartReview
+	c := chart{f: f, latest: &l, trend: AnalyseSodium(f.Labs[Sodium], f.At), risk: DemyelinationRisk(p.DemyelinationRisk, f, f.At)}
+	// A sodium that was below the hyponatremia threshold in the last 48 h is
+	// the correction of a hyponatremia, even if it has overshot above 145.
+	correcting := c.trend.Window48h != nil && c.trend.Window48h.Nadir.Value < cp.HyponatremiaBelow
+	c.limits = InfusionAssessment{Trend: c.trend, Risk: c.risk, Latest: &l,
+		Hypernatremia: l.Value > p.Projection.HypernatremiaAbove && !correcting}
+	c.limits.setLimits(p.Limits)
+	c.context = Tonicity(f, l, cp.LabPairHours)
+	c.serumOs = nearest(f.Labs[SerumOsmolality], l, cp.LabPairHours, f)
+	c.urineOs = nearest(f.Labs[UrineOsmolality], l, cp.LabPairHours, f)
+	c.urineNa = nearest(f.Labs[UrineSodium], l, cp.LabPairHours, f)
+	c.urineK = nearest(f.Labs[UrinePotassium], l, cp.LabPairHours, f)
+	return c
 }
 
 // recheckNatural reports the chart rules whose natural suggestion is a
@@ -365,8 +375,15 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio))
 		child, _ := r.isChild(c.f)
 		why := r.restrictionWithheld(c)
-		if why == "" && lean.saltWasting() {
+		switch after := r.noRestrictionAfter(c.f); {
+		case why != "":
+		case after != "":
+			why = "after " + after + " fluid restriction is advised against whatever the labs show (" + r.policy.BrainInjury.NoRestrictionSource + ")"
+		case lean.saltWasting():
 			why = "in a brain-injury context the data lean towards salt wasting, where restricting fluid can deepen the volume depletion (" +
+				r.policy.BrainInjury.RestrictionCautionSrc + ")"
+		case haematocritRising:
+			why = "the haematocrit is rising, a sign of volume depletion, where restricting fluid can deepen it (" +
 				r.policy.BrainInjury.RestrictionCautionSrc + ")"
 		}
 		switch {
@@ -408,8 +425,12 @@ func (r *Ruleset) volumeStatusLines(b *strings.Builder, c chart, fig map[string]
 		if u.Value < vs.UrateBelow {
 			lean = "below"
 		}
-		fmt.Fprintf(b, "- Uric acid %s umol/L (%s%s, %s): %s %g umol/L, a supplemental SIADH criterion (%s)\n", show(Urate, u.Value),
-			measuredBy(*u), stamp(u.At), u.Source, lean, vs.UrateBelow, vs.UrateSource)
+		also := ""
+		if u.Value < vs.UrateBelow && len(r.brainInjuryContext(c.f)) > 0 {
+			also = "; a low uric acid is seen in salt wasting too"
+		}
+		fmt.Fprintf(b, "- Uric acid %s umol/L (%s%s, %s): %s %g umol/L, a supplemental SIADH criterion (%s)%s\n", show(Urate, u.Value),
+			measuredBy(*u), stamp(u.At), u.Source, lean, vs.UrateBelow, vs.UrateSource, also)
 	} else {
 		fmt.Fprintf(b, "- Uric acid: no result within %g h of the sodium\n", cp.LabPairHours)
 	}

@@ -238,6 +238,9 @@ type Condition struct {
 	Text               string
 	ClinicalStatus     string
 	VerificationStatus string
+	// Onset is the condition's onset (onsetDateTime, or onsetPeriod's
+	// start), or failing that its recordedDate; nil when neither is given.
+	Onset *time.Time
 }
 
 // Procedure is a completed Procedure reduced to what the rules read: its

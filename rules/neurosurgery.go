@@ -3,6 +3,7 @@ package rules
 import (
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 	"time"
 )
@@ -117,6 +118,25 @@ func (r *Ruleset) retentionSigns(f Facts) (string, map[string]float64, bool) {
 func (r *Ruleset) isDesmopressin(o MedicationOrder) bool {
 	d, _, ok := r.policy.WaterDrugs.match(o.Medication)
 	return ok && !d.RaisesSodium
+}
+
+// DesmopressinTokens are the "system|code" search tokens (RxNorm, ATC) of
+// the antidiuretic of the water-drug policy, sorted, for a prefetch query.
+func (r *Ruleset) DesmopressinTokens() []string {
+	var out []string
+	for _, d := range r.policy.WaterDrugs.Drugs {
+		if d.RaisesSodium {
+			continue
+		}
+		for _, c := range d.RxNorm {
+			out = append(out, SystemRxNorm+"|"+c)
+		}
+		for _, c := range d.ATC {
+			out = append(out, SystemATC+"|"+c)
+		}
+	}
+	slices.Sort(out)
+	return out
 }
 
 // postoperativeDay is the day clinicians count: calendar days, in the

@@ -2,6 +2,7 @@ package rules
 
 import (
 	"fmt"
+	"slices"
 	"strings"
 	"time"
 )
@@ -21,21 +22,25 @@ type WaterDeprivationPolicy struct {
 	MinUrineResultsBefore int     `json:"minUrineResultsBefore"`
 	AfterDoseHours        float64 `json:"afterDoseHours"`
 	// Dehydration is adequate when the serum osmolality or the sodium
-	// reached these, or the urine concentrated to ConcentratedRatio times
-	// the serum osmolality.
-	AdequateSerumOsmolalityAtLeast float64 `json:"adequateSerumOsmolalityAtLeast"`
-	AdequateSodiumAtLeast          float64 `json:"adequateSodiumAtLeast"`
-	AdequateSource                 string  `json:"adequateSource"`
-	ConcentratedRatio              float64 `json:"concentratedRatio"`
+	// rose above these, or the urine concentrated to more than
+	// ConcentratedRatio times the serum osmolality.
+	AdequateSerumOsmolalityAbove float64 `json:"adequateSerumOsmolalityAbove"`
+	AdequateSodiumAbove          float64 `json:"adequateSodiumAbove"`
+	AdequateSource               string  `json:"adequateSource"`
+	ConcentratedRatio            float64 `json:"concentratedRatio"`
 	// The rise in urine osmolality after desmopressin, in per cent.
 	NoResponseRiseBelow       float64 `json:"noResponseRiseBelow"`
 	PartialCentralRiseAtLeast float64 `json:"partialCentralRiseAtLeast"`
 	CentralRiseAbove          float64 `json:"centralRiseAbove"`
 	CriteriaSource            string  `json:"criteriaSource"`
 	AccuracySource            string  `json:"accuracySource"`
-	WeightLossPercentAtLeast  float64 `json:"weightLossPercentAtLeast"`
-	WeightLossSource          string  `json:"weightLossSource"`
-	Copeptin                  struct {
+	// PlateauRisePerHourBelow: the urine had stopped concentrating when
+	// the dose was given.
+	PlateauRisePerHourBelow  float64 `json:"plateauRisePerHourBelow"`
+	PlateauSource            string  `json:"plateauSource"`
+	WeightLossPercentAtLeast float64 `json:"weightLossPercentAtLeast"`
+	WeightLossSource         string  `json:"weightLossSource"`
+	Copeptin                 struct {
 		StimulatedSodiumAtLeast  float64 `json:"stimulatedSodiumAtLeast"`
 		PrimaryPolydipsiaAbove   float64 `json:"primaryPolydipsiaAbove"`
 		StimulatedSource         string  `json:"stimulatedSource"`
@@ -49,13 +54,13 @@ func (p WaterDeprivationPolicy) validate() error {
 	switch {
 	case p.ShowDays <= 0 || p.DeprivationHours <= 0 || p.MinUrineResultsBefore < 1 || p.AfterDoseHours <= 0:
 		return fmt.Errorf("waterDeprivation needs showDays, deprivationHours, minUrineResultsBefore and afterDoseHours")
-	case p.AdequateSerumOsmolalityAtLeast <= 0 || p.AdequateSodiumAtLeast <= 0 || p.ConcentratedRatio <= 1:
+	case p.AdequateSerumOsmolalityAbove <= 0 || p.AdequateSodiumAbove <= 0 || p.ConcentratedRatio <= 1 || p.PlateauRisePerHourBelow <= 0:
 		return fmt.Errorf("waterDeprivation needs the adequate-dehydration thresholds and a concentrated ratio above 1")
 	case !(0 < p.NoResponseRiseBelow && p.NoResponseRiseBelow <= p.PartialCentralRiseAtLeast && p.PartialCentralRiseAtLeast < p.CentralRiseAbove):
 		return fmt.Errorf("waterDeprivation rises must order as noResponseRiseBelow <= partialCentralRiseAtLeast < centralRiseAbove")
 	case c.StimulatedSodiumAtLeast <= 0 || c.PrimaryPolydipsiaAbove <= 0 || c.BaselineNephrogenicAbove <= 0 || p.WeightLossPercentAtLeast <= 0:
 		return fmt.Errorf("waterDeprivation needs the copeptin thresholds and the weight loss")
-	case p.AdequateSource == "" || p.CriteriaSource == "" || p.AccuracySource == "" || p.WeightLossSource == "" || c.StimulatedSource == "" || c.BaselineSource == "":
+	case p.AdequateSource == "" || p.PlateauSource == "" || p.CriteriaSource == "" || p.AccuracySource == "" || p.WeightLossSource == "" || c.StimulatedSource == "" || c.BaselineSource == "":
 		return fmt.Errorf("waterDeprivation needs every source")
 	}
 	return nil
@@ -69,11 +74,12 @@ const (
 	WDTNotAdequate        WaterDeprivationOutcome = "stopped before adequate dehydration"
 	WDTNormalOrPolydipsia WaterDeprivationOutcome = "a normal concentrating response: primary polydipsia or no diabetes insipidus"
 	WDTCompleteCentral    WaterDeprivationOutcome = "complete central diabetes insipidus (vasopressin deficiency)"
-	WDTCentral            WaterDeprivationOutcome = "central diabetes insipidus (vasopressin deficiency)"
+	WDTCentral            WaterDeprivationOutcome = "central diabetes insipidus, though the urine was above the serum osmolality before desmopressin (possibly partial)"
 	WDTPartialCentral     WaterDeprivationOutcome = "partial central diabetes insipidus"
 	WDTNephrogenic        WaterDeprivationOutcome = "nephrogenic diabetes insipidus (vasopressin resistance)"
-	WDTIndeterminate      WaterDeprivationOutcome = "indeterminate"
-	WDTNoSerumOsmolality  WaterDeprivationOutcome = "not classified: no serum osmolality at the end of deprivation"
+	WDTIndeterminate      WaterDeprivationOutcome = "none of the published ranges"
+	WDTNoResponse         WaterDeprivationOutcome = "no reading: no urine osmolality after desmopressin"
+	WDTNoSerumOsmolality  WaterDeprivationOutcome = "no reading: no serum osmolality at the end of deprivation"
 )
 
 // WaterDeprivationReading is a test found in the data and its figures.
@@ -92,6 +98,9 @@ type WaterDeprivationReading struct {
 	WeightLossPercent *float64
 	WeightFirst       *Measurement
 	WeightLast        *Measurement
+	// LastRisePerHour is the urine's change per hour between its last two
+	// results before the dose.
+	LastRisePerHour *float64
 }
 
 // ReadWaterDeprivationTest finds the latest test in the data and reads it;
@@ -99,26 +108,54 @@ type WaterDeprivationReading struct {
 // with no result after the dose.
 func (r *Ruleset) ReadWaterDeprivationTest(f Facts) (WaterDeprivationReading, bool) {
 	p := r.policy.WaterDeprivation
-	var best *MedicationOrder
-	for i, o := range f.Given {
-		if o.GivenAt == nil || f.At.Sub(*o.GivenAt).Hours() > p.ShowDays*24 || (best != nil && !o.GivenAt.After(*best.GivenAt)) {
-			continue
-		}
-		if r.isDesmopressin(o) {
-			best = &f.Given[i]
+	var doses []MedicationOrder
+	for _, o := range f.Given {
+		if o.GivenAt != nil && f.At.Sub(*o.GivenAt).Hours() <= p.ShowDays*24 && r.isDesmopressin(o) {
+			doses = append(doses, o)
 		}
 	}
-	if best == nil {
-		return WaterDeprivationReading{}, false
+	slices.SortFunc(doses, func(a, b MedicationOrder) int { return b.GivenAt.Compare(*a.GivenAt) }) // newest first
+	for i, d := range doses {
+		if w, ok, done := r.readTestAt(f, d, doses[i+1:]); done {
+			return w, ok
+		}
 	}
-	dose := *best.GivenAt
+	return WaterDeprivationReading{}, false
+}
+
+// readTestAt reads the test that ends with dose d, given the earlier doses.
+// done is false when d does not end a test (so an earlier dose may): a
+// desmopressin dose in the deprivation window before it (treatment, not a
+// test), fewer serial urine osmolalities than the policy asks, or a sodium
+// below the hyponatremia threshold in the window (a correction being
+// clamped, not a deprivation). With done true, ok is false while the
+// response is still being collected.
+func (r *Ruleset) readTestAt(f Facts, d MedicationOrder, earlier []MedicationOrder) (w WaterDeprivationReading, ok, done bool) {
+	p := r.policy.WaterDeprivation
+	dose := *d.GivenAt
 	from := dose.Add(-time.Duration(p.DeprivationHours * float64(time.Hour)))
 	until := dose.Add(time.Duration(p.AfterDoseHours * float64(time.Hour)))
+	for _, e := range earlier {
+		if e.GivenAt.After(from) {
+			return w, false, false
+		}
+	}
 	before := between(f.Labs[UrineOsmolality], from, dose)
 	if len(before) < p.MinUrineResultsBefore {
-		return WaterDeprivationReading{}, false
+		return w, false, false
 	}
-	w := WaterDeprivationReading{Dose: *best, DoseAt: dose, UrineEnd: before[len(before)-1], Start: before[0].At}
+	for _, m := range between(f.Labs[Sodium], from, dose) {
+		if m.Value < r.policy.ChartReview.HyponatremiaBelow {
+			return w, false, false
+		}
+	}
+	w = WaterDeprivationReading{Dose: d, DoseAt: dose, UrineEnd: before[len(before)-1], Start: before[0].At}
+	if n := len(before); n >= 2 {
+		if h := before[n-1].At.Sub(before[n-2].At).Hours(); h > 0 {
+			perHour := (before[n-1].Value - before[n-2].Value) / h
+			w.LastRisePerHour = &perHour
+		}
+	}
 	for _, a := range []Analyte{Sodium, SerumOsmolality, BodyWeight} {
 		if s := between(f.Labs[a], from, dose); len(s) > 0 && s[0].At.Before(w.Start) {
 			w.Start = s[0].At
@@ -130,7 +167,7 @@ func (r *Ruleset) ReadWaterDeprivationTest(f Facts) (WaterDeprivationReading, bo
 		}
 	}
 	if w.UrineAfter == nil && f.At.Before(until) {
-		return WaterDeprivationReading{}, false // the response is still being collected
+		return w, false, true // the response is still being collected
 	}
 	if s := between(f.Labs[SerumOsmolality], from, dose); len(s) > 0 {
 		w.SerumEnd = &s[len(s)-1]
@@ -149,11 +186,11 @@ func (r *Ruleset) ReadWaterDeprivationTest(f Facts) (WaterDeprivationReading, bo
 		rise := (w.UrineAfter.Value - w.UrineEnd.Value) / w.UrineEnd.Value * 100
 		w.RisePercent = &rise
 	}
-	concentrated := w.UrinePlasmaRatio != nil && *w.UrinePlasmaRatio >= p.ConcentratedRatio
-	w.Adequate = concentrated || (w.SerumEnd != nil && w.SerumEnd.Value >= p.AdequateSerumOsmolalityAtLeast) ||
-		(w.SodiumEnd != nil && w.SodiumEnd.Value >= p.AdequateSodiumAtLeast)
+	concentrated := w.UrinePlasmaRatio != nil && *w.UrinePlasmaRatio > p.ConcentratedRatio
+	w.Adequate = concentrated || (w.SerumEnd != nil && w.SerumEnd.Value > p.AdequateSerumOsmolalityAbove) ||
+		(w.SodiumEnd != nil && w.SodiumEnd.Value > p.AdequateSodiumAbove)
 	w.Outcome = p.classify(w, concentrated)
-	return w, true
+	return w, true, true
 }
 
 // classify applies the criteria (Miller 1970) to a reading.
@@ -162,7 +199,7 @@ func (p WaterDeprivationPolicy) classify(w WaterDeprivationReading, concentrated
 	case !w.Adequate:
 		return WDTNotAdequate
 	case w.RisePercent == nil:
-		return WDTIndeterminate
+		return WDTNoResponse
 	case w.UrinePlasmaRatio == nil:
 		return WDTNoSerumOsmolality
 	}
@@ -182,6 +219,15 @@ func (p WaterDeprivationPolicy) classify(w WaterDeprivationReading, concentrated
 		return WDTNephrogenic
 	}
 	return WDTIndeterminate
+}
+
+// fromTheTest reports whether the chart's urine osmolality was taken
+// during the water deprivation test read from its facts (up to the end of
+// the response window).
+func (r *Ruleset) fromTheTest(c chart) bool {
+	w, ok := r.ReadWaterDeprivationTest(c.f)
+	end := w.DoseAt.Add(time.Duration(r.policy.WaterDeprivation.AfterDoseHours * float64(time.Hour)))
+	return ok && c.urineOs != nil && !c.urineOs.At.After(end)
 }
 
 // between returns the results of s taken in (from, to].
@@ -208,7 +254,8 @@ func (r *Ruleset) waterDeprivationTest(c chart) (Finding, bool) {
 	}
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
-	fmt.Fprintf(&b, "- Desmopressin given %s (%s, %s)\n", stamp(w.DoseAt), w.Dose.Reference, orderText(w.Dose))
+	fmt.Fprintf(&b, "- Desmopressin given %s (%s, %s), after serial urine osmolalities and with no desmopressin in the %g h "+
+		"before it: read as the end of a water deprivation test\n", stamp(w.DoseAt), w.Dose.Reference, orderText(w.Dose), p.DeprivationHours)
 	fmt.Fprintf(&b, "- Deprivation phase read from %s to the dose (%s h)\n", stamp(w.Start), hoursSpan.of(w.DoseAt.Sub(w.Start).Hours()))
 	series := func(a Analyte, name, unit string) {
 		var vals []string
@@ -240,22 +287,31 @@ func (r *Ruleset) waterDeprivationTest(c chart) (Finding, bool) {
 	var reached []string
 	if w.SerumEnd != nil {
 		fig["serumOsmolalityEnd"] = w.SerumEnd.Value
-		reached = append(reached, fmt.Sprintf("serum osmolality %s (threshold %g)", show(SerumOsmolality, w.SerumEnd.Value), p.AdequateSerumOsmolalityAtLeast))
+		reached = append(reached, fmt.Sprintf("serum osmolality %s (adequate above %g)", show(SerumOsmolality, w.SerumEnd.Value), p.AdequateSerumOsmolalityAbove))
 	} else {
 		reached = append(reached, "no serum osmolality")
 	}
 	if w.SodiumEnd != nil {
-		reached = append(reached, fmt.Sprintf("sodium %s (threshold %g)", show(Sodium, w.SodiumEnd.Value), p.AdequateSodiumAtLeast))
+		reached = append(reached, fmt.Sprintf("sodium %s (adequate above %g)", show(Sodium, w.SodiumEnd.Value), p.AdequateSodiumAbove))
 	}
 	if w.UrinePlasmaRatio != nil {
 		fig["urinePlasmaOsmolalityRatio"] = Round(*w.UrinePlasmaRatio, 2)
-		reached = append(reached, fmt.Sprintf("urine-to-serum osmolality ratio %s (concentrated at %g or more)", ratioOrBSA.of(*w.UrinePlasmaRatio), p.ConcentratedRatio))
+		reached = append(reached, fmt.Sprintf("urine-to-serum osmolality ratio %s (concentrated above %g)", ratioOrBSA.of(*w.UrinePlasmaRatio), p.ConcentratedRatio))
 	}
 	verdict := "adequate"
 	if !w.Adequate {
 		verdict = "NOT adequate: the test stopped before the stimulus was strong enough to read it"
 	}
 	fmt.Fprintf(&b, "- End of deprivation: %s — dehydration %s (%s)\n", strings.Join(reached, ", "), verdict, p.AdequateSource)
+	if w.LastRisePerHour != nil {
+		fig["urineRisePerHourBeforeDose"] = Round(*w.LastRisePerHour, 0)
+		line := fmt.Sprintf("- Urine osmolality changed %s mOsm/kg per hour between its last two results before the dose", signedWhole(*w.LastRisePerHour))
+		if *w.LastRisePerHour >= p.PlateauRisePerHourBelow {
+			line += fmt.Sprintf(": still concentrating, while the criteria give desmopressin once the rise has fallen below %g per hour, "+
+				"so part of the rise after it may be the deprivation continuing (%s)", p.PlateauRisePerHourBelow, p.PlateauSource)
+		}
+		b.WriteString(line + "\n")
+	}
 	if w.UrineAfter != nil {
 		fig["urineOsmolalityAfterDesmopressin"] = w.UrineAfter.Value
 		fig["risePercent"] = Round(*w.RisePercent, 1)
@@ -273,12 +329,21 @@ func (r *Ruleset) waterDeprivationTest(c chart) (Finding, bool) {
 		fmt.Fprintf(&b, "- Active drugs that can cause nephrogenic DI: %s\n", strings.Join(drugs, ", "))
 	}
 	if ctx := r.brainInjuryContext(c.f); len(ctx) > 0 {
-		fmt.Fprintf(&b, "- Brain-injury context, where central DI is expected: %s\n", strings.Join(ctx, "; "))
+		fmt.Fprintf(&b, "- Brain-injury context, a recognised cause of central DI: %s\n", strings.Join(ctx, "; "))
 	}
-	if w.Outcome == WDTNotAdequate {
+	switch w.Outcome {
+	case WDTNotAdequate:
 		b.WriteString("- Reading: not classifiable — the test " + string(w.Outcome) + "; a low urine osmolality after a weak stimulus " +
 			"can look like any of the ranges\n")
-	} else {
+	case WDTNephrogenic:
+		b.WriteString("- Reading: the figures fit " + string(w.Outcome))
+		if *w.UrinePlasmaRatio >= 1 {
+			b.WriteString("; with the urine above the serum osmolality, primary polydipsia with a washed-out renal medulla can look the same")
+		}
+		b.WriteString("\n")
+	case WDTIndeterminate, WDTNoResponse, WDTNoSerumOsmolality:
+		fmt.Fprintf(&b, "- Reading: %s\n", w.Outcome)
+	default:
 		fmt.Fprintf(&b, "- Reading: the figures fit %s\n", w.Outcome)
 	}
 	fmt.Fprintf(&b, "\n**Labs cannot show**: whether fluids were taken during the test, when the desmopressin was actually absorbed, "+
@@ -294,9 +359,12 @@ func (r *Ruleset) waterDeprivationTest(c chart) (Finding, bool) {
 		if w.SodiumEnd != nil {
 			end = append(end, "sodium "+show(Sodium, w.SodiumEnd.Value))
 		}
-		summary = fmt.Sprintf("Water deprivation test stopped before adequate dehydration (%s): not classifiable", strings.Join(end, ", "))
+		summary = "Water deprivation test stopped before adequate dehydration: not classifiable"
+		if len(end) > 0 {
+			summary = fmt.Sprintf("Water deprivation test stopped before adequate dehydration (%s): not classifiable", strings.Join(end, ", "))
+		}
 	case w.RisePercent != nil:
-		summary = fmt.Sprintf("Water deprivation test: urine %s → %s mOsm/kg after desmopressin (%s%%): fits %s", show(UrineOsmolality, w.UrineEnd.Value),
+		summary = fmt.Sprintf("Water deprivation test: urine %s → %s mOsm/kg after desmopressin (%s%%): %s", show(UrineOsmolality, w.UrineEnd.Value),
 			show(UrineOsmolality, w.UrineAfter.Value), signedPercent(*w.RisePercent), w.Outcome.short())
 	default:
 		summary = fmt.Sprintf("Water deprivation test (desmopressin %s): %s", stamp(w.DoseAt), w.Outcome.short())
@@ -304,21 +372,31 @@ func (r *Ruleset) waterDeprivationTest(c chart) (Finding, bool) {
 	return Finding{Rule: RuleWaterDeprivationTest, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
 }
 
-// short is the outcome as a summary names it.
+// short is the outcome as a summary says it.
 func (o WaterDeprivationOutcome) short() string {
 	switch o {
 	case WDTNormalOrPolydipsia:
-		return "a normal response or primary polydipsia"
+		return "fits a normal response or primary polydipsia"
 	case WDTCompleteCentral:
-		return "complete central DI"
+		return "fits complete central DI"
 	case WDTCentral:
-		return "central DI"
+		return "fits central DI (urine above serum before it)"
 	case WDTPartialCentral:
-		return "partial central DI"
+		return "fits partial central DI"
 	case WDTNephrogenic:
-		return "nephrogenic DI"
+		return "fits nephrogenic DI"
+	case WDTIndeterminate:
+		return "between the published ranges"
 	}
 	return string(o)
+}
+
+// signedWhole writes a change to the whole unit with its sign.
+func signedWhole(v float64) string {
+	if Round(v, 0) > 0 {
+		return "+" + osmolal.of(v)
+	}
+	return osmolal.of(v)
 }
 
 // signedPercent writes a change in per cent with its sign.

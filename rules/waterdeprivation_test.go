@@ -28,7 +28,7 @@ func wdtFacts(t *testing.T, urineEnd, serumEnd, sodiumEnd, after float64) Facts 
 // notes §4.4): normal above 2 × serum with a rise under 9 %; complete
 // central below serum with a rise above 50 %; partial central 10–50 %;
 // nephrogenic below 2 × serum with a rise under 9 %; dehydration adequate
-// at serum osmolality 295 or sodium 145 (§4.4, from memory).
+// above a serum osmolality of 295 or a sodium of 145 (§4.4, from memory).
 func TestWaterDeprivationCriteria(t *testing.T) {
 	rs := loadRuleset(t)
 	for _, tc := range []struct {
@@ -47,8 +47,12 @@ func TestWaterDeprivationCriteria(t *testing.T) {
 		{"normal or primary polydipsia", 820, 293, 143, 850, WDTNormalOrPolydipsia, 3.7, 2.8},
 		// 340/289 = 1.18, serum 289 < 295, sodium 142 < 145: not adequate
 		{"stopped early", 340, 289, 142, 360, WDTNotAdequate, 5.9, 1.18},
-		// sodium 145 alone makes it adequate; (600 − 500)/500 = 20 % with 500/294 = 1.70
-		{"adequate by sodium alone", 500, 294, 145, 600, WDTPartialCentral, 20, 1.70},
+		// sodium 146 alone makes it adequate; (600 − 500)/500 = 20 % with 500/294 = 1.70
+		{"adequate by sodium alone", 500, 294, 146, 600, WDTPartialCentral, 20, 1.70},
+		// sodium 145 and serum 294 are not above the thresholds
+		{"sodium at 145 is not adequate", 500, 294, 145, 600, WDTNotAdequate, 20, 1.70},
+		// 590/295 = 2.00 is not above 2: (610 − 590)/590 = 3.4 % — urine below 2 × serum with no response
+		{"ratio of exactly 2", 590, 295, 146, 610, WDTNephrogenic, 3.4, 2},
 		// (200 − 182)/182 = 9.9 %: between the ranges
 		{"rise between 9 and 10", 182, 300, 147, 200, WDTIndeterminate, 9.9, 0.61},
 		// (760 − 660)/660 = 15.2 % while already above 2 × serum: not a range
@@ -78,7 +82,8 @@ func TestWaterDeprivationCriteria(t *testing.T) {
 					t.Errorf("concentrating-defect card beside the test reading: %s", fs[i].Summary)
 				}
 			}
-			if card == nil || !strings.Contains(card.Detail, string(tc.want)) || len([]rune(card.Summary)) >= 140 || strings.HasSuffix(card.Summary, "…") {
+			if card == nil || !strings.Contains(card.Detail, string(tc.want)) || len([]rune(card.Summary)) >= 140 || strings.HasSuffix(card.Summary, "…") ||
+				strings.Contains(card.Summary, "fits no") || strings.Contains(card.Summary, "()") {
 				t.Fatalf("card %+v", card)
 			}
 			if tc.want == WDTNotAdequate && !strings.Contains(card.Detail, "NOT adequate") {
@@ -116,8 +121,30 @@ func TestWaterDeprivationFound(t *testing.T) {
 	}
 	f = wdtFacts(t, 140, 302, 148, 0)
 	w, ok := rs.ReadWaterDeprivationTest(f)
-	if !ok || w.UrineAfter != nil || w.Outcome != WDTIndeterminate {
+	if !ok || w.UrineAfter != nil || w.Outcome != WDTNoResponse {
 		t.Errorf("no response: %+v", w)
+	}
+	// A desmopressin dose in the 24 h before is treatment: the later dose
+	// ends no test, and nor does the earlier (one urine result before it).
+	f = wdtFacts(t, 140, 302, 148, 320)
+	earlier := chartAt.Add(-20 * time.Hour)
+	f.Given = append(f.Given, MedicationOrder{Reference: "MedicationAdministration/ddavp-0", GivenAt: &earlier, Medication: f.Given[0].Medication})
+	if w, ok := rs.ReadWaterDeprivationTest(f); ok {
+		t.Errorf("read a treatment dose as a test: %+v", w)
+	}
+	// A sodium below 135 in the window: a correction clamped with
+	// desmopressin, not a deprivation.
+	f = wdtFacts(t, 140, 302, 148, 320)
+	f.Labs[Sodium] = append([]Measurement{lab(Sodium, 124, 20)}, f.Labs[Sodium]...)
+	if _, ok := rs.ReadWaterDeprivationTest(f); ok {
+		t.Error("read a desmopressin clamp of a hyponatremia as a test")
+	}
+	// A treatment dose two hours ago, after the test: the test is still read.
+	f = wdtFacts(t, 140, 302, 148, 320)
+	later := chartAt.Add(-2 * time.Hour)
+	f.Given = append(f.Given, MedicationOrder{Reference: "MedicationAdministration/ddavp-2", GivenAt: &later, Medication: f.Given[0].Medication})
+	if w, ok := rs.ReadWaterDeprivationTest(f); !ok || w.Dose.Reference != "MedicationAdministration/ddavp" || w.Outcome != WDTCompleteCentral {
+		t.Errorf("a later treatment dose hid the test: %v %+v", ok, w)
 	}
 	f = wdtFacts(t, 140, 302, 148, 320)
 	f.Given[0].Medication = Medication{Text: "paracetamol 1 g"}
@@ -161,5 +188,32 @@ func TestWaterDeprivationCopeptin(t *testing.T) {
 			}
 			t.Fatal("no test card")
 		})
+	}
+}
+
+// TestWaterDeprivationLeavesLaterFindings: the test's reading hides the
+// concentrating-defect card built from the test's own urine, not one built
+// from a later urine (invented: a new sodium of 149 with urine of 150
+// mOsm/kg nine hours after the response window closed).
+func TestWaterDeprivationLeavesLaterFindings(t *testing.T) {
+	rs := loadRuleset(t)
+	rules := func(f Facts) map[string]bool {
+		out := map[string]bool{}
+		for _, fd := range rs.Evaluate(ChartReview, f) {
+			out[fd.Rule] = true
+		}
+		return out
+	}
+	// The urine after desmopressin, 260 mOsm/kg, is dilute beside a sodium
+	// of 149: without the test it would make a concentrating-defect card.
+	f := wdtFacts(t, 140, 302, 148, 260)
+	f.Labs[Sodium] = []Measurement{lab(Sodium, 139, 22), lab(Sodium, 148, 14), lab(Sodium, 149, 11)}
+	if got := rules(f); !got[RuleWaterDeprivationTest] || got[RuleConcentratingDefect] {
+		t.Errorf("within the test: %v", got)
+	}
+	f.Labs[Sodium] = append(f.Labs[Sodium], lab(Sodium, 149, 1))
+	f.Labs[UrineOsmolality] = append(f.Labs[UrineOsmolality], lab(UrineOsmolality, 150, 0.5))
+	if got := rules(f); !got[RuleWaterDeprivationTest] || !got[RuleConcentratingDefect] {
+		t.Errorf("after the test: %v", got)
 	}
 }

@@ -11,6 +11,7 @@ import (
 
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/rules"
 )
 
 // stringList is a repeatable string flag.
@@ -35,13 +36,14 @@ func (b *bundleFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&b.labCodes, "lab-codes", "", "read results also by a site's local laboratory codes in `file` (as lab_codes does for the server)")
 }
 
-// registry returns the services, reading the flags' local lab codes.
-func (b *bundleFlags) registry() (*hooks.Registry, error) {
+// registry returns the services, reading the flags' local lab codes; rs
+// gives the drug codes prefetch templates ask for.
+func (b *bundleFlags) registry(rs *rules.Ruleset) (*hooks.Registry, error) {
 	codes, err := loadLabCodes(b.labCodes)
 	if err != nil {
 		return nil, err
 	}
-	return hooks.NewRegistry(codes), nil
+	return hooks.NewRegistry(codes, rs), nil
 }
 
 // services returns the services to run for the flags.
@@ -142,7 +144,11 @@ func request(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	reg, err := bf.registry()
+	rs, err := rules.Load()
+	if err != nil {
+		return err
+	}
+	reg, err := bf.registry(rs)
 	if err != nil {
 		return err
 	}

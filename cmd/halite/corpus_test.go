@@ -100,7 +100,7 @@ func TestSyntheticCorpus(t *testing.T) {
 
 	// Every resource that names a patient names this bundle's Patient,
 	// whichever reference form it uses.
-	drugRisk, _ := hooks.NewRegistry(nil).Lookup("sodium-drug-risk")
+	drugRisk, _ := hooks.NewRegistry(nil, nil).Lookup("sodium-drug-risk")
 	for i, p := range patients {
 		b, err := readBundle(paths[i])
 		if err != nil {

@@ -62,7 +62,7 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if rs, err = displayRuleset(rs, *zone, units); err != nil {
 		return fmt.Errorf("--display-timezone: %w", err)
 	}
-	reg, err := bf.registry()
+	reg, err := bf.registry(rs)
 	if err != nil {
 		return err
 	}

@@ -168,7 +168,7 @@ func TestServeDrainsInFlight(t *testing.T) {
 		store.ServeHTTP(w, r)
 	}))
 	defer slow.Close()
-	svc, _ := hooks.NewRegistry(nil).Lookup("sodium-drug-risk")
+	svc, _ := hooks.NewRegistry(nil, nil).Lookup("sodium-drug-risk")
 	req, err := hooks.BuildRequest(b, svc, hooks.RequestOptions{Hook: "order-sign", UserID: "Practitioner/u",
 		OmitPrefetch: true, FHIRServer: slow.URL, AccessToken: "tok"})
 	if err != nil {
@@ -327,7 +327,7 @@ func TestCommandErrors(t *testing.T) {
 }
 
 func mustLookup(t *testing.T, id string) hooks.Service {
-	s, ok := hooks.NewRegistry(nil).Lookup(id)
+	s, ok := hooks.NewRegistry(nil, nil).Lookup(id)
 	if !ok {
 		t.Fatal(id)
 	}

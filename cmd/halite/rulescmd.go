@@ -99,8 +99,8 @@ func rulesCmd(args []string, stdout, stderr io.Writer) error {
 	fmt.Fprintf(tw, "a test is\tdesmopressin given in the last %g days after %d or more urine osmolalities in the %g h before it\n",
 		wd.ShowDays, wd.MinUrineResultsBefore, wd.DeprivationHours)
 	fmt.Fprintf(tw, "response\tthe highest urine osmolality within %g h of the dose\n", wd.AfterDoseHours)
-	fmt.Fprintf(tw, "adequate dehydration\tserum osmolality %g or sodium %g, or urine %g x serum (%s)\n", wd.AdequateSerumOsmolalityAtLeast,
-		wd.AdequateSodiumAtLeast, wd.ConcentratedRatio, wd.AdequateSource)
+	fmt.Fprintf(tw, "adequate dehydration\tserum osmolality above %g or sodium above %g, or urine above %g x serum (%s)\n", wd.AdequateSerumOsmolalityAbove,
+		wd.AdequateSodiumAbove, wd.ConcentratedRatio, wd.AdequateSource)
 	fmt.Fprintf(tw, "ranges of the rise\tunder %g %%, %g-%g %%, above %g %% (%s)\n", wd.NoResponseRiseBelow, wd.PartialCentralRiseAtLeast,
 		wd.CentralRiseAbove, wd.CentralRiseAbove, wd.CriteriaSource)
 	fmt.Fprintf(tw, "copeptin\tabove %g pmol/L at sodium %g or more (%s); unstimulated above %g (%s)\n", wd.Copeptin.PrimaryPolydipsiaAbove,

@@ -170,7 +170,7 @@ func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Lo
 	private := opts
 	private.Transport = fhirclient.NewTransport(cfg.DevelopmentMode, true)
 	return hooks.NewEngine(hooks.EngineConfig{
-		Registry: hooks.NewRegistry(codes),
+		Registry: hooks.NewRegistry(codes, rs),
 		Ruleset:  rs,
 		NewFetcher: func(server string, auth *hooks.FHIRAuthorization, caller hooks.Caller, budget *hooks.CallBudget) (hooks.Fetcher, error) {
 			o := opts
