@@ -112,6 +112,12 @@ func Map(in Input, rs *rules.Ruleset) rules.Facts {
 	for _, r := range drafts {
 		switch r.Type {
 		case "MedicationRequest":
+		case "NutritionOrder":
+			if n, ok := m.nutritionOrder(r); ok {
+				n.Selected = in.Selections == nil || selected[n.Reference]
+				m.facts.DraftNutrition = append(m.facts.DraftNutrition, n)
+			}
+			continue
 		case "Medication":
 			continue // read when an order references it
 		default:

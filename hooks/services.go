@@ -86,7 +86,8 @@ func NewRegistry(codes *fhirmap.Codes, rs *rules.Ruleset) *Registry {
 				"rate limits in force, and estimates the change the order would cause. Advisory only.",
 			UsageRequirements: "Needs the patient's serum sodium results with their times; body weight, age and sex " +
 				"for projections; active MedicationRequests, so that infusions already running are counted with the " +
-				"drafts. Draft orders must be MedicationRequests with coded or described products.",
+				"drafts. Draft orders must be MedicationRequests with coded or described products; draft NutritionOrders " +
+				"that restrict fluid are checked against the urine-to-plasma electrolyte ratio and the volume status.",
 			Check:    rules.InfusionCheck,
 			Prefetch: []PrefetchKey{k.patient, k.sodium, k.chemistry, k.urine, k.bodySize, k.conditions, k.medications, k.administrations, k.procedures},
 		},

@@ -104,7 +104,8 @@ type WaterDrugPolicy struct {
 // and chart review; the drug-risk check has its own severity table).
 var cardRules = [...]string{RuleLimitExceeded, RuleRelowering, RuleAquaresis, RuleDesalination, RuleHypertonicNotHypotonic, RuleHypertonicWithVaptan, RuleProjectedOver, RuleNoProjection, RuleHypertonicOrder, RuleWaterDrug,
 	RuleWaterDrugNoSodium, RuleDesmopressinAfterNeurosurgery, RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleNotHypotonic,
-	RuleSIADHPattern, RuleUrineStudiesMissing, RuleDiluteUrine, RuleConcentratingDefect, RuleWaterDeprivationTest}
+	RuleSIADHPattern, RuleUrineStudiesMissing, RuleDiluteUrine, RuleConcentratingDefect, RuleWaterDeprivationTest,
+	RuleRestrictionCaution, RuleRestrictionReview}
 
 func (c CardPolicy) validate() error {
 	if c.HypertonicNaKAtLeast <= 154 || c.Source == "" {

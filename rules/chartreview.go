@@ -374,7 +374,7 @@ func (r *Ruleset) siadhPattern(c chart) (Finding, bool) {
 		ratioText := fmt.Sprintf("- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s", show(UrineSodium, c.urineNa.Value),
 			show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio))
 		child, _ := r.isChild(c.f)
-		why := r.restrictionWithheld(c)
+		why, _ := r.restrictionWithheld(c)
 		switch after := r.noRestrictionAfter(c.f); {
 		case why != "":
 		case after != "":
@@ -494,22 +494,25 @@ func missingUrine(osm, na *Measurement) string {
 }
 
 // restrictionWithheld says why no fluid-restriction volume may be given
-// (chartReview.restriction.withheldSource), or "" when one may: sodium
-// already risen at or beyond the limit, a vasopressin-receptor antagonist
-// active or drafted, or a urea-to-creatinine ratio that leans hypovolaemic.
-func (r *Ruleset) restrictionWithheld(c chart) string {
+// (chartReview.restriction.withheldSource), in full and in a few words for
+// a summary, or "" when one may: sodium already risen at or beyond the
+// limit, a vasopressin-receptor antagonist active or drafted, or a
+// urea-to-creatinine ratio that leans hypovolaemic.
+func (r *Ruleset) restrictionWithheld(c chart) (why, short string) {
 	rs := r.policy.ChartReview.Restriction
 	l := c.limits
 	switch {
 	case l.Achieved24h >= l.Limit24h:
-		return fmt.Sprintf("sodium has already risen %s mmol/L in 24 h, at or beyond the limit of %g", naChange.of(l.Achieved24h), l.Limit24h)
+		return fmt.Sprintf("sodium has already risen %s mmol/L in 24 h, at or beyond the limit of %g", naChange.of(l.Achieved24h), l.Limit24h),
+			"sodium already at its 24-h rise limit"
 	case l.Limit48h > 0 && l.Achieved48h >= l.Limit48h:
-		return fmt.Sprintf("sodium has already risen %s mmol/L in 48 h, at or beyond the limit of %g", naChange.of(l.Achieved48h), l.Limit48h)
+		return fmt.Sprintf("sodium has already risen %s mmol/L in 48 h, at or beyond the limit of %g", naChange.of(l.Achieved48h), l.Limit48h),
+			"sodium already at its 48-h rise limit"
 	}
 	for _, o := range append(append([]MedicationOrder(nil), c.f.Medications...), c.f.DraftOrders...) {
 		if d, _, ok := r.policy.WaterDrugs.match(o.Medication); ok && d.RaisesSodium {
 			return fmt.Sprintf("%s is active or ordered (%s), and fluid restriction early in its treatment can make sodium rise too fast (%s)",
-				d.Name, o.Reference, rs.WithheldSource)
+				d.Name, o.Reference, rs.WithheldSource), d.Name + " active or ordered"
 		}
 	}
 	urea := nearest(c.f.Labs[Urea], *c.latest, r.policy.ChartReview.LabPairHours, c.f)
@@ -517,10 +520,10 @@ func (r *Ruleset) restrictionWithheld(c chart) string {
 	if urea != nil && creat != nil && creat.Value > 0 {
 		if ratio := BUNCreatinineRatio(urea.Value, creat.Value); ratio > rs.HypovolaemiaBUNCreatinineAbove {
 			return fmt.Sprintf("the blood urea nitrogen to creatinine ratio is %s (above %g), which leans hypovolaemic",
-				ratioOrBSA.of(ratio), rs.HypovolaemiaBUNCreatinineAbove)
+				ratioOrBSA.of(ratio), rs.HypovolaemiaBUNCreatinineAbove), "urea-to-creatinine ratio leans hypovolaemic"
 		}
 	}
-	return ""
+	return "", ""
 }
 
 func (r *Ruleset) restrictionBand(ratio float64) RestrictionBand {

@@ -252,6 +252,24 @@ type Procedure struct {
 	At        time.Time
 }
 
+// NutritionOrder is a draft NutritionOrder reduced to what the rules read
+// of its oral diet: the diet types and the nutrients with their amounts
+// (a fluid restriction is a type or a fluid nutrient the policy lists).
+type NutritionOrder struct {
+	Reference   string
+	Types       []Coding
+	TypeText    string
+	Nutrients   []Nutrient
+	Instruction string
+	Selected    bool // named in order-select's selections (all at order-sign)
+}
+
+// Nutrient is one oralDiet.nutrient: what (modifier) and how much.
+type Nutrient struct {
+	Codings []Coding
+	Amount  *Quantity
+}
+
 // DataGap records a source of facts halite could not read, so findings can
 // say what they could not check.
 type DataGap struct {
@@ -272,10 +290,12 @@ type Facts struct {
 	// with its time.
 	Given       []MedicationOrder
 	DraftOrders []MedicationOrder // orders being selected or signed
-	Conditions  []Condition
-	Procedures  []Procedure
-	Gaps        []DataGap
-	Notes       []string // data-quality notes that are not rejections
+	// DraftNutrition are the draft NutritionOrders of the call.
+	DraftNutrition []NutritionOrder
+	Conditions     []Condition
+	Procedures     []Procedure
+	Gaps           []DataGap
+	Notes          []string // data-quality notes that are not rejections
 }
 
 // everyOrder is every order of the facts: active orders, in-progress

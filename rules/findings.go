@@ -106,7 +106,7 @@ func (r *Ruleset) Evaluate(c Check, f Facts) []Finding {
 	var out []Finding
 	switch c {
 	case InfusionCheck:
-		out = append(r.infusionFindings(f), r.waterDrugFindings(f)...)
+		out = append(append(r.infusionFindings(f), r.waterDrugFindings(f)...), r.restrictionFindings(f)...)
 	case DrugRisk:
 		out = r.drugRiskFindings(f)
 	case ChartReview:

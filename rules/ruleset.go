@@ -100,6 +100,7 @@ type Policy struct {
 	Neurosurgery      NeurosurgeryPolicy      `json:"neurosurgery"`
 	BrainInjury       BrainInjuryPolicy       `json:"brainInjury"`
 	WaterDeprivation  WaterDeprivationPolicy  `json:"waterDeprivation"`
+	FluidRestriction  FluidRestrictionPolicy  `json:"fluidRestriction"`
 }
 
 // Ruleset is a loaded, validated policy with its revision. It is immutable
@@ -194,6 +195,9 @@ func parse(data []byte, overrides ...[]byte) (*Ruleset, error) {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.WaterDeprivation.validate(); err != nil {
+		return nil, fmt.Errorf("load policy: %w", err)
+	}
+	if err := p.FluidRestriction.validate(); err != nil {
 		return nil, fmt.Errorf("load policy: %w", err)
 	}
 	if err := p.Suppression.validate(); err != nil {
