@@ -97,11 +97,13 @@ func (r *Ruleset) newChart(f Facts, l Measurement) chart {
 }
 
 // recheckNatural reports the chart rules whose natural suggestion is a
-// sodium re-check; the lab patterns suggest completing the work-up
-// instead, or nothing.
+// sodium re-check (a dilute urine with a high or rising sodium among them:
+// the sodium can climb while the cause is sought); the patterns of a low
+// sodium suggest completing the work-up instead, or nothing.
 func recheckNatural(rule string) bool {
 	switch rule {
-	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleDiluteUrine, RuleDesmopressinAfterNeurosurgery:
+	case RuleOvercorrected, RuleNearingLimit, RuleHyperTooFast, RuleProfoundOrFalling, RuleDiluteUrine, RuleDesmopressinAfterNeurosurgery,
+		RuleConcentratingDefect:
 		return true
 	}
 	return false

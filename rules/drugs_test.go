@@ -323,3 +323,59 @@ func TestDrugOneFindingPerIngredient(t *testing.T) {
 		})
 	}
 }
+
+// TestDrugListsCoverTheReference checks the knowledge base against the
+// drug tables of the clinical reference notes (§5, drugs causing
+// hyponatraemia or SIADH, after Liamis G et al., Am J Kidney Dis 2008 and
+// Shepshelovich D et al., Br J Clin Pharmacol 2017; §6, drugs causing
+// nephrogenic DI, after Garofeanu CG et al., Am J Kidney Dis 2005 and Bendz
+// H, Aurell M, Drug Saf 1999): every drug named there is in the knowledge
+// base with that effect and a citation, or is left out for a stated
+// reason.
+func TestDrugListsCoverTheReference(t *testing.T) {
+	rs := loadRuleset(t)
+	reference := map[string][]string{
+		EffectHyponatremia: {"citalopram", "escitalopram", "sertraline", "fluoxetine", "paroxetine", "fluvoxamine", "venlafaxine", "duloxetine",
+			"desvenlafaxine", "milnacipran", "levomilnacipran", "amitriptyline", "clomipramine", "imipramine", "nortriptyline", "mirtazapine",
+			"bupropion", "trazodone", "haloperidol", "chlorpromazine", "clozapine", "risperidone", "olanzapine", "quetiapine", "aripiprazole",
+			"carbamazepine", "oxcarbazepine", "eslicarbazepine", "valproate", "levetiracetam", "lamotrigine", "phenytoin", "chlorpropamide",
+			"tolbutamide", "cyclophosphamide", "ifosfamide", "vincristine", "vinblastine", "vinorelbine", "cisplatin", "carboplatin",
+			"ibuprofen", "naproxen", "tramadol", "morphine", "methadone", "mdma", "desmopressin", "vasopressin", "terlipressin", "oxytocin",
+			"hydrochlorothiazide", "chlorthalidone", "indapamide", "metolazone", "bendroflumethiazide", "furosemide", "omeprazole",
+			"esomeprazole", "amiodarone", "ciprofloxacin", "trimethoprim", "ace inhibitors and arbs", "interferon alfa-2b", "imatinib",
+			"melphalan", "methotrexate", "levamisole", "theophylline", "clofibrate"},
+		EffectNephrogenicDI: {"lithium", "demeclocycline", "amphotericin b", "foscarnet", "clozapine", "cidofovir", "ifosfamide", "cisplatin",
+			"rifampin", "gentamicin", "tobramycin", "amikacin", "streptomycin", "didanosine", "ofloxacin", "orlistat", "methoxyflurane"},
+	}
+	// Left out on purpose, with the reason (halite policy).
+	leftOut := map[string]string{
+		"mdma":                    "not a licensed medicine: no RxNorm or ATC ingredient concept to match an order by (reference notes §5)",
+		"ace inhibitors and arbs": "an association in older patients only (Grattagliano I et al., J Prim Health Care 2018), without a mechanism; a card on every new ACE inhibitor or ARB would change no decision",
+		"levamisole":              "not prescribed to people in most markets (from memory)",
+		"clofibrate":              "withdrawn from the market (from memory)",
+		"methoxyflurane":          "nephrogenic DI at anaesthetic doses only (Mazze RI et al., JAMA 1971, from memory); the low-dose analgesic inhaler is not flagged",
+	}
+	known := map[string]DrugIngredient{}
+	for _, d := range rs.Drugs() {
+		known[d.Name] = d
+	}
+	for effect, names := range reference {
+		for _, name := range names {
+			d, ok := known[name]
+			if !ok {
+				if leftOut[name] == "" {
+					t.Errorf("%s (%s in the reference notes) is neither in the knowledge base nor left out with a reason", name, effect)
+				}
+				continue
+			}
+			if e, ok := d.Effect(effect); !ok || e.Citation == "" {
+				t.Errorf("%s has no cited %s effect: %+v", name, effect, d.Effects)
+			}
+		}
+	}
+	for name := range leftOut {
+		if _, ok := known[name]; ok {
+			t.Errorf("%s is left out with a reason but is in the knowledge base", name)
+		}
+	}
+}
