@@ -301,7 +301,10 @@ func (r *Ruleset) brainInjuryLines(b *strings.Builder, c chart, fig map[string]f
 		perDay := *u.RateMlPerHour * 24
 		fig["urineOutputMlPerHour"] = Round(*u.RateMlPerHour, 0)
 		line := fmt.Sprintf("- Urine output %s mL/h over the last %s h, about %s mL/day", orderRate.of(*u.RateMlPerHour), hoursSpan.of(u.Hours), mlPerDay.of(perDay))
-		if child, known := r.isChild(c.f); known && !child && perDay > r.policy.ChartReview.ConcentratingDefect.PolyuriaAdultMlPerDay {
+		cr := r.policy.ChartReview
+		natriuresis := c.urineNa != nil && c.urineNa.Value > cr.SIADH.UrineSodiumAbove && c.urineOs != nil &&
+			c.urineOs.Value >= cr.DiluteUrine.UrineOsmolalityBelow
+		if child, known := r.isChild(c.f); known && !child && natriuresis && perDay > cr.ConcentratingDefect.PolyuriaAdultMlPerDay {
 			lean.depletion = append(lean.depletion, "a large urine output with a high urine sodium")
 			line += ", with the high urine sodium: a natriuresis that depletes volume if intake is lower (halite does not read the fluid balance)"
 		}
@@ -319,7 +322,7 @@ func (r *Ruleset) brainInjuryLines(b *strings.Builder, c chart, fig map[string]f
 	}
 	fmt.Fprintf(b, ". The two are managed differently: salt wasting by replacing salt and water, where fluid restriction can harm; "+
 		"the treating team decides (%s)\n", bi.SaltWastingSource)
-	if ctx, ok := r.recentNeurosurgery(c.f); ok {
+	if ctx, ok := r.recentNeurosurgery(c.f); ok && c.latest.Value < r.policy.Neurosurgery.SodiumBelow {
 		b.WriteString(r.phaseLine(c.f, ctx, phaseRetention))
 	}
 	return lean

@@ -80,7 +80,10 @@ type WaterDrug struct {
 	Name string `json:"name"`
 	// RaisesSodium is true for a receptor antagonist (aquaresis), false for
 	// an agonist (antidiuresis), which lowers sodium.
-	RaisesSodium bool     `json:"raisesSodium"`
+	RaisesSodium bool `json:"raisesSodium"`
+	// Antidiuretic marks desmopressin: the dose a water deprivation test
+	// ends with and the drug the course after neurosurgery watches.
+	Antidiuretic bool     `json:"antidiuretic"`
 	RxNorm       []string `json:"rxnorm"`
 	ATC          []string `json:"atc"`
 	Names        []string `json:"names"`
@@ -250,7 +253,10 @@ type ChartReviewPolicy struct {
 		SodiumAbove          float64 `json:"sodiumAbove"`
 		UrineOsmolalityBelow float64 `json:"urineOsmolalityBelow"`
 		Evaluation           string  `json:"evaluation"`
-		Source               string  `json:"source"`
+		// EvaluationWhenHigh replaces it when the sodium or osmolality is
+		// already high: the stimulus of a deprivation test is there.
+		EvaluationWhenHigh string `json:"evaluationWhenHigh"`
+		Source             string `json:"source"`
 		// PolyuriaAdultMlPerDay: an adult's urine output above it (at the
 		// recent charted rate) is polyuria.
 		PolyuriaAdultMlPerDay float64 `json:"polyuriaAdultMlPerDay"`
@@ -309,7 +315,7 @@ func (c ChartReviewPolicy) validate() error {
 	}
 	if c.Source == "" || c.SIADH.Source == "" || c.DiluteUrine.Source == "" || c.VolumeStatus.UrateSource == "" || c.VolumeStatus.HaematocritSource == "" ||
 		c.ConcentratingDefect.PolyuriaSource == "" || c.ConcentratingDefect.Source == "" || c.ConcentratingDefect.Evaluation == "" ||
-		c.ConcentratingDefect.PostoperativeSource == "" ||
+		c.ConcentratingDefect.PostoperativeSource == "" || c.ConcentratingDefect.EvaluationWhenHigh == "" ||
 		c.Restriction.Scheme == "" || c.Restriction.PaediatricSource == "" || c.Restriction.WithheldSource == "" || len(c.Restriction.Bands) == 0 {
 		return fmt.Errorf("chartReview needs its sources, the evaluation text, the restriction scheme and bands")
 	}

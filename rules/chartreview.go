@@ -504,6 +504,7 @@ func (r *Ruleset) restrictionWithheld(c chart) (why, short string) {
 	rs := r.policy.ChartReview.Restriction
 	l := c.limits
 	switch {
+	case l.Hypernatremia: // its achieved change is a fall: no rise limit applies
 	case l.Achieved24h >= l.Limit24h:
 		return fmt.Sprintf("sodium has already risen %s mmol/L in 24 h, at or beyond the limit of %g", naChange.of(l.Achieved24h), l.Limit24h),
 			"sodium already at its 24-h rise limit"

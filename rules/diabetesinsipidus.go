@@ -131,8 +131,9 @@ func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
 		fmt.Fprintf(&b, "- Serum osmolality %s mOsm/kg (%s)\n", show(SerumOsmolality, c.serumOs.Value), stamp(c.serumOs.At))
 	}
 	if !high {
-		fmt.Fprintf(&b, "- Sodium rose %s mmol/L in 24 h (counted as rising from %g, with polyuria)\n", naChange.of(c.trend.Window24h.RiseFromNadir),
-			cd.SodiumRiseIn24hAtLeast)
+		fmt.Fprintf(&b, "- Sodium rose %s mmol/L in 24 h (a rise of %g or more with polyuria counts): a dilute diuresis with a normal "+
+			"sodium can also be the excretion of fluids given, around surgery for one; the rise in sodium is what argues for DI\n",
+			naChange.of(fig["riseFromNadir24h"]), cd.SodiumRiseIn24hAtLeast)
 	}
 	b.WriteString(diluteLine)
 	b.WriteString(poly.line)
@@ -158,15 +159,19 @@ func (r *Ruleset) concentratingDefect(c chart) (Finding, bool) {
 	if neuro {
 		b.WriteString(r.phaseLine(c.f, ctx, phasePolyuric))
 	}
-	fmt.Fprintf(&b, "\n**What tells them apart, and the evaluation the policy suggests**: %s.", cd.Evaluation)
+	if high {
+		fmt.Fprintf(&b, "\n**What tells them apart**: %s.", cd.EvaluationWhenHigh)
+	} else {
+		fmt.Fprintf(&b, "\n**What tells them apart, and the evaluation the policy suggests**: %s.", cd.Evaluation)
+	}
 	urine := show(UrineOsmolality, fig["urineOsmolality"]) + " mOsm/kg"
 	if c.urineOs == nil {
 		urine = "specific gravity " + show(UrineSpecificGravity, fig["urineSpecificGravity"])
 	}
 	summary := fmt.Sprintf("Dilute urine (%s) with sodium %s: pattern of a urinary concentrating defect", urine, show(Sodium, c.latest.Value))
 	if !high {
-		summary = fmt.Sprintf("Dilute urine (%s) and polyuria with sodium rising %s in 24 h to %s: pattern of diabetes insipidus", urine,
-			naChange.of(c.trend.Window24h.RiseFromNadir), show(Sodium, c.latest.Value))
+		summary = fmt.Sprintf("Dilute urine (%s) and polyuria with sodium rising %s in 24 h to %s: possible diabetes insipidus", urine,
+			naChange.of(fig["riseFromNadir24h"]), show(Sodium, c.latest.Value))
 	}
 	if len(drugs) > 0 {
 		summary += "; on " + strings.Join(drugs, ", ")

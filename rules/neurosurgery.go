@@ -113,11 +113,11 @@ func (r *Ruleset) retentionSigns(f Facts) (string, map[string]float64, bool) {
 	return strings.Join(why, " and "), fig, true
 }
 
-// isDesmopressin reports whether o is for the antidiuretic of the
-// water-drug policy (the one drug there that does not raise sodium).
+// isDesmopressin reports whether o is for a water drug the policy marks
+// as the antidiuretic (desmopressin).
 func (r *Ruleset) isDesmopressin(o MedicationOrder) bool {
 	d, _, ok := r.policy.WaterDrugs.match(o.Medication)
-	return ok && !d.RaisesSodium
+	return ok && d.Antidiuretic
 }
 
 // DesmopressinTokens are the "system|code" search tokens (RxNorm, ATC) of
@@ -125,7 +125,7 @@ func (r *Ruleset) isDesmopressin(o MedicationOrder) bool {
 func (r *Ruleset) DesmopressinTokens() []string {
 	var out []string
 	for _, d := range r.policy.WaterDrugs.Drugs {
-		if d.RaisesSodium {
+		if !d.Antidiuretic {
 			continue
 		}
 		for _, c := range d.RxNorm {
@@ -142,9 +142,15 @@ func (r *Ruleset) DesmopressinTokens() []string {
 // postoperativeDay is the day clinicians count: calendar days, in the
 // display zone, since the procedure's date, the day of surgery being day 0.
 func (r *Ruleset) postoperativeDay(ctx neurosurgicalContext) float64 {
+	return r.dayAfter(ctx.Procedure.At, ctx.Procedure.At.Add(time.Duration(ctx.Days*float64(24*time.Hour))))
+}
+
+// dayAfter counts calendar days, in the display zone, from from's date to
+// t's (the day of from being day 0).
+func (r *Ruleset) dayAfter(from, t time.Time) float64 {
 	zone := r.displayZone()
-	y1, m1, d1 := ctx.Procedure.At.In(zone).Date()
-	y2, m2, d2 := ctx.Procedure.At.Add(time.Duration(ctx.Days * float64(24*time.Hour))).In(zone).Date()
+	y1, m1, d1 := from.In(zone).Date()
+	y2, m2, d2 := t.In(zone).Date()
 	return math.Round(time.Date(y2, m2, d2, 0, 0, 0, 0, time.UTC).Sub(time.Date(y1, m1, d1, 0, 0, 0, 0, time.UTC)).Hours() / 24)
 }
 
@@ -166,8 +172,8 @@ func (r *Ruleset) phaseLine(f Facts, ctx neurosurgicalContext, p coursePattern) 
 	// day ago is a retention phase already passed.
 	var retained *Measurement
 	for i, m := range f.Labs[Sodium] {
-		d := m.At.Sub(ctx.Procedure.At).Hours() / 24
-		if d > c.PolyuricUntilDay && f.At.Sub(m.At).Hours() > 24 && m.Value < n.SodiumBelow && (retained == nil || m.Value < retained.Value) {
+		d := r.dayAfter(ctx.Procedure.At, m.At)
+		if d >= c.PolyuricUntilDay && f.At.Sub(m.At).Hours() > 24 && m.Value < n.SodiumBelow && (retained == nil || m.Value < retained.Value) {
 			retained = &f.Labs[Sodium][i]
 		}
 	}
@@ -184,12 +190,15 @@ func (r *Ruleset) phaseLine(f Facts, ctx neurosurgicalContext, p coursePattern) 
 	case p == phasePolyuric:
 		fit = fmt.Sprintf("dilute urine on day %g falls in the days when water retention typically occurs: the first phase lasting longer, "+
 			"or the third phase after a short retention", day)
-	case day > c.PolyuricUntilDay && day <= c.RetentionUntilDay:
+	case day >= c.PolyuricUntilDay && day <= c.RetentionUntilDay:
 		fit = fmt.Sprintf("a low or falling sodium on day %g fits the second phase, water retention (vasopressin released from the "+
 			"injured gland), typically days %g to %g; lasting diabetes insipidus may follow it", day, c.PolyuricUntilDay, c.RetentionUntilDay)
+	case day < c.PolyuricUntilDay:
+		fit = fmt.Sprintf("a low or falling sodium on day %g, earlier than the typical retention days (%g to %g): retention, often "+
+			"without a polyuric phase before it, can begin now", day, c.PolyuricUntilDay, c.RetentionUntilDay)
 	default:
-		fit = fmt.Sprintf("a low or falling sodium on day %g, outside the days of the typical retention phase (days %g to %g)", day,
-			c.PolyuricUntilDay, c.RetentionUntilDay)
+		fit = fmt.Sprintf("a low or falling sodium on day %g, after the typical retention days (%g to %g)", day, c.PolyuricUntilDay,
+			c.RetentionUntilDay)
 	}
 	given := ""
 	var doses []MedicationOrder
@@ -206,6 +215,15 @@ func (r *Ruleset) phaseLine(f Facts, ctx neurosurgicalContext, p coursePattern) 
 			}
 		}
 		given = fmt.Sprintf("; desmopressin doses given since: %d, the last %s", len(doses), stamp(*last.GivenAt))
+	}
+	var ordered []string
+	for _, o := range f.Medications {
+		if r.isDesmopressin(o) {
+			ordered = append(ordered, o.Reference)
+		}
+	}
+	if len(ordered) > 0 {
+		given += "; desmopressin ordered: " + strings.Join(ordered, ", ")
 	}
 	return fmt.Sprintf("- Course after %s (%s, day %g%s): %s (%s)\n", ctx.What, ctx.Procedure.At.In(r.displayZone()).Format("2006-01-02"), day,
 		given, fit, c.Source)

@@ -1,6 +1,7 @@
 package rules
 
 import (
+	"strings"
 	"testing"
 	"time"
 )
@@ -104,6 +105,40 @@ func TestPostoperativeDayInTheDisplayZone(t *testing.T) {
 		}
 		if got != want {
 			t.Errorf("zone %v: day %g, want %g", zone, got, want)
+		}
+	}
+}
+
+// TestRetentionPhaseDays: a low sodium with desmopressin active reads as
+// the second phase from the typical first retention day (5) to the last
+// (10), earlier than them before day 5 — where isolated retention often
+// begins — and after them past day 10 (the triphasic response: Khardori R,
+// Medscape 2020; Almalki MH et al. 2021). The days are calendar days from
+// the surgery's date in the display zone (UTC here): surgery at 09:00, the
+// chart at 08:00.
+func TestRetentionPhaseDays(t *testing.T) {
+	rs := loadRuleset(t)
+	for _, tc := range []struct {
+		day  float64
+		want string
+	}{
+		{4, "earlier than the typical retention days (5 to 10): retention, often without a polyuric phase before it, can begin now"},
+		{5, "on day 5 fits the second phase"},
+		{10, "on day 10 fits the second phase"},
+		{11, "after the typical retention days"},
+	} {
+		f := chartFacts(t, "1981-05-20", map[float64]float64{30: 136, 2: 132})
+		at := time.Date(2026, 11, 20-int(tc.day), 9, 0, 0, 0, time.UTC)
+		f.Procedures = []Procedure{{Reference: "Procedure/tss", Codings: []Coding{{System: "http://snomed.info/sct", Code: "45368001"}}, At: at}}
+		f.Medications = []MedicationOrder{{Reference: "MedicationRequest/ddavp", Status: "active", Medication: Medication{Text: "desmopressin 0.1 mg tablet"}}}
+		var detail string
+		for _, fd := range rs.Evaluate(ChartReview, f) {
+			if fd.Rule == RuleDesmopressinAfterNeurosurgery {
+				detail = fd.Detail
+			}
+		}
+		if !strings.Contains(detail, tc.want) || !strings.Contains(detail, "desmopressin ordered: MedicationRequest/ddavp") {
+			t.Errorf("day %g: want %q in:\n%s", tc.day, tc.want, detail)
 		}
 	}
 }

@@ -95,6 +95,8 @@ func (r *Ruleset) judgeRestriction(f Facts, n NutritionOrder, ml *float64) (Find
 	vol := "no daily volume stated"
 	if ml != nil {
 		vol = mlPerDay.of(*ml) + " mL/day"
+	} else if n.Instruction != "" {
+		vol = "no daily volume coded; the instruction reads \"" + shorten(n.Instruction, 60) + "\""
 	}
 	var b strings.Builder
 	b.WriteString("**Figures**\n\n")
@@ -128,9 +130,27 @@ func (r *Ruleset) judgeRestriction(f Facts, n NutritionOrder, ml *float64) (Find
 		caution(fmt.Sprintf("sodium %s mmol/L is above %g: restricting water raises it further", show(Sodium, l.Value),
 			p.Projection.HypernatremiaAbove), fmt.Sprintf("sodium %s is above %g", show(Sodium, l.Value), p.Projection.HypernatremiaAbove))
 	}
+	if _, di := r.concentratingDefect(c); di {
+		caution("the data show a diabetes insipidus pattern (dilute urine with a high or rising sodium): restricting water raises "+
+			"sodium quickly", "a diabetes insipidus pattern")
+	}
+	hypo := l.Value < cp.HyponatremiaBelow
+	if t := c.context; hypo && t.EffectiveOsmolality != nil && t.Class != Hypotonic {
+		caution(fmt.Sprintf("the hyponatremia is not hypotonic (effective osmolality %s mOsm/kg): restricting water does not treat it",
+			osmolal.of(*t.EffectiveOsmolality)), "the hyponatremia is not hypotonic")
+	}
+	if hypo && c.urineNa != nil && c.urineNa.Value <= cp.SIADH.UrineSodiumAbove {
+		caution(fmt.Sprintf("urine sodium %s mmol/L (%s), %g or less, points to a low effective blood volume, where restriction "+
+			"does not help (%s)", show(UrineSodium, c.urineNa.Value), stamp(c.urineNa.At), cp.SIADH.UrineSodiumAbove, cp.SIADH.Source),
+			"a low urine sodium")
+	}
+	if hypo && c.urineOs != nil && c.urineOs.Value < cp.DiluteUrine.UrineOsmolalityBelow {
+		caution(fmt.Sprintf("urine osmolality %s mOsm/kg is already maximally dilute: once intake falls, sodium can rise fast (%s)",
+			show(UrineOsmolality, c.urineOs.Value), cp.DiluteUrine.Source), "maximally dilute urine")
+	}
 	var vol2 strings.Builder
 	haematocritRising := r.volumeStatusLines(&vol2, c, fig)
-	if context := r.brainInjuryContext(f); len(context) > 0 {
+	if context := r.brainInjuryContext(f); hypo && len(context) > 0 {
 		if lean := r.brainInjuryLines(&vol2, c, fig, context, haematocritRising); lean.saltWasting() {
 			caution("in a brain-injury context the data lean towards salt wasting, where restricting fluid can deepen "+
 				"the volume depletion ("+p.BrainInjury.RestrictionCautionSrc+")", "the data lean towards salt wasting after brain injury")
@@ -147,7 +167,7 @@ func (r *Ruleset) judgeRestriction(f Facts, n NutritionOrder, ml *float64) (Find
 			}
 		}
 	}
-	r.restrictionBandLine(&b, c, ml, fig)
+	r.restrictionBandLine(&b, c, ml, fig, len(cautions) == 0)
 	b.WriteString(vol2.String())
 	if len(cautions) > 0 {
 		fmt.Fprintf(&b, "\n**Why the data argue against restricting**: %s.", strings.Join(cautions, "; "))
@@ -167,17 +187,25 @@ func (r *Ruleset) judgeRestriction(f Facts, n NutritionOrder, ml *float64) (Find
 	return Finding{Rule: RuleRestrictionReview, Summary: shorten(summary, 139), Detail: b.String(), Figures: fig}, true
 }
 
-// restrictionBandLine writes the urine-to-plasma ratio, its band and how
-// the ordered volume compares, or which urine result is missing.
-func (r *Ruleset) restrictionBandLine(b *strings.Builder, c chart, ml *float64, fig map[string]float64) {
+// restrictionBandLine writes the urine-to-plasma ratio and, when compare is
+// set (no caution argues against restricting at all), its band and how the
+// ordered volume compares; or which urine result is missing.
+func (r *Ruleset) restrictionBandLine(b *strings.Builder, c chart, ml *float64, fig map[string]float64, compare bool) {
 	cp := r.policy.ChartReview
 	if c.urineNa == nil || c.urineK == nil {
 		fmt.Fprintf(b, "- Urine-to-plasma electrolyte ratio not computed: %s within %g h of the sodium\n", missingUrineElectrolytes(c), cp.LabPairHours)
 		return
 	}
 	ratio := (c.urineNa.Value + c.urineK.Value) / c.latest.Value
+	fig["urinePlasmaElectrolyteRatio"] = Round(ratio, 2)
+	if !compare {
+		fmt.Fprintf(b, "- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s; no restriction volume is compared with it while the data "+
+			"argue against restricting\n", show(UrineSodium, c.urineNa.Value), show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value),
+			ratioOrBSA.of(ratio))
+		return
+	}
 	band := r.restrictionBand(ratio)
-	fig["urinePlasmaElectrolyteRatio"], fig["bandMlPerDay"] = Round(ratio, 2), band.MlPerDayUpTo
+	fig["bandMlPerDay"] = band.MlPerDayUpTo
 	line := fmt.Sprintf("- Urine-to-plasma electrolyte ratio (%s + %s)/%s = %s: %s (%s)", show(UrineSodium, c.urineNa.Value),
 		show(UrinePotassium, c.urineK.Value), show(Sodium, c.latest.Value), ratioOrBSA.of(ratio), band.Text, cp.Restriction.Scheme)
 	if ml != nil && *ml > band.MlPerDayUpTo {

@@ -41,7 +41,27 @@ func TestRestrictionCheck(t *testing.T) {
 		{"above the band", siadh(adult, map[float64]float64{30: 128, 2: 127}), restriction(1500), RuleRestrictionReview,
 			[]string{"(80 + 30)/127 = 0.87", "the ordered 1500 mL/day is above the about 700 mL/day", "above the about 700 mL/day the urine-to-plasma ratio implies"}},
 		{"within the band", siadh(adult, map[float64]float64{30: 128, 2: 127}), restriction(600), RuleRestrictionReview,
-			[]string{"(80 + 30)/127 = 0.87", "600 mL/day"}},
+			[]string{"(80 + 30)/127 = 0.87", "600 mL/day", "!above the about"}},
+		// Pituitary surgery yesterday; sodium 140 → 144 with urine of 120
+		// mOsm/kg and 350, 340, 320 mL in the last three hours.
+		{"a diabetes insipidus pattern", func() Facts {
+			f := chartFacts(t, adult, map[float64]float64{20: 140, 1: 144}, lab(UrineOsmolality, 120, 1), urineVolume(320, 1, 2.5),
+				urineVolume(340, 1, 1.5), urineVolume(350, 1, 0.5))
+			f.Procedures = []Procedure{{Reference: "Procedure/tss", Codings: []Coding{{System: "http://snomed.info/sct", Code: "45368001"}},
+				At: chartAt.Add(-24 * time.Hour)}}
+			return f
+		}(), restriction(1000), RuleRestrictionCaution, []string{"a diabetes insipidus pattern", "!salt wasting", "!retention"}},
+		// A hypernatremia falling 161 → 150: its fall is no rise limit.
+		{"hypernatremia falling", chartFacts(t, adult, map[float64]float64{20: 161, 2: 150}), restriction(1000), RuleRestrictionCaution,
+			[]string{"sodium 150 is above 145", "!rise limit", "!already risen"}},
+		// Glucose 33 mmol/L: effective osmolality 2·128 + 33 = 289 ≥ 275.
+		{"not hypotonic", chartFacts(t, adult, map[float64]float64{30: 129, 2: 128}, lab(Glucose, 33, 2), lab(Urea, 3, 2)), restriction(1000),
+			RuleRestrictionCaution, []string{"not hypotonic (effective osmolality 289"}},
+		{"urine sodium 20", chartFacts(t, adult, map[float64]float64{30: 128, 2: 127}, lab(Glucose, 5, 2), lab(Urea, 3, 2),
+			lab(UrineOsmolality, 480, 1), lab(UrineSodium, 20, 1), lab(UrinePotassium, 30, 1)), restriction(1000), RuleRestrictionCaution,
+			[]string{"urine sodium 20 mmol/L", "a low urine sodium", "no restriction volume is compared", "!the ordered 1000"}},
+		{"maximally dilute urine", chartFacts(t, adult, map[float64]float64{30: 128, 2: 127}, lab(Glucose, 5, 2), lab(Urea, 3, 2),
+			lab(UrineOsmolality, 80, 1)), restriction(1000), RuleRestrictionCaution, []string{"maximally dilute"}},
 		{"brain injury leaning towards salt wasting", func() Facts {
 			f := siadh(adult, map[float64]float64{60: 134, 30: 131, 2: 127}, lab(BodyWeight, 72, 60), lab(BodyWeight, 70.5, 3))
 			f.Conditions = []Condition{icd("Condition/tbi", "S06.5X0A")}
@@ -89,7 +109,12 @@ func TestRestrictionCheck(t *testing.T) {
 				t.Fatalf("got %+v, want %s", got, tc.rule)
 			}
 			for _, l := range tc.lines {
-				if !strings.Contains(got.Summary+"\n"+got.Detail, l) {
+				text := got.Summary + "\n" + got.Detail
+				if absent, ok := strings.CutPrefix(l, "!"); ok {
+					if strings.Contains(text, absent) {
+						t.Errorf("has %q:\n%s\n%s", absent, got.Summary, got.Detail)
+					}
+				} else if !strings.Contains(text, l) {
 					t.Errorf("lacks %q:\n%s\n%s", l, got.Summary, got.Detail)
 				}
 			}

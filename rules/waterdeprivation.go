@@ -126,9 +126,10 @@ func (r *Ruleset) ReadWaterDeprivationTest(f Facts) (WaterDeprivationReading, bo
 // readTestAt reads the test that ends with dose d, given the earlier doses.
 // done is false when d does not end a test (so an earlier dose may): a
 // desmopressin dose in the deprivation window before it (treatment, not a
-// test), fewer serial urine osmolalities than the policy asks, or a sodium
+// test), fewer serial urine osmolalities than the policy asks, a sodium
 // below the hyponatremia threshold in the window (a correction being
-// clamped, not a deprivation). With done true, ok is false while the
+// clamped, not a deprivation), fewer than two weights in the window, or a
+// dose within the neurosurgery window. With done true, ok is false while the
 // response is still being collected.
 func (r *Ruleset) readTestAt(f Facts, d MedicationOrder, earlier []MedicationOrder) (w WaterDeprivationReading, ok, done bool) {
 	p := r.policy.WaterDeprivation
@@ -148,6 +149,16 @@ func (r *Ruleset) readTestAt(f Facts, d MedicationOrder, earlier []MedicationOrd
 		if m.Value < r.policy.ChartReview.HyponatremiaBelow {
 			return w, false, false
 		}
+	}
+	// A test is weighed through (the patient's weight is its safety stop),
+	// and is not done in the weeks after neurosurgery, where desmopressin
+	// after serial urine osmolalities is treatment of the postoperative
+	// course.
+	if len(between(f.Labs[BodyWeight], from, dose)) < 2 {
+		return w, false, false
+	}
+	if ctx, ok := r.recentNeurosurgery(f); ok && ctx.Procedure.At.Before(dose) {
+		return w, false, false
 	}
 	w = WaterDeprivationReading{Dose: d, DoseAt: dose, UrineEnd: before[len(before)-1], Start: before[0].At}
 	if n := len(before); n >= 2 {

@@ -139,6 +139,20 @@ func TestWaterDeprivationFound(t *testing.T) {
 	if _, ok := rs.ReadWaterDeprivationTest(f); ok {
 		t.Error("read a desmopressin clamp of a hyponatremia as a test")
 	}
+	// One weight only: no test (a test is weighed through).
+	f = wdtFacts(t, 140, 302, 148, 320)
+	f.Labs[BodyWeight] = f.Labs[BodyWeight][1:]
+	if _, ok := rs.ReadWaterDeprivationTest(f); ok {
+		t.Error("read a test without weights")
+	}
+	// Pituitary surgery three days before the dose: desmopressin after
+	// serial urine osmolalities is treatment of the postoperative course.
+	f = wdtFacts(t, 140, 302, 148, 320)
+	f.Procedures = []Procedure{{Reference: "Procedure/tss", Codings: []Coding{{System: "http://snomed.info/sct", Code: "45368001"}},
+		At: chartAt.Add(-4 * 24 * time.Hour)}}
+	if _, ok := rs.ReadWaterDeprivationTest(f); ok {
+		t.Error("read a postoperative dose as a test")
+	}
 	// A treatment dose two hours ago, after the test: the test is still read.
 	f = wdtFacts(t, 140, 302, 148, 320)
 	later := chartAt.Add(-2 * time.Hour)
