@@ -41,6 +41,10 @@ type ServerConfig struct {
 	// StoreReady, when set, checks that the store answers; /readyz fails
 	// while it does not, so the platform routes calls to other replicas.
 	StoreReady func(context.Context) error
+	// EvaluateAt, when not zero, is the time every call is evaluated at
+	// instead of now (development mode only: fixtures evaluated as eval
+	// --at evaluates them).
+	EvaluateAt time.Time
 }
 
 // Health tracks readiness: a draining server is alive but not ready.
@@ -129,7 +133,11 @@ func (s *server) call(c *gin.Context) {
 		s.fail(c, err)
 		return
 	}
-	out, err := s.engine.handle(ctx, id, body, time.Now(), budget)
+	at := time.Now()
+	if !s.cfg.EvaluateAt.IsZero() {
+		at = s.cfg.EvaluateAt
+	}
+	out, err := s.engine.handle(ctx, id, body, at, budget)
 	if err != nil {
 		fail(trace.SpanFromContext(ctx), causeOf(err), err)
 		s.fail(c, err)

@@ -74,17 +74,25 @@ func (b *bundleFlags) options() hooks.RequestOptions {
 
 // readBundle reads a FHIR Bundle from path ("-" for standard input).
 func readBundle(path string) (*fhirmap.Bundle, error) {
-	var data []byte
-	var err error
-	if path == "-" {
-		data, err = io.ReadAll(os.Stdin)
-	} else {
-		data, err = os.ReadFile(path)
-	}
+	data, err := readInput(path)
 	if err != nil {
 		return nil, fmt.Errorf("read bundle: %w", err)
 	}
-	if data, err = fhirmap.ReadDocument(data); err != nil {
+	return parseBundle(path, data)
+}
+
+// readInput reads the file at path, or standard input for "-".
+func readInput(path string) ([]byte, error) {
+	if path == "-" {
+		return io.ReadAll(os.Stdin)
+	}
+	return os.ReadFile(path)
+}
+
+// parseBundle reads data, from path, as a FHIR R4 Bundle halite reads.
+func parseBundle(path string, data []byte) (*fhirmap.Bundle, error) {
+	data, err := fhirmap.ReadDocument(data)
+	if err != nil {
 		return nil, fmt.Errorf("%s: %w: a FHIR R4 Bundle is a JSON object", path, err)
 	}
 	b, err := fhirmap.ParseBundle(data)

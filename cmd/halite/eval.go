@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -25,10 +26,11 @@ const (
 	exitCritical = 3
 )
 
-// eval runs a bundle through the same pipeline as the server and prints the
-// response: a readable report, or with --json the exact CDS Hooks response.
+// eval runs a bundle, or a captured CDS Hooks request, through the same
+// pipeline as the server and prints the response: a readable report, or
+// with --json the exact CDS Hooks response.
 func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("eval", "eval --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] [--display-units LIST] [--card-log sqlite:PATH --hash-key-file FILE] BUNDLE", stderr)
+	fs := newFlags("eval", "eval [--hook HOOK] [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] [--display-units LIST] [--card-log sqlite:PATH --hash-key-file FILE] BUNDLE|REQUEST", stderr)
 	var bf bundleFlags
 	bf.register(fs)
 	at := fs.String("at", "", "evaluation `time` (RFC 3339), so results are reproducible (default: now)")
@@ -66,11 +68,27 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	svcs, err := bf.services(reg)
+	data, err := readInput(path)
+	if err != nil {
+		return fmt.Errorf("eval: read %s: %w", path, err)
+	}
+	captured, err := capturedRequest(path, data)
 	if err != nil {
 		return err
 	}
-	b, err := readBundle(path)
+	data = bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")) // a request is sent on without its byte-order mark
+	var b *fhirmap.Bundle
+	if captured == "" {
+		if b, err = parseBundle(path, data); err != nil {
+			return err
+		}
+	} else {
+		if bf.hook != "" && bf.hook != captured {
+			return fmt.Errorf("--hook %s: the captured request in %s is for hook %q", bf.hook, path, captured)
+		}
+		bf.hook = captured
+	}
+	svcs, err := bf.services(reg)
 	if err != nil {
 		return err
 	}
@@ -98,17 +116,19 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	unasked := map[string]string{} // by service: the bundle's resources its request does not carry
 	warning := ""
 	for _, svc := range svcs {
-		req, err := hooks.BuildRequest(b, svc, bf.options())
-		if err != nil {
-			return err
-		}
-		if warning == "" {
-			warning = unlinkedWarning(b, req)
-		}
-		unasked[svc.ID] = notAskedFor(b, req)
-		body, err := json.Marshal(req)
-		if err != nil {
-			return fmt.Errorf("eval: %w", err)
+		body := data // a captured request goes to the service as it was sent
+		if b != nil {
+			req, err := hooks.BuildRequest(b, svc, bf.options())
+			if err != nil {
+				return err
+			}
+			if warning == "" {
+				warning = unlinkedWarning(b, req)
+			}
+			unasked[svc.ID] = notAskedFor(b, req)
+			if body, err = json.Marshal(req); err != nil {
+				return fmt.Errorf("eval: %w", err)
+			}
 		}
 		out, err := engine.Handle(ctx, svc.ID, body, when)
 		if err != nil {
@@ -139,6 +159,38 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return &exitError{code: code}
 	}
 	return nil
+}
+
+// capturedRequest tells a captured CDS Hooks request from a FHIR Bundle by
+// its content: a JSON object with a "hook" member is a request (its hook is
+// returned), one with "resourceType" a Bundle (""); a document that is not
+// a JSON object, or an object with neither or both, is an error naming what
+// was found. Malformed JSON is left to the Bundle reader, which says where.
+func capturedRequest(path string, data []byte) (string, error) {
+	data, err := fhirmap.ReadDocument(data)
+	if err != nil {
+		return "", fmt.Errorf("%s: %w: a FHIR R4 Bundle or a CDS Hooks request is a JSON object", path, err)
+	}
+	var head struct {
+		ResourceType *string         `json:"resourceType"`
+		Hook         json.RawMessage `json:"hook"`
+	}
+	if json.Unmarshal(data, &head) != nil {
+		return "", nil
+	}
+	switch {
+	case head.Hook != nil && head.ResourceType != nil:
+		return "", fmt.Errorf("%s: has both \"hook\" and \"resourceType\": neither a CDS Hooks request nor a FHIR Bundle", path)
+	case head.Hook != nil:
+		var hook string
+		if err := json.Unmarshal(head.Hook, &hook); err != nil || hook == "" {
+			return "", fmt.Errorf("%s: a CDS Hooks request's \"hook\" must be a non-empty string", path)
+		}
+		return hook, nil
+	case head.ResourceType == nil:
+		return "", fmt.Errorf("%s: neither a FHIR Bundle (no \"resourceType\") nor a CDS Hooks request (no \"hook\")", path)
+	}
+	return "", nil
 }
 
 // exitStatus maps the highest indicator over all responses to eval's status.

@@ -13,6 +13,7 @@ import (
 	"os"
 	"path/filepath"
 	"regexp"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -460,9 +461,10 @@ func TestServeReadinessFailsDuringDrainDelay(t *testing.T) {
 	}
 }
 
-// TestServeBundleFetchPath: a request with no prefetch, pointed at
-// `halite serve-bundle`, is answered through the fetch path as the
-// prefetched one is.
+// TestServeBundleFetchPath follows the README's serve-bundle example: a
+// request with no prefetch, pointed at `halite serve-bundle`, is answered
+// through the fetch path by `halite serve --at`, with the cards eval gives
+// for the scenario at that time.
 func TestServeBundleFetchPath(t *testing.T) {
 	t.Setenv("HALITE_CONFIG", "")
 	scenario := filepath.Join("..", "..", "testdata", "scenarios", "09-rapid-correction-high-risk.json")
@@ -491,7 +493,7 @@ func TestServeBundleFetchPath(t *testing.T) {
 	if err := json.Unmarshal(req.Bytes(), &reqs); err != nil {
 		t.Fatal(err)
 	}
-	base, logs, stop := startServe(t)
+	base, logs, stop := startServe(t, "--at", scenarioAt)
 	resp, err := http.Post(base+"/cds-services/sodium-chart-review", "application/json", bytes.NewReader(reqs["sodium-chart-review"]))
 	if err != nil {
 		t.Fatal(err)
@@ -507,6 +509,19 @@ func TestServeBundleFetchPath(t *testing.T) {
 	if !strings.Contains(logs.String(), "sodium=fetched") || strings.Contains(logs.String(), "tok\"") {
 		t.Errorf("the call did not go through the fetch path, or logged the token:\n%s", logs.String())
 	}
+	if !strings.Contains(logs.String(), "FIXED CLOCK") {
+		t.Errorf("serve --at did not say its clock is fixed:\n%s", logs.String())
+	}
+	var evalOut bytes.Buffer
+	err = run(context.Background(), []string{"eval", "--hook", "patient-view", "--service", "sodium-chart-review", "--at", scenarioAt, "--json", scenario},
+		&evalOut, io.Discard)
+	var ex *exitError
+	if err != nil && !errors.As(err, &ex) {
+		t.Fatal(err)
+	}
+	if got, want := responseSummaries(t, body), responseSummaries(t, evalOut.Bytes()); len(want) == 0 || !slices.Equal(got, want) {
+		t.Errorf("serve --at gave cards %q, eval --at %q", got, want)
+	}
 	cancel()
 	if err := <-done; err != nil {
 		t.Errorf("serve-bundle returned %v", err)
@@ -514,6 +529,40 @@ func TestServeBundleFetchPath(t *testing.T) {
 	if err := run(context.Background(), []string{"serve-bundle", "--addr", "0.0.0.0:0", scenario}, io.Discard, io.Discard); err == nil ||
 		!strings.Contains(err.Error(), "loopback") {
 		t.Errorf("serve-bundle on a public address: %v", err)
+	}
+}
+
+// responseSummaries are the card summaries of a CDS Hooks response.
+func responseSummaries(t *testing.T, body []byte) []string {
+	t.Helper()
+	var r struct {
+		Cards []struct {
+			Summary string `json:"summary"`
+		} `json:"cards"`
+	}
+	if err := json.Unmarshal(body, &r); err != nil {
+		t.Fatalf("%v: %s", err, body)
+	}
+	var out []string
+	for _, c := range r.Cards {
+		out = append(out, c.Summary)
+	}
+	return out
+}
+
+// TestServeAtOnlyInDevelopment: a fixed clock is refused outside
+// development mode, and a malformed time is named.
+func TestServeAtOnlyInDevelopment(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	t.Setenv("HALITE_DEVELOPMENT_MODE", "false")
+	err := run(context.Background(), []string{"serve", "--addr", "127.0.0.1:0", "--at", scenarioAt}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "development mode only") {
+		t.Errorf("serve --at outside development mode: %v", err)
+	}
+	t.Setenv("HALITE_DEVELOPMENT_MODE", "true")
+	err = run(context.Background(), []string{"serve", "--addr", "127.0.0.1:0", "--at", "yesterday"}, io.Discard, io.Discard)
+	if err == nil || !strings.Contains(err.Error(), "not an RFC 3339 time") {
+		t.Errorf("serve --at yesterday: %v", err)
 	}
 }
 

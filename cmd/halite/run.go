@@ -17,8 +17,8 @@ func (e *exitError) Error() string { return fmt.Sprintf("exit status %d", e.code
 const usage = `halite: sodium safety checks as a CDS Hooks 2.0 service.
 
 Usage:
-  halite serve   [--config FILE] [--addr HOST:PORT]
-  halite eval    --hook HOOK [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE
+  halite serve   [--config FILE] [--addr HOST:PORT] [--at RFC3339 (development mode)]
+  halite eval    [--hook HOOK] [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE|REQUEST
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
   halite healthcheck [--url URL]

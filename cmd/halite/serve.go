@@ -25,9 +25,10 @@ var logLevels = map[string]slog.Level{
 // serve runs the HTTP service until ctx is cancelled (SIGINT or SIGTERM),
 // then stops taking calls and drains in-flight ones within the grace period.
 func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("serve", "serve [--config FILE] [--addr HOST:PORT]", stderr)
+	fs := newFlags("serve", "serve [--config FILE] [--addr HOST:PORT] [--at RFC3339]", stderr)
 	configPath := fs.String("config", "", "YAML configuration `file` (default: $HALITE_CONFIG, else embedded defaults)")
 	addr := fs.String("addr", "", "listen address `HOST:PORT`, overriding listen_addr (default 127.0.0.1:8080)")
+	atFlag := fs.String("at", "", "development mode only: evaluate every call at this `time` (RFC 3339) instead of now, as eval --at does, so fixtures give the cards they give there")
 	if _, err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -37,6 +38,15 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	}
 	if *addr != "" {
 		cfg.ListenAddr = *addr
+	}
+	var evaluateAt time.Time
+	if *atFlag != "" {
+		if !cfg.DevelopmentMode {
+			return errors.New("--at: a fixed evaluation time is for development mode only (development_mode: true); a service evaluates calls now")
+		}
+		if evaluateAt, err = time.Parse(time.RFC3339, *atFlag); err != nil {
+			return fmt.Errorf("--at: %q is not an RFC 3339 time such as 2026-11-20T08:00:00Z", *atFlag)
+		}
 	}
 	if err := cfg.validate(); err != nil {
 		return err
@@ -103,7 +113,11 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		PublicBaseURL: cfg.PublicBaseURL,
 		Metrics:       metricsOnMain(cfg, tel.metrics),
 		StoreReady:    st.Ping,
+		EvaluateAt:    evaluateAt,
 	}, health, log)
+	if !evaluateAt.IsZero() {
+		log.Warn("FIXED CLOCK: every call is evaluated at " + evaluateAt.Format(time.RFC3339) + " (serve --at), not now")
+	}
 	if cfg.AdminAddr != "" && tel.metrics != nil {
 		_, stopAdmin, err := serveAdmin(cfg.AdminAddr, tel.metrics, cfg.AdminPprof, log)
 		if err != nil {

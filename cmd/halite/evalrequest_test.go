@@ -1,0 +1,93 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"io"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+)
+
+// TestEvalCapturedRequest: eval reads a captured CDS Hooks request (the
+// README's demo, built from scenario 01) as the service would receive it,
+// and gives the cards the scenario bundle gives; its hook comes from the
+// request.
+func TestEvalCapturedRequest(t *testing.T) {
+	demo := filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json")
+	scenario := filepath.Join("..", "..", "testdata", "scenarios", "01-chronic-hypona-3pct-infusion.json")
+	evalJSON := func(args ...string) []byte {
+		t.Helper()
+		var out, errOut bytes.Buffer
+		err := run(context.Background(), append([]string{"eval", "--at", scenarioAt, "--json", "--service", "sodium-infusion-check"}, args...), &out, &errOut)
+		var ex *exitError
+		if err != nil && !errors.As(err, &ex) {
+			t.Fatalf("eval %v: %v %s", args, err, errOut.String())
+		}
+		return out.Bytes()
+	}
+	got, want := responseSummaries(t, evalJSON(demo)), responseSummaries(t, evalJSON("--hook", "order-sign", scenario))
+	if len(want) == 0 || !slices.Equal(got, want) {
+		t.Errorf("captured request gave %q, the bundle %q", got, want)
+	}
+	var report bytes.Buffer
+	err := run(context.Background(), []string{"eval", "--at", scenarioAt, demo}, &report, io.Discard)
+	var ex *exitError
+	if err != nil && !errors.As(err, &ex) {
+		t.Fatal(err)
+	}
+	if !strings.HasPrefix(report.String(), "hook order-sign at "+scenarioAt) || !strings.Contains(report.String(), "== sodium-drug-risk") {
+		t.Errorf("report of a captured request:\n%s", report.String())
+	}
+}
+
+// TestEvalInputErrors: what eval says of inputs that are neither a Bundle
+// nor a request, and of a --hook that contradicts the request.
+func TestEvalInputErrors(t *testing.T) {
+	dir := t.TempDir()
+	for _, tc := range []struct {
+		name, content string
+		args          []string
+		want          string
+	}{
+		{"hook mismatch", "", []string{"--hook", "patient-view"}, `is for hook "order-sign"`},
+		{"neither", `{"id":"x"}`, nil, `neither a FHIR Bundle (no "resourceType") nor a CDS Hooks request (no "hook")`},
+		{"both", `{"resourceType":"Bundle","hook":"order-sign"}`, nil, `has both "hook" and "resourceType"`},
+		{"hook not a string", `{"hook":3}`, nil, `"hook" must be a non-empty string`},
+		{"not JSON", `hook: order-sign`, nil, "the document is not a JSON object"},
+		{"not an object", `[1,2]`, nil, "the document is a JSON array"},
+		{"truncated", `{"hook":`, nil, "read bundle"},
+		{"unknown hook", `{"hook":"encounter-start","hookInstance":"x","context":{}}`, nil, `no service serves "encounter-start"`},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			path := filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json")
+			if tc.content != "" {
+				path = filepath.Join(dir, strings.ReplaceAll(tc.name, " ", "-")+".json")
+				if err := os.WriteFile(path, []byte(tc.content), 0o600); err != nil {
+					t.Fatal(err)
+				}
+			}
+			err := run(context.Background(), append(append([]string{"eval", "--at", scenarioAt}, tc.args...), path), io.Discard, io.Discard)
+			if err == nil || !strings.Contains(err.Error(), tc.want) {
+				t.Errorf("got %v, want an error containing %q", err, tc.want)
+			}
+		})
+	}
+}
+
+// FuzzCapturedRequest: telling a request from a Bundle never panics, and a
+// hook is returned only without an error.
+func FuzzCapturedRequest(f *testing.F) {
+	for _, s := range []string{`{"hook":"order-sign"}`, `{"resourceType":"Bundle"}`, `{"hook":1}`, `[]`, `null`, `{"hook":""}`, `{"hook":"a","resourceType":"B"}`} {
+		f.Add([]byte(s))
+	}
+	f.Fuzz(func(t *testing.T, data []byte) {
+		hook, err := capturedRequest("f", data)
+		if err != nil && hook != "" {
+			t.Errorf("hook %q with error %v", hook, err)
+		}
+	})
+}
