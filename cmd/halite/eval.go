@@ -68,25 +68,15 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	data, err := readInput(path)
-	if err != nil {
-		return fmt.Errorf("eval: read %s: %w", path, err)
-	}
-	captured, err := capturedRequest(path, data)
+	in, err := readCase(path)
 	if err != nil {
 		return err
 	}
-	data = bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")) // a request is sent on without its byte-order mark
-	var b *fhirmap.Bundle
-	if captured == "" {
-		if b, err = parseBundle(path, data); err != nil {
-			return err
+	if in.hook != "" {
+		if bf.hook != "" && bf.hook != in.hook {
+			return fmt.Errorf("--hook %s: the captured request in %s is for hook %q", bf.hook, path, in.hook)
 		}
-	} else {
-		if bf.hook != "" && bf.hook != captured {
-			return fmt.Errorf("--hook %s: the captured request in %s is for hook %q", bf.hook, path, captured)
-		}
-		bf.hook = captured
+		bf.hook = in.hook
 	}
 	svcs, err := bf.services(reg)
 	if err != nil {
@@ -111,30 +101,9 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		defer st.Close()
 		ec.Recorder, ec.PatientHash = recorder{st}, hash
 	}
-	engine := hooks.NewEngine(ec)
-	outcomes := map[string]*hooks.Outcome{}
-	unasked := map[string]string{} // by service: the bundle's resources its request does not carry
-	warning := ""
-	for _, svc := range svcs {
-		body := data // a captured request goes to the service as it was sent
-		if b != nil {
-			req, err := hooks.BuildRequest(b, svc, bf.options())
-			if err != nil {
-				return err
-			}
-			if warning == "" {
-				warning = unlinkedWarning(b, req)
-			}
-			unasked[svc.ID] = notAskedFor(b, req)
-			if body, err = json.Marshal(req); err != nil {
-				return fmt.Errorf("eval: %w", err)
-			}
-		}
-		out, err := engine.Handle(ctx, svc.ID, body, when)
-		if err != nil {
-			return fmt.Errorf("eval %s: %w", svc.ID, err)
-		}
-		outcomes[svc.ID] = out
+	outcomes, unasked, warning, err := in.run(ctx, hooks.NewEngine(ec), svcs, bf.options(), when)
+	if err != nil {
+		return err
 	}
 	if warning != "" && *asJSON {
 		// stdout stays the exact CDS Hooks response.
@@ -159,6 +128,67 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return &exitError{code: code}
 	}
 	return nil
+}
+
+// caseInput is one input eval reads: a FHIR Bundle, or a captured CDS
+// Hooks request (data, sent as it is) with its hook.
+type caseInput struct {
+	path   string
+	data   []byte
+	bundle *fhirmap.Bundle
+	hook   string
+}
+
+// readCase reads path as a Bundle or a captured request.
+func readCase(path string) (caseInput, error) {
+	data, err := readInput(path)
+	if err != nil {
+		return caseInput{}, fmt.Errorf("eval: read %s: %w", path, err)
+	}
+	hook, err := capturedRequest(path, data)
+	if err != nil {
+		return caseInput{}, err
+	}
+	in := caseInput{path: path, data: bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")), hook: hook}
+	if hook == "" {
+		if in.bundle, err = parseBundle(path, data); err != nil {
+			return caseInput{}, err
+		}
+	}
+	return in, nil
+}
+
+// run sends the input to each service at when: a Bundle as the request
+// opt builds from it, a captured request as it was sent. It returns the
+// outcomes by service, the Bundle's resources each request does not carry,
+// and the warning for a Bundle whose data name another patient.
+func (in caseInput) run(ctx context.Context, engine *hooks.Engine, svcs []hooks.Service, opt hooks.RequestOptions,
+	when time.Time) (map[string]*hooks.Outcome, map[string]string, string, error) {
+	outcomes := map[string]*hooks.Outcome{}
+	unasked := map[string]string{}
+	warning := ""
+	for _, svc := range svcs {
+		body := in.data
+		if in.bundle != nil {
+			req, err := hooks.BuildRequest(in.bundle, svc, opt)
+			if err != nil {
+				return nil, nil, "", err
+			}
+			if warning == "" {
+				warning = unlinkedWarning(in.bundle, req)
+			}
+			unasked[svc.ID] = notAskedFor(in.bundle, req)
+			if body, err = json.Marshal(req); err != nil {
+				return nil, nil, "", fmt.Errorf("eval: %w", err)
+			}
+		}
+		out, err := engine.Handle(ctx, svc.ID, body, when)
+		if err != nil {
+			return nil, nil, "", fmt.Errorf("eval %s: %w", svc.ID, err)
+		}
+		outcomes[svc.ID] = out
+	}
+	return outcomes, unasked, warning, nil
 }
 
 // capturedRequest tells a captured CDS Hooks request from a FHIR Bundle by
