@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"encoding/json"
 	"errors"
 	"io"
 	"os"
@@ -90,4 +91,43 @@ func FuzzCapturedRequest(f *testing.F) {
 			t.Errorf("hook %q with error %v", hook, err)
 		}
 	})
+}
+
+// TestCheckRequestCommand: the demo request conforms (exit 0); a broken
+// one lists its problems with their paths, as text or JSON (exit 1); a
+// --service that does not serve the request's hook is refused.
+func TestCheckRequestCommand(t *testing.T) {
+	demo := filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json")
+	var out bytes.Buffer
+	if err := run(context.Background(), []string{"check-request", demo}, &out, io.Discard); err != nil || !strings.Contains(out.String(), "0 errors") {
+		t.Errorf("demo: %v\n%s", err, out.String())
+	}
+	broken := filepath.Join(t.TempDir(), "broken.json")
+	if err := os.WriteFile(broken, []byte(`{"hook": "order-sign", "hookInstance": "x", "context": {"userId": "Practitioner/u", "patientId": "p1",
+		"draftOrders": {"resourceType": "Bundle", "entry": []}}, "prefetch": {"patient": {"resourceType": "Patient", "id": "p2"}}}`), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	out.Reset()
+	err := run(context.Background(), []string{"check-request", "--json", broken}, &out, io.Discard)
+	var ex *exitError
+	if !errors.As(err, &ex) || ex.code != exitFailure {
+		t.Errorf("broken request: %v", err)
+	}
+	var problems []map[string]string
+	if err := json.Unmarshal(out.Bytes(), &problems); err != nil {
+		t.Fatalf("%v: %s", err, out.String())
+	}
+	found := map[string]bool{}
+	for _, p := range problems {
+		found[p["severity"]+" "+p["path"]] = true
+	}
+	for _, w := range []string{"error $.prefetch.patient.id", "error $.prefetch.sodium", "warning $.hookInstance"} {
+		if !found[w] {
+			t.Errorf("lacks %q in %v", w, problems)
+		}
+	}
+	if err := run(context.Background(), []string{"check-request", "--service", "sodium-chart-review", demo}, io.Discard, io.Discard); err == nil ||
+		!strings.Contains(err.Error(), "does not serve") {
+		t.Errorf("--service of another hook: %v", err)
+	}
 }

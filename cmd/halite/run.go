@@ -20,6 +20,7 @@ Usage:
   halite serve   [--config FILE] [--addr HOST:PORT] [--at RFC3339 (development mode)]
   halite eval    [--hook HOOK] [--service ID] [--at RFC3339] [--json] [--policy-override FILE] [--lab-codes FILE] [--display-timezone ZONE] BUNDLE|REQUEST
   halite suite   [--at RFC3339] [--junit FILE] [--fail-on mismatch|info|warning|critical] [--record] PATH...
+  halite check-request [--service ID] [--json] REQUEST
   halite rules   [--policy-override FILE] [--json]
   halite report  [--config FILE] [--from DAY] [--to DAY] [--html FILE]
   halite healthcheck [--url URL]
@@ -47,6 +48,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		err = eval(ctx, rest, stdout, stderr)
 	case "suite":
 		err = suite(ctx, rest, stdout, stderr)
+	case "check-request":
+		err = checkRequestCmd(ctx, rest, stdout, stderr)
 	case "report":
 		err = reportCmd(ctx, rest, stdout, stderr)
 	case "load":

@@ -155,7 +155,9 @@ func suiteCases(paths []string) ([]string, error) {
 }
 
 // expectationsPath is the expectations file of a case.
-func expectationsPath(c string) string { return filepath.Join(filepath.Dir(c), "expected", filepath.Base(c)) }
+func expectationsPath(c string) string {
+	return filepath.Join(filepath.Dir(c), "expected", filepath.Base(c))
+}
 
 // readExpectations reads a case's expectations, refusing unknown members
 // so that a misspelt key is not a silently passing check.
