@@ -45,6 +45,9 @@ type ServerConfig struct {
 	// instead of now (development mode only: fixtures evaluated as eval
 	// --at evaluates them).
 	EvaluateAt time.Time
+	// Capture, when set, is given each answered call (development mode
+	// only: the command de-identifies and writes it for regression tests).
+	Capture func(service string, body []byte, at time.Time, response Response)
 }
 
 // Health tracks readiness: a draining server is alive but not ready.
@@ -142,6 +145,9 @@ func (s *server) call(c *gin.Context) {
 		fail(trace.SpanFromContext(ctx), causeOf(err), err)
 		s.fail(c, err)
 		return
+	}
+	if s.cfg.Capture != nil {
+		s.cfg.Capture(id, body, at, out.Response)
 	}
 	c.Set(logCards, len(out.Response.Cards))
 	c.Set(logKeys, keySummary(out.Keys))

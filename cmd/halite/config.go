@@ -49,6 +49,9 @@ type Config struct {
 	// AdminPprof adds Go's /debug/pprof/ profiles to the admin listener
 	// (for performance work; keep that listener private).
 	AdminPprof bool `yaml:"admin_pprof"`
+	// CaptureDir, in development mode only, is where each answered call is
+	// written de-identified, with its expectations, as a suite case.
+	CaptureDir string `yaml:"capture_dir"`
 	// Auth bounds token verification; Issuers are the trusted EHRs. With no
 	// issuer, halite runs in development mode on loopback only.
 	Auth    AuthConfig     `yaml:"auth"`
@@ -110,6 +113,7 @@ var envKeys = []struct {
 	{"listen_addr", func(c *Config, v string) error { c.ListenAddr = v; return nil }},
 	{"public_base_url", func(c *Config, v string) error { c.PublicBaseURL = v; return nil }},
 	{"development_mode", func(c *Config, v string) (err error) { c.DevelopmentMode, err = strconv.ParseBool(v); return }},
+	{"capture_dir", func(c *Config, v string) error { c.CaptureDir = v; return nil }},
 	{"max_body_bytes", func(c *Config, v string) (err error) { c.MaxBodyBytes, err = strconv.ParseInt(v, 10, 64); return }},
 	{"call_timeout", func(c *Config, v string) error { return setDuration(&c.CallTimeout, v) }},
 	{"shutdown_grace", func(c *Config, v string) error { return setDuration(&c.ShutdownGrace, v) }},
@@ -322,6 +326,9 @@ func (c Config) validate() error {
 	if len(c.Issuers) == 0 && !fhirclient.IsLoopback(host) {
 		return fmt.Errorf("config: listen_addr: without trusted issuers halite accepts unsigned calls, so it listens "+
 			"on a loopback address only, not %q; configure issuers to serve other addresses", host)
+	}
+	if c.CaptureDir != "" && !c.DevelopmentMode {
+		return fmt.Errorf("config: capture_dir is for development mode only (development_mode: true): a service never writes the calls it receives")
 	}
 	if len(c.Issuers) == 0 && !c.DevelopmentMode {
 		return fmt.Errorf("config: development_mode: false needs at least one trusted issuer (issuers)")

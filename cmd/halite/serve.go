@@ -104,6 +104,15 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	log.Info("budgets", "memory_limit_bytes", cfg.memoryLimit, "process_bytes", cfg.Budget.ProcessBytes,
 		"call_bytes", cfg.Budget.CallBytes, "max_response_bytes", cfg.FHIRClient.MaxResponseBytes, "store_queue_size", cfg.Store.QueueSize)
 	health := &hooks.Health{}
+	var capture func(string, []byte, time.Time, hooks.Response)
+	if cfg.CaptureDir != "" {
+		c, err := newCapturer(cfg.CaptureDir, log)
+		if err != nil {
+			return err
+		}
+		capture = c.capture
+		log.Warn("CAPTURE: every answered call is written de-identified to capture_dir " + cfg.CaptureDir)
+	}
 	handler := hooks.NewHandler(engine, hooks.ServerConfig{
 		MaxBodyBytes: cfg.MaxBodyBytes,
 		CallTimeout:  time.Duration(cfg.CallTimeout),
@@ -114,6 +123,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		Metrics:       metricsOnMain(cfg, tel.metrics),
 		StoreReady:    st.Ping,
 		EvaluateAt:    evaluateAt,
+		Capture:       capture,
 	}, health, log)
 	if !evaluateAt.IsZero() {
 		log.Warn("FIXED CLOCK: every call is evaluated at " + evaluateAt.Format(time.RFC3339) + " (serve --at), not now")
