@@ -24,6 +24,7 @@ const (
 	exitFailure  = 1 // bad input or failure
 	exitWarning  = 2
 	exitCritical = 3
+	exitFailOn   = 4 // with --fail-on: a card at the level or above
 )
 
 // eval runs a bundle, or a captured CDS Hooks request, through the same
@@ -40,9 +41,13 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	unitList := fs.String("display-units", "", "write the cards' concentrations in these units (`list` such as electrolytes=mEq/L,glucose=mg/dL,urea=mg/dL,creatinine=mg/dL; as display_units does for the server)")
 	cardLog := fs.String("card-log", "", "log the cards to this local card log (`DSN` sqlite:PATH) and hold back repeats of cards it holds, as the server does")
 	hashKey := fs.String("hash-key-file", "", "the `file` keying patient hashes in --card-log (at least 32 bytes; the same key joins runs)")
+	failOn := fs.String("fail-on", "", "exit 4 when any card is at this `level` or above (info, warning or critical), so that an info card is told from none; the default statuses are unchanged")
 	path, err := parseBundleArgs(fs, args)
 	if err != nil {
 		return err
+	}
+	if _, ok := indicatorRank[*failOn]; *failOn != "" && !ok {
+		return fmt.Errorf("--fail-on: %q is not info, warning or critical", *failOn)
 	}
 	if (*cardLog == "") != (*hashKey == "") {
 		return errors.New("eval: --card-log and --hash-key-file go together: repeats are matched by the keyed patient hash")
@@ -123,6 +128,16 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	}
 	if err != nil {
 		return err
+	}
+	if *failOn != "" {
+		for _, o := range outcomes {
+			for _, c := range o.Response.Cards {
+				if indicatorRank[c.Indicator] >= indicatorRank[*failOn] {
+					return &exitError{code: exitFailOn}
+				}
+			}
+		}
+		return nil
 	}
 	if code := exitStatus(outcomes); code != exitOK {
 		return &exitError{code: code}

@@ -131,3 +131,38 @@ func TestCheckRequestCommand(t *testing.T) {
 		t.Errorf("--service of another hook: %v", err)
 	}
 }
+
+// TestEvalFailOn: --fail-on tells an info card from none (exit 4 against
+// 0) and refuses an unknown level.
+func TestEvalFailOn(t *testing.T) {
+	code := func(file string, args ...string) int {
+		err := run(context.Background(), append(append([]string{"eval", "--hook", "patient-view", "--at", scenarioAt}, args...),
+			filepath.Join("..", "..", "testdata", "scenarios", file)), io.Discard, io.Discard)
+		var ex *exitError
+		switch {
+		case err == nil:
+			return 0
+		case errors.As(err, &ex):
+			return ex.code
+		}
+		t.Fatalf("%s: %v", file, err)
+		return -1
+	}
+	// 47: one info card; 12: no card on patient-view.
+	if got := code("47-water-deprivation-central.json", "--fail-on", "info"); got != exitFailOn {
+		t.Errorf("info card with --fail-on info: exit %d", got)
+	}
+	if got := code("47-water-deprivation-central.json", "--fail-on", "warning"); got != 0 {
+		t.Errorf("info card with --fail-on warning: exit %d", got)
+	}
+	if got := code("47-water-deprivation-central.json"); got != 0 {
+		t.Errorf("info card without --fail-on: exit %d", got)
+	}
+	if got := code("12-normal-sodium-two-drafts.json", "--fail-on", "info"); got != 0 {
+		t.Errorf("no card with --fail-on info: exit %d", got)
+	}
+	if err := run(context.Background(), []string{"eval", "--fail-on", "high", "x.json"}, io.Discard, io.Discard); err == nil ||
+		!strings.Contains(err.Error(), "--fail-on") {
+		t.Errorf("--fail-on high: %v", err)
+	}
+}
