@@ -3,9 +3,11 @@ package hooks
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/url"
 	"regexp"
+	"slices"
 	"sort"
 	"strings"
 )
@@ -74,7 +76,29 @@ func CheckRequest(body []byte, svcs []Service) []Problem {
 		patientID = checkContext(hook, ctx, add)
 	}
 	checkPrefetch(req, svcs, patientID, server != "" && auth, add)
-	sort.SliceStable(ps, func(i, j int) bool { return severityRank[ps[i].Severity] > severityRank[ps[j].Severity] })
+	// What the service itself refuses (400), in its words: the checks
+	// above cannot drift from it unnoticed.
+	for _, svc := range svcs {
+		if _, err := DecodeCall(svc, body); err != nil {
+			var e *Error
+			if errors.As(err, &e) && e.Kind == KindBadRequest {
+				path := "$"
+				if e.Field != "" {
+					path += "." + e.Field
+				}
+				if !slices.ContainsFunc(ps, func(p Problem) bool { return p.Path == path && p.Severity == SeverityError }) {
+					add(SeverityError, path, "the service refuses the call (400): %s", e.Message)
+				}
+			}
+			break
+		}
+	}
+	sort.SliceStable(ps, func(i, j int) bool {
+		if severityRank[ps[i].Severity] != severityRank[ps[j].Severity] {
+			return severityRank[ps[i].Severity] > severityRank[ps[j].Severity]
+		}
+		return ps[i].Path < ps[j].Path
+	})
 	return ps
 }
 
@@ -121,17 +145,19 @@ func checkAuthorization(req map[string]json.RawMessage, haveServer bool, add add
 		add(SeverityError, "$.fhirAuthorization", "is sent without fhirServer (cds-r-1: fhirAuthorization requires fhirServer)")
 	}
 	usable := stringMember(auth, "access_token", "$.fhirAuthorization", true, add) != ""
-	if tt := stringMember(auth, "token_type", "$.fhirAuthorization", true, add); tt != "" && tt != "Bearer" {
+	switch tt := stringMember(auth, "token_type", "$.fhirAuthorization", true, add); {
+	case tt == "" || tt == "Bearer":
+	case strings.EqualFold(tt, "Bearer"):
+		add(SeverityWarning, "$.fhirAuthorization.token_type", "%q: CDS Hooks fixes the value Bearer (accepted in any case, RFC 6749)", tt)
+	default:
 		add(SeverityError, "$.fhirAuthorization.token_type", "%q: the fixed value is Bearer", tt)
 	}
 	switch v, ok := auth["expires_in"]; {
 	case !ok:
 		add(SeverityError, "$.fhirAuthorization.expires_in", "is required")
 	default:
-		var n json.Number
-		d := json.NewDecoder(bytes.NewReader(v))
-		d.UseNumber()
-		if d.Decode(&n) != nil || strings.ContainsAny(n.String(), ".eE") {
+		var n int64
+		if v = bytes.TrimSpace(v); len(v) == 0 || (v[0] != '-' && (v[0] < '0' || v[0] > '9')) || json.Unmarshal(v, &n) != nil {
 			add(SeverityError, "$.fhirAuthorization.expires_in", "must be an integer number of seconds")
 		}
 	}
@@ -168,10 +194,15 @@ func checkContext(hook string, ctx map[string]json.RawMessage, add addFunc) stri
 			add(SeverityError, "$.context."+n, "is required for %s", hook)
 		}
 	}
+	others := make([]string, 0, len(ctx))
 	for n := range ctx {
 		if _, ok := members[n]; !ok {
-			add(SeverityInfo, "$.context."+n, "is not a context member of %s; it is ignored", hook)
+			others = append(others, n)
 		}
+	}
+	sort.Strings(others)
+	for _, n := range others {
+		add(SeverityInfo, "$.context."+n, "is not a context member of %s; it is ignored", hook)
 	}
 	if user := stringMember(ctx, "userId", "$.context", false, add); user != "" && !validUser(hook, user) {
 		add(SeverityError, "$.context.userId", "%q is not a reference of a type %s allows (%s)", user, hook, strings.Join(userTypes[hook], ", "))
@@ -180,7 +211,9 @@ func checkContext(hook string, ctx map[string]json.RawMessage, add addFunc) stri
 	if patientID != "" && !fhirID.MatchString(patientID) {
 		add(SeverityError, "$.context.patientId", "%q is not a FHIR id", patientID)
 	}
-	stringMember(ctx, "encounterId", "$.context", false, add)
+	if enc := stringMember(ctx, "encounterId", "$.context", false, add); enc != "" && !fhirID.MatchString(enc) {
+		add(SeverityError, "$.context.encounterId", "%q is not a FHIR id (an id, not a reference)", enc)
+	}
 	refs := map[string]bool{}
 	if raw, ok := ctx["draftOrders"]; ok {
 		refs = checkDraftOrders(hook, raw, patientID, add)
@@ -204,6 +237,9 @@ func checkContext(hook string, ctx map[string]json.RawMessage, add addFunc) stri
 
 // bundleEntry is what the report reads of a Bundle entry's resource.
 type bundleEntry struct {
+	Search *struct {
+		Mode string `json:"mode"`
+	} `json:"search"`
 	Resource *struct {
 		ResourceType string          `json:"resourceType"`
 		ID           string          `json:"id"`
@@ -245,11 +281,7 @@ func checkDraftOrders(hook string, raw json.RawMessage, patientID string, add ad
 			continue
 		}
 		if r.Status != "draft" {
-			sev := SeverityError
-			if hook == HookOrderSign {
-				sev = SeverityWarning // a re-sign after revision may carry another status
-			}
-			add(sev, path+".status", "%q: draft orders carry status draft", r.Status)
+			add(SeverityWarning, path+".status", "%q: draft orders normally carry status draft (a re-sign after revision may not)", r.Status)
 		}
 		checkPatientRef(path, r.Subject, r.Patient, patientID, add)
 	}
@@ -268,9 +300,20 @@ func checkPatientRef(path string, subject, patient *referenceField, patientID st
 	case patientID == "":
 	case ref == nil:
 		add(SeverityError, path, "names no patient (subject or patient)")
-	case ref.Reference != "Patient/"+patientID && !strings.HasSuffix(ref.Reference, "/Patient/"+patientID) && !strings.HasPrefix(ref.Reference, "urn:"):
+	case !namesPatient(ref.Reference, patientID):
 		add(SeverityError, path+"."+member+".reference", "%q is not the patient in context (Patient/%s)", ref.Reference, patientID)
 	}
+}
+
+// namesPatient reports whether a reference names Patient/patientID,
+// relative or absolute, with or without a version; a urn: reference is
+// resolved by the service within the Bundle and is not judged here.
+func namesPatient(ref, patientID string) bool {
+	if strings.HasPrefix(ref, "urn:") {
+		return true
+	}
+	ref, _, _ = strings.Cut(ref, "/_history/")
+	return ref == "Patient/"+patientID || strings.HasSuffix(ref, "/Patient/"+patientID)
 }
 
 // checkPrefetch checks each service's prefetch keys against what was sent.
@@ -299,7 +342,7 @@ func checkPrefetch(req map[string]json.RawMessage, svcs []Service, patientID str
 			case string(bytes.TrimSpace(raw)) == "null":
 				add(SeverityInfo, path, "is null: read as no data, not re-queried")
 			default:
-				checkKey(path, k, raw, patientID, add)
+				checkKey(path, k, raw, patientID, svc.ID, add)
 			}
 		}
 	}
@@ -318,7 +361,7 @@ func checkPrefetch(req map[string]json.RawMessage, svcs []Service, patientID str
 // checkKey checks one prefetched value against its template: a read gives
 // the resource of its type, a search a searchset Bundle of the searched
 // type; an OperationOutcome is a failed key.
-func checkKey(path string, k PrefetchKey, raw json.RawMessage, patientID string, add addFunc) {
+func checkKey(path string, k PrefetchKey, raw json.RawMessage, patientID, service string, add addFunc) {
 	var head struct {
 		ResourceType string          `json:"resourceType"`
 		ID           string          `json:"id"`
@@ -333,6 +376,8 @@ func checkKey(path string, k PrefetchKey, raw json.RawMessage, patientID string,
 	}
 	want, search := templateType(k.Template)
 	switch {
+	case head.ResourceType == "OperationOutcome" && k.Required:
+		add(SeverityError, path, "is an OperationOutcome: the key failed, and it is required: %s answers 412", service)
 	case head.ResourceType == "OperationOutcome":
 		add(SeverityWarning, path, "is an OperationOutcome: the key failed, and the service does not re-query it")
 	case !search && head.ResourceType != want:
@@ -350,8 +395,10 @@ func checkKey(path string, k PrefetchKey, raw json.RawMessage, patientID string,
 			switch r := e.Resource; {
 			case r == nil:
 				add(SeverityError, ep, "is missing")
+			case r.ResourceType == "OperationOutcome" && e.Search != nil && e.Search.Mode == "outcome":
+				// a server's note on the search (search.mode outcome): read by the service, not an error
 			case r.ResourceType == "OperationOutcome":
-				add(SeverityWarning, ep, "an OperationOutcome in the search result")
+				add(SeverityWarning, ep, "an OperationOutcome in the search result: with an error or fatal issue the key fails")
 			case r.ResourceType != want:
 				add(SeverityError, ep+".resourceType", "%q does not fit the key's search of %s resources", r.ResourceType, want)
 			default:

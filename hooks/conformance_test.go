@@ -33,11 +33,9 @@ func TestCheckRequestListsEveryProblem(t *testing.T) {
 	}
 	want := []string{
 		"error $.fhirAuthorization", // cds-r-1
-		"error $.fhirAuthorization.token_type",
 		"error $.fhirAuthorization.expires_in",
 		"error $.fhirAuthorization.subject",
 		"error $.context.userId",
-		"error $.context.draftOrders.entry[0].resource.status",
 		"error $.context.draftOrders.entry[0].resource.subject.reference",
 		"error $.context.selections[0]",
 		"error $.prefetch.patient.resourceType",
@@ -46,6 +44,8 @@ func TestCheckRequestListsEveryProblem(t *testing.T) {
 		"error $.prefetch.sodium.entry[2].resource",
 		"error $.prefetch.chemistry.resourceType",
 		"warning $.hookInstance",
+		"warning $.fhirAuthorization.token_type", // "bearer": accepted in any case, RFC 6749
+		"warning $.context.draftOrders.entry[0].resource.status",
 		"warning $.context.draftOrders.entry[1].resource",
 		"warning $.prefetch.sodium.type",
 		"warning $.prefetch.urine",
@@ -85,6 +85,14 @@ func TestCheckRequestMissingMembers(t *testing.T) {
 		  "fhirAuthorization": {"access_token": "t", "token_type": "Bearer", "expires_in": 300, "scope": "s", "subject": "c"},
 		  "context": {"userId": "Practitioner/u", "patientId": "p1"}}`, []string{"warning $.fhirServer"}},
 		{`{"hook": 7, "hookInstance": "x", "context": []}`, []string{"error $.hook", "error $.context"}},
+		// What the server refuses (400) or answers 412, and check-request
+		// must not pass: a string expires_in, an encounterId that is a
+		// reference, a required key that failed.
+		{`{"hook": "patient-view", "hookInstance": "d1577c69-dfbe-44ad-ba6d-3e05e953b2ea", "fhirServer": "https://ehr.example/fhir",
+		  "fhirAuthorization": {"access_token": "t", "token_type": "Bearer", "expires_in": "3600", "scope": "s", "subject": "c"},
+		  "context": {"userId": "Practitioner/u", "patientId": "p1", "encounterId": "Encounter/9"},
+		  "prefetch": {"sodium": {"resourceType": "OperationOutcome"}}}`,
+			[]string{"error $.fhirAuthorization.expires_in", "error $.context.encounterId", "error $.prefetch.sodium"}},
 	} {
 		var svcs []Service
 		var head struct {

@@ -12,6 +12,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"text/tabwriter"
@@ -24,17 +25,24 @@ import (
 // the case DIR/CASE.json): the evaluation time and, per hook, the cards
 // that must and must not appear.
 type expectations struct {
-	At    string                     `json:"at"`
-	Hooks map[string]hookExpectation `json:"hooks"`
+	At string `json:"at"`
+	// Service, when given, is the one service the case is sent to (a
+	// captured call is replayed to the service it was sent to).
+	Service string                     `json:"service,omitempty"`
+	Hooks   map[string]hookExpectation `json:"hooks"`
 }
 
 // hookExpectation is what one hook must answer: each listed card matched by
 // a card of a service on the hook; no card of an absent rule; no card at
 // all with none.
+//
+// Each card given matches at most one expectation, and a card no
+// expectation matches fails the check unless Extra is "allow".
 type hookExpectation struct {
 	Cards  []cardExpectation `json:"cards,omitempty"`
 	Absent []string          `json:"absent,omitempty"`
 	None   bool              `json:"none,omitempty"`
+	Extra  string            `json:"extra,omitempty"`
 }
 
 // cardExpectation matches a card by rule, and when given by service,
@@ -172,9 +180,17 @@ func readExpectations(path string) (expectations, error) {
 	if err := dec.Decode(&e); err != nil {
 		return e, fmt.Errorf("expectations %s: %w", path, err)
 	}
+	if len(e.Hooks) == 0 {
+		return e, fmt.Errorf("expectations %s: hooks is empty: it would check nothing", path)
+	}
 	for hook, h := range e.Hooks {
-		if h.None && len(h.Cards) > 0 {
+		switch {
+		case h.None && len(h.Cards) > 0:
 			return e, fmt.Errorf("expectations %s: hooks.%s has both none and cards", path, hook)
+		case h.Extra != "" && h.Extra != "allow":
+			return e, fmt.Errorf("expectations %s: hooks.%s.extra %q: the only value is allow", path, hook, h.Extra)
+		case !h.None && len(h.Cards) == 0 && len(h.Absent) == 0:
+			return e, fmt.Errorf("expectations %s: hooks.%s expects nothing (give cards, absent or none)", path, hook)
 		}
 		for i, c := range h.Cards {
 			if c.Rule == "" {
@@ -227,7 +243,7 @@ func runSuiteCase(ctx context.Context, engine *hooks.Engine, reg *hooks.Registry
 	for _, hook := range hooksOf {
 		check := suiteCheck{Case: name, Hook: hook}
 		start := time.Now()
-		cards, err := suiteCards(ctx, engine, reg, in, hook, when)
+		cards, err := suiteCards(ctx, engine, reg, in, hook, exp.Service, when)
 		check.Took = time.Since(start)
 		switch {
 		case record && err != nil:
@@ -276,11 +292,18 @@ type suiteCard struct {
 }
 
 // suiteCards evaluates in on hook by every service of the hook.
-func suiteCards(ctx context.Context, engine *hooks.Engine, reg *hooks.Registry, in caseInput, hook string, when time.Time) ([]suiteCard, error) {
+func suiteCards(ctx context.Context, engine *hooks.Engine, reg *hooks.Registry, in caseInput, hook, service string, when time.Time) ([]suiteCard, error) {
 	if in.hook != "" && in.hook != hook {
 		return nil, fmt.Errorf("the captured request is for hook %q", in.hook)
 	}
 	svcs := reg.ForHook(hook)
+	if service != "" {
+		svc, ok := reg.Lookup(service)
+		if !ok || !svc.Serves(hook) {
+			return nil, fmt.Errorf("service %q does not serve %q", service, hook)
+		}
+		svcs = []hooks.Service{svc}
+	}
 	if len(svcs) == 0 {
 		return nil, fmt.Errorf("no service serves %q", hook)
 	}
@@ -310,16 +333,17 @@ func (h hookExpectation) check(cards []suiteCard) []string {
 	if h.None && len(cards) > 0 {
 		problems = append(problems, fmt.Sprintf("expected no card, got %d", len(cards)))
 	}
+	used := make([]bool, len(cards))
 	for _, want := range h.Cards {
 		var near []string
 		found := false
-		for _, c := range cards {
-			if c.rule != want.Rule || (want.Service != "" && c.service != want.Service) {
+		for i, c := range cards {
+			if used[i] || c.rule != want.Rule || (want.Service != "" && c.service != want.Service) {
 				continue
 			}
 			why := want.mismatch(c)
 			if why == "" {
-				found = true
+				found, used[i] = true, true
 				break
 			}
 			near = append(near, why)
@@ -334,11 +358,12 @@ func (h hookExpectation) check(cards []suiteCard) []string {
 			problems = append(problems, p)
 		}
 	}
-	for _, rule := range h.Absent {
-		for _, c := range cards {
-			if c.rule == rule {
-				problems = append(problems, "unexpected "+rule+" card: "+c.Summary)
-			}
+	for i, c := range cards {
+		switch {
+		case slices.Contains(h.Absent, c.rule):
+			problems = append(problems, "unexpected "+c.rule+" card: "+c.Summary)
+		case !used[i] && !h.None && h.Extra != "allow":
+			problems = append(problems, "a card no expectation lists ("+c.Indicator+" "+c.rule+"): "+c.Summary)
 		}
 	}
 	return problems

@@ -97,7 +97,28 @@ func TestSuiteMismatches(t *testing.T) {
 		t.Errorf("--fail-on info with an info card: %v", err)
 	}
 
+	// One card meets one expectation only; a card nobody lists fails unless
+	// extra is allow.
+	for _, tc := range []struct {
+		expect string
+		pass   bool
+	}{
+		{`{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {"cards": [{"rule": "water-deprivation-test"}, {"rule": "water-deprivation-test"}]}}}`, false},
+		{`{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {"absent": ["siadh-lab-pattern"]}}}`, false},
+		{`{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {"absent": ["siadh-lab-pattern"], "extra": "allow"}}}`, true},
+		{`{"at": "2026-11-20T08:00:00Z", "service": "sodium-chart-review", "hooks": {"patient-view": {"cards": [{"rule": "water-deprivation-test"}]}}}`, true},
+	} {
+		write("expected/wdt.json", tc.expect)
+		out.Reset()
+		err := run(context.Background(), []string{"suite", dir}, &out, io.Discard)
+		if (err == nil) != tc.pass {
+			t.Errorf("%s: %v\n%s", tc.expect, err, out.String())
+		}
+	}
+
 	for _, tc := range []struct{ name, expect, want string }{
+		{"expects nothing", `{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {}}}`, "expects nothing"},
+		{"no hooks", `{"at": "2026-11-20T08:00:00Z", "hooks": {}}`, "hooks is empty"},
 		{"unknown member", `{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {"card": []}}}`, `unknown field "card"`},
 		{"no time", `{"hooks": {"patient-view": {"none": true}}}`, "no evaluation time"},
 		{"bad indicator", `{"at": "2026-11-20T08:00:00Z", "hooks": {"patient-view": {"cards": [{"rule": "x", "indicator": "high"}]}}}`, `indicator "high"`},

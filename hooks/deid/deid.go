@@ -1,8 +1,11 @@
 // Package deid de-identifies captured CDS Hooks requests for regression
-// tests: it removes names, identifiers, contact details and free text,
-// renames every id and reference consistently, shifts every date by one
-// offset per patient, and drops the access token. A Session keeps the
-// renaming and the offsets consistent across the calls of one capture.
+// tests. It keeps only what halite reads — per resource type, the members
+// its mapping uses — and of those removes free text, renames every id and
+// reference consistently, shifts every date by one offset per patient and
+// caps ages at 90; the access token and the FHIR server's address go. A
+// Session keeps the renaming and the offsets consistent across the calls of
+// one capture. This is pseudonymisation for test data, not an anonymity
+// guarantee: review a capture before it leaves the machine.
 package deid
 
 import (
@@ -18,29 +21,48 @@ import (
 	"time"
 )
 
-// Removed are the members removed wherever they occur: a person's names,
-// identifiers, contact details and photo, free-text notes (FHIR R4
-// HumanName, Identifier, ContactPoint, Address, Attachment, Annotation), a
-// patient's instructions, the people and organisations in a record
-// (performer, requester, …), links (a next link's URL names the patient)
-// and extensions (which can hold anything). Besides these, a resource's
-// narrative (its text) and a display that is not a code's are removed.
-// What halite reads stays: codes, values and units, statuses, times
-// (shifted), coded concepts' text (a product's or a test's name), dosage
-// text.
-var Removed = map[string]bool{
-	"name": true, "identifier": true, "telecom": true, "address": true, "photo": true, "contact": true,
-	"note": true, "comment": true, "patientInstruction": true, "communication": true,
-	"generalPractitioner": true, "managingOrganization": true, "link": true, "performer": true, "requester": true,
-	"recorder": true, "asserter": true, "author": true, "orderer": true, "extension": true, "modifierExtension": true,
+// keptMembers lists, per resource type, the members kept: those halite's
+// FHIR mapping reads (fhirmap). A resource of another type keeps only its
+// type and renamed id.
+var keptMembers = map[string][]string{
+	"Bundle":                   {"type", "entry"},
+	"Patient":                  {"birthDate", "gender"},
+	"Observation":              {"status", "code", "category", "subject", "effectiveDateTime", "effectivePeriod", "effectiveInstant", "issued", "valueQuantity"},
+	"MedicationRequest":        {"status", "intent", "medicationCodeableConcept", "medicationReference", "subject", "authoredOn", "dosageInstruction", "priorPrescription", "dispenseRequest", "contained"},
+	"Medication":               {"code", "form", "ingredient"},
+	"MedicationAdministration": {"status", "medicationCodeableConcept", "medicationReference", "subject", "effectiveDateTime", "effectivePeriod", "request", "dosage", "contained"},
+	"Condition":                {"clinicalStatus", "verificationStatus", "code", "subject", "onsetDateTime", "onsetPeriod", "recordedDate"},
+	"Procedure":                {"status", "code", "subject", "performedDateTime", "performedPeriod"},
+	"NutritionOrder":           {"status", "intent", "patient", "dateTime", "oralDiet"},
+	"OperationOutcome":         {"issue"},
 }
 
-// renamedContext are the context members whose value is a reference or
-// an id, renamed like the resources' ids.
-var renamedContext = map[string]bool{"userId": true, "patientId": true, "encounterId": true}
+// droppedNested are removed wherever they occur inside kept members: free
+// text and anything that can carry it (extensions, element ids, notes,
+// instructions, an issue's diagnostics and details).
+var droppedNested = map[string]bool{
+	"extension": true, "modifierExtension": true, "id": true, "note": true, "patientInstruction": true,
+	"additionalInstruction": true, "instruction": true, "diagnostics": true, "details": true, "search": true, "request": true, "response": true,
+}
+
+// conceptKeys are the members that hold a CodeableConcept, whose text (the
+// concept's label: a product's or a test's name) is kept; every other text
+// is free text and goes.
+var conceptKeys = map[string]bool{
+	"code": true, "medicationCodeableConcept": true, "itemCodeableConcept": true, "route": true, "type": true, "category": true,
+	"clinicalStatus": true, "verificationStatus": true, "modifier": true, "form": true, "method": true, "asNeededCodeableConcept": true,
+}
+
+// dateKeys are the members whose year-only values are dates.
+var dateKeys = map[string]bool{
+	"birthDate": true, "start": true, "end": true, "issued": true, "authoredOn": true, "dateTime": true, "recordedDate": true,
+	"effectiveDateTime": true, "effectiveInstant": true, "onsetDateTime": true, "performedDateTime": true, "event": true,
+}
 
 var (
-	dateTimePattern  = regexp.MustCompile(`^(\d{4}-\d{2}-\d{2})(T\d{2}:\d{2}(:\d{2}(\.\d+)?)?(Z|[+-]\d{2}:\d{2}))?$`)
+	fullDatePattern  = regexp.MustCompile(`^\d{4}-\d{2}-\d{2}(T.*)?$`)
+	yearMonthPattern = regexp.MustCompile(`^\d{4}-\d{2}$`)
+	yearPattern      = regexp.MustCompile(`^\d{4}$`)
 	referencePattern = regexp.MustCompile(`^(?:(.*/))?([A-Z][A-Za-z]+)/([A-Za-z0-9\-.]{1,64})(/_history/.*)?$`)
 )
 
@@ -73,8 +95,8 @@ func (s *Session) pseudonym(typ, id string) string {
 }
 
 // Offset is the shift applied to the dates of the patient with id: 30 to
-// 395 days back, whole days, so times of day and weekdays stay comparable
-// across one patient's data.
+// 395 days back, whole days, so times of day stay comparable across one
+// patient's data.
 func (s *Session) Offset(patientID string) time.Duration {
 	n := binary.BigEndian.Uint32(s.mac("offset", patientID))
 	return -time.Duration(30+n%366) * 24 * time.Hour
@@ -82,31 +104,35 @@ func (s *Session) Offset(patientID string) time.Duration {
 
 // Request de-identifies one captured request body and returns it, with the
 // time the call should be replayed at (at shifted by the patient's offset).
+// Only the members CDS Hooks defines for the request and the context
+// members of the hooks halite serves are kept.
 func (s *Session) Request(body []byte, at time.Time) ([]byte, time.Time, error) {
 	var req map[string]any
-	if err := json.Unmarshal(body, &req); err != nil {
-		return nil, time.Time{}, fmt.Errorf("deid: the request is not a JSON object: %w", err)
+	if err := json.Unmarshal(body, &req); err != nil || req == nil {
+		return nil, time.Time{}, fmt.Errorf("deid: the request is not a JSON object")
 	}
-	patient := ""
-	if ctx, ok := req["context"].(map[string]any); ok {
-		patient, _ = ctx["patientId"].(string)
-	}
+	ctx, _ := req["context"].(map[string]any)
+	patient, _ := ctx["patientId"].(string)
 	w := walker{s: s, shift: s.Offset(patient)}
-	delete(req, "fhirAuthorization") // the access token is never kept
-	if _, ok := req["fhirServer"]; ok {
-		req["fhirServer"] = "https://fhir.example.invalid/fhir"
+	w.replay = at.Add(w.shift).UTC().Truncate(time.Second)
+	out := map[string]any{"hookInstance": hookInstance()}
+	if h, ok := req["hook"].(string); ok {
+		out["hook"] = h
 	}
-	req["hookInstance"] = w.hookInstance()
-	if ctx, ok := req["context"].(map[string]any); ok {
+	if _, ok := req["fhirServer"]; ok {
+		out["fhirServer"] = "https://fhir.example.invalid/fhir" // kept only as a flag: the key's fetch path was there
+	}
+	if ctx != nil {
+		clean := map[string]any{}
 		for k, v := range ctx {
 			str, isString := v.(string)
 			switch {
-			case renamedContext[k] && isString && k == "patientId":
-				ctx[k] = s.pseudonym("Patient", str)
-			case renamedContext[k] && isString && k == "encounterId":
-				ctx[k] = s.pseudonym("Encounter", str)
-			case renamedContext[k] && isString:
-				ctx[k] = w.reference(str)
+			case k == "patientId" && isString:
+				clean[k] = s.pseudonym("Patient", str)
+			case k == "encounterId" && isString:
+				clean[k] = s.pseudonym("Encounter", str)
+			case k == "userId" && isString:
+				clean[k] = w.reference(str)
 			case k == "selections":
 				if sel, ok := v.([]any); ok {
 					for i, x := range sel {
@@ -114,30 +140,36 @@ func (s *Session) Request(body []byte, at time.Time) ([]byte, time.Time, error) 
 							sel[i] = w.reference(ref)
 						}
 					}
+					clean[k] = sel
 				}
-			default:
-				ctx[k] = w.value(k, v)
+			case k == "draftOrders":
+				clean[k] = w.value(k, v)
 			}
 		}
+		out["context"] = clean
 	}
-	if p, ok := req["prefetch"]; ok {
-		req["prefetch"] = w.value("prefetch", p)
+	if p, ok := req["prefetch"].(map[string]any); ok {
+		for k, v := range p {
+			p[k] = w.value("prefetch", v)
+		}
+		out["prefetch"] = p
 	}
-	out, err := json.MarshalIndent(req, "", "  ")
+	data, err := json.MarshalIndent(out, "", "  ")
 	if err != nil {
 		return nil, time.Time{}, fmt.Errorf("deid: %w", err)
 	}
-	return append(out, '\n'), at.Add(w.shift).UTC().Truncate(time.Second), nil
+	return append(data, '\n'), w.replay, nil
 }
 
 type walker struct {
-	s     *Session
-	shift time.Duration
+	s      *Session
+	shift  time.Duration
+	replay time.Time
 }
 
 // hookInstance is a fresh random UUID (the original could join the capture
 // to the EHR's logs).
-func (w walker) hookInstance() string {
+func hookInstance() string {
 	b := make([]byte, 16)
 	_, _ = rand.Read(b)
 	b[6], b[8] = (b[6]&0x0f)|0x40, (b[8]&0x3f)|0x80
@@ -148,58 +180,66 @@ func (w walker) hookInstance() string {
 func (w walker) value(key string, v any) any {
 	switch t := v.(type) {
 	case map[string]any:
-		return w.object(t)
-	case []any:
-		for i := range t {
-			// A contained resource is referenced as #id, with no type: its
-			// id is renamed as the reference is.
-			var containedID string
-			if o, ok := t[i].(map[string]any); ok && key == "contained" {
-				containedID, _ = o["id"].(string)
-			}
-			t[i] = w.value(key, t[i])
-			if o, ok := t[i].(map[string]any); ok && containedID != "" {
-				o["id"] = w.s.pseudonym("contained", containedID)
-			}
+		if typ, ok := t["resourceType"].(string); ok {
+			return w.resource(typ, t, key == "contained")
 		}
-		return t
+		return w.element(key, t)
+	case []any:
+		out := make([]any, 0, len(t))
+		for _, x := range t {
+			out = append(out, w.value(key, x))
+		}
+		return out
 	case string:
 		switch {
 		case key == "reference" || key == "fullUrl":
 			return w.reference(t)
-		case dateTimePattern.MatchString(t):
+		case fullDatePattern.MatchString(t), yearMonthPattern.MatchString(t), dateKeys[key] && yearPattern.MatchString(t):
 			return w.date(t)
 		}
 	}
 	return v
 }
 
-// object de-identifies a JSON object: a resource (with resourceType) gets
-// its id renamed and its narrative removed.
-func (w walker) object(o map[string]any) map[string]any {
-	typ, isResource := o["resourceType"].(string)
-	for k, v := range o {
-		switch {
-		case k == "text" && isResource:
-			delete(o, k) // the narrative: free text
-		case k == "display":
-			if isCoding(o) {
-				continue // a code's display is the code system's, not the patient's
-			}
-			delete(o, k)
-		case Removed[k]:
-			delete(o, k)
-		case k == "id" && isResource:
-			if id, ok := v.(string); ok {
-				o[k] = w.s.pseudonym(typ, id)
-			}
-		case k == "id":
-			delete(o, k) // an element id can carry anything
-		default:
-			o[k] = w.value(k, v)
+// resource keeps the members halite reads of a resource of type typ and
+// renames its id (a contained one in the namespace its #id references use);
+// a patient's birth date gives an age of at most 90 at the replay time.
+func (w walker) resource(typ string, r map[string]any, contained bool) map[string]any {
+	out := map[string]any{"resourceType": typ}
+	if id, ok := r["id"].(string); ok {
+		if contained {
+			out["id"] = w.s.pseudonym("contained", id)
+		} else {
+			out["id"] = w.s.pseudonym(typ, id)
 		}
 	}
-	return o
+	for _, k := range keptMembers[typ] {
+		if v, ok := r[k]; ok {
+			out[k] = w.value(k, v)
+		}
+	}
+	if b, ok := out["birthDate"].(string); ok {
+		if t, err := time.Parse("2006-01-02", b); err == nil && t.Before(w.replay.AddDate(-90, 0, 0)) {
+			out["birthDate"] = w.replay.AddDate(-90, 0, 0).Format("2006-01-02") // ages above 89 are given as 90
+		}
+	}
+	return out
+}
+
+// element de-identifies a data type found under key: free text, element ids
+// and extensions go; a display stays only on a code.
+func (w walker) element(key string, o map[string]any) map[string]any {
+	out := map[string]any{}
+	for k, v := range o {
+		switch {
+		case droppedNested[k]:
+		case k == "text" && !conceptKeys[key]:
+		case k == "display" && !isCoding(o):
+		default:
+			out[k] = w.value(k, v)
+		}
+	}
+	return out
 }
 
 // isCoding reports whether o is a Coding (system and code).
@@ -229,20 +269,13 @@ func (w walker) reference(ref string) string {
 	return "Unknown/" + w.s.pseudonym("ref", ref)
 }
 
-// date shifts a FHIR date or dateTime by the patient's offset, keeping
-// its precision and its zone offset.
+// date shifts a FHIR date, dateTime or instant by the patient's offset,
+// keeping its precision and zone; one that does not parse is replaced.
 func (w walker) date(s string) string {
-	if len(s) == len("2006-01-02") {
-		t, err := time.Parse("2006-01-02", s)
-		if err != nil {
-			return s
-		}
-		return t.Add(w.shift).Format("2006-01-02")
-	}
-	for _, layout := range []string{time.RFC3339Nano, "2006-01-02T15:04Z07:00"} {
+	for _, layout := range []string{time.RFC3339Nano, "2006-01-02T15:04Z07:00", "2006-01-02", "2006-01", "2006"} {
 		if t, err := time.Parse(layout, s); err == nil {
 			return t.Add(w.shift).Format(layout)
 		}
 	}
-	return "1900-01-01" // a date time.Parse cannot read (a leap second, an hour 24) is not kept
+	return "1900-01-01"
 }

@@ -105,3 +105,55 @@ func FuzzRequest(f *testing.F) {
 		}
 	})
 }
+
+// TestRequestAdversarial: PHI placed where real EHRs put it — extensions,
+// unknown members, free-text values and instructions, transaction URLs,
+// meta, attachments, identifiers of other resource types, operation
+// outcome diagnostics, partial and invalid dates, an age above 89 — does
+// not survive; what halite reads does.
+func TestRequestAdversarial(t *testing.T) {
+	s, err := NewSession()
+	if err != nil {
+		t.Fatal(err)
+	}
+	body := `{"hook": "order-sign", "hookInstance": "x", "user": "Practitioner/dr-smith-42", "extension": {"com.ehr.user": "Dr John Smith"},
+	 "context": {"userId": "Practitioner/u", "patientId": "pt-1", "dispatchedOrders": ["ServiceRequest/sr-99"], "extension": {"x": "MRN12345"},
+	  "draftOrders": {"resourceType": "Bundle", "type": "collection", "entry": [{"fullUrl": "urn:uuid:0a7d8e5c-1111-4e57-9a15-4f0a1d5b0001",
+	   "request": {"method": "PUT", "url": "Patient/MRN12345"}, "response": {"location": "Patient/MRN12345/_history/1"},
+	   "resource": {"resourceType": "NutritionOrder", "id": "no-1", "status": "draft", "intent": "order", "patient": {"reference": "Patient/pt-1"},
+	    "oralDiet": {"instruction": "deliver to 12 Elm St", "nutrient": [{"amount": {"value": 1000, "unit": "mL"}}]}}}]}},
+	 "prefetch": {
+	  "patient": {"resourceType": "Patient", "id": "pt-1", "birthDate": "1920-01-01", "deceasedDateTime": "2024", "meta": {"source": "https://ehr.hospital.org/#MRN12345"}},
+	  "sodium": {"resourceType": "Bundle", "type": "searchset", "link": [{"relation": "next", "url": "https://ehr/fhir/Observation?patient=MRN12345"}],
+	   "entry": [{"resource": {"resourceType": "Observation", "id": "o1", "status": "final", "valueString": "pt Jane Roe called from 555-1234",
+	    "code": {"text": "Sodium", "coding": [{"system": "http://loinc.org", "code": "2951-2", "display": "Sodium"}]},
+	    "effectivePeriod": {"start": "2024-03", "end": "2024-03-15"}, "issued": "2024-02-30T10:00:00Z", "note": [{"text": "Jane asked"}],
+	    "subject": {"reference": "Patient/pt-1", "display": "Jane Roe"}, "valueQuantity": {"value": 131, "unit": "mmol/L"}}},
+	    {"resource": {"resourceType": "OperationOutcome", "issue": [{"severity": "information", "code": "informational", "diagnostics": "searched MRN12345 for Jane Roe"}]}},
+	    {"resource": {"resourceType": "DocumentReference", "id": "d1", "content": [{"attachment": {"data": "SmFuZSBSb2U=", "title": "Jane Roe letter"}}]}},
+	    {"resource": {"resourceType": "Coverage", "id": "c1", "subscriberId": "SUB-778899"}}]}}}`
+	at := time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC)
+	out, replay, err := s.Request([]byte(body), at)
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := string(out)
+	for _, gone := range []string{"dr-smith", "John Smith", "MRN12345", "sr-99", "Elm St", "Jane", "Roe", "555-1234", "SmFuZSBSb2U", "SUB-778899",
+		"hospital.org", "2024-03-15", "\"2024\"", "2024-02-30", "1920-01-01", "0a7d8e5c", "dispatchedOrders", "\"user\"", "extension"} {
+		if strings.Contains(text, gone) {
+			t.Errorf("%q survived:\n%s", gone, text)
+		}
+	}
+	for _, kept := range []string{`"value": 131`, `"code": "2951-2"`, `"text": "Sodium"`, `"value": 1000`, `"status": "final"`, `"severity": "information"`} {
+		if !strings.Contains(text, kept) {
+			t.Errorf("%s was not kept:\n%s", kept, text)
+		}
+	}
+	shift := s.Offset("pt-1")
+	if want := time.Date(2024, 3, 1, 0, 0, 0, 0, time.UTC).Add(shift).Format("2006-01"); !strings.Contains(text, `"start": "`+want+`"`) {
+		t.Errorf("a year-month start is not shifted to %s:\n%s", want, text)
+	}
+	if want := replay.AddDate(-90, 0, 0).Format("2006-01-02"); !strings.Contains(text, `"birthDate": "`+want+`"`) {
+		t.Errorf("an age above 89 is not given as 90 (%s):\n%s", want, text)
+	}
+}
