@@ -55,13 +55,8 @@ func (c *capturer) capture(service string, body []byte, at time.Time, resp hooks
 	}
 	var h hookExpectation
 	for _, card := range resp.Cards {
-		var ext struct {
-			Halite struct {
-				Rule string `json:"rule"`
-			} `json:"halite"`
-		}
-		_ = json.Unmarshal(card.Extension, &ext)
-		h.Cards = append(h.Cards, cardExpectation{Rule: ext.Halite.Rule, Service: service, Indicator: card.Indicator})
+		rule, _ := haliteRule(card)
+		h.Cards = append(h.Cards, cardExpectation{Rule: rule, Service: service, Indicator: card.Indicator})
 	}
 	h.None = len(h.Cards) == 0
 	var hook struct {

@@ -81,6 +81,9 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		if bf.hook != "" && bf.hook != in.hook {
 			return fmt.Errorf("--hook %s: the captured request in %s is for hook %q", bf.hook, path, in.hook)
 		}
+		if len(bf.selections) > 0 || bf.encounter != "" || bf.user != "Practitioner/cli-user" {
+			return fmt.Errorf("--select, --encounter and --user build a request from a Bundle; %s is a captured request, sent as it is", path)
+		}
 		bf.hook = in.hook
 	}
 	svcs, err := bf.services(reg)
@@ -148,7 +151,6 @@ func eval(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 // caseInput is one input eval reads: a FHIR Bundle, or a captured CDS
 // Hooks request (data, sent as it is) with its hook.
 type caseInput struct {
-	path   string
 	data   []byte
 	bundle *fhirmap.Bundle
 	hook   string
@@ -164,7 +166,7 @@ func readCase(path string) (caseInput, error) {
 	if err != nil {
 		return caseInput{}, err
 	}
-	in := caseInput{path: path, data: bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")), hook: hook}
+	in := caseInput{data: bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")), hook: hook}
 	if hook == "" {
 		if in.bundle, err = parseBundle(path, data); err != nil {
 			return caseInput{}, err

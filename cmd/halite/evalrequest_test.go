@@ -55,6 +55,7 @@ func TestEvalInputErrors(t *testing.T) {
 		want          string
 	}{
 		{"hook mismatch", "", []string{"--hook", "patient-view"}, `is for hook "order-sign"`},
+		{"select with a request", "", []string{"--select", "MedicationRequest/x"}, "is a captured request, sent as it is"},
 		{"neither", `{"id":"x"}`, nil, `neither a FHIR Bundle (no "resourceType") nor a CDS Hooks request (no "hook")`},
 		{"both", `{"resourceType":"Bundle","hook":"order-sign"}`, nil, `has both "hook" and "resourceType"`},
 		{"hook not a string", `{"hook":3}`, nil, `"hook" must be a non-empty string`},

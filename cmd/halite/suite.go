@@ -314,17 +314,24 @@ func suiteCards(ctx context.Context, engine *hooks.Engine, reg *hooks.Registry, 
 	var out []suiteCard
 	for _, svc := range svcs {
 		for _, c := range outcomes[svc.ID].Response.Cards {
-			var ext struct {
-				Halite struct {
-					Rule    string             `json:"rule"`
-					Figures map[string]float64 `json:"figures"`
-				} `json:"halite"`
-			}
-			_ = json.Unmarshal(c.Extension, &ext) // a card without halite's extension matches by nothing but its indicator
-			out = append(out, suiteCard{Card: c, service: svc.ID, rule: ext.Halite.Rule, figures: ext.Halite.Figures})
+			rule, figures := haliteRule(c)
+			out = append(out, suiteCard{Card: c, service: svc.ID, rule: rule, figures: figures})
 		}
 	}
 	return out, nil
+}
+
+// haliteRule is the rule and figures halite's extension gives a card (none
+// for a card without it, which matches by nothing but its indicator).
+func haliteRule(c hooks.Card) (string, map[string]float64) {
+	var ext struct {
+		Halite struct {
+			Rule    string             `json:"rule"`
+			Figures map[string]float64 `json:"figures"`
+		} `json:"halite"`
+	}
+	_ = json.Unmarshal(c.Extension, &ext)
+	return ext.Halite.Rule, ext.Halite.Figures
 }
 
 // check lists every way cards fall short of h.
@@ -457,6 +464,7 @@ type junitSuite struct {
 	Name     string      `xml:"name,attr"`
 	Tests    int         `xml:"tests,attr"`
 	Failures int         `xml:"failures,attr"`
+	Errors   int         `xml:"errors,attr"`
 	Time     string      `xml:"time,attr"`
 	Cases    []junitCase `xml:"testcase"`
 }
@@ -466,6 +474,7 @@ type junitCase struct {
 	Name      string        `xml:"name,attr"`
 	Time      string        `xml:"time,attr"`
 	Failure   *junitFailure `xml:"failure,omitempty"`
+	Error     *junitFailure `xml:"error,omitempty"`
 }
 
 type junitFailure struct {
@@ -479,8 +488,12 @@ func writeJUnit(path string, checks []suiteCheck) error {
 	var total time.Duration
 	for _, c := range checks {
 		total += c.Took
-		jc := junitCase{ClassName: "halite." + strings.TrimSuffix(c.Case, ".json"), Name: c.Hook, Time: seconds(c.Took)}
-		if len(c.Problems) > 0 {
+		jc := junitCase{ClassName: "halite." + strings.TrimSuffix(filepath.Base(c.Case), ".json"), Name: c.Hook, Time: seconds(c.Took)}
+		switch {
+		case len(c.Problems) > 0 && c.Hook == "-": // the case could not be run
+			s.Errors++
+			jc.Error = &junitFailure{Message: c.Problems[0], Text: strings.Join(c.Problems, "\n")}
+		case len(c.Problems) > 0:
 			s.Failures++
 			jc.Failure = &junitFailure{Message: c.Problems[0], Text: strings.Join(c.Problems, "\n")}
 		}
