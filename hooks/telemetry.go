@@ -38,6 +38,14 @@ const (
 	CauseHalite     = "halite"      // a fault here
 )
 
+// DurationBuckets are the bucket bounds, in seconds, of the duration
+// histograms: from half a millisecond (a call answered from prefetch) to
+// 30 s (beyond any call deadline), so histogram_quantile has a bucket near
+// every latency halite sees.
+func DurationBuckets() []float64 {
+	return []float64{0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10, 30}
+}
+
 // NewTelemetry makes the tracer and instruments; nil providers are no-op.
 func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry, error) {
 	if tp == nil {
@@ -50,7 +58,8 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	t := &Telemetry{provider: tp, tracer: tp.Tracer("github.com/halite-cds/halite/hooks")}
 	var err, e error
 	t.requestDuration, e = m.Float64Histogram("halite.request.duration", metric.WithUnit("s"),
-		metric.WithDescription("Duration of hook and feedback calls by service, hook and HTTP status"))
+		metric.WithDescription("Duration of hook and feedback calls by service, hook and HTTP status"),
+		metric.WithExplicitBucketBoundaries(DurationBuckets()...))
 	err = errors.Join(err, e)
 	t.cards, e = m.Int64Counter("halite.cards", metric.WithDescription("Cards returned, by rule and indicator"))
 	err = errors.Join(err, e)
@@ -59,7 +68,8 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	t.feedbackOutcomes, e = m.Int64Counter("halite.feedback.outcomes", metric.WithDescription("Feedback entries stored, by service and outcome"))
 	err = errors.Join(err, e)
 	t.fetchDuration, e = m.Float64Histogram("halite.fhir.fetch.duration", metric.WithUnit("s"),
-		metric.WithDescription("FHIR fetches by outcome cause"))
+		metric.WithDescription("FHIR fetches by outcome cause"),
+		metric.WithExplicitBucketBoundaries(DurationBuckets()...))
 	err = errors.Join(err, e)
 	t.suppressed, e = m.Int64Counter("halite.cards.suppressed",
 		metric.WithDescription("Findings held back as repeats, by rule, indicator and reason (select-to-sign, overridden, chart-unchanged)"))
