@@ -75,8 +75,8 @@ func TestStoreOutageIsNeverAnAuthFailure(t *testing.T) {
 			if err := json.Unmarshal([]byte(strings.TrimSpace(logs.String())), &line); err != nil {
 				t.Fatalf("log line: %v: %s", err, logs.String())
 			}
-			if line["level"] != "WARN" || line["error"] != "transient "+tc.auth.reason || line["auth_refused"] != nil {
-				t.Errorf("log line %v; want WARN, error %q and no auth refusal", line, "transient "+tc.auth.reason)
+			if line["level"] != "ERROR" || line["error"] != "transient "+tc.auth.reason || line["auth_refused"] != nil {
+				t.Errorf("log line %v; want ERROR, error %q and no auth refusal", line, "transient "+tc.auth.reason)
 			}
 		})
 	}

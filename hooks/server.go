@@ -471,9 +471,15 @@ func (s *server) accessLog(c *gin.Context) {
 	if v, ok := c.Get(logDropped); ok {
 		attrs = append(attrs, "dropped", v)
 	}
+	// By outcome: a caller's mistake (4xx) is a warning, a failure on
+	// halite's side or its dependencies' (5xx) an error, so filtering WARN
+	// and above finds every failed call.
 	level := slog.LevelInfo
-	if c.Writer.Status() >= http.StatusInternalServerError {
-		level = slog.LevelWarn // a failed call is found by filtering WARN and above
+	switch st := c.Writer.Status(); {
+	case st >= http.StatusInternalServerError:
+		level = slog.LevelError
+	case st >= http.StatusBadRequest:
+		level = slog.LevelWarn
 	}
 	s.log.Log(c.Request.Context(), level, "request", attrs...)
 	mattrs := []attribute.KeyValue{attribute.Int("status", c.Writer.Status()), attribute.String("route", c.FullPath())}

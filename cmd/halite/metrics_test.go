@@ -3,9 +3,12 @@ package main
 import (
 	"bufio"
 	"bytes"
+	"encoding/json"
 	"io"
 	"net/http"
 	"net/http/httptest"
+	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
@@ -55,8 +58,14 @@ func TestMetricsDurationBuckets(t *testing.T) {
 	// bucket[name][le] sums the cumulative counts of every series.
 	bucket := map[string]map[string]float64{}
 	sc := bufio.NewScanner(resp.Body)
+	runtime := map[string]bool{}
 	for sc.Scan() {
 		line := sc.Text()
+		for _, m := range []string{"go_goroutines ", "go_memstats_heap_alloc_bytes ", "process_cpu_seconds_total ", "process_open_fds "} {
+			if strings.HasPrefix(line, m) {
+				runtime[m] = true
+			}
+		}
 		name, rest, ok := strings.Cut(line, "_bucket{")
 		if !ok || strings.HasPrefix(line, "#") {
 			continue
@@ -76,6 +85,9 @@ func TestMetricsDurationBuckets(t *testing.T) {
 		}
 		bucket[name][le] += v
 	}
+	if len(runtime) != 4 {
+		t.Errorf("Go runtime and process metrics: found %v", runtime)
+	}
 	for _, name := range []string{"halite_request_duration_seconds", "halite_fhir_fetch_duration_seconds"} {
 		b := bucket[name]
 		for _, bound := range hooks.DurationBuckets() {
@@ -86,5 +98,41 @@ func TestMetricsDurationBuckets(t *testing.T) {
 		if b["0.25"] != 0 || b["2.5"] < 1 {
 			t.Errorf("%s: %v in le=0.25 (want 0), %v in le=2.5 (want ≥ 1)", name, b["0.25"], b["2.5"])
 		}
+	}
+}
+
+// TestLogLevelByOutcome: an answered call is logged at INFO, a caller's
+// mistake (4xx) at WARN; 5xx at ERROR is checked by the outage tests.
+func TestLogLevelByOutcome(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	base, logs, stop := startServe(t)
+	demo, err := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, body := range [][]byte{demo, []byte(`{"hook": 1}`)} {
+		resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", bytes.NewReader(body))
+		if err != nil {
+			t.Fatal(err)
+		}
+		io.Copy(io.Discard, resp.Body)
+		resp.Body.Close()
+	}
+	if err := stop(); err != nil {
+		t.Fatal(err)
+	}
+	levels := map[float64]string{}
+	for _, l := range strings.Split(logs.String(), "\n") {
+		var line struct {
+			Level  string  `json:"level"`
+			Msg    string  `json:"msg"`
+			Status float64 `json:"status"`
+		}
+		if json.Unmarshal([]byte(l), &line) == nil && line.Msg == "request" {
+			levels[line.Status] = line.Level
+		}
+	}
+	if levels[200] != "INFO" || levels[400] != "WARN" {
+		t.Errorf("levels by status %v, want 200 INFO and 400 WARN", levels)
 	}
 }

@@ -311,7 +311,7 @@ func storeOutageUnderLoad(t *testing.T, backend string) {
 		t.Fatal(err)
 	}
 	l := logs.String()
-	if !strings.Contains(l, `"error":"transient store-timeout"`) || !strings.Contains(l, `"level":"WARN"`) {
-		t.Errorf("503s are not logged at WARN with their reason:\n%.3000s", l)
+	if !strings.Contains(l, `"error":"transient store-timeout"`) || !strings.Contains(l, `"level":"ERROR"`) {
+		t.Errorf("503s are not logged at ERROR with their reason:\n%.3000s", l)
 	}
 }

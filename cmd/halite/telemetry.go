@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 	"go.opentelemetry.io/otel/attribute"
 	"go.opentelemetry.io/otel/exporters/otlp/otlptrace/otlptracehttp"
@@ -72,6 +73,12 @@ func setupTelemetry(ctx context.Context, getenv func(string) string, revision st
 	}
 	tp := sdktrace.NewTracerProvider(opts...)
 	reg := prometheus.NewRegistry()
+	// The Go runtime's and the process's own metrics (goroutines, heap, GC,
+	// CPU, open files), beside halite's.
+	if err := errors.Join(reg.Register(collectors.NewGoCollector()),
+		reg.Register(collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))); err != nil {
+		return nil, fmt.Errorf("telemetry: runtime metrics: %w", err)
+	}
 	pexp, err := otelprom.New(otelprom.WithRegisterer(reg))
 	if err != nil {
 		return nil, fmt.Errorf("telemetry: prometheus exporter: %w", err)
