@@ -73,8 +73,11 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.HandleMethodNotAllowed = true
 	// Server spans per request, continuing the EHR's W3C trace context and
 	// baggage; the span is named by route, never by the URL.
+	// Probes (/healthz, /readyz, /metrics) are neither traced nor logged:
+	// a platform polls them every few seconds.
 	r.Use(otelgin.Middleware("halite", otelgin.WithTracerProvider(e.tel.provider),
-		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{}))),
+		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{})),
+		otelgin.WithGinFilter(func(c *gin.Context) bool { return !isProbe(c.Request.URL.Path) })),
 		gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
 	r.GET("/cds-services", s.discover)
 	r.POST("/cds-services/:id", s.call)
@@ -475,6 +478,9 @@ func (s *server) accessLog(c *gin.Context) {
 	// halite's side or its dependencies' (5xx) an error, so filtering WARN
 	// and above finds every failed call.
 	level := slog.LevelInfo
+	if isProbe(c.Request.URL.Path) && c.Writer.Status() < http.StatusBadRequest {
+		level = slog.LevelDebug // a probe answered is no news (a failed one is logged)
+	}
 	switch st := c.Writer.Status(); {
 	case st >= http.StatusInternalServerError:
 		level = slog.LevelError
@@ -489,6 +495,11 @@ func (s *server) accessLog(c *gin.Context) {
 		}
 	}
 	s.engine.tel.requestDuration.Record(c.Request.Context(), time.Since(start).Seconds(), metric.WithAttributes(mattrs...))
+}
+
+// isProbe reports whether path is a health, readiness or metrics probe.
+func isProbe(path string) bool {
+	return path == "/healthz" || path == "/readyz" || path == "/metrics"
 }
 
 // errorSummary describes err for logs without request values: its kind and

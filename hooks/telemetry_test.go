@@ -363,3 +363,24 @@ func TestFetchSpanResourceType(t *testing.T) {
 		}
 	}
 }
+
+// TestProbesNotTracedNorLogged: /healthz and /readyz make no span and no
+// log line at the default level, while a call does.
+func TestProbesNotTracedNorLogged(t *testing.T) {
+	o := observedHandler(t)
+	for _, p := range []string{"/healthz", "/readyz"} {
+		w := httptest.NewRecorder()
+		o.handler.ServeHTTP(w, httptest.NewRequest(http.MethodGet, p, nil))
+		if w.Code != 200 {
+			t.Fatalf("%s: %d", p, w.Code)
+		}
+	}
+	if spans := o.spans.GetSpans(); len(spans) != 0 || o.logs.Len() != 0 {
+		t.Errorf("probes traced or logged: spans %v, logs %s", names(spans), o.logs.String())
+	}
+	w := httptest.NewRecorder()
+	o.handler.ServeHTTP(w, httptest.NewRequest(http.MethodGet, "/cds-services", nil))
+	if len(o.spans.GetSpans()) == 0 || !strings.Contains(o.logs.String(), `"route":"/cds-services"`) {
+		t.Errorf("discovery was not traced and logged: %s", o.logs.String())
+	}
+}
