@@ -67,6 +67,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	for _, o := range cfg.CORSOrigins {
 		s.origins[strings.TrimRight(o, "/")] = true
 	}
+	s.zeroCounters()
 	r := gin.New()
 	r.RedirectTrailingSlash = false
 	r.RedirectFixedPath = false
@@ -495,6 +496,22 @@ func (s *server) accessLog(c *gin.Context) {
 		}
 	}
 	s.engine.tel.requestDuration.Record(c.Request.Context(), time.Since(start).Seconds(), metric.WithAttributes(mattrs...))
+}
+
+// zeroCounters starts the counters an alert divides or compares at zero
+// for every label set known in advance (the 503 reasons; each service's
+// feedback outcomes), so that a series exists before its first event.
+func (s *server) zeroCounters() {
+	ctx := context.Background()
+	for _, reason := range []string{ReasonStoreBusy, ReasonStoreTimeout, ReasonStoreQueueFull, ReasonStoreFault, ReasonFHIRTimeout,
+		ReasonCallTimeout, ReasonBudget, ReasonKeysTimeout} {
+		s.engine.tel.unavailable.Add(ctx, 0, metric.WithAttributes(attribute.String("reason", reason)))
+	}
+	for _, svc := range s.engine.Registry().Services() {
+		for _, outcome := range []string{"accepted", "overridden"} {
+			s.engine.tel.feedbackOutcomes.Add(ctx, 0, metric.WithAttributes(attribute.String("service", svc.ID), attribute.String("outcome", outcome)))
+		}
+	}
 }
 
 // isProbe reports whether path is a health, readiness or metrics probe.

@@ -136,3 +136,33 @@ func TestLogLevelByOutcome(t *testing.T) {
 		t.Errorf("levels by status %v, want 200 INFO and 400 WARN", levels)
 	}
 }
+
+// TestCountersAtZero: before any call, /metrics already has the 503
+// counter for every reason and the feedback counter for every service and
+// outcome, at zero.
+func TestCountersAtZero(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	base, _, stop := startServe(t)
+	defer stop()
+	resp, err := http.Get(base + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	for _, want := range [][2]string{{"halite_unavailable_total{", `reason="store-busy"`}, {"halite_unavailable_total{", `reason="fhir-timeout"`},
+		{"halite_unavailable_total{", `reason="keys-unavailable"`}, {"halite_feedback_outcomes_total{", `outcome="overridden",service="sodium-chart-review"`}} {
+		found := false
+		for _, line := range strings.Split(string(body), "\n") {
+			if strings.HasPrefix(line, want[0]) && strings.Contains(line, want[1]) {
+				found = true
+				if !strings.HasSuffix(line, "} 0") {
+					t.Errorf("%s is not zero at start-up", line)
+				}
+			}
+		}
+		if !found {
+			t.Errorf("no series %s%s} at start-up", want[0], want[1])
+		}
+	}
+}
