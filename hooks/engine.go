@@ -118,14 +118,17 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	}
 	fetch := e.fetcher(ctx, call, budget)
 	if fetch != nil {
-		fetch = tracedFetcher{next: fetch, t: e.tel}
+		fetch = newTracedFetcher(fetch, e.tel, call.Request.FHIRServer)
 	}
 	pctx, pspan := e.tel.start(ctx, "prefetch.resolve")
 	keys, err := Resolve(pctx, svc, call, fetch, e.limits)
+	if failed := keyFailures(keys); len(failed) > 0 {
+		pspan.SetAttributes(attribute.StringSlice("halite.prefetch.failures", failed))
+	}
 	if err != nil {
-		fail(pspan, causeOf(err), err)
+		fail(pspan, CauseOf(err), err)
 		pspan.End()
-		return nil, err
+		return &Outcome{Keys: keys}, err // the keys, for the access log
 	}
 	in := mapInput(call, keys, at)
 	in.Codes = e.registry.Codes()
@@ -173,12 +176,14 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 		wctx, wspan := e.tel.start(ctx, "cardlog.write", attribute.Int("halite.cards", len(cards)), attribute.Int("halite.cards.suppressed", len(held)))
 		err := e.recorder.LogCards(wctx, e.logged(ctx, svc.ID, call.Request.Hook, patientHash, findings, cards, held, at))
 		if err != nil {
-			fail(wspan, CauseHalite, err)
+			err = storeError(err, "the card log could not be written")
+			fail(wspan, CauseOf(err), err)
+			e.tel.storeFailure(ctx, StoreOpCardLog, err)
 		}
 		wspan.End()
 		if err != nil {
 			// No card leaves without its record: feedback must be able to join.
-			return nil, storeError(err, "the card log could not be written")
+			return nil, err
 		}
 	}
 	for _, h := range held {
@@ -193,12 +198,21 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 	if span := trace.SpanFromContext(ctx); span.IsRecording() {
 		span.SetAttributes(attribute.Int("halite.cards", len(cards)), attribute.Int("halite.cards.suppressed", len(held)),
 			attribute.String("halite.indicator.highest", highest.String()))
-		if t := CallerFrom(ctx).Tenant; t != "" {
-			span.SetAttributes(attribute.String("halite.tenant", t))
-		}
 	}
 	return &Outcome{Response: resp, Keys: keys, Facts: facts, UnknownPrefetchKeys: call.UnknownPrefetchKeys,
 		Dropped: fhirmap.DropCounts(facts), Held: held}, nil
+}
+
+// keyFailures names each key not had, or had in part, with its code
+// ("sodium=timeout"): no value from the request.
+func keyFailures(keys []Resolved) []string {
+	var out []string
+	for _, k := range keys {
+		if k.Code != "" && (k.State == Failed || k.State == Unavailable || k.Partial) {
+			out = append(out, k.Key.Key+"="+k.Code)
+		}
+	}
+	return out
 }
 
 // countCall counts a call to a service for the burden report: answered
@@ -235,17 +249,6 @@ func storeError(err error, message string) error {
 		return err
 	}
 	return &Error{Kind: KindUnavailable, Reason: ReasonStoreFault, Message: message, Err: err}
-}
-
-// causeOf is the cause category of a call's error.
-func causeOf(err error) string {
-	switch KindOf(err) {
-	case KindBadRequest, KindUnauthorized, KindForbidden, KindUnknownService, KindMethodNotAllowed, KindTooLarge, KindUnsupportedMedia:
-		return CauseCaller
-	case KindPrecondition:
-		return CauseFHIRServer
-	}
-	return CauseHalite
 }
 
 // logged is the card-log form of the cards of one response and of the
@@ -285,8 +288,16 @@ func (e *Engine) fetcher(ctx context.Context, c *Call, budget *CallBudget) Fetch
 	}
 	f, err := e.newFetcher(r.FHIRServer, r.FHIRAuthorization, CallerFrom(ctx), budget)
 	if err != nil {
+		// A refusal is this deployment's choice (an allowlist) unless the
+		// factory names another code (an insecure URL is the caller's).
+		c.fetchRefused = CodeServerNotUsed
+		var named interface{ Code() string }
+		if errors.As(err, &named) && CodeCause(named.Code()) != "" {
+			c.fetchRefused = named.Code()
+		}
 		if e.log != nil {
-			e.log.Warn("fhirServer not used", "reason", err.Error(), "hookInstance", r.HookInstance)
+			e.log.WarnContext(ctx, "fhirServer not used", "reason", err.Error(), "code", c.fetchRefused,
+				"cause", CodeCause(c.fetchRefused), "hookInstance", r.HookInstance)
 		}
 		return nil
 	}

@@ -56,6 +56,104 @@ const (
 	ReasonKeysTimeout    = "keys-unavailable" // the caller's key set could not be had within the deadline
 )
 
+// ReasonNoStore is a 503 for feedback sent to a deployment that keeps no
+// store: a configuration matter.
+const ReasonNoStore = "no-store"
+
+// Reasons a call is answered 412 (Error.Reason with KindPrecondition), and
+// why a prefetch key was not had (Resolved.Code). None carries request
+// values.
+const (
+	CodeNotSent        = "not-sent"             // not prefetched, and the call named no FHIR server with a token
+	CodeServerNotUsed  = "fhir-server-not-used" // a FHIR server was named, but this deployment does not call it (allowlist, no client)
+	CodeTokenMissing   = "template-token"       // the prefetch template has a token the call's context does not fill
+	CodeOutcome        = "operation-outcome"    // the data is an OperationOutcome reporting an error
+	CodeUnreadable     = "unreadable"           // the data the EHR sent is not a FHIR resource or Bundle
+	CodeFetchedBad     = "fetched-unreadable"   // the FHIR server's answer is not a FHIR resource or Bundle
+	CodeTimeout        = "timeout"              // the FHIR server did not answer in time
+	CodeHTTPAuth       = "http-auth"            // the FHIR server refused the EHR's token (401, 403)
+	CodeHTTPStatus     = "http-status"          // the FHIR server answered another status than 200 (a redirect included)
+	CodeUnreachable    = "unreachable"          // the FHIR server could not be reached
+	CodeOffOrigin      = "off-origin"           // a link pointed away from the FHIR server
+	CodeBlockedAddress = "blocked-address"      // the FHIR server resolves to an address this deployment does not call
+	CodeInsecure       = "insecure-fhir-server" // the FHIR server named is not https (loopback aside, in development)
+	CodeTooLarge       = "too-large"            // an answer larger than fhir_client.max_response_bytes
+	CodeCallBudget     = "call-budget"          // the data is larger than one call may read (budget.call_bytes)
+	CodeCancelled      = "cancelled"            // the EHR went away before the data came
+)
+
+// Cause categories: who has to act on a failure. Spans
+// (halite.error.cause), the request metric's cause label and the access
+// log's cause field all take them from causeTable.
+const (
+	CauseCaller        = "caller"        // the EHR: its request, token, key set or prefetch
+	CauseConfiguration = "configuration" // halite's deployment settings: allowlists, limits, stores
+	CauseFHIRServer    = "fhir-server"   // the EHR's FHIR server
+	CauseStore         = "store"         // halite's database
+	CauseHalite        = "halite"        // a fault in halite, or its capacity spent
+)
+
+// causeTable is the one table from an error's reason (503 reasons, 412 and
+// prefetch codes) to its cause. Errors with no reason in it take their
+// kind's cause from kindCause.
+var causeTable = map[string]string{
+	ReasonStoreBusy:      CauseStore,
+	ReasonStoreTimeout:   CauseStore,
+	ReasonStoreQueueFull: CauseStore,
+	ReasonStoreFault:     CauseStore,
+	ReasonNoStore:        CauseConfiguration,
+	ReasonFHIRTimeout:    CauseFHIRServer,
+	ReasonCallTimeout:    CauseHalite,
+	ReasonBudget:         CauseHalite,
+	ReasonKeysTimeout:    CauseCaller, // the issuer's key set did not come in time
+	CodeNotSent:          CauseCaller,
+	CodeServerNotUsed:    CauseConfiguration,
+	CodeTokenMissing:     CauseCaller,
+	CodeOutcome:          CauseFHIRServer,
+	CodeUnreadable:       CauseCaller,
+	CodeFetchedBad:       CauseFHIRServer,
+	CodeTimeout:          CauseFHIRServer,
+	CodeHTTPAuth:         CauseCaller, // the token is the EHR's
+	CodeHTTPStatus:       CauseFHIRServer,
+	CodeUnreachable:      CauseFHIRServer,
+	CodeOffOrigin:        CauseFHIRServer,
+	CodeBlockedAddress:   CauseConfiguration,
+	CodeInsecure:         CauseCaller,
+	CodeTooLarge:         CauseConfiguration,
+	CodeCallBudget:       CauseConfiguration,
+	CodeCancelled:        CauseCaller,
+}
+
+// kindCause is the cause of an error whose reason causeTable does not name.
+var kindCause = map[Kind]string{
+	KindInternal:         CauseHalite,
+	KindBadRequest:       CauseCaller,
+	KindUnauthorized:     CauseCaller,
+	KindForbidden:        CauseCaller,
+	KindUnknownService:   CauseCaller,
+	KindMethodNotAllowed: CauseCaller,
+	KindPrecondition:     CauseCaller,
+	KindTooLarge:         CauseCaller,
+	KindUnsupportedMedia: CauseCaller,
+	KindUnavailable:      CauseHalite,
+	KindTimeout:          CauseCaller,
+}
+
+// CauseOf is who has to act on err: the cause of its reason, else of its
+// kind.
+func CauseOf(err error) string {
+	var e *Error
+	if errors.As(err, &e) {
+		if c, ok := causeTable[e.Reason]; ok {
+			return c
+		}
+	}
+	return kindCause[KindOf(err)]
+}
+
+// CodeCause is the cause of a prefetch code or reason ("" for none known).
+func CodeCause(code string) string { return causeTable[code] }
+
 // RetryAfterSeconds is the Retry-After every 503 carries: long enough for
 // a queue to drain or a database to fail over, short enough for a
 // clinician's next action.

@@ -61,6 +61,7 @@ func fetchMedications(ctx context.Context, fetch Fetcher, in fhirmap.Input) []fh
 	if fetch == nil {
 		return in.Entries
 	}
+	ctx = withPrefetchKey(ctx, keyMedications)
 	rs := readEntries(in.Entries, in.DraftEntries)
 	out := in.Entries
 	n := 0

@@ -51,6 +51,9 @@ type Resolved struct {
 	// Reason explains Failed, Unavailable and Partial states, without PHI;
 	// it is safe to give the caller.
 	Reason string
+	// Code names the kind of failure behind Reason (Code* constants, or
+	// ReasonBudget), for logs, spans and the cause table.
+	Code string
 	// Err is the fetch error behind Reason, with detail for logs only.
 	Err error
 }
@@ -165,6 +168,7 @@ func requiredOutcome(ctx context.Context, out []Resolved, fetch Fetcher) error {
 			Message: "the call's time budget ran out while fetching FHIR data", Err: ctx.Err()}
 	}
 	var missing []string
+	code := ""
 	for _, r := range out {
 		if r.Key.Required && (r.State == Failed || r.State == Unavailable) {
 			if errors.Is(r.Err, ErrProcessBudget) {
@@ -173,16 +177,22 @@ func requiredOutcome(ctx context.Context, out []Resolved, fetch Fetcher) error {
 					Message: "halite is reading too much data for other calls just now", Err: r.Err}
 			}
 			missing = append(missing, r.Key.Key+" ("+r.Reason+")")
+			if code == "" {
+				code = r.Code
+			}
 		}
 	}
 	if len(missing) > 0 {
-		return &Error{Kind: KindPrecondition, Field: "prefetch",
+		// The 412's reason is its first missing key's: the cause table
+		// then names who has to act.
+		return &Error{Kind: KindPrecondition, Field: "prefetch", Reason: code,
 			Message: "required data could not be obtained: " + strings.Join(missing, "; ")}
 	}
 	return nil
 }
 
 func resolveKey(ctx context.Context, k PrefetchKey, c *Call, fetch Fetcher, lim Limits) Resolved {
+	ctx = withPrefetchKey(ctx, k.Key)
 	r := Resolved{Key: k}
 	raw, sent := c.Request.Prefetch[k.Key]
 	if sent {
@@ -192,29 +202,75 @@ func resolveKey(ctx context.Context, k PrefetchKey, c *Call, fetch Fetcher, lim 
 		}
 		r.State = Prefetched
 		if err := r.read(ctx, raw, fetch, lim); err != nil {
-			r.State, r.Reason, r.Resources = Failed, err.Error(), nil
+			r.State, r.Reason, r.Code, r.Resources = Failed, err.Error(), readCode(err, CodeUnreadable), nil
 		}
 		return r
 	}
 	if fetch == nil {
-		r.State, r.Reason = Unavailable, "not prefetched and no usable FHIR server"
+		r.State, r.Reason, r.Code = Unavailable, "not prefetched and no usable FHIR server", CodeNotSent
+		switch {
+		case c.fetchRefused != "":
+			r.Code = c.fetchRefused
+		case c.Request.FHIRServer != "" && c.Request.FHIRAuthorization != nil:
+			r.Code = CodeServerNotUsed // this deployment fetches nothing (eval, a client switched off)
+		}
 		return r
 	}
 	query, ok := RenderTemplate(k.Template, c)
 	if !ok {
-		r.State, r.Reason = Unavailable, "template has a token with no value"
+		r.State, r.Reason, r.Code = Unavailable, "template has a token with no value", CodeTokenMissing
 		return r
 	}
 	body, err := fetch.Fetch(ctx, query)
 	if err != nil {
-		r.State, r.Reason, r.Err = Failed, publicReason(err), err
+		r.State, r.Reason, r.Code, r.Err = Failed, publicReason(err), fetchCode(err), err
 		return r
 	}
 	r.State = Fetched
 	if err := r.read(ctx, body, fetch, lim); err != nil {
-		r.State, r.Reason, r.Resources = Failed, err.Error(), nil
+		r.State, r.Reason, r.Code, r.Resources = Failed, err.Error(), readCode(err, CodeFetchedBad), nil
 	}
 	return r
+}
+
+// readCode is the code of a value that could not be read: an
+// OperationOutcome, or otherwise unreadable (whose fault depends on who
+// sent it).
+func readCode(err error, unreadable string) string {
+	if errors.Is(err, errOutcome) {
+		return CodeOutcome
+	}
+	return unreadable
+}
+
+// fetchCode classifies a failed fetch for logs, spans and the cause table.
+// A Fetcher may name its own code (a method Code() string) from the
+// Code* constants; others are told apart by their errors.
+func fetchCode(err error) string {
+	switch {
+	case errors.Is(err, ErrCallBudget):
+		return CodeCallBudget
+	case errors.Is(err, ErrProcessBudget):
+		return ReasonBudget
+	case errors.Is(err, context.Canceled):
+		return CodeCancelled
+	case errors.Is(err, context.DeadlineExceeded):
+		return CodeTimeout
+	}
+	var named interface{ Code() string }
+	if errors.As(err, &named) {
+		if code := named.Code(); CodeCause(code) != "" {
+			return code
+		}
+	}
+	var st interface{ HTTPStatus() int }
+	if errors.As(err, &st) {
+		if s := st.HTTPStatus(); s == 401 || s == 403 {
+			return CodeHTTPAuth
+		}
+		return CodeHTTPStatus
+	}
+	return CodeUnreachable
 }
 
 // errOutcome means the data was an OperationOutcome reporting an error.
@@ -262,7 +318,7 @@ func (r *Resolved) read(ctx context.Context, raw []byte, fetch Fetcher, lim Limi
 			return nil
 		}
 		if raw, err = fetch.Fetch(ctx, b.Next); err != nil {
-			r.Partial, r.Reason, r.Err = true, "reading page "+fmt.Sprint(page+1)+": "+publicReason(err), err
+			r.Partial, r.Reason, r.Code, r.Err = true, "reading page "+fmt.Sprint(page+1)+": "+publicReason(err), fetchCode(err), err
 			return nil
 		}
 	}

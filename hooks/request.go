@@ -29,6 +29,9 @@ type Call struct {
 	// UnknownPrefetchKeys counts the prefetch keys the service did not ask
 	// for; they are ignored, and their names (the EHR's text) never logged.
 	UnknownPrefetchKeys int
+	// fetchRefused, when set, is why the FHIR server the call names is not
+	// used (a Code* constant): prefetch keys not sent carry it.
+	fetchRefused string
 }
 
 // contextFields are the context fields halite reads.

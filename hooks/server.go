@@ -45,6 +45,9 @@ type ServerConfig struct {
 	// instead of now (development mode only: fixtures evaluated as eval
 	// --at evaluates them).
 	EvaluateAt time.Time
+	// AuthFailureReasons are the reasons a token can be refused; each
+	// reason's counter starts at zero.
+	AuthFailureReasons []string
 	// Capture, when set, is given each answered call (development mode
 	// only: the command de-identifies and writes it for regression tests).
 	Capture func(service string, body []byte, at time.Time, response Response)
@@ -76,7 +79,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	// baggage; the span is named by route, never by the URL.
 	// Probes (/healthz, /readyz, /metrics) are neither traced nor logged:
 	// a platform polls them every few seconds.
-	r.Use(otelgin.Middleware("halite", otelgin.WithTracerProvider(e.tel.provider),
+	r.Use(otelgin.Middleware("halite", otelgin.WithTracerProvider(e.tel.provider), otelgin.WithMeterProvider(e.tel.meters),
 		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{})),
 		otelgin.WithGinFilter(func(c *gin.Context) bool { return !isProbe(c.Request.URL.Path) })),
 		gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
@@ -145,8 +148,13 @@ func (s *server) call(c *gin.Context) {
 		at = s.cfg.EvaluateAt
 	}
 	out, err := s.engine.handle(ctx, id, body, at, budget)
+	if out != nil {
+		c.Set(logKeys, keySummary(out.Keys))
+		if failed := keyFailures(out.Keys); len(failed) > 0 {
+			c.Set(logKeyFailures, strings.Join(failed, ","))
+		}
+	}
 	if err != nil {
-		fail(trace.SpanFromContext(ctx), causeOf(err), err)
 		s.fail(c, err)
 		return
 	}
@@ -154,7 +162,6 @@ func (s *server) call(c *gin.Context) {
 		s.cfg.Capture(id, body, at, out.Response)
 	}
 	c.Set(logCards, len(out.Response.Cards))
-	c.Set(logKeys, keySummary(out.Keys))
 	if n := out.UnknownPrefetchKeys; n > 0 {
 		c.Set(logUnknownKeys, n)
 	}
@@ -218,7 +225,10 @@ func (s *server) authenticate(ctx context.Context, c *gin.Context, path string) 
 	actx, span := s.engine.tel.start(ctx, "jwt.verify")
 	caller, err := a.Authenticate(actx, c.GetHeader("Authorization"), strings.TrimRight(s.cfg.PublicBaseURL, "/")+path)
 	if KindOf(err) == KindUnavailable {
-		fail(span, CauseHalite, err)
+		fail(span, CauseOf(err), err)
+		if CauseOf(err) == CauseStore {
+			s.engine.tel.storeFailure(ctx, StoreOpReplay, err)
+		}
 		span.End()
 		s.fail(c, err)
 		return nil, false
@@ -237,6 +247,13 @@ func (s *server) authenticate(ctx context.Context, c *gin.Context, path string) 
 		return nil, false
 	}
 	span.End()
+	// Who called, on the call's span: every span of the call is under it.
+	if srv := trace.SpanFromContext(ctx); srv.IsRecording() {
+		srv.SetAttributes(attribute.String("halite.issuer", caller.Issuer))
+		if caller.Tenant != "" {
+			srv.SetAttributes(attribute.String("halite.tenant", caller.Tenant))
+		}
+	}
 	return WithCaller(ctx, caller), true
 }
 
@@ -269,7 +286,7 @@ func (s *server) feedback(c *gin.Context) {
 	}
 	rec := s.engine.recorder
 	if rec == nil {
-		s.fail(c, &Error{Kind: KindUnavailable, Message: "no feedback store is configured"})
+		s.fail(c, &Error{Kind: KindUnavailable, Reason: ReasonNoStore, Message: "no feedback store is configured"})
 		return
 	}
 	entries, err := DecodeFeedback(id, body)
@@ -282,7 +299,11 @@ func (s *server) feedback(c *gin.Context) {
 		entries[i].Issuer, entries[i].Tenant = caller.Issuer, caller.Tenant
 	}
 	if err := rec.RecordOutcomes(ctx, entries); err != nil {
-		s.fail(c, feedbackError(err))
+		err = feedbackError(err)
+		if CauseOf(err) == CauseStore {
+			s.engine.tel.storeFailure(ctx, StoreOpFeedback, err)
+		}
+		s.fail(c, err)
 		return
 	}
 	for _, o := range entries {
@@ -382,10 +403,13 @@ func (s *server) ready(c *gin.Context) {
 // readyTimeout bounds the store check of one /readyz probe.
 const readyTimeout = time.Second
 
-// fail answers err with its status and an OperationOutcome. The log gets
+// fail answers err with its status and an OperationOutcome, and names its
+// cause on the call's span, in its log line and in its metric. The log gets
 // the error's kind and field only: messages can quote request values.
 func (s *server) fail(c *gin.Context, err error) {
 	c.Set(logError, errorSummary(err))
+	c.Set(logCause, CauseOf(err))
+	fail(trace.SpanFromContext(c.Request.Context()), CauseOf(err), err) // the call's server span
 	if KindOf(err) == KindUnavailable {
 		reason := ReasonStoreFault
 		var e *Error
@@ -436,7 +460,10 @@ const (
 	logCards = "halite.cards"
 	logKeys  = "halite.prefetch"
 	logError = "halite.error"
-	logAuth  = "halite.auth" // why a token was refused
+	logCause = "halite.cause" // who has to act on a failed call (Cause* constants)
+	// logKeyFailures names the keys not had and why ("sodium=timeout").
+	logKeyFailures = "halite.prefetch.failures"
+	logAuth        = "halite.auth" // why a token was refused
 	// logUnknownKeys counts prefetch keys the service did not ask for; their
 	// names are the EHR's text and are never logged.
 	logUnknownKeys = "halite.prefetch.unknown"
@@ -466,6 +493,13 @@ func (s *server) accessLog(c *gin.Context) {
 	if v, ok := c.Get(logError); ok {
 		attrs = append(attrs, "error", v)
 	}
+	cause, _ := c.Get(logCause)
+	if cause != nil {
+		attrs = append(attrs, "cause", cause)
+	}
+	if v, ok := c.Get(logKeyFailures); ok {
+		attrs = append(attrs, "prefetch_failed", v)
+	}
 	if v, ok := c.Get(logAuth); ok {
 		attrs = append(attrs, "auth_refused", v)
 	}
@@ -490,6 +524,9 @@ func (s *server) accessLog(c *gin.Context) {
 	}
 	s.log.Log(c.Request.Context(), level, "request", attrs...)
 	mattrs := []attribute.KeyValue{attribute.Int("status", c.Writer.Status()), attribute.String("route", c.FullPath())}
+	if cause != nil {
+		mattrs = append(mattrs, attribute.String("cause", cause.(string)))
+	}
 	if id := c.Param("id"); id != "" {
 		if _, known := s.engine.Registry().Lookup(id); known {
 			mattrs = append(mattrs, attribute.String("service", id))
@@ -504,8 +541,16 @@ func (s *server) accessLog(c *gin.Context) {
 func (s *server) zeroCounters() {
 	ctx := context.Background()
 	for _, reason := range []string{ReasonStoreBusy, ReasonStoreTimeout, ReasonStoreQueueFull, ReasonStoreFault, ReasonFHIRTimeout,
-		ReasonCallTimeout, ReasonBudget, ReasonKeysTimeout} {
+		ReasonCallTimeout, ReasonBudget, ReasonKeysTimeout, ReasonNoStore} {
 		s.engine.tel.unavailable.Add(ctx, 0, metric.WithAttributes(attribute.String("reason", reason)))
+	}
+	for _, reason := range s.cfg.AuthFailureReasons {
+		s.engine.tel.authFailures.Add(ctx, 0, metric.WithAttributes(attribute.String("reason", reason)))
+	}
+	for _, op := range storeOps {
+		for _, reason := range storeReasons {
+			s.engine.tel.storeFailures.Add(ctx, 0, metric.WithAttributes(attribute.String("operation", op), attribute.String("reason", reason)))
+		}
 	}
 	for _, svc := range s.engine.Registry().Services() {
 		for _, outcome := range []string{"accepted", "overridden"} {

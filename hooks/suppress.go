@@ -66,8 +66,9 @@ func (e *Engine) suppress(ctx context.Context, service, hook, patientHash string
 	prior, err := e.recorder.PriorCards(lctx, PriorQuery{Service: service, Issuer: caller.Issuer, Tenant: caller.Tenant,
 		PatientHash: patientHash, Since: at.Add(-look), Until: at})
 	if err != nil {
-		fail(span, CauseHalite, err)
+		fail(span, CauseStore, err)
 		span.End()
+		e.tel.storeFailure(ctx, StoreOpPriorCards, err)
 		if e.log != nil {
 			e.log.WarnContext(ctx, "card log lookup failed; no card held back", "service", service, "error", err.Error())
 		}

@@ -4,6 +4,8 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"net/url"
+	"strconv"
 	"strings"
 	"time"
 
@@ -29,14 +31,25 @@ type Telemetry struct {
 	fetchDuration    metric.Float64Histogram
 	unavailable      metric.Int64Counter
 	suppressed       metric.Int64Counter
+	storeFailures    metric.Int64Counter
+	// meters is the provider the instruments came from, for the HTTP
+	// server instrumentation's own (semantic-convention) metrics.
+	meters metric.MeterProvider
 }
 
-// Cause categories of errors on spans.
+// Store operations, the operation label of halite.store.failures.
 const (
-	CauseCaller     = "caller"      // the EHR's request or token
-	CauseFHIRServer = "fhir-server" // the EHR's FHIR server
-	CauseHalite     = "halite"      // a fault here
+	StoreOpCardLog    = "card-log"    // writing a response's cards before it is sent
+	StoreOpPriorCards = "prior-cards" // reading the cards already shown, to hold repeats back
+	StoreOpFeedback   = "feedback"    // storing the EHR's feedback
+	StoreOpReplay     = "replay"      // the token replay check
 )
+
+// storeOps are every store operation, each counted from start-up.
+var storeOps = []string{StoreOpCardLog, StoreOpPriorCards, StoreOpFeedback, StoreOpReplay}
+
+// storeReasons are the reasons a store fails, each counted from start-up.
+var storeReasons = []string{ReasonStoreBusy, ReasonStoreTimeout, ReasonStoreQueueFull, ReasonStoreFault}
 
 // DurationBuckets are the bucket bounds, in seconds, of the duration
 // histograms: from half a millisecond (a call answered from prefetch) to
@@ -55,7 +68,7 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 		mp = metricnoop.NewMeterProvider()
 	}
 	m := mp.Meter("github.com/halite-cds/halite/hooks")
-	t := &Telemetry{provider: tp, tracer: tp.Tracer("github.com/halite-cds/halite/hooks")}
+	t := &Telemetry{provider: tp, tracer: tp.Tracer("github.com/halite-cds/halite/hooks"), meters: mp}
 	var err, e error
 	t.requestDuration, e = m.Float64Histogram("halite.request.duration", metric.WithUnit("s"),
 		metric.WithDescription("Duration of hook and feedback calls by service, hook and HTTP status"),
@@ -68,7 +81,7 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	t.feedbackOutcomes, e = m.Int64Counter("halite.feedback.outcomes", metric.WithDescription("Feedback entries stored, by service and outcome"))
 	err = errors.Join(err, e)
 	t.fetchDuration, e = m.Float64Histogram("halite.fhir.fetch.duration", metric.WithUnit("s"),
-		metric.WithDescription("FHIR fetches by outcome cause"),
+		metric.WithDescription("FHIR fetches by server (server.address), prefetch key, outcome code (ok, timeout, http-status, …) and cause"),
 		metric.WithExplicitBucketBoundaries(DurationBuckets()...))
 	err = errors.Join(err, e)
 	t.suppressed, e = m.Int64Counter("halite.cards.suppressed",
@@ -77,10 +90,23 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	t.unavailable, e = m.Int64Counter("halite.unavailable",
 		metric.WithDescription("Calls answered 503, by reason (store-busy, store-timeout, store-queue-full, store-fault, fhir-timeout, call-timeout, budget-exhausted, keys-unavailable)"))
 	err = errors.Join(err, e)
+	t.storeFailures, e = m.Int64Counter("halite.store.failures",
+		metric.WithDescription("Store operations that failed, by operation (card-log, prior-cards, feedback, replay) and reason (store-busy, store-timeout, store-queue-full, store-fault)"))
+	err = errors.Join(err, e)
 	if err != nil {
 		return nil, fmt.Errorf("telemetry: %w", err)
 	}
 	return t, nil
+}
+
+// storeFailure counts a failed store operation by its reason.
+func (t *Telemetry) storeFailure(ctx context.Context, op string, err error) {
+	reason := ReasonStoreFault
+	var e *Error
+	if errors.As(err, &e) && e.Reason != "" {
+		reason = e.Reason
+	}
+	t.storeFailures.Add(ctx, 1, metric.WithAttributes(attribute.String("operation", op), attribute.String("reason", reason)))
 }
 
 func (t *Telemetry) start(ctx context.Context, name string, attrs ...attribute.KeyValue) (context.Context, trace.Span) {
@@ -95,12 +121,31 @@ func fail(span trace.Span, cause string, err error) {
 	span.AddEvent("exception", trace.WithAttributes(attribute.String("exception.type", fmt.Sprintf("%T", err))))
 }
 
-// tracedFetcher wraps a Fetcher with a span and a duration per fetch. The
-// span names the resource type only: references and queries carry patient
-// ids.
+// tracedFetcher wraps a Fetcher with a client span and a duration per
+// fetch. The span names the FHIR server's host, the prefetch key and the
+// resource type, never the reference or query: they carry patient ids.
 type tracedFetcher struct {
 	next Fetcher
 	t    *Telemetry
+	// host and port are the FHIR server's (OpenTelemetry server.address
+	// and server.port).
+	host string
+	port int
+}
+
+// newTracedFetcher traces fetch, made for the FHIR server at base.
+func newTracedFetcher(fetch Fetcher, t *Telemetry, base string) tracedFetcher {
+	f := tracedFetcher{next: fetch, t: t}
+	if u, err := url.Parse(base); err == nil {
+		f.host = u.Hostname()
+		f.port, _ = strconv.Atoi(u.Port())
+		if f.port == 0 && u.Scheme == "https" {
+			f.port = 443
+		} else if f.port == 0 && u.Scheme == "http" {
+			f.port = 80
+		}
+	}
+	return f
 }
 
 func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
@@ -114,17 +159,23 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 	case !isResourceTypeName(typ): // whatever else a server's link holds stays out of traces
 		typ = "other"
 	}
-	ctx, span := f.t.start(ctx, "fhir.fetch", attribute.String("fhir.resource_type", typ))
+	key := prefetchKeyFrom(ctx)
+	// A client span (OpenTelemetry HTTP semantic conventions name the
+	// attributes); the FHIR client sends its context as traceparent.
+	ctx, span := f.t.tracer.Start(ctx, "fhir.fetch", trace.WithSpanKind(trace.SpanKindClient), trace.WithAttributes(
+		attribute.String("fhir.resource_type", typ), attribute.String("halite.prefetch.key", key),
+		attribute.String("server.address", f.host), attribute.Int("server.port", f.port),
+		attribute.String("http.request.method", "GET")))
 	defer span.End()
 	start := time.Now()
 	body, err := f.next.Fetch(ctx, ref)
-	cause := "ok"
-	// A Fetcher reads, and succeeds only on 200 (OpenTelemetry HTTP
-	// semantic conventions name the attributes); a failure reports the
-	// status it got, if it got one.
-	span.SetAttributes(attribute.String("http.request.method", "GET"))
+	code, cause := "ok", ""
+	// A Fetcher succeeds only on 200; a failure reports the status it got,
+	// if it got one.
 	if err != nil {
-		cause = CauseFHIRServer
+		code = fetchCode(err)
+		cause = CodeCause(code)
+		span.SetAttributes(attribute.String("error.type", code))
 		fail(span, cause, err)
 		var st interface{ HTTPStatus() int }
 		if errors.As(err, &st) {
@@ -134,9 +185,31 @@ func (f tracedFetcher) Fetch(ctx context.Context, ref string) ([]byte, error) {
 		span.SetAttributes(attribute.Int("http.response.status_code", 200))
 	}
 	span.SetAttributes(attribute.Int("http.response.body.size", len(body)))
-	f.t.fetchDuration.Record(ctx, time.Since(start).Seconds(), metric.WithAttributes(attribute.String("cause", cause)))
+	f.t.fetchDuration.Record(ctx, time.Since(start).Seconds(), metric.WithAttributes(
+		attribute.String("server.address", f.host), attribute.String("prefetch.key", key),
+		attribute.String("code", code), attribute.String("cause", cause)))
 	return body, err
 }
+
+// prefetchKeyCtx carries the prefetch key a fetch is made for.
+type prefetchKeyCtx struct{}
+
+// withPrefetchKey marks ctx as fetching for key (a service's key name, or
+// keyMedications for the medications orders refer to).
+func withPrefetchKey(ctx context.Context, key string) context.Context {
+	return context.WithValue(ctx, prefetchKeyCtx{}, key)
+}
+
+func prefetchKeyFrom(ctx context.Context) string {
+	if k, ok := ctx.Value(prefetchKeyCtx{}).(string); ok {
+		return k
+	}
+	return "other"
+}
+
+// keyMedications names the fetches of Medication resources that orders
+// refer to, which no prefetch key covers.
+const keyMedications = "medications"
 
 // isResourceTypeName reports whether s has the form of a FHIR resource
 // type name: an upper-case letter, then letters (every R4 resource type

@@ -61,8 +61,9 @@ func (s *syncBuffer) String() string {
 // base URL, its log, and a stop function that returns run's error.
 func startServe(t *testing.T, args ...string) (string, *syncBuffer, func() error) {
 	t.Helper()
-	if os.Getenv("OTEL_TRACES_EXPORTER") == "" { // no collector in unit tests
-		t.Setenv("OTEL_TRACES_EXPORTER", "none")
+	if os.Getenv("OTEL_TRACES_EXPORTER") == "" { // no collector in unit tests: no endpoint, no exporter
+		t.Setenv("OTEL_EXPORTER_OTLP_ENDPOINT", "")
+		t.Setenv("OTEL_EXPORTER_OTLP_TRACES_ENDPOINT", "")
 	}
 	if os.Getenv("HALITE_STORE_DSN") == "" { // never the default ./halite-data inside the repository
 		t.Setenv("HALITE_STORE_DSN", "sqlite:"+filepath.Join(t.TempDir(), "halite.db"))

@@ -14,8 +14,10 @@ import (
 	"github.com/gin-gonic/gin"
 	"github.com/halite-cds/halite/fhirmap"
 	"github.com/halite-cds/halite/hooks"
+	"github.com/halite-cds/halite/hooks/auth"
 	"github.com/halite-cds/halite/hooks/fhirclient"
 	"github.com/halite-cds/halite/rules"
+	"go.opentelemetry.io/otel/propagation"
 )
 
 var logLevels = map[string]slog.Level{
@@ -85,7 +87,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	go func() { purgeLoop(purgeCtx, st, cfg.Store, log); close(purged) }()
 	defer func() { stopPurge(); <-purged }() // runs before st.Close
 	gin.SetMode(gin.ReleaseMode)
-	tel, err := setupTelemetry(ctx, os.Getenv, rs.Revision())
+	tel, err := setupTelemetry(ctx, os.Getenv, rs.Revision(), log)
 	if err != nil {
 		return err
 	}
@@ -124,6 +126,8 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		StoreReady:    st.Ping,
 		EvaluateAt:    evaluateAt,
 		Capture:       capture,
+		// Each refusal reason counted from zero once callers are verified.
+		AuthFailureReasons: authReasons(cfg),
 	}, health, log)
 	if !evaluateAt.IsZero() {
 		log.Warn("FIXED CLOCK: every call is evaluated at " + evaluateAt.Format(time.RFC3339) + " (serve --at), not now")
@@ -190,6 +194,8 @@ func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Lo
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
 		AllowHTTPLoopback: cfg.DevelopmentMode,
 		Transport:         fhirclient.NewTransport(cfg.DevelopmentMode, false), // one pool for all calls
+		// W3C trace context only: the EHR's baggage is not passed on.
+		Propagator: propagation.TraceContext{},
 	}
 	private := opts
 	private.Transport = fhirclient.NewTransport(cfg.DevelopmentMode, true)
@@ -218,4 +224,13 @@ func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Lo
 		Recorder:    rec,
 		PatientHash: hash,
 	})
+}
+
+// authReasons are the token refusal reasons to count from start-up: none
+// in development mode, where no token is checked.
+func authReasons(cfg Config) []string {
+	if len(cfg.Issuers) == 0 {
+		return nil
+	}
+	return auth.Reasons()
 }

@@ -16,7 +16,9 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
+	"go.opentelemetry.io/otel"
 	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/exporters/otlp/otlptrace/otlptracegrpc"
 	"go.opentelemetry.io/otel/exporters/otlp/otlptrace/otlptracehttp"
 	otelprom "go.opentelemetry.io/otel/exporters/prometheus"
 	"go.opentelemetry.io/otel/metric"
@@ -38,11 +40,17 @@ type telemetry struct {
 }
 
 // setupTelemetry follows the standard OTEL_* environment: OTEL_SDK_DISABLED
-// turns everything off; OTEL_TRACES_EXPORTER=none keeps tracing local;
-// otherwise spans go over OTLP/HTTP to OTEL_EXPORTER_OTLP_(TRACES_)ENDPOINT
-// (the exporter's default, http://localhost:4318, when unset), sampled as
-// OTEL_TRACES_SAMPLER says. Metrics are exposed for Prometheus scraping.
-func setupTelemetry(ctx context.Context, getenv func(string) string, revision string) (*telemetry, error) {
+// turns everything off; spans are exported only where an exporter is
+// configured — an OTLP endpoint (OTEL_EXPORTER_OTLP_TRACES_ENDPOINT or
+// OTEL_EXPORTER_OTLP_ENDPOINT), or OTEL_TRACES_EXPORTER=otlp, which takes
+// the exporter's default endpoint — over HTTP/protobuf or gRPC as
+// OTEL_EXPORTER_OTLP_(TRACES_)PROTOCOL says, sampled as OTEL_TRACES_SAMPLER
+// says; OTEL_TRACES_EXPORTER=none exports nothing. Spans are still made
+// without an exporter: their trace context reaches logs and FHIR servers.
+// Exporter errors are logged to log as JSON lines: the OpenTelemetry SDK
+// reports them only through its process-wide error handler, which this
+// sets. Metrics are exposed for Prometheus scraping.
+func setupTelemetry(ctx context.Context, getenv func(string) string, revision string, log *slog.Logger) (*telemetry, error) {
 	if strings.EqualFold(getenv("OTEL_SDK_DISABLED"), "true") {
 		return &telemetry{tracer: tracenoop.NewTracerProvider(), meter: metricnoop.NewMeterProvider(),
 			shutdown: func(context.Context) error { return nil }}, nil
@@ -61,16 +69,17 @@ func setupTelemetry(ctx context.Context, getenv func(string) string, revision st
 		return nil, fmt.Errorf("telemetry: resource: %w", err)
 	}
 	opts := []sdktrace.TracerProviderOption{sdktrace.WithResource(res)}
-	if exp := strings.ToLower(getenv("OTEL_TRACES_EXPORTER")); exp != "none" {
-		if exp != "" && exp != "otlp" {
-			return nil, fmt.Errorf("telemetry: OTEL_TRACES_EXPORTER=%q: only otlp and none are supported", exp)
-		}
-		exporter, err := otlptracehttp.New(ctx)
-		if err != nil {
-			return nil, fmt.Errorf("telemetry: OTLP exporter: %w", err)
-		}
+	exporter, where, err := traceExporter(ctx, getenv)
+	if err != nil {
+		return nil, err
+	}
+	if exporter != nil {
+		otel.SetErrorHandler(otel.ErrorHandlerFunc(func(err error) {
+			log.Error("telemetry export failed", "error", err.Error())
+		}))
 		opts = append(opts, sdktrace.WithBatcher(exporter))
 	}
+	log.Info("traces", "export", where)
 	tp := sdktrace.NewTracerProvider(opts...)
 	reg := prometheus.NewRegistry()
 	// The Go runtime's and the process's own metrics (goroutines, heap, GC,
@@ -86,6 +95,46 @@ func setupTelemetry(ctx context.Context, getenv func(string) string, revision st
 	mp := sdkmetric.NewMeterProvider(sdkmetric.WithResource(res), sdkmetric.WithReader(pexp))
 	return &telemetry{tracer: tp, meter: mp, metrics: promhttp.HandlerFor(reg, promhttp.HandlerOpts{}),
 		shutdown: func(ctx context.Context) error { return errors.Join(tp.Shutdown(ctx), mp.Shutdown(ctx)) }}, nil
+}
+
+// traceExporter is the span exporter the environment configures, nil for
+// none, with where it exports to (for the start-up log line).
+func traceExporter(ctx context.Context, getenv func(string) string) (sdktrace.SpanExporter, string, error) {
+	kind := strings.ToLower(getenv("OTEL_TRACES_EXPORTER"))
+	endpoint := getenv("OTEL_EXPORTER_OTLP_TRACES_ENDPOINT")
+	if endpoint == "" {
+		endpoint = getenv("OTEL_EXPORTER_OTLP_ENDPOINT")
+	}
+	switch {
+	case kind == "none":
+		return nil, "none (OTEL_TRACES_EXPORTER=none)", nil
+	case kind != "" && kind != "otlp":
+		return nil, "", fmt.Errorf("telemetry: OTEL_TRACES_EXPORTER=%q: only otlp and none are supported", kind)
+	case kind == "" && endpoint == "":
+		return nil, "none (no OTLP endpoint configured)", nil
+	}
+	protocol := strings.ToLower(getenv("OTEL_EXPORTER_OTLP_TRACES_PROTOCOL"))
+	if protocol == "" {
+		protocol = strings.ToLower(getenv("OTEL_EXPORTER_OTLP_PROTOCOL"))
+	}
+	if endpoint == "" {
+		endpoint = "the exporter's default endpoint"
+	}
+	var exp sdktrace.SpanExporter
+	var err error
+	switch protocol {
+	case "", "http/protobuf":
+		protocol = "http/protobuf"
+		exp, err = otlptracehttp.New(ctx)
+	case "grpc":
+		exp, err = otlptracegrpc.New(ctx)
+	default:
+		return nil, "", fmt.Errorf("telemetry: OTLP protocol %q: only http/protobuf and grpc are supported", protocol)
+	}
+	if err != nil {
+		return nil, "", fmt.Errorf("telemetry: OTLP exporter: %w", err)
+	}
+	return exp, "OTLP " + protocol + " to " + endpoint, nil
 }
 
 // traceLogHandler adds trace_id and span_id to every record logged with a

@@ -66,6 +66,14 @@ func (f *Failure) Label() string { return f.Reason }
 
 func fail(reason string) error { return &Failure{Reason: reason} }
 
+// Reasons lists every reason a token is refused with (Failure.Reason), so
+// that a metric can count each from zero.
+func Reasons() []string {
+	return []string{"algorithm", "audience", "crit", "duplicate-member", "expired", "invalid", "issued-in-future",
+		"jku-not-allowed", "lifetime", "malformed", "no-bearer-token", "no-iat", "no-jti", "no-kid", "replayed",
+		"signature", "tenant", "typ", "unknown-kid", "untrusted-issuer"}
+}
+
 // Errors of a token that could not be checked, not a refused one: callers
 // answer them as unavailable (503), not 401. Each wraps its cause.
 var (

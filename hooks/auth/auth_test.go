@@ -15,6 +15,9 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"os"
+	"regexp"
+	"slices"
 	"strings"
 	"sync"
 	"sync/atomic"
@@ -653,5 +656,25 @@ func TestKeyGivesUpAtDeadline(t *testing.T) {
 	releaseOnce.Do(func() { close(release) })
 	if _, err := v.Verify(context.Background(), tok, testAud); err != nil || hits.Load() != 1 {
 		t.Errorf("after the shared fetch ended: %v, %d fetches; want the token verified from that one fetch", err, hits.Load())
+	}
+}
+
+// TestReasonsListsEveryRefusal: Reasons names exactly the reasons the
+// verifier's source refuses with, so every auth-failure series starts at
+// zero and none is listed that cannot happen.
+func TestReasonsListsEveryRefusal(t *testing.T) {
+	src, err := os.ReadFile("auth.go")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var inSource []string
+	for _, m := range regexp.MustCompile(`fail\("([a-z-]+)"\)`).FindAllStringSubmatch(string(src), -1) {
+		inSource = append(inSource, m[1])
+	}
+	slices.Sort(inSource)
+	inSource = slices.Compact(inSource)
+	listed := slices.Sorted(slices.Values(Reasons()))
+	if len(inSource) < 15 || !slices.Equal(inSource, listed) {
+		t.Errorf("refusals in auth.go %v\nReasons() %v", inSource, listed)
 	}
 }

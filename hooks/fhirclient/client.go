@@ -18,6 +18,8 @@ import (
 	"strings"
 	"syscall"
 	"time"
+
+	"go.opentelemetry.io/otel/propagation"
 )
 
 // Options bound the client.
@@ -34,6 +36,10 @@ type Options struct {
 	// before reading it; when it refuses, the fetch fails wrapping its error
 	// (and ErrBudget), having read no more. Typically one call's budget.
 	Budget Budget
+	// Propagator, when set, writes the call's trace context into each
+	// request's headers (W3C traceparent), so the FHIR server's side of a
+	// fetch joins halite's trace.
+	Propagator propagation.TextMapPropagator
 }
 
 // Budget gives bytes or refuses at once; it never waits.
@@ -48,6 +54,7 @@ type Client struct {
 	http     *http.Client
 	maxBytes int64
 	budget   Budget
+	prop     propagation.TextMapPropagator
 }
 
 // Errors a caller may test for.
@@ -71,12 +78,12 @@ func New(server, token string, opt Options) (*Client, error) {
 	case base.Scheme == "https":
 	case base.Scheme == "http" && opt.AllowHTTPLoopback && IsLoopback(base.Hostname()):
 	default:
-		return nil, fmt.Errorf("fhir client: %w", ErrInsecure)
+		return nil, &Error{Reason: "fhirServer must use https", Err: fmt.Errorf("fhir client: %w", ErrInsecure)}
 	}
 	if opt.MaxResponseBytes <= 0 {
 		return nil, fmt.Errorf("fhir client: MaxResponseBytes must be positive")
 	}
-	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes, budget: opt.Budget}
+	c := &Client{base: base, token: token, maxBytes: opt.MaxResponseBytes, budget: opt.Budget, prop: opt.Propagator}
 	transport := opt.Transport
 	if transport == nil {
 		transport = NewTransport(opt.AllowHTTPLoopback, false)
@@ -176,6 +183,39 @@ func (e *Error) Unwrap() error { return e.Err }
 // Public returns the reason to show the caller.
 func (e *Error) Public() string { return e.Reason }
 
+// Code names the kind of failure for logs, spans and metrics: "timeout",
+// "http-auth" (401, 403), "http-status" (any other non-200 answer, a
+// redirect included), "too-large", "off-origin" (also a reference that is
+// not a FHIR URL), "blocked-address", "insecure-fhir-server", or
+// "unreachable".
+func (e *Error) Code() string { return codeOf(e.Err) }
+
+// Codes lists every code Error.Code returns.
+func Codes() []string {
+	return []string{"insecure-fhir-server", "http-auth", "http-status", "too-large", "timeout", "off-origin", "blocked-address", "unreachable"}
+}
+
+func codeOf(err error) string {
+	var se *statusError
+	switch {
+	case errors.Is(err, ErrInsecure):
+		return "insecure-fhir-server"
+	case errors.As(err, &se) && (se.code == http.StatusUnauthorized || se.code == http.StatusForbidden):
+		return "http-auth"
+	case errors.As(err, &se):
+		return "http-status"
+	case errors.Is(err, ErrTooLarge):
+		return "too-large"
+	case errors.Is(err, context.DeadlineExceeded):
+		return "timeout"
+	case errors.Is(err, ErrOffOrigin), errors.Is(err, ErrBadRef):
+		return "off-origin"
+	case errors.Is(err, ErrBlockedAddress):
+		return "blocked-address"
+	}
+	return "unreachable"
+}
+
 // statusError is a non-200 answer; redirect marks a 3xx with a Location.
 type statusError struct {
 	code     int
@@ -236,6 +276,9 @@ func (c *Client) fetch(ctx context.Context, ref string) ([]byte, error) {
 		return nil, fmt.Errorf("fetch %s: %w", op, ErrBadRef) // the error would quote the URL
 	}
 	req.Header.Set("Accept", "application/fhir+json")
+	if c.prop != nil {
+		c.prop.Inject(ctx, propagation.HeaderCarrier(req.Header))
+	}
 	if c.token != "" {
 		req.Header.Set("Authorization", "Bearer "+c.token)
 	}
@@ -349,6 +392,9 @@ func cause(err error) error {
 		return fmt.Errorf("cancelled: %w", context.Canceled)
 	case errors.Is(err, context.DeadlineExceeded):
 		return fmt.Errorf("timed out: %w", context.DeadlineExceeded)
+	}
+	if errors.Is(err, ErrBlockedAddress) {
+		return ErrBlockedAddress
 	}
 	var ue *url.Error
 	if errors.As(err, &ue) {
