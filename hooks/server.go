@@ -45,6 +45,10 @@ type ServerConfig struct {
 	// instead of now (development mode only: fixtures evaluated as eval
 	// --at evaluates them).
 	EvaluateAt time.Time
+	// ServerName is the host (and port) the service is reached by, for the
+	// OpenTelemetry server.address of its HTTP spans and metrics; never the
+	// caller's Host header, whose values are the caller's to choose.
+	ServerName string
 	// AuthFailureReasons are the reasons a token can be refused; each
 	// reason's counter starts at zero.
 	AuthFailureReasons []string
@@ -79,7 +83,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	// baggage; the span is named by route, never by the URL.
 	// Probes (/healthz, /readyz, /metrics) are neither traced nor logged:
 	// a platform polls them every few seconds.
-	r.Use(otelgin.Middleware("halite", otelgin.WithTracerProvider(e.tel.provider), otelgin.WithMeterProvider(e.tel.meters),
+	r.Use(otelgin.Middleware(cfg.ServerName, otelgin.WithTracerProvider(e.tel.provider), otelgin.WithMeterProvider(e.tel.meters),
 		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{})),
 		otelgin.WithGinFilter(func(c *gin.Context) bool { return !isProbe(c.Request.URL.Path) })),
 		gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)

@@ -48,9 +48,9 @@ type jaegerSpan struct {
 }
 
 // TestTracesReachJaeger runs Jaeger v2 (all-in-one, memory storage),
-// exports a scenario call's spans from `halite serve` over OTLP/HTTP, and
-// reads them back through Jaeger's query API: the span tree and the
-// call's attributes are there.
+// exports a scenario call's spans from `halite serve` over OTLP/HTTP and
+// over OTLP/gRPC, and reads them back through Jaeger's query API: the span
+// tree and the call's attributes are there.
 func TestTracesReachJaeger(t *testing.T) {
 	bin := jaegerBinary(t)
 	jaeger := exec.Command(bin)
@@ -61,10 +61,25 @@ func TestTracesReachJaeger(t *testing.T) {
 	defer func() { jaeger.Process.Kill(); jaeger.Wait() }()
 	waitFor(t, "http://127.0.0.1:16686/api/services", 60*time.Second)
 
+	// Both OTLP transports: HTTP/protobuf (4318) and gRPC (4317).
+	for _, tc := range []struct{ protocol, endpoint string }{
+		{"http/protobuf", "http://127.0.0.1:4318"},
+		{"grpc", "http://127.0.0.1:4317"},
+	} {
+		t.Run(tc.protocol, func(t *testing.T) {
+			traceRoundTrip(t, tc.protocol, tc.endpoint)
+		})
+	}
+}
+
+// traceRoundTrip exports one call's spans over protocol to endpoint and
+// reads them back from Jaeger.
+func traceRoundTrip(t *testing.T, protocol, endpoint string) {
 	service := fmt.Sprintf("halite-e2e-%d", time.Now().UnixNano())
 	t.Setenv("HALITE_CONFIG", "")
 	t.Setenv("OTEL_TRACES_EXPORTER", "otlp")
-	t.Setenv("OTEL_EXPORTER_OTLP_ENDPOINT", "http://127.0.0.1:4318")
+	t.Setenv("OTEL_EXPORTER_OTLP_ENDPOINT", endpoint)
+	t.Setenv("OTEL_EXPORTER_OTLP_PROTOCOL", protocol)
 	t.Setenv("OTEL_SERVICE_NAME", service)
 	base, _, stop := startServe(t)
 	var req bytes.Buffer

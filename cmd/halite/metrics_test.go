@@ -3,12 +3,14 @@ package main
 import (
 	"bufio"
 	"bytes"
+	"context"
 	"encoding/json"
 	"io"
 	"net/http"
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"sort"
 	"strconv"
 	"strings"
 	"testing"
@@ -138,8 +140,9 @@ func TestLogLevelByOutcome(t *testing.T) {
 }
 
 // TestCountersAtZero: before any call, /metrics already has the 503
-// counter for every reason and the feedback counter for every service and
-// outcome, at zero.
+// counter for every reason, the feedback counter for every service and
+// outcome, and the store-failure counter for every operation and reason,
+// at zero.
 func TestCountersAtZero(t *testing.T) {
 	t.Setenv("HALITE_CONFIG", "")
 	base, _, stop := startServe(t)
@@ -151,7 +154,8 @@ func TestCountersAtZero(t *testing.T) {
 	body, _ := io.ReadAll(resp.Body)
 	resp.Body.Close()
 	for _, want := range [][2]string{{"halite_unavailable_total{", `reason="store-busy"`}, {"halite_unavailable_total{", `reason="fhir-timeout"`},
-		{"halite_unavailable_total{", `reason="keys-unavailable"`}, {"halite_feedback_outcomes_total{", `outcome="overridden",service="sodium-chart-review"`}} {
+		{"halite_unavailable_total{", `reason="keys-unavailable"`}, {"halite_feedback_outcomes_total{", `outcome="overridden",service="sodium-chart-review"`},
+		{`halite_store_failures_total{operation="card-log"`, `reason="store-fault"`}, {`halite_store_failures_total{operation="replay"`, `reason="store-busy"`}} {
 		found := false
 		for _, line := range strings.Split(string(body), "\n") {
 			if strings.HasPrefix(line, want[0]) && strings.Contains(line, want[1]) {
@@ -165,4 +169,115 @@ func TestCountersAtZero(t *testing.T) {
 			t.Errorf("no series %s%s} at start-up", want[0], want[1])
 		}
 	}
+}
+
+// scrapeFile is the recorded scrape the alert rules and the dashboard
+// are checked against (deploy/prometheus_test.go, promtool in .ci/run).
+var scrapeFile = filepath.Join("..", "..", "deploy", "prometheus", "testdata", "scrape.prom")
+
+// TestRecordedScrape scrapes /metrics of a server that verifies its
+// callers after an answered call, a call whose FHIR server fails (412), a
+// malformed call (400) and one without a token (401), and holds the
+// recorded scrape to it: the same metric families with the same label
+// names (values differ from run to run). -update records it anew.
+func TestRecordedScrape(t *testing.T) {
+	t.Setenv("HALITE_CONFIG", "")
+	failing := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		w.WriteHeader(http.StatusInternalServerError)
+	}))
+	defer failing.Close()
+	dir, cfgPath := localIssuer(t)
+	cfg, err := os.ReadFile(cfgPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg = append(cfg, []byte("    fhir_servers:\n      - base_url: "+failing.URL+"\n")...)
+	if err := os.WriteFile(cfgPath, cfg, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	base, _, stop := startServe(t, "--config", cfgPath)
+	defer stop()
+	token := func() string {
+		var out bytes.Buffer
+		if err := run(context.Background(), []string{"token", "--key", filepath.Join(dir, "issuer-private.jwk"), "--iss", "https://ehr.example.org",
+			"--aud", "http://127.0.0.1/cds-services/sodium-infusion-check"}, &out, io.Discard); err != nil {
+			t.Fatal(err)
+		}
+		return "Bearer " + strings.TrimSpace(out.String())
+	}
+	demo, err := os.ReadFile(filepath.Join("..", "..", "testdata", "demo", "order-sign-request.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var req map[string]any
+	if err := json.Unmarshal(demo, &req); err != nil {
+		t.Fatal(err)
+	}
+	delete(req["prefetch"].(map[string]any), "sodium")
+	req["fhirServer"] = failing.URL
+	req["fhirAuthorization"] = map[string]any{"access_token": "t", "token_type": "Bearer", "expires_in": 60, "scope": "patient/*.read", "subject": "halite"}
+	for _, c := range []struct {
+		body   []byte
+		authz  string
+		status int
+	}{{demo, token(), 200}, {mustJSON(t, req), token(), 412}, {[]byte("{"), token(), 400}, {demo, "", 401}} {
+		if status, body := postJSON(t, base+"/cds-services/sodium-infusion-check", c.authz, c.body); status != c.status {
+			t.Fatalf("call answered %d, want %d: %s", status, c.status, body)
+		}
+	}
+	resp, err := http.Get(base + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	live, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if *update {
+		if err := os.WriteFile(scrapeFile, live, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	recorded, err := os.ReadFile(scrapeFile)
+	if err != nil {
+		t.Fatalf("%v (record it with go test ./cmd/halite -run TestRecordedScrape -update)", err)
+	}
+	got, want := seriesShapes(string(live)), seriesShapes(string(recorded))
+	for s := range want {
+		if !got[s] {
+			t.Errorf("the recorded scrape has %s, the live one does not (re-record with -update)", s)
+		}
+	}
+	for s := range got {
+		if !want[s] {
+			t.Errorf("the live scrape has %s, the recorded one does not (re-record with -update)", s)
+		}
+	}
+	for _, s := range []string{`halite_auth_failures_total{otel_scope_name,otel_scope_schema_url,otel_scope_version,reason}`,
+		`halite_request_duration_seconds_bucket{cause,le,otel_scope_name,otel_scope_schema_url,otel_scope_version,route,service,status}`,
+		`halite_fhir_fetch_duration_seconds_bucket{cause,code,le,otel_scope_name,otel_scope_schema_url,otel_scope_version,prefetch_key,server_address}`} {
+		if !got[s] {
+			t.Errorf("the scrape lacks %s", s)
+		}
+	}
+}
+
+// seriesShapes lists halite's and the HTTP server's series of a scrape as
+// "name{label,names}", the label names sorted.
+func seriesShapes(scrape string) map[string]bool {
+	out := map[string]bool{}
+	for _, line := range strings.Split(scrape, "\n") {
+		if !strings.HasPrefix(line, "halite_") && !strings.HasPrefix(line, "http_server_") {
+			continue
+		}
+		name, rest, _ := strings.Cut(line, "{")
+		labels, _, _ := strings.Cut(rest, "} ")
+		var names []string
+		for _, kv := range strings.Split(labels, `",`) {
+			if k, _, ok := strings.Cut(kv, "="); ok {
+				names = append(names, k)
+			}
+		}
+		sort.Strings(names)
+		out[name+"{"+strings.Join(names, ",")+"}"] = true
+	}
+	return out
 }

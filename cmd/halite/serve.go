@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"net/url"
 	"os"
 	"time"
 
@@ -128,6 +129,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		Capture:       capture,
 		// Each refusal reason counted from zero once callers are verified.
 		AuthFailureReasons: authReasons(cfg),
+		ServerName:         serverName(cfg),
 	}, health, log)
 	if !evaluateAt.IsZero() {
 		log.Warn("FIXED CLOCK: every call is evaluated at " + evaluateAt.Format(time.RFC3339) + " (serve --at), not now")
@@ -233,4 +235,13 @@ func authReasons(cfg Config) []string {
 		return nil
 	}
 	return auth.Reasons()
+}
+
+// serverName is the host the service is reached by: the public base URL's,
+// else the listen address.
+func serverName(cfg Config) string {
+	if u, err := url.Parse(cfg.PublicBaseURL); err == nil && u.Host != "" {
+		return u.Host
+	}
+	return cfg.ListenAddr
 }
