@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"go.opentelemetry.io/otel/attribute"
+	"go.opentelemetry.io/otel/codes"
 	sdkmetric "go.opentelemetry.io/otel/sdk/metric"
 	"go.opentelemetry.io/otel/sdk/metric/metricdata"
 	sdktrace "go.opentelemetry.io/otel/sdk/trace"
@@ -245,6 +246,9 @@ func TestFailedCallsNameTheirCause(t *testing.T) {
 			srv := byName["POST /cds-services/:id"]
 			if got := attr(srv.Attributes, "halite.error.cause"); got != tc.cause {
 				t.Errorf("server span cause %q, want %q", got, tc.cause)
+			}
+			if failed := srv.Status.Code == codes.Error; failed != (tc.status >= 500) {
+				t.Errorf("server span status %v for HTTP %d: only a 5xx marks it failed", srv.Status.Code, tc.status)
 			}
 			line := requestLine(t, logs.String())
 			if line["cause"] != nil && line["cause"] != tc.cause || line["cause"] == nil && tc.cause != "" {

@@ -413,7 +413,15 @@ const readyTimeout = time.Second
 func (s *server) fail(c *gin.Context, err error) {
 	c.Set(logError, errorSummary(err))
 	c.Set(logCause, CauseOf(err))
-	fail(trace.SpanFromContext(c.Request.Context()), CauseOf(err), err) // the call's server span
+	// The call's server span names the cause; only a 5xx marks it failed
+	// (OpenTelemetry HTTP semantic conventions leave a server span's status
+	// unset for 4xx: the server did its job).
+	span := trace.SpanFromContext(c.Request.Context())
+	if StatusOf(err) >= http.StatusInternalServerError {
+		fail(span, CauseOf(err), err)
+	} else {
+		span.SetAttributes(attribute.String("halite.error.cause", CauseOf(err)))
+	}
 	if KindOf(err) == KindUnavailable {
 		reason := ReasonStoreFault
 		var e *Error
