@@ -90,6 +90,10 @@ func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Car
 		if err != nil {
 			return nil, fmt.Errorf("render %s: %w", f.Rule, err)
 		}
+		links := cardLinks(f.Links)
+		if l, ok := courseLink(f, in); ok {
+			links = append([]Link{l}, links...)
+		}
 		cards = append(cards, Card{
 			UUID:              id,
 			Summary:           f.Summary,
@@ -99,7 +103,7 @@ func renderCards(fs []rules.Finding, revision string, in suggestionInput) ([]Car
 			Suggestions:       sugg,
 			SelectionBehavior: selection,
 			OverrideReasons:   slices.Clone(overrideReasons),
-			Links:             cardLinks(f.Links),
+			Links:             links,
 			Extension:         extJSON,
 		})
 	}

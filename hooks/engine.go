@@ -29,6 +29,8 @@ type Engine struct {
 	tel        *Telemetry
 	budget     *ProcessBudget
 	callBytes  int64
+	appURL     string
+	fixedClock bool
 }
 
 // EngineConfig is what an Engine is built from.
@@ -51,6 +53,12 @@ type EngineConfig struct {
 	// (0: only the process budget).
 	Budget    *ProcessBudget
 	CallBytes int64
+	// AppURL, when set, is the sodium course app's SMART launch URL (an
+	// absolute URL): cards about a draft's projection link it, and
+	// discovery says so. FixedClock says calls are evaluated at a fixed
+	// time (development), which the link then gives the app.
+	AppURL     string
+	FixedClock bool
 }
 
 // NewEngine returns an Engine.
@@ -63,7 +71,7 @@ func NewEngine(cfg EngineConfig) *Engine {
 	}
 	return &Engine{registry: cfg.Registry, ruleset: cfg.Ruleset, newFetcher: cfg.NewFetcher,
 		limits: cfg.Limits, log: cfg.Log, recorder: cfg.Recorder, hash: cfg.PatientHash, tel: cfg.Telemetry,
-		budget: cfg.Budget, callBytes: cfg.CallBytes}
+		budget: cfg.Budget, callBytes: cfg.CallBytes, appURL: cfg.AppURL, fixedClock: cfg.FixedClock}
 }
 
 // Registry returns the engine's services.
@@ -163,8 +171,10 @@ func (e *Engine) handle(ctx context.Context, id string, body []byte, at time.Tim
 		patientHash = e.hash(patientKey(call.Request.FHIRServer, call.Context.PatientID))
 	}
 	findings, held := e.suppress(ctx, svc.ID, call.Request.Hook, patientHash, findings, at)
+	drafts, draftOrder := draftIndex(call.DraftEntries)
 	cards, err := renderCards(findings, e.ruleset.Revision(),
-		suggestionInput{At: at, PatientID: call.Context.PatientID, EncounterID: call.Context.EncounterID, Drafts: draftIndex(call.DraftEntries)})
+		suggestionInput{At: at, PatientID: call.Context.PatientID, EncounterID: call.Context.EncounterID, Drafts: drafts, DraftOrder: draftOrder,
+			Service: svc.ID, AppURL: e.appURL, FixedClock: e.fixedClock})
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", svc.ID, err)
 	}

@@ -225,7 +225,8 @@ func BenchmarkRenderCards(b *testing.B) {
 	if len(findings) == 0 {
 		b.Fatal("setup: no findings")
 	}
-	in := suggestionInput{At: scenarioAt, PatientID: call.Context.PatientID, Drafts: draftIndex(call.DraftEntries)}
+	drafts, order := draftIndex(call.DraftEntries)
+	in := suggestionInput{At: scenarioAt, PatientID: call.Context.PatientID, Drafts: drafts, DraftOrder: order}
 	b.ReportAllocs()
 	for b.Loop() {
 		cards, err := renderCards(findings, e.ruleset.Revision(), in)

@@ -38,6 +38,8 @@ type ServerConfig struct {
 	PublicBaseURL string
 	// Metrics, when set, is served at GET /metrics (Prometheus exposition).
 	Metrics http.Handler
+	// App, when set, serves the sodium course app under /app/ (hooks/app).
+	App http.Handler
 	// StoreReady, when set, checks that the store answers; /readyz fails
 	// while it does not, so the platform routes calls to other replicas.
 	StoreReady func(context.Context) error
@@ -70,7 +72,7 @@ func (h *Health) Drain() { h.draining.Store(true) }
 // health and readiness.
 func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) http.Handler {
 	s := &server{engine: e, cfg: cfg, health: health, log: log,
-		origins: map[string]bool{}, discovery: mustJSON(e.Registry().Discovery())}
+		origins: map[string]bool{}, discovery: mustJSON(e.discovery())}
 	for _, o := range cfg.CORSOrigins {
 		s.origins[strings.TrimRight(o, "/")] = true
 	}
@@ -97,6 +99,10 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.GET("/readyz", s.ready)
 	if cfg.Metrics != nil {
 		r.GET("/metrics", gin.WrapH(cfg.Metrics))
+	}
+	if cfg.App != nil {
+		r.GET("/app/*file", gin.WrapH(cfg.App))
+		r.HEAD("/app/*file", gin.WrapH(cfg.App))
 	}
 	r.NoRoute(func(c *gin.Context) {
 		s.fail(c, &Error{Kind: KindUnknownService, Message: "no such endpoint"})
@@ -571,9 +577,10 @@ func (s *server) zeroCounters() {
 	}
 }
 
-// isProbe reports whether path is a health, readiness or metrics probe.
+// isProbe reports whether path is a health, readiness or metrics probe,
+// or one of the app's static files: requests that are no news.
 func isProbe(path string) bool {
-	return path == "/healthz" || path == "/readyz" || path == "/metrics"
+	return path == "/healthz" || path == "/readyz" || path == "/metrics" || strings.HasPrefix(path, "/app/")
 }
 
 // errorSummary describes err for logs without request values: its kind and

@@ -48,13 +48,24 @@ type suggestionInput struct {
 	// EncounterID is context.encounterId, if the call gave one; suggested
 	// requests then belong to that encounter.
 	EncounterID string
-	// Drafts are the draft orders by reference ("MedicationRequest/id").
-	Drafts map[string]json.RawMessage
+	// Drafts are the draft orders by reference ("MedicationRequest/id"),
+	// and DraftOrder their references in the call's order.
+	Drafts     map[string]json.RawMessage
+	DraftOrder []string
+	// Service is the service answering; AppURL, when set, is the sodium
+	// course app's SMART launch URL, which cards with a projection link;
+	// FixedClock says the service evaluates at a fixed time (development),
+	// which the app is then told.
+	Service    string
+	AppURL     string
+	FixedClock bool
 }
 
-// draftIndex keys the raw draft orders by their reference.
-func draftIndex(entries []fhirmap.BundleEntry) map[string]json.RawMessage {
+// draftIndex keys the raw draft orders by their reference, and lists the
+// references in the call's order.
+func draftIndex(entries []fhirmap.BundleEntry) (map[string]json.RawMessage, []string) {
 	out := make(map[string]json.RawMessage, len(entries))
+	var order []string
 	for _, e := range entries {
 		raw := e.Resource
 		var head struct {
@@ -63,9 +74,10 @@ func draftIndex(entries []fhirmap.BundleEntry) map[string]json.RawMessage {
 		}
 		if fhirmap.DecodeJSON(raw, &head) == nil && head.ResourceType != "" && head.ID != "" {
 			out[head.ResourceType+"/"+head.ID] = raw
+			order = append(order, head.ResourceType+"/"+head.ID)
 		}
 	}
-	return out
+	return out, order
 }
 
 // suggestions builds a finding's advice as CDS Hooks suggestions with

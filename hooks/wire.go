@@ -111,4 +111,5 @@ type ServiceDescription struct {
 	ID                string            `json:"id"`
 	Prefetch          map[string]string `json:"prefetch,omitempty"`
 	UsageRequirements string            `json:"usageRequirements,omitempty"`
+	Extension         map[string]any    `json:"extension,omitempty"`
 }

@@ -29,7 +29,11 @@ type Config struct {
 	ShutdownGrace   Duration `yaml:"shutdown_grace"`
 	DrainDelay      Duration `yaml:"readiness_drain_delay"`
 	CORSOrigins     []string `yaml:"cors_allowed_origins"`
-	LogLevel        string   `yaml:"log_level"`
+	// AppConnectOrigins are origins the sodium course app may call besides
+	// the issuers' FHIR servers: their authorization servers' token
+	// endpoints (its Content-Security-Policy connect-src).
+	AppConnectOrigins []string `yaml:"app_connect_origins"`
+	LogLevel          string   `yaml:"log_level"`
 	// DisplayTimezone is the IANA zone card text writes times in ("UTC"
 	// by default); computation is in UTC whatever it says.
 	DisplayTimezone string `yaml:"display_timezone"`
@@ -119,6 +123,7 @@ var envKeys = []struct {
 	{"shutdown_grace", func(c *Config, v string) error { return setDuration(&c.ShutdownGrace, v) }},
 	{"readiness_drain_delay", func(c *Config, v string) error { return setDuration(&c.DrainDelay, v) }},
 	{"cors_allowed_origins", func(c *Config, v string) error { c.CORSOrigins = splitList(v); return nil }},
+	{"app_connect_origins", func(c *Config, v string) error { c.AppConnectOrigins = splitList(v); return nil }},
 	{"log_level", func(c *Config, v string) error { c.LogLevel = v; return nil }},
 	{"display_timezone", func(c *Config, v string) error { c.DisplayTimezone = v; return nil }},
 	{"display_units.electrolytes", func(c *Config, v string) error { c.DisplayUnits.Electrolytes = v; return nil }},
@@ -357,10 +362,12 @@ func (c Config) validate() error {
 	if c.DrainDelay < 0 || time.Duration(c.DrainDelay) > 5*time.Minute {
 		return fmt.Errorf("config: readiness_drain_delay: must be between 0s and 5m")
 	}
-	for i, o := range c.CORSOrigins {
-		u, err := url.Parse(o)
-		if o == "*" || err != nil || u.Host == "" || (u.Path != "" && u.Path != "/") || u.RawQuery != "" {
-			return fmt.Errorf("config: cors_allowed_origins[%d]: %q is not an origin such as https://ehr.example.org", i, o)
+	for key, origins := range map[string][]string{"cors_allowed_origins": c.CORSOrigins, "app_connect_origins": c.AppConnectOrigins} {
+		for i, o := range origins {
+			u, err := url.Parse(o)
+			if o == "*" || err != nil || u.Host == "" || (u.Path != "" && u.Path != "/") || u.RawQuery != "" || strings.ContainsAny(o, " ;'") {
+				return fmt.Errorf("config: %s[%d]: %q is not an origin such as https://ehr.example.org", key, i, o)
+			}
 		}
 	}
 	if _, ok := logLevels[c.LogLevel]; !ok {

@@ -4,12 +4,15 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"github.com/halite-cds/halite/hooks/app"
 	"io"
 	"log/slog"
 	"net"
 	"net/http"
 	"net/url"
 	"os"
+	"slices"
+	"strings"
 	"time"
 
 	"github.com/gin-gonic/gin"
@@ -103,7 +106,18 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	engine := newEngine(rs, codes, cfg, log, recorder{st}, hash, ht)
+	// Listening before the engine is made gives the app's launch URL its
+	// port in development, where no public_base_url need be set.
+	ln, err := net.Listen("tcp", cfg.ListenAddr)
+	if err != nil {
+		return fmt.Errorf("serve: %w", err)
+	}
+	defer ln.Close()
+	appURL := strings.TrimRight(cfg.PublicBaseURL, "/") + app.LaunchPath
+	if cfg.PublicBaseURL == "" {
+		appURL = "http://" + ln.Addr().String() + app.LaunchPath
+	}
+	engine := newEngine(rs, codes, cfg, log, recorder{st}, hash, ht, appURL, !evaluateAt.IsZero())
 	log.Info("budgets", "memory_limit_bytes", cfg.memoryLimit, "process_bytes", cfg.Budget.ProcessBytes,
 		"call_bytes", cfg.Budget.CallBytes, "max_response_bytes", cfg.FHIRClient.MaxResponseBytes, "store_queue_size", cfg.Store.QueueSize)
 	health := &hooks.Health{}
@@ -124,6 +138,7 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		Authenticator: authn,
 		PublicBaseURL: cfg.PublicBaseURL,
 		Metrics:       metricsOnMain(cfg, tel.metrics),
+		App:           app.Handler(appConnectOrigins(cfg)),
 		StoreReady:    st.Ping,
 		EvaluateAt:    evaluateAt,
 		Capture:       capture,
@@ -142,10 +157,6 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		defer stopAdmin()
 	}
 
-	ln, err := net.Listen("tcp", cfg.ListenAddr)
-	if err != nil {
-		return fmt.Errorf("serve: %w", err)
-	}
 	// A call's handler sets its own read deadline (the call's), answering
 	// a slow upload 408; the server's bounds lie past it, so a call is
 	// always answered, never cut off.
@@ -190,7 +201,8 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 // issuers, a call's fhirServer must be on its issuer's allowlist, or it is
 // not used (the call is answered as if no server were given); without
 // issuers (development mode) any https server, or loopback, is used.
-func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string, tel *hooks.Telemetry) *hooks.Engine {
+func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Logger, rec hooks.Recorder, hash func(string) string, tel *hooks.Telemetry,
+	appURL string, fixedClock bool) *hooks.Engine {
 	opts := fhirclient.Options{
 		Timeout:           time.Duration(cfg.FHIRClient.Timeout),
 		MaxResponseBytes:  cfg.FHIRClient.MaxResponseBytes,
@@ -225,6 +237,8 @@ func newEngine(rs *rules.Ruleset, codes *fhirmap.Codes, cfg Config, log *slog.Lo
 		Telemetry:   tel,
 		Recorder:    rec,
 		PatientHash: hash,
+		AppURL:      appURL,
+		FixedClock:  fixedClock,
 	})
 }
 
@@ -244,4 +258,24 @@ func serverName(cfg Config) string {
 		return u.Host
 	}
 	return cfg.ListenAddr
+}
+
+// appConnectOrigins are the origins the app's page may call: the issuers'
+// FHIR servers, app_connect_origins (their authorization servers), and in
+// development mode any loopback port (serve-bundle --smart).
+func appConnectOrigins(cfg Config) []string {
+	var out []string
+	if cfg.DevelopmentMode {
+		out = append(out, "http://127.0.0.1:*", "http://localhost:*")
+	}
+	for _, is := range cfg.Issuers {
+		for _, f := range is.FHIRServers {
+			if u, err := url.Parse(f.BaseURL); err == nil && u.Host != "" {
+				out = append(out, u.Scheme+"://"+u.Host)
+			}
+		}
+	}
+	out = append(out, cfg.AppConnectOrigins...)
+	slices.Sort(out)
+	return slices.Compact(out)
 }
