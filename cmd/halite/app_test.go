@@ -252,6 +252,9 @@ func TestSodiumCourseApp(t *testing.T) {
 			t.Errorf("%s: the app shows %g, the card %g", name, got, cardFigs[name])
 		}
 	}
+	if nadir := eval(`(document.querySelector('tr[data-figure="reference"] td.num')||{}).textContent||""`); !strings.HasPrefix(nadir, "111.5 mmol/L") {
+		t.Errorf("nadir shown %q, want 111.5 (112 at −22 h and 110 at −30 h interpolated at the 24-h window's start)", nadir)
+	}
 	rows := eval(`String(document.querySelectorAll("#results tbody tr").length)`)
 	label := eval(`document.getElementById("chart").getAttribute("aria-label")`)
 	if rows != "4" || !strings.Contains(label, "latest 116 mmol/L") || !strings.Contains(label, "24-h limit 121.5 mmol/L") {

@@ -78,6 +78,14 @@ function render(course) {
       pointRadius: 6, showLine: true, borderWidth: 2, yAxisID: "y",
     });
   }
+  if (course.reference) {
+    const r = course.reference;
+    datasets.push({
+      label: `${course.falling ? "Peak" : "Nadir"} the limits are measured from (${r.value} mmol/L${r.origin ? "" : ", at the 24-h window's start"})`,
+      data: [{ x: hoursFrom(at, r.at), y: r.value, t: r.at }],
+      borderColor: colours.limit24, backgroundColor: "#FFFFFF", pointStyle: "star", pointRadius: 10, borderWidth: 2, showLine: false, yAxisID: "y",
+    });
+  }
   if (course.projection.length) {
     datasets.push({
       label: "Projection of the order under review", data: course.projection.map((p) => ({ x: hoursFrom(at, p.at), y: p.value, t: p.at })),
@@ -132,6 +140,12 @@ function render(course) {
 
   const fig = $("figures").tBodies[0];
   fig.replaceChildren();
+  if (course.reference) {
+    const tr = fig.insertRow();
+    tr.dataset.figure = "reference";
+    tr.insertCell().textContent = `${course.falling ? "Peak" : "Nadir"} the 24-h limit is measured from`;
+    Object.assign(tr.insertCell(), { className: "num", textContent: `${course.reference.value} mmol/L, ${fmtTime(course.reference.at)}${course.reference.origin ? "" : " (interpolated at the window's start)"}` });
+  }
   for (const [key, name, unit] of figureNames) {
     if (course.figures[key] === undefined) continue;
     const tr = fig.insertRow();
