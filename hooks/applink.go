@@ -59,6 +59,12 @@ func courseLink(f rules.Finding, in suggestionInput) (Link, bool) {
 				kept[k] = v
 			}
 		}
+		if c, ok := kept["contained"]; ok {
+			kept["contained"] = containedMedications(c)
+		}
+		if dsg, ok := kept["dosageInstruction"]; ok {
+			kept["dosageInstruction"] = withoutPatientText(dsg)
+		}
 		if ref == f.Order {
 			ctx.Review = len(ctx.Drafts)
 		}
@@ -94,4 +100,35 @@ func (e *Engine) discovery() Discovery {
 		}
 	}
 	return d
+}
+
+// containedMedications keeps the contained Medications a draft may refer
+// to ("#med") and drops any other contained resource.
+func containedMedications(raw json.RawMessage) json.RawMessage {
+	var all []map[string]json.RawMessage
+	if json.Unmarshal(raw, &all) != nil {
+		return json.RawMessage(`[]`)
+	}
+	var meds []map[string]json.RawMessage
+	for _, r := range all {
+		if string(r["resourceType"]) == `"Medication"` {
+			meds = append(meds, r)
+		}
+	}
+	b, _ := json.Marshal(meds)
+	return b
+}
+
+// withoutPatientText drops the dosage elements written for the patient
+// (patientInstruction), free text the computation does not read.
+func withoutPatientText(raw json.RawMessage) json.RawMessage {
+	var ds []map[string]json.RawMessage
+	if json.Unmarshal(raw, &ds) != nil {
+		return json.RawMessage(`[]`)
+	}
+	for _, d := range ds {
+		delete(d, "patientInstruction")
+	}
+	b, _ := json.Marshal(ds)
+	return b
 }
