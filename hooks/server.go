@@ -83,8 +83,9 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.HandleMethodNotAllowed = true
 	// Server spans per request, continuing the EHR's W3C trace context and
 	// baggage; the span is named by route, never by the URL.
-	// Probes (/healthz, /readyz, /metrics) are neither traced nor logged:
-	// a platform polls them every few seconds.
+	// Probes (/healthz, /readyz, /metrics) and the app's static files
+	// (/app/) are neither traced nor logged (but at DEBUG): a platform polls
+	// the probes every few seconds, and the files are no news.
 	r.Use(otelgin.Middleware(cfg.ServerName, otelgin.WithTracerProvider(e.tel.provider), otelgin.WithMeterProvider(e.tel.meters),
 		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{})),
 		otelgin.WithGinFilter(func(c *gin.Context) bool { return !isProbe(c.Request.URL.Path) })),
