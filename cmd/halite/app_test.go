@@ -136,11 +136,7 @@ func TestSodiumCourseApp(t *testing.T) {
 	defer stop()
 
 	// The card, as the EHR gets it.
-	var req bytes.Buffer
-	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", scenario}, &req, io.Discard); err != nil {
-		t.Fatal(err)
-	}
-	status, body := postJSON(t, base+"/cds-services/sodium-infusion-check", "", req.Bytes())
+	status, body := postJSON(t, base+"/cds-services/sodium-infusion-check", "", infusionRequest(t, appScenario))
 	if status != 200 {
 		t.Fatalf("call: %d %s", status, body)
 	}

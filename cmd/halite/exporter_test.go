@@ -4,12 +4,10 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
-	"io"
 	"log/slog"
 	"net"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"strings"
 	"sync"
 	"testing"
@@ -76,12 +74,7 @@ func TestExportErrorsAreJSONLogLines(t *testing.T) {
 	t.Setenv("OTEL_EXPORTER_OTLP_TIMEOUT", "300") // ms, retries included
 	t.Setenv("OTEL_BSP_SCHEDULE_DELAY", "50")     // ms
 	base, logs, stop := startServe(t)
-	var req bytes.Buffer
-	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
-	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", scenario}, &req, io.Discard); err != nil {
-		t.Fatal(err)
-	}
-	resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", &req)
+	resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", bytes.NewReader(infusionRequest(t, "14-hypona-3pct-overshoot.json")))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -149,13 +142,8 @@ func TestFHIRFetchCarriesTraceContext(t *testing.T) {
 	defer fhir.Close()
 	base, _, stop := startServe(t)
 	defer stop()
-	var built bytes.Buffer
-	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
-	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", scenario}, &built, io.Discard); err != nil {
-		t.Fatal(err)
-	}
 	var req map[string]any
-	if err := json.Unmarshal(built.Bytes(), &req); err != nil {
+	if err := json.Unmarshal(infusionRequest(t, "14-hypona-3pct-overshoot.json"), &req); err != nil {
 		t.Fatal(err)
 	}
 	delete(req["prefetch"].(map[string]any), "sodium") // fetched instead

@@ -2,7 +2,6 @@ package main
 
 import (
 	"bytes"
-	"context"
 	"encoding/json"
 	"fmt"
 	"io"
@@ -82,12 +81,7 @@ func traceRoundTrip(t *testing.T, protocol, endpoint string) {
 	t.Setenv("OTEL_EXPORTER_OTLP_PROTOCOL", protocol)
 	t.Setenv("OTEL_SERVICE_NAME", service)
 	base, _, stop := startServe(t)
-	var req bytes.Buffer
-	scenario := filepath.Join("..", "..", "testdata", "scenarios", "14-hypona-3pct-overshoot.json")
-	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", scenario}, &req, io.Discard); err != nil {
-		t.Fatal(err)
-	}
-	resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", &req)
+	resp, err := http.Post(base+"/cds-services/sodium-infusion-check", "application/json", bytes.NewReader(infusionRequest(t, "14-hypona-3pct-overshoot.json")))
 	if err != nil {
 		t.Fatal(err)
 	}

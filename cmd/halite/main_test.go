@@ -843,3 +843,15 @@ func TestEvalDisplayUnits(t *testing.T) {
 		t.Errorf("serve with a bad display_units.urea: %v", err)
 	}
 }
+
+// infusionRequest is the order-sign request `halite request` builds for
+// sodium-infusion-check from a scenario (its name under testdata/scenarios).
+func infusionRequest(t *testing.T, scenario string) []byte {
+	t.Helper()
+	var req bytes.Buffer
+	path := filepath.Join("..", "..", "testdata", "scenarios", scenario)
+	if err := run(context.Background(), []string{"request", "--hook", "order-sign", "--service", "sodium-infusion-check", path}, &req, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	return req.Bytes()
+}
