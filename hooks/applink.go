@@ -26,12 +26,123 @@ type AppContext struct {
 	At      *time.Time        `json:"at,omitempty"`
 }
 
-// draftKeep are the MedicationRequest elements a draft keeps in an
-// AppContext: what the computation reads, nothing that names or dates the
-// patient (no id, subject, encounter, requester, identifiers, authoredOn,
-// notes or narrative).
-var draftKeep = []string{"resourceType", "status", "intent", "medicationCodeableConcept", "medicationReference",
-	"contained", "dosageInstruction", "dispenseRequest", "category"}
+// appDraft is a draft order reduced to what the computation reads, at
+// every depth: the medication (its codings and name, or the reference
+// alone), category codings, contained Medications' code, form and
+// ingredients, the first dosage's route, dose and rate and timing.repeat
+// without its start, and the dispensed quantity. Narrative, display and
+// free text other than the medication's name, extensions, identifiers,
+// people and dates other than the course's end are left out. A draft with
+// a modifierExtension is not reduced (ok false): dropping it could change
+// its meaning.
+func appDraft(raw json.RawMessage) (json.RawMessage, bool) {
+	var d map[string]any
+	if json.Unmarshal(raw, &d) != nil || d["resourceType"] != "MedicationRequest" || hasModifier(d) {
+		return nil, false
+	}
+	out := map[string]any{"resourceType": "MedicationRequest", "status": d["status"], "intent": d["intent"]}
+	if v, ok := d["medicationCodeableConcept"].(map[string]any); ok {
+		out["medicationCodeableConcept"] = pick(v, "coding", "text")
+	}
+	if v, ok := d["medicationReference"].(map[string]any); ok {
+		out["medicationReference"] = pick(v, "reference")
+	}
+	if cats, ok := d["category"].([]any); ok {
+		var kept []any
+		for _, c := range cats {
+			if m, ok := c.(map[string]any); ok {
+				kept = append(kept, pick(m, "coding"))
+			}
+		}
+		out["category"] = kept
+	}
+	if cs, ok := d["contained"].([]any); ok {
+		var meds []any
+		for _, c := range cs {
+			if m, ok := c.(map[string]any); ok && m["resourceType"] == "Medication" {
+				meds = append(meds, pick(m, "resourceType", "id", "code", "form", "ingredient"))
+			}
+		}
+		out["contained"] = meds
+	}
+	if ds, ok := d["dosageInstruction"].([]any); ok && len(ds) > 0 {
+		if first, ok := ds[0].(map[string]any); ok {
+			dosage := pick(first, "route", "doseAndRate")
+			if t, ok := first["timing"].(map[string]any); ok {
+				if rep, ok := t["repeat"].(map[string]any); ok {
+					rep = pick(rep, "boundsDuration", "boundsPeriod", "count", "duration", "durationUnit", "frequency", "period", "periodUnit")
+					if bp, ok := rep["boundsPeriod"].(map[string]any); ok {
+						rep["boundsPeriod"] = pick(bp, "end")
+					}
+					dosage["timing"] = map[string]any{"repeat": rep}
+				}
+			}
+			out["dosageInstruction"] = []any{dosage}
+		}
+	}
+	if dr, ok := d["dispenseRequest"].(map[string]any); ok {
+		out["dispenseRequest"] = pick(dr, "quantity")
+	}
+	for k, v := range out {
+		if v == nil {
+			delete(out, k)
+		}
+	}
+	b, err := json.Marshal(stripText(out))
+	return b, err == nil
+}
+
+// pick copies the named members of m.
+func pick(m map[string]any, names ...string) map[string]any {
+	out := map[string]any{}
+	for _, n := range names {
+		if v, ok := m[n]; ok {
+			out[n] = v
+		}
+	}
+	return out
+}
+
+// stripText drops display texts, narrative and extensions at every depth
+// of the reduced draft, but the medication's own name (a CodeableConcept
+// text directly under medicationCodeableConcept or a contained code).
+func stripText(v any) any {
+	switch t := v.(type) {
+	case map[string]any:
+		for k, c := range t {
+			switch k {
+			case "display", "extension", "comment", "div":
+				delete(t, k)
+			default:
+				t[k] = stripText(c)
+			}
+		}
+	case []any:
+		for i := range t {
+			t[i] = stripText(t[i])
+		}
+	}
+	return v
+}
+
+// hasModifier reports a modifierExtension at any depth.
+func hasModifier(v any) bool {
+	switch t := v.(type) {
+	case map[string]any:
+		for k, c := range t {
+			if k == "modifierExtension" || hasModifier(c) {
+				return true
+			}
+		}
+	case []any:
+		for _, c := range t {
+			if hasModifier(c) {
+				return true
+			}
+		}
+	}
+	return false
+}
 
 // courseLink is the SMART link to the sodium course for a finding about
 // one draft order with a projection's figures, when the app is served.
@@ -48,29 +159,15 @@ func courseLink(f rules.Finding, in suggestionInput) (Link, bool) {
 		ctx.At = &at
 	}
 	for _, ref := range in.DraftOrder {
-		raw := in.Drafts[ref]
-		var d map[string]json.RawMessage
-		if json.Unmarshal(raw, &d) != nil || string(d["resourceType"]) != `"MedicationRequest"` {
-			continue
-		}
-		kept := map[string]json.RawMessage{}
-		for _, k := range draftKeep {
-			if v, ok := d[k]; ok {
-				kept[k] = v
+		b, ok := appDraft(in.Drafts[ref])
+		if !ok {
+			if ref == f.Order {
+				return Link{}, false // the order under review cannot be passed on safely
 			}
-		}
-		if c, ok := kept["contained"]; ok {
-			kept["contained"] = containedMedications(c)
-		}
-		if dsg, ok := kept["dosageInstruction"]; ok {
-			kept["dosageInstruction"] = withoutPatientText(dsg)
+			continue
 		}
 		if ref == f.Order {
 			ctx.Review = len(ctx.Drafts)
-		}
-		b, err := json.Marshal(kept)
-		if err != nil {
-			return Link{}, false
 		}
 		ctx.Drafts = append(ctx.Drafts, b)
 	}
@@ -100,35 +197,4 @@ func (e *Engine) discovery() Discovery {
 		}
 	}
 	return d
-}
-
-// containedMedications keeps the contained Medications a draft may refer
-// to ("#med") and drops any other contained resource.
-func containedMedications(raw json.RawMessage) json.RawMessage {
-	var all []map[string]json.RawMessage
-	if json.Unmarshal(raw, &all) != nil {
-		return json.RawMessage(`[]`)
-	}
-	var meds []map[string]json.RawMessage
-	for _, r := range all {
-		if string(r["resourceType"]) == `"Medication"` {
-			meds = append(meds, r)
-		}
-	}
-	b, _ := json.Marshal(meds)
-	return b
-}
-
-// withoutPatientText drops the dosage elements written for the patient
-// (patientInstruction), free text the computation does not read.
-func withoutPatientText(raw json.RawMessage) json.RawMessage {
-	var ds []map[string]json.RawMessage
-	if json.Unmarshal(raw, &ds) != nil {
-		return json.RawMessage(`[]`)
-	}
-	for _, d := range ds {
-		delete(d, "patientInstruction")
-	}
-	b, _ := json.Marshal(ds)
-	return b
 }

@@ -18,7 +18,11 @@ func TestCourseLink(t *testing.T) {
 		"subject":{"reference":"Patient/pt-42"},"encounter":{"reference":"Encounter/e-1"},"authoredOn":"2026-11-20T07:30:00Z",
 		"identifier":[{"value":"ORD-991"}],"note":[{"text":"for Jane Roe"}],"text":{"div":"<div>Jane Roe</div>"},
 		"contained":[{"resourceType":"Patient","id":"p","name":[{"family":"Roe"}]},{"resourceType":"Medication","id":"m","code":{"text":"NaCl 3%"}}],
-		"medicationCodeableConcept":{"text":"sodium chloride 3%"},"dosageInstruction":[{"text":"40 mL/h","patientInstruction":"Mrs Roe: call the nurse"}]}`)
+		"medicationCodeableConcept":{"text":"sodium chloride 3%","coding":[{"code":"730781","display":"Roe's bag"}]},
+		"dosageInstruction":[{"text":"40 mL/h for Roe","patientInstruction":"Mrs Roe: call the nurse","additionalInstruction":[{"text":"Roe"}],
+			"timing":{"event":["2026-11-20T09:00:00Z"],"repeat":{"boundsPeriod":{"start":"2026-11-20T09:00:00Z","end":"2026-11-21T09:00:00Z"}}},
+			"doseAndRate":[{"rateQuantity":{"value":40,"code":"mL/h"}}],"extension":[{"url":"x","valueString":"Roe"}]}],
+		"dispenseRequest":{"quantity":{"value":500},"validityPeriod":{"start":"2026-11-20"},"performer":{"display":"Roe"}}}`)
 	other := json.RawMessage(`{"resourceType":"MedicationRequest","id":"mr-8","status":"draft","intent":"order","medicationCodeableConcept":{"text":"dextrose 5%"}}`)
 	in := suggestionInput{At: time.Date(2026, 11, 20, 8, 0, 0, 0, time.UTC), Drafts: map[string]json.RawMessage{"MedicationRequest/mr-8": other, "MedicationRequest/mr-7": draft},
 		DraftOrder: []string{"MedicationRequest/mr-8", "MedicationRequest/mr-7"}, Service: "sodium-infusion-check", AppURL: "https://h.example.org/app/launch.html"}
@@ -27,7 +31,8 @@ func TestCourseLink(t *testing.T) {
 	if !ok || l.Type != "smart" || l.URL != in.AppURL {
 		t.Fatalf("link %+v %v", l, ok)
 	}
-	for _, phi := range []string{"pt-42", "Encounter", "mr-7", "mr-8", "2026-11-20", "ORD-991", "Jane Roe", "Roe", `"Patient"`} {
+	// The course's end is kept (the computation reads it); every other date goes.
+	for _, phi := range []string{"pt-42", "Encounter", "mr-7", "mr-8", "2026-11-20", "ORD-991", "Jane Roe", "Roe", `"Patient"`, "call the nurse"} {
 		if strings.Contains(l.AppContext, phi) {
 			t.Errorf("appContext carries %q: %s", phi, l.AppContext)
 		}
@@ -37,7 +42,8 @@ func TestCourseLink(t *testing.T) {
 		t.Fatal(err)
 	}
 	if ctx.Review != 1 || len(ctx.Drafts) != 2 || !strings.Contains(string(ctx.Drafts[1]), "sodium chloride 3%") ||
-		!strings.Contains(string(ctx.Drafts[1]), "40 mL/h") || !strings.Contains(string(ctx.Drafts[1]), "NaCl 3%") || ctx.At != nil || ctx.Rule != f.Rule || ctx.Service != in.Service {
+		!strings.Contains(string(ctx.Drafts[1]), `"rateQuantity":{"code":"mL/h","value":40}`) || !strings.Contains(string(ctx.Drafts[1]), "NaCl 3%") ||
+		!strings.Contains(string(ctx.Drafts[1]), "2026-11-21T09:00:00Z") || !strings.Contains(string(ctx.Drafts[1]), `"quantity":{"value":500}`) || ctx.At != nil || ctx.Rule != f.Rule || ctx.Service != in.Service {
 		t.Errorf("appContext %s", l.AppContext)
 	}
 	in.FixedClock = true

@@ -113,8 +113,13 @@ func serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return fmt.Errorf("serve: %w", err)
 	}
 	defer ln.Close()
-	appURL := strings.TrimRight(cfg.PublicBaseURL, "/") + app.LaunchPath
-	if cfg.PublicBaseURL == "" {
+	// Cards link the app at public_base_url; in development, at the listen
+	// address; with neither, no card links it (a wildcard address is no URL).
+	appURL := ""
+	switch {
+	case cfg.PublicBaseURL != "":
+		appURL = strings.TrimRight(cfg.PublicBaseURL, "/") + app.LaunchPath
+	case cfg.DevelopmentMode:
 		appURL = "http://" + ln.Addr().String() + app.LaunchPath
 	}
 	engine := newEngine(rs, codes, cfg, log, recorder{st}, hash, ht, appURL, !evaluateAt.IsZero())

@@ -13,6 +13,8 @@ import (
 	"strings"
 	"sync"
 	"time"
+
+	"github.com/halite-cds/halite/hooks/fhirclient"
 )
 
 // smartDev is a small SMART App Launch 2.0 authorization server for
@@ -27,21 +29,27 @@ type smartDev struct {
 	token     string
 
 	mu       sync.Mutex
-	launches map[string]string // launch id → the appContext it carries
+	launches map[string]launchGrant // launch id → the app and appContext it was issued for
 	codes    map[string]grant
+	origins  map[string]bool // the launched apps' origins, the only ones CORS allows
 }
+
+// launchGrant is a launch waiting for its authorization request.
+type launchGrant struct{ origin, appContext string }
 
 // grant is an authorization code waiting for its token request.
 type grant struct {
-	launch, clientID, redirectURI, challenge, scope string
-	expires                                         time.Time
+	launch                                  launchGrant
+	clientID, redirectURI, challenge, scope string
+	expires                                 time.Time
 }
 
 // codeLifetime bounds how long an authorization code may wait.
 const codeLifetime = time.Minute
 
 func newSMARTDev(base, patientID, token string) *smartDev {
-	return &smartDev{base: base, patientID: patientID, token: token, launches: map[string]string{}, codes: map[string]grant{}}
+	return &smartDev{base: base, patientID: patientID, token: token, launches: map[string]launchGrant{}, codes: map[string]grant{},
+		origins: map[string]bool{}}
 }
 
 func (d *smartDev) fhirBase() string { return d.base + "/fhir" }
@@ -52,14 +60,28 @@ func (d *smartDev) fhirBase() string { return d.base + "/fhir" }
 func (d *smartDev) routes(mux *http.ServeMux, fhir http.Handler) {
 	mux.HandleFunc("GET /launch", d.launch)
 	mux.HandleFunc("GET /auth/authorize", d.authorize)
-	mux.Handle("/auth/token", cors(http.HandlerFunc(d.tokenEndpoint)))
-	mux.Handle("GET /fhir/.well-known/smart-configuration", cors(http.HandlerFunc(d.configuration)))
-	mux.Handle("/fhir/", cors(fhir))
+	mux.Handle("/auth/token", d.cors(http.HandlerFunc(d.tokenEndpoint)))
+	mux.Handle("GET /fhir/.well-known/smart-configuration", d.cors(http.HandlerFunc(d.configuration)))
+	mux.Handle("/fhir/", d.cors(fhir))
 }
 
-func cors(h http.Handler) http.Handler {
+// cors lets the launched apps' pages (loopback origins this server sent a
+// launch to) read the answers, and no other page.
+func (d *smartDev) cors(h http.Handler) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-		w.Header().Set("Access-Control-Allow-Origin", "*")
+		d.mu.Lock()
+		allowed := d.origins[r.Header.Get("Origin")]
+		d.mu.Unlock()
+		w.Header().Add("Vary", "Origin")
+		if !allowed {
+			if r.Method == http.MethodOptions {
+				http.Error(w, "origin not allowed", http.StatusForbidden)
+				return
+			}
+			h.ServeHTTP(w, r) // a page of another origin cannot read it
+			return
+		}
+		w.Header().Set("Access-Control-Allow-Origin", r.Header.Get("Origin"))
 		if r.Method == http.MethodOptions {
 			w.Header().Set("Access-Control-Allow-Headers", "Authorization, Content-Type, Accept")
 			w.Header().Set("Access-Control-Allow-Methods", "GET, POST")
@@ -91,17 +113,19 @@ func (d *smartDev) configuration(w http.ResponseWriter, _ *http.Request) {
 // and a launch id that carries the appContext.
 func (d *smartDev) launch(w http.ResponseWriter, r *http.Request) {
 	app, err := url.Parse(r.URL.Query().Get("url"))
-	if err != nil || (app.Scheme != "http" && app.Scheme != "https") || app.Host == "" {
-		http.Error(w, "url: the app's launch URL (a card link's url) is required", http.StatusBadRequest)
+	if err != nil || (app.Scheme != "http" && app.Scheme != "https") || app.Host == "" || !fhirclient.IsLoopback(app.Hostname()) {
+		http.Error(w, "url: the app's launch URL (a card link's url) on a loopback address is required", http.StatusBadRequest)
 		return
 	}
+	origin := app.Scheme + "://" + app.Host
 	id, err := randomString()
 	if err != nil {
 		http.Error(w, "launch: "+err.Error(), http.StatusInternalServerError)
 		return
 	}
 	d.mu.Lock()
-	d.launches[id] = r.URL.Query().Get("appContext")
+	d.launches[id] = launchGrant{origin: origin, appContext: r.URL.Query().Get("appContext")}
+	d.origins[origin] = true
 	d.mu.Unlock()
 	q := app.Query()
 	q.Set("iss", d.fhirBase())
@@ -121,10 +145,12 @@ func (d *smartDev) authorize(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.mu.Lock()
-	_, known := d.launches[q.Get("launch")]
+	l, known := d.launches[q.Get("launch")]
 	d.mu.Unlock()
 	var problem string
 	switch {
+	case known && redirect.Scheme+"://"+redirect.Host != l.origin:
+		problem = "redirect_uri must be on the launched app's origin"
 	case q.Get("response_type") != "code":
 		problem = "response_type must be code"
 	case q.Get("client_id") == "":
@@ -148,7 +174,8 @@ func (d *smartDev) authorize(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.mu.Lock()
-	d.codes[code] = grant{launch: q.Get("launch"), clientID: q.Get("client_id"), redirectURI: q.Get("redirect_uri"),
+	delete(d.launches, q.Get("launch")) // a launch is authorized once
+	d.codes[code] = grant{launch: l, clientID: q.Get("client_id"), redirectURI: q.Get("redirect_uri"),
 		challenge: q.Get("code_challenge"), scope: q.Get("scope"), expires: time.Now().Add(codeLifetime)}
 	d.mu.Unlock()
 	back := redirect.Query()
@@ -178,7 +205,7 @@ func (d *smartDev) tokenEndpoint(w http.ResponseWriter, r *http.Request) {
 	d.mu.Lock()
 	g, ok := d.codes[f.Get("code")]
 	delete(d.codes, f.Get("code")) // a code is used once, right or wrong
-	ctx := d.launches[g.launch]
+	ctx := g.launch.appContext
 	d.mu.Unlock()
 	sum := sha256.Sum256([]byte(f.Get("code_verifier")))
 	challenge := base64.RawURLEncoding.EncodeToString(sum[:])
