@@ -25,8 +25,10 @@ type CourseRequest struct {
 	Server    string            `json:"server"`
 	Resources []json.RawMessage `json:"resources"`
 	Drafts    []json.RawMessage `json:"drafts"`
-	// Review is the index in Drafts of the draft order under review.
-	Review int `json:"review"`
+	// Review is the index in Drafts of the draft order under review, and
+	// Rule the card's rule: its figures are the ones shown.
+	Review int    `json:"review"`
+	Rule   string `json:"rule,omitempty"`
 	// RateMlPerHour, when set, replaces the reviewed draft's rate.
 	RateMlPerHour *float64 `json:"rateMlPerHour,omitempty"`
 	// HistoryHours is how far back the sodium series goes (72 when 0).
@@ -87,7 +89,7 @@ type FindingView struct {
 	Order     string `json:"order,omitempty"`
 }
 
-// reviewedRef names the reviewed draft (drafts carry no ids of their own).
+// draftRef names the i-th draft (drafts carry no ids of their own).
 func draftRef(i int) string { return fmt.Sprintf("MedicationRequest/draft-%d", i+1) }
 
 // ComputeCourse runs halite's mapping and infusion check over req.
@@ -133,7 +135,7 @@ func ComputeCourse(rs *rules.Ruleset, req CourseRequest) (Course, error) {
 	reviewed := draftRef(req.Review)
 	for _, f := range rs.Evaluate(rules.InfusionCheck, facts) {
 		out.Findings = append(out.Findings, FindingView{Rule: f.Rule, Indicator: f.Indicator.String(), Summary: f.Summary, Order: f.Order})
-		if f.Order == reviewed && len(f.Figures) > 0 {
+		if f.Order == reviewed && len(f.Figures) > 0 && (req.Rule == "" || f.Rule == req.Rule || len(out.Figures) == 0) {
 			out.Figures = f.Figures
 		}
 	}
@@ -142,8 +144,11 @@ func ComputeCourse(rs *rules.Ruleset, req CourseRequest) (Course, error) {
 	}
 	// In hypernatremia the limits bound the fall from the peak (as the
 	// infusion check applies them).
+	// The latest sodium within the policy's age, as the assessment takes it.
+	pr := rs.Policy().Projection
 	if na := facts.Labs[rules.Sodium]; len(na) > 0 {
-		out.Falling = na[len(na)-1].Value > rs.Policy().Projection.HypernatremiaAbove
+		last := na[len(na)-1]
+		out.Falling = !last.At.Before(req.At.Add(-time.Duration(pr.SodiumMaxAgeHours*float64(time.Hour)))) && last.Value > pr.HypernatremiaAbove
 	}
 	trend := rules.AnalyseSodium(facts.Labs[rules.Sodium], req.At)
 	limit := func(hours, allowed float64, w *rules.SodiumWindow) {

@@ -23,7 +23,23 @@ var appQueries = []string{
 	"Observation?patient={id}&_sort=-date&_count=500",
 	"MedicationRequest?patient={id}&status=active",
 	"MedicationAdministration?patient={id}&status=in-progress",
-	"Condition?patient={id}",
+	"Procedure?patient={id}&status=completed",
+	"Condition?patient={id}&clinical-status=active",
+}
+
+// TestAppQueriesAreTheApps: the searches this test makes are the app's
+// own (hooks/app/src/app.js), so the agreement below is the app's.
+func TestAppQueriesAreTheApps(t *testing.T) {
+	src, err := os.ReadFile(filepath.Join("..", "..", "hooks", "app", "src", "app.js"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, q := range appQueries {
+		js := strings.ReplaceAll(q, "{id}", "${pid}")
+		if !strings.Contains(string(src), "`"+js+"`") {
+			t.Errorf("app.js does not search %s", js)
+		}
+	}
 }
 
 // TestCourseAgreesWithTheCards runs every golden scenario with a draft
@@ -84,7 +100,7 @@ func TestCourseAgreesWithTheCards(t *testing.T) {
 				t.Errorf("%s: appContext at %v service %q", name, ctx.At, ctx.Service)
 			}
 			course, err := ComputeCourse(rs, CourseRequest{At: *ctx.At, PatientID: head.PatientID,
-				Resources: appReads(t, b, head.PatientID, ctx.Drafts), Drafts: ctx.Drafts, Review: ctx.Review})
+				Resources: appReads(t, b, head.PatientID, ctx.Drafts), Drafts: ctx.Drafts, Review: ctx.Review, Rule: ctx.Rule})
 			if err != nil {
 				t.Fatalf("%s: %v", name, err)
 			}
@@ -100,13 +116,20 @@ func TestCourseAgreesWithTheCards(t *testing.T) {
 			if !reflect.DeepEqual(course.Figures, ext.Halite.Figures) {
 				t.Errorf("%s (%s): the app's figures differ from the card's:\napp  %v\ncard %v", name, ext.Halite.Rule, course.Figures, ext.Halite.Figures)
 			}
+			found := false
+			for _, f := range course.Findings {
+				found = found || (f.Rule == ext.Halite.Rule && f.Order == draftRef(ctx.Review))
+			}
+			if !found {
+				t.Errorf("%s: the app does not find the card's %s for the order under review: %v", name, ext.Halite.Rule, course.Findings)
+			}
 			if len(course.Sodium) == 0 || len(course.Limits) == 0 {
 				t.Errorf("%s: the course has %d sodium values and %d limit lines", name, len(course.Sodium), len(course.Limits))
 			}
 		}
 	}
 	t.Logf("%d cards linking the app, each with the card's figures", linked)
-	if linked < 5 {
+	if linked != 18 { // the README says 18
 		t.Errorf("only %d cards link the app across the scenarios", linked)
 	}
 }
@@ -140,7 +163,7 @@ func appReads(t *testing.T, b *fhirmap.Bundle, patientID string, drafts []json.R
 			out = append(out, e.Resource)
 		}
 	}
-	for _, d := range drafts {
+	for _, d := range append(append([]json.RawMessage{}, drafts...), out...) {
 		var ref struct {
 			MedicationReference struct{ Reference string } `json:"medicationReference"`
 		}

@@ -102,7 +102,7 @@ func (d *smartDev) configuration(w http.ResponseWriter, _ *http.Request) {
 		"grant_types_supported":                 []string{"authorization_code"},
 		"code_challenge_methods_supported":      []string{"S256"},
 		"token_endpoint_auth_methods_supported": []string{"none"},
-		"scopes_supported":                      []string{"launch", "patient/*.rs", "patient/Patient.rs", "patient/Observation.rs", "patient/MedicationRequest.rs", "patient/MedicationAdministration.rs", "patient/Condition.rs", "patient/Medication.rs"},
+		"scopes_supported":                      []string{"launch", "patient/*.rs", "patient/Patient.rs", "patient/Observation.rs", "patient/MedicationRequest.rs", "patient/MedicationAdministration.rs", "patient/Condition.rs", "patient/Procedure.rs", "patient/Medication.rs"},
 		"response_types_supported":              []string{"code"},
 		"capabilities":                          []string{"launch-ehr", "client-public", "context-ehr-patient", "permission-patient", "permission-v2"},
 	})

@@ -105,10 +105,11 @@ function render(course) {
       label: `${o.kind === "reviewed" ? "Under review" : o.kind === "draft" ? "Drafted" : "Running"}: ${o.label}${o.rateMlPerHour ? ` at ${o.rateMlPerHour} mL/h` : ""}`,
       data: [{ x: hoursFrom(at, o.start), y: i + 1, t: o.start }, { x: hoursFrom(at, o.end), y: i + 1, t: o.end }],
       borderColor: colours[o.kind], backgroundColor: colours[o.kind], borderWidth: 10, pointRadius: 0,
-      borderDash: o.kind === "draft" ? [6, 3] : [], yAxisID: "orders",
+      borderDash: o.kind === "draft" ? [6, 3] : o.kind === "running" ? [2, 2] : [], yAxisID: "orders",
     });
   });
   const values = course.sodium.map((p) => p.value).concat(course.projection.map((p) => p.value), course.limits.map((l) => l.value));
+  if (!values.length) values.push(135, 145); // no value to draw: an axis around the normal range
   const config = {
     type: "line",
     data: { datasets },
@@ -217,24 +218,29 @@ async function main() {
   const patientId = client.getPatientId();
   if (!patientId) throw new Error("the launch named no patient");
   setStatus("Reading the chart…");
-  const [patient, observations, requests, administrations, conditions] = await Promise.all([
-    client.request(`Patient/${encodeURIComponent(patientId)}`),
-    readAll(client, `Observation?patient=${encodeURIComponent(patientId)}&_sort=-date&_count=500`),
-    readAll(client, `MedicationRequest?patient=${encodeURIComponent(patientId)}&status=active`),
-    readAll(client, `MedicationAdministration?patient=${encodeURIComponent(patientId)}&status=in-progress`),
-    readAll(client, `Condition?patient=${encodeURIComponent(patientId)}`),
+  // The searches of the infusion check's prefetch (hooks/services.go), so
+  // the computation sees what the card's did.
+  const pid = encodeURIComponent(patientId);
+  const [patient, observations, requests, administrations, procedures, conditions] = await Promise.all([
+    client.request(`Patient/${pid}`),
+    readAll(client, `Observation?patient=${pid}&_sort=-date&_count=500`),
+    readAll(client, `MedicationRequest?patient=${pid}&status=active`),
+    readAll(client, `MedicationAdministration?patient=${pid}&status=in-progress`),
+    readAll(client, `Procedure?patient=${pid}&status=completed`),
+    readAll(client, `Condition?patient=${pid}&clinical-status=active`),
   ]);
-  // Medications the draft orders refer to (the computation reads their
-  // ingredients); contained ones come with the draft.
-  const medRefs = [...new Set(context.drafts.map((d) => d.medicationReference && d.medicationReference.reference)
+  // Medications the orders refer to, drafted, active or running (the
+  // computation reads their ingredients); contained ones come with them.
+  const medRefs = [...new Set([...context.drafts, ...requests, ...administrations]
+    .map((d) => d.medicationReference && d.medicationReference.reference)
     .filter((r) => typeof r === "string" && /^Medication\/[A-Za-z0-9\-.]{1,64}$/.test(r)))];
   const medications = await Promise.all(medRefs.map((r) => client.request(r).catch(() => null)));
   setStatus("Computing…");
   await loadHalite();
   state.request = {
     at: context.at || new Date().toISOString(), patientId, server: client.state.serverUrl,
-    resources: [patient, ...observations, ...requests, ...administrations, ...conditions, ...medications.filter(Boolean)],
-    drafts: context.drafts, review: context.review || 0,
+    resources: [patient, ...observations, ...requests, ...administrations, ...procedures, ...conditions, ...medications.filter(Boolean)],
+    drafts: context.drafts, review: context.review || 0, rule: context.rule || "",
   };
   const first = compute();
   const reviewed = first.orders.find((o) => o.kind === "reviewed");

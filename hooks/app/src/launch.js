@@ -6,7 +6,7 @@ import FHIR from "fhirclient";
 
 FHIR.oauth2.authorize({
   clientId: "halite-sodium-course",
-  scope: "launch patient/Patient.rs patient/Observation.rs patient/MedicationRequest.rs patient/MedicationAdministration.rs patient/Condition.rs patient/Medication.rs",
+  scope: "launch patient/Patient.rs patient/Observation.rs patient/MedicationRequest.rs patient/MedicationAdministration.rs patient/Condition.rs patient/Procedure.rs patient/Medication.rs",
   redirectUri: "index.html",
   pkceMode: "required",
 }).catch((e) => {
