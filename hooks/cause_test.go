@@ -67,6 +67,7 @@ func TestCauseOfEveryErrorKind(t *testing.T) {
 		{KindUnavailable, ReasonCallTimeout, CauseHalite},
 		{KindUnavailable, ReasonBudget, CauseHalite},
 		{KindUnavailable, ReasonKeysTimeout, CauseCaller},
+		{KindUnavailable, ReasonCallerGone, CauseCaller},
 		{KindPrecondition, CodeNotSent, CauseCaller},
 		{KindPrecondition, CodeServerNotUsed, CauseConfiguration},
 		{KindPrecondition, CodeTokenMissing, CauseCaller},

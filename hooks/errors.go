@@ -54,6 +54,7 @@ const (
 	ReasonCallTimeout    = "call-timeout"     // the call's deadline ran out in halite (none of the above)
 	ReasonBudget         = "budget-exhausted" // the process's byte budget for data in flight is spent
 	ReasonKeysTimeout    = "keys-unavailable" // the caller's key set could not be had within the deadline
+	ReasonCallerGone     = "caller-gone"      // the EHR closed the call before it was answered
 )
 
 // ReasonNoStore is a 503 for feedback sent to a deployment that keeps no
@@ -106,6 +107,7 @@ var causeTable = map[string]string{
 	ReasonCallTimeout:    CauseHalite,
 	ReasonBudget:         CauseHalite,
 	ReasonKeysTimeout:    CauseCaller, // the issuer's key set did not come in time
+	ReasonCallerGone:     CauseCaller,
 	CodeNotSent:          CauseCaller,
 	CodeServerNotUsed:    CauseConfiguration,
 	CodeTokenMissing:     CauseCaller,

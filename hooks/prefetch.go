@@ -160,6 +160,10 @@ func optionalReserve(left time.Duration) time.Duration {
 // required data that could not be had.
 func requiredOutcome(ctx context.Context, out []Resolved, fetch Fetcher) error {
 	if ctx.Err() != nil {
+		if errors.Is(ctx.Err(), context.Canceled) {
+			return &Error{Kind: KindUnavailable, Reason: ReasonCallerGone,
+				Message: "the call was closed before it was answered", Err: ctx.Err()}
+		}
 		if fetch == nil {
 			return &Error{Kind: KindUnavailable, Reason: ReasonCallTimeout,
 				Message: "the call's time budget ran out", Err: ctx.Err()}

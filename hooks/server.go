@@ -89,7 +89,7 @@ func NewHandler(e *Engine, cfg ServerConfig, health *Health, log *slog.Logger) h
 	r.Use(otelgin.Middleware(cfg.ServerName, otelgin.WithTracerProvider(e.tel.provider), otelgin.WithMeterProvider(e.tel.meters),
 		otelgin.WithPropagators(propagation.NewCompositeTextMapPropagator(propagation.TraceContext{}, propagation.Baggage{})),
 		otelgin.WithGinFilter(func(c *gin.Context) bool { return !isProbe(c.Request.URL.Path) })),
-		gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.accessLog, s.cors)
+		s.accessLog, gin.CustomRecoveryWithWriter(io.Discard, s.recovered), s.cors) // a recovered panic is logged and counted
 	r.GET("/cds-services", s.discover)
 	r.POST("/cds-services/:id", s.call)
 	r.POST("/cds-services/:id/feedback", s.feedback)
@@ -560,7 +560,7 @@ func (s *server) accessLog(c *gin.Context) {
 func (s *server) zeroCounters() {
 	ctx := context.Background()
 	for _, reason := range []string{ReasonStoreBusy, ReasonStoreTimeout, ReasonStoreQueueFull, ReasonStoreFault, ReasonFHIRTimeout,
-		ReasonCallTimeout, ReasonBudget, ReasonKeysTimeout, ReasonNoStore} {
+		ReasonCallTimeout, ReasonBudget, ReasonKeysTimeout, ReasonNoStore, ReasonCallerGone} {
 		s.engine.tel.unavailable.Add(ctx, 0, metric.WithAttributes(attribute.String("reason", reason)))
 	}
 	for _, reason := range s.cfg.AuthFailureReasons {

@@ -71,7 +71,7 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 	t := &Telemetry{provider: tp, tracer: tp.Tracer("github.com/halite-cds/halite/hooks"), meters: mp}
 	var err, e error
 	t.requestDuration, e = m.Float64Histogram("halite.request.duration", metric.WithUnit("s"),
-		metric.WithDescription("Duration of hook and feedback calls by service, hook and HTTP status"),
+		metric.WithDescription("Duration of requests by route, service (hook and feedback calls), HTTP status and cause (failed calls)"),
 		metric.WithExplicitBucketBoundaries(DurationBuckets()...))
 	err = errors.Join(err, e)
 	t.cards, e = m.Int64Counter("halite.cards", metric.WithDescription("Cards returned, by rule and indicator"))
@@ -88,7 +88,7 @@ func NewTelemetry(tp trace.TracerProvider, mp metric.MeterProvider) (*Telemetry,
 		metric.WithDescription("Findings held back as repeats, by rule, indicator and reason (select-to-sign, overridden, chart-unchanged)"))
 	err = errors.Join(err, e)
 	t.unavailable, e = m.Int64Counter("halite.unavailable",
-		metric.WithDescription("Calls answered 503, by reason (store-busy, store-timeout, store-queue-full, store-fault, fhir-timeout, call-timeout, budget-exhausted, keys-unavailable)"))
+		metric.WithDescription("Calls answered 503, by reason (store-busy, store-timeout, store-queue-full, store-fault, fhir-timeout, call-timeout, budget-exhausted, keys-unavailable, no-store, caller-gone)"))
 	err = errors.Join(err, e)
 	t.storeFailures, e = m.Int64Counter("halite.store.failures",
 		metric.WithDescription("Store operations that failed, by operation (card-log, prior-cards, feedback, replay) and reason (store-busy, store-timeout, store-queue-full, store-fault)"))
@@ -137,7 +137,7 @@ type tracedFetcher struct {
 func newTracedFetcher(fetch Fetcher, t *Telemetry, base string) tracedFetcher {
 	f := tracedFetcher{next: fetch, t: t}
 	if u, err := url.Parse(base); err == nil {
-		f.host = u.Hostname()
+		f.host = strings.ToLower(u.Hostname()) // one series per server, however the caller spells it
 		f.port, _ = strconv.Atoi(u.Port())
 		if f.port == 0 && u.Scheme == "https" {
 			f.port = 443

@@ -258,9 +258,19 @@ func authReasons(cfg Config) []string {
 
 // serverName is the host the service is reached by: the public base URL's,
 // else the listen address.
+//
+// It always has a port (the URL's, else its scheme's), so the HTTP
+// instrumentation never takes one from the caller's Host header.
 func serverName(cfg Config) string {
 	if u, err := url.Parse(cfg.PublicBaseURL); err == nil && u.Host != "" {
-		return u.Host
+		port := u.Port()
+		if port == "" {
+			port = "443"
+			if u.Scheme == "http" {
+				port = "80"
+			}
+		}
+		return net.JoinHostPort(strings.ToLower(u.Hostname()), port)
 	}
 	return cfg.ListenAddr
 }

@@ -170,7 +170,7 @@ func (r recorder) PriorCards(ctx context.Context, q hooks.PriorQuery) ([]rules.S
 	prior, err := r.st.PriorCards(ctx, feedback.PriorQuery{Service: q.Service, Issuer: q.Issuer, Tenant: q.Tenant,
 		PatientHash: q.PatientHash, Since: q.Since, Until: q.Until})
 	if err != nil {
-		return nil, err
+		return nil, storeUnavailable(err, "the card log could not be read") // with its reason, for the store-failure counter
 	}
 	out := make([]rules.ShownCard, 0, len(prior))
 	for _, p := range prior {

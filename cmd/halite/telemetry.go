@@ -73,10 +73,12 @@ func setupTelemetry(ctx context.Context, getenv func(string) string, revision st
 	if err != nil {
 		return nil, err
 	}
+	// Every error the SDK reports (exports, the Prometheus exporter) is a
+	// JSON log line.
+	otel.SetErrorHandler(otel.ErrorHandlerFunc(func(err error) {
+		log.Error("telemetry export failed", "error", err.Error())
+	}))
 	if exporter != nil {
-		otel.SetErrorHandler(otel.ErrorHandlerFunc(func(err error) {
-			log.Error("telemetry export failed", "error", err.Error())
-		}))
 		opts = append(opts, sdktrace.WithBatcher(exporter))
 	}
 	log.Info("traces", "export", where)
