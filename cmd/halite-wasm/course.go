@@ -142,9 +142,9 @@ func ComputeCourse(rs *rules.Ruleset, req CourseRequest) (Course, error) {
 	for _, g := range facts.Gaps {
 		out.Missing = append(out.Missing, g.Reason)
 	}
-	// In hypernatremia the limits bound the fall from the peak (as the
-	// infusion check applies them).
-	// The latest sodium within the policy's age, as the assessment takes it.
+	// In hypernatremia the limits bound the fall from the peak, judged, as
+	// the infusion check judges it, on the latest sodium within the
+	// policy's age.
 	pr := rs.Policy().Projection
 	if na := facts.Labs[rules.Sodium]; len(na) > 0 {
 		last := na[len(na)-1]
